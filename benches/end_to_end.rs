@@ -1,0 +1,223 @@
+//! End-to-end bench: build over a word list, run typo queries, compare with brute force.
+//!
+//! Run with `cargo bench --bench end_to_end`. Everything is measured in one run on this
+//! machine, so compare the ratios (ours vs brute force), not the absolute figures.
+//!
+//! Settings through the environment (defaults in brackets):
+//! - `WAYMARK_BENCH_WORDS`  word list [/usr/share/dict/american-english, Debian's wamerican]
+//! - `WAYMARK_BENCH_QUERIES` number of typo queries [1000]
+//! - `WAYMARK_BENCH_DIMS` embedding dimensions to try [16,32,48]
+//! - `WAYMARK_BENCH_CANDIDATES` candidate counts to try [500,1000,2000,4000]
+//! - `WAYMARK_BENCH_SPACES` spaces to try [l1,l2,linf]
+//! - `WAYMARK_BENCH_TREE` also measure the kd-tree candidate source [1]
+//! - `WAYMARK_BENCH_K` neighbours per query [10]
+
+use std::path::PathBuf;
+use std::time::Instant;
+
+use waymark::eval::{scan_many, threshold_recall, typo_queries, Scan};
+use waymark::index::{build_index, BuildOptions, Index};
+use waymark::ingest::{read_corpus, IngestOptions};
+use waymark::search::{
+    CandidateSource, SearchParams, Searcher, Space, DEFAULT_CANDIDATES, DEFAULT_DIM,
+};
+
+fn env_list<T: std::str::FromStr>(name: &str, default: &str) -> Vec<T> {
+    std::env::var(name)
+        .unwrap_or_else(|_| default.to_string())
+        .split(',')
+        .filter_map(|s| s.trim().parse().ok())
+        .collect()
+}
+
+fn space(s: &str) -> Space {
+    match s {
+        "l1" => Space::L1,
+        "linf" => Space::Linf,
+        _ => Space::L2,
+    }
+}
+
+struct Row {
+    name: String,
+    qps: f64,
+    dists: f64,
+    recall: f64,
+}
+
+fn main() {
+    // Ignore the arguments cargo passes to bench binaries (e.g. --bench).
+    let words = PathBuf::from(
+        std::env::var("WAYMARK_BENCH_WORDS")
+            .unwrap_or_else(|_| "/usr/share/dict/american-english".into()),
+    );
+    if !words.exists() {
+        eprintln!(
+            "{} is missing: install Debian's wamerican (apt-get install -y wamerican)",
+            words.display()
+        );
+        return;
+    }
+    let nq: usize = env_list("WAYMARK_BENCH_QUERIES", "1000")[0];
+    let k: usize = env_list("WAYMARK_BENCH_K", "10")[0];
+    let dims: Vec<usize> = env_list("WAYMARK_BENCH_DIMS", "16,32,48");
+    let cands: Vec<usize> = env_list("WAYMARK_BENCH_CANDIDATES", "500,1000,2000,4000");
+    let spaces: Vec<String> = env_list("WAYMARK_BENCH_SPACES", "l1,l2,linf");
+    let with_tree = env_list::<u32>("WAYMARK_BENCH_TREE", "1")[0] != 0;
+    let threads = rayon::current_num_threads();
+
+    let t = Instant::now();
+    let corpus = read_corpus(&words, &IngestOptions::default()).expect("word list reads");
+    let read_s = t.elapsed().as_secs_f64();
+    let n = corpus.items.len();
+    let queries = typo_queries(&corpus.items, nq, 20261201);
+    println!(
+        "word list {} : {} items (read in {:.2} s); {} typo queries (1-3 edits); k = {}; {} threads",
+        words.display(),
+        n,
+        read_s,
+        nq,
+        k,
+        threads
+    );
+
+    let dir = tempfile::tempdir().expect("temp dir");
+    // Ground truth and the two brute forces.
+    let path0 = dir.path().join("default.wmk");
+    let t = Instant::now();
+    let report =
+        build_index(&corpus, "bench", &BuildOptions::default(), &path0, &|_| {}).expect("build");
+    let build_s = t.elapsed().as_secs_f64();
+    let t = Instant::now();
+    let index = Index::open(&path0).expect("open");
+    let searcher = Searcher::new(&index);
+    let first = searcher
+        .search(
+            &queries[0],
+            &SearchParams::from_index(&index, k),
+            &mut Default::default(),
+        )
+        .expect("query");
+    let open_ms = t.elapsed().as_secs_f64() * 1e3;
+    assert!(!first.neighbors.is_empty());
+
+    let t = Instant::now();
+    let truth = scan_many(&index, &queries, k, Scan::Full);
+    let full_s = t.elapsed().as_secs_f64();
+    let t = Instant::now();
+    let best = scan_many(&index, &queries, k, Scan::Best);
+    let best_s = t.elapsed().as_secs_f64();
+    for (a, b) in truth.iter().zip(&best) {
+        assert_eq!(a, b, "the two brute forces disagree");
+    }
+    let truth_d: Vec<Vec<f64>> = truth
+        .iter()
+        .map(|t| t.iter().map(|n| n.distance).collect())
+        .collect();
+    let full_qps = nq as f64 / full_s;
+    let best_qps = nq as f64 / best_s;
+    println!(
+        "default build (d = {DEFAULT_DIM}, C = {DEFAULT_CANDIDATES}): {:.2} s, index {:.1} MB ({} bytes), open + first query {:.2} ms",
+        build_s,
+        report.file_len as f64 / 1e6,
+        report.file_len,
+        open_ms
+    );
+    println!(
+        "full scan: {:.1} q/s, {:.1} M pairs/s | best scan: {:.1} q/s",
+        full_qps,
+        full_qps * n as f64 / 1e6,
+        best_qps
+    );
+
+    let mut rows = vec![
+        Row {
+            name: "full scan (unbounded, all cores)".into(),
+            qps: full_qps,
+            dists: n as f64,
+            recall: 1.0,
+        },
+        Row {
+            name: "best scan (bounded, running k-th)".into(),
+            qps: best_qps,
+            dists: n as f64,
+            recall: 1.0,
+        },
+    ];
+    for &d in &dims {
+        let path = dir.path().join(format!("d{d}.wmk"));
+        let t = Instant::now();
+        build_index(
+            &corpus,
+            "bench",
+            &BuildOptions {
+                dim: d,
+                ..BuildOptions::default()
+            },
+            &path,
+            &|_| {},
+        )
+        .expect("build");
+        let b_s = t.elapsed().as_secs_f64();
+        let idx = Index::open(&path).expect("open");
+        let s = Searcher::new(&idx);
+        println!("built d = {d} in {b_s:.2} s");
+        for sp in &spaces {
+            let mut sources = vec![CandidateSource::Scan];
+            if with_tree {
+                sources.push(CandidateSource::Tree);
+            }
+            for &src in &sources {
+                for &c in &cands {
+                    let p = SearchParams {
+                        k,
+                        candidates: c,
+                        space: space(sp),
+                        source: src,
+                    };
+                    let t = Instant::now();
+                    let found = s.search_many(&queries, &p);
+                    let secs = t.elapsed().as_secs_f64();
+                    let mut rec = 0.0;
+                    let mut dist = 0usize;
+                    for (f, td) in found.iter().zip(&truth_d) {
+                        let f = f.as_ref().expect("query");
+                        dist += f.distances;
+                        let got: Vec<(u32, f64)> =
+                            f.neighbors.iter().map(|n| (n.index, n.distance)).collect();
+                        rec += threshold_recall(td, &got, k);
+                    }
+                    rows.push(Row {
+                        name: format!(
+                            "d={d:<2} {:<4} {:<4} C={c}",
+                            sp,
+                            match src {
+                                CandidateSource::Scan => "scan",
+                                CandidateSource::Tree => "tree",
+                            }
+                        ),
+                        qps: nq as f64 / secs,
+                        dists: dist as f64 / nq as f64,
+                        recall: rec / nq as f64,
+                    });
+                }
+            }
+        }
+    }
+    println!();
+    println!(
+        "{:<36} {:>10} {:>12} {:>10} {:>10} {:>11}",
+        "configuration", "q/s", "dist/query", "recall@k", "vs full", "vs best"
+    );
+    for r in &rows {
+        println!(
+            "{:<36} {:>10.1} {:>12.1} {:>10.4} {:>9.1}x {:>10.2}x",
+            r.name,
+            r.qps,
+            r.dists,
+            r.recall,
+            r.qps / full_qps,
+            r.qps / best_qps
+        );
+    }
+}

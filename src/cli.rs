@@ -1,0 +1,577 @@
+//! The command line: argument definitions (all in this file) and the commands behind them.
+//!
+//! Exit codes: 0 success; 1 an unexpected failure (e.g. writing the output failed);
+//! 2 bad usage or bad input (unknown option, invalid value, unreadable or malformed input
+//! file); 3 the index file was refused (not an index, another format version, corrupt or
+//! truncated). A closed output pipe (`waymark query … | head`) ends the command with 0.
+
+use std::io::{BufRead, BufWriter, IsTerminal, Write};
+use std::path::{Path, PathBuf};
+use std::process::ExitCode;
+use std::time::Instant;
+
+use anyhow::Context;
+use clap::{Parser, Subcommand, ValueEnum};
+
+use crate::error::Error;
+use crate::index::{build_index, BuildOptions, IdRef, Index};
+use crate::ingest::{read_corpus, IngestOptions, InputFormat, Normalize};
+use crate::search::{CandidateSource, Found, SearchParams, Searcher, Space};
+
+/// Near-neighbour search for strings that are not vectors.
+#[derive(Debug, Parser)]
+#[command(name = "waymark", version, about, long_about = None)]
+pub struct Args {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Debug, Subcommand)]
+enum Command {
+    /// Build an index from a file of items.
+    Build(BuildArgs),
+    /// Find the nearest items for queries read from stdin or a file (JSON Lines out).
+    Query(QueryArgs),
+    /// Show what an index holds; --verify checks every checksum.
+    Inspect(InspectArgs),
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+enum FormatArg {
+    /// One item per line.
+    Text,
+    /// Comma-separated values with a header row.
+    Csv,
+    /// Tab-separated values with a header row.
+    Tsv,
+    /// One JSON object per line.
+    Jsonl,
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+enum SpaceArg {
+    L1,
+    L2,
+    Linf,
+}
+
+impl From<SpaceArg> for Space {
+    fn from(s: SpaceArg) -> Space {
+        match s {
+            SpaceArg::L1 => Space::L1,
+            SpaceArg::L2 => Space::L2,
+            SpaceArg::Linf => Space::Linf,
+        }
+    }
+}
+
+#[derive(Debug, clap::Args)]
+struct BuildArgs {
+    /// Input file: text (one item per line), .csv/.tsv (with --field) or .jsonl (with --field).
+    input: PathBuf,
+    /// Where to write the index (replaced atomically).
+    #[arg(short = 'o', long = "output", value_name = "INDEX")]
+    output: PathBuf,
+    /// Embedding dimension: the number of landmarks (1 to 64).
+    #[arg(long = "dim", value_name = "D", default_value_t = crate::search::DEFAULT_DIM)]
+    dim: usize,
+    /// Seed of the landmark choice; the same seed and input give the same index.
+    #[arg(long, value_name = "S", default_value_t = 0)]
+    seed: u64,
+    /// Input format; by default from the file extension (.csv, .tsv, .jsonl, else text).
+    #[arg(long = "input-format", value_enum, value_name = "FORMAT")]
+    input_format: Option<FormatArg>,
+    /// The column (header name or 0-based number) or JSON field holding the items.
+    #[arg(long, value_name = "NAME")]
+    field: Option<String>,
+    /// The column or JSON field holding the ids (default: 0-based record number).
+    #[arg(long = "id-field", value_name = "NAME")]
+    id_field: Option<String>,
+    /// Compare items and queries ignoring case (stored in the index, applied to queries).
+    #[arg(long = "fold-case")]
+    fold_case: bool,
+    /// Compare items and queries without leading and trailing white space.
+    #[arg(long)]
+    trim: bool,
+    /// Default number of candidates re-ranked per query, stored in the index.
+    #[arg(long, value_name = "C", default_value_t = crate::search::DEFAULT_CANDIDATES)]
+    candidates: usize,
+    /// Default space candidates are ranked in, stored in the index.
+    #[arg(long, value_enum, default_value = "l2")]
+    space: SpaceArg,
+    /// Number of items landmarks are chosen from.
+    #[arg(long = "landmark-sample", value_name = "N", default_value_t = 4096)]
+    landmark_sample: usize,
+    /// Print nothing on success.
+    #[arg(short, long)]
+    quiet: bool,
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+enum OutFormat {
+    /// One JSON object per query.
+    Json,
+    /// One tab-separated line per neighbour: query, rank, id, item, distance.
+    Tsv,
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+enum SourceArg {
+    /// A SIMD pass over the compact coordinates.
+    Scan,
+    /// The kd-tree's exact nearest-n search on the coordinates.
+    Tree,
+}
+
+#[derive(Debug, clap::Args)]
+struct QueryArgs {
+    /// The index file.
+    index: PathBuf,
+    /// Number of neighbours per query.
+    #[arg(short = 'k', value_name = "K", default_value_t = 10)]
+    k: usize,
+    /// Candidates re-ranked by the true distance (default: stored in the index).
+    #[arg(long, value_name = "C")]
+    candidates: Option<usize>,
+    /// Space candidates are ranked in (default: stored in the index).
+    #[arg(long, value_enum)]
+    space: Option<SpaceArg>,
+    /// Where candidates come from.
+    #[arg(long = "candidates-from", value_enum, default_value = "scan")]
+    candidates_from: SourceArg,
+    /// Read queries from this file instead of stdin, one per line.
+    #[arg(long, value_name = "FILE")]
+    queries: Option<PathBuf>,
+    /// Output format.
+    #[arg(long, value_enum, default_value = "json")]
+    format: OutFormat,
+    /// Add per-query cost figures (distances computed, candidates pruned) to JSON output.
+    #[arg(long)]
+    stats: bool,
+}
+
+#[derive(Debug, clap::Args)]
+struct InspectArgs {
+    /// The index file.
+    index: PathBuf,
+    /// Read the whole file and check every section's checksum.
+    #[arg(long)]
+    verify: bool,
+    /// Print as one JSON object.
+    #[arg(long)]
+    json: bool,
+}
+
+/// Runs the command line and returns the process exit code.
+pub fn main() -> ExitCode {
+    let args = match Args::try_parse() {
+        Ok(a) => a,
+        Err(e) => {
+            let code = if e.use_stderr() { 2 } else { 0 };
+            let _ = e.print();
+            return ExitCode::from(code);
+        }
+    };
+    match run(args) {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(e) => {
+            if is_broken_pipe(&e) {
+                return ExitCode::SUCCESS;
+            }
+            let mut msg = format!("waymark: error: {e}");
+            for cause in e.chain().skip(1) {
+                msg.push_str(&format!(": {cause}"));
+            }
+            eprintln!("{msg}");
+            ExitCode::from(exit_code(&e))
+        }
+    }
+}
+
+fn is_broken_pipe(e: &anyhow::Error) -> bool {
+    e.chain().any(|c| {
+        c.downcast_ref::<std::io::Error>()
+            .is_some_and(|io| io.kind() == std::io::ErrorKind::BrokenPipe)
+    })
+}
+
+fn exit_code(e: &anyhow::Error) -> u8 {
+    for c in e.chain() {
+        if let Some(err) = c.downcast_ref::<Error>() {
+            return match err {
+                Error::Index { .. } => 3,
+                Error::Ingest(_) | Error::Usage(_) | Error::Io { .. } => 2,
+            };
+        }
+        if c.downcast_ref::<crate::ingest::IngestError>().is_some() {
+            return 2;
+        }
+    }
+    1
+}
+
+fn run(args: Args) -> anyhow::Result<()> {
+    match args.command {
+        Command::Build(a) => build(a),
+        Command::Query(a) => query(a),
+        Command::Inspect(a) => inspect(a),
+    }
+}
+
+fn build(a: BuildArgs) -> anyhow::Result<()> {
+    let t0 = Instant::now();
+    let normalize = Normalize {
+        fold_case: a.fold_case,
+        trim: a.trim,
+    };
+    let format = a.input_format.map(|f| match f {
+        FormatArg::Text => InputFormat::Text,
+        FormatArg::Csv => InputFormat::Csv { delimiter: b',' },
+        FormatArg::Tsv => InputFormat::Csv { delimiter: b'\t' },
+        FormatArg::Jsonl => InputFormat::JsonLines,
+    });
+    let opts = IngestOptions {
+        format,
+        field: a.field.clone(),
+        id_field: a.id_field.clone(),
+        normalize,
+    };
+    if a.dim == 0 || a.dim > crate::embed::MAX_DIM {
+        return Err(Error::Usage(format!(
+            "--dim must be between 1 and {}, not {}",
+            crate::embed::MAX_DIM,
+            a.dim
+        ))
+        .into());
+    }
+    let corpus = read_corpus(&a.input, &opts).map_err(Error::from)?;
+    let read_seconds = t0.elapsed().as_secs_f64();
+    let n = corpus.items.len();
+    let bar = if std::io::stderr().is_terminal() && !a.quiet {
+        let b = indicatif::ProgressBar::new(n as u64);
+        b.set_style(
+            indicatif::ProgressStyle::with_template(
+                "embedding {bar:40} {pos}/{len} items ({eta} left)",
+            )
+            .expect("valid template"),
+        );
+        b
+    } else {
+        indicatif::ProgressBar::hidden()
+    };
+    let source = a.input.display().to_string();
+    let report = build_index(
+        &corpus,
+        &source,
+        &BuildOptions {
+            metric: crate::metric::MetricKind::Levenshtein,
+            dim: a.dim,
+            seed: a.seed,
+            sample: a.landmark_sample,
+            candidates: a.candidates,
+            space: a.space.into(),
+            normalize,
+        },
+        &a.output,
+        &|done| bar.inc(done as u64),
+    )?;
+    bar.finish_and_clear();
+    if !a.quiet {
+        let m = &report.meta;
+        let mut out = std::io::stdout().lock();
+        writeln!(
+            out,
+            "indexed {} items from {} into {} ({}, {} landmarks, {:.1} MB) in {:.2} s",
+            m.n,
+            source,
+            a.output.display(),
+            m.metric,
+            m.dim,
+            report.file_len as f64 / 1e6,
+            t0.elapsed().as_secs_f64()
+        )?;
+        if m.blank_skipped > 0 {
+            writeln!(out, "skipped {} blank records", m.blank_skipped)?;
+        }
+        if (m.dim as usize) < a.dim {
+            writeln!(
+                out,
+                "note: only {} distinct landmarks could be chosen (asked for {})",
+                m.dim, a.dim
+            )?;
+        }
+        writeln!(
+            out,
+            "time: read {:.2} s, embed {:.2} s, tree {:.2} s, write {:.2} s",
+            read_seconds, report.embed_seconds, report.tree_seconds, report.write_seconds
+        )?;
+    }
+    Ok(())
+}
+
+fn open_index(path: &Path) -> anyhow::Result<Index> {
+    Ok(Index::open(path)?)
+}
+
+fn query(a: QueryArgs) -> anyhow::Result<()> {
+    let index = open_index(&a.index)?;
+    let mut params = SearchParams::from_index(&index, a.k);
+    if let Some(c) = a.candidates {
+        params.candidates = c;
+    }
+    if let Some(s) = a.space {
+        params.space = s.into();
+    }
+    params.source = match a.candidates_from {
+        SourceArg::Scan => CandidateSource::Scan,
+        SourceArg::Tree => CandidateSource::Tree,
+    };
+    if params.k == 0 {
+        return Err(Error::Usage("-k must be at least 1".into()).into());
+    }
+    if params.candidates == 0 {
+        return Err(Error::Usage("--candidates must be at least 1".into()).into());
+    }
+    let searcher = Searcher::new(&index);
+    let (reader, name): (Box<dyn BufRead>, String) = match &a.queries {
+        Some(p) => (
+            Box::new(std::io::BufReader::new(std::fs::File::open(p).map_err(
+                |source| Error::Io {
+                    path: p.clone(),
+                    source,
+                },
+            )?)),
+            p.display().to_string(),
+        ),
+        None => (Box::new(std::io::stdin().lock()), "<stdin>".to_string()),
+    };
+    let stdout = std::io::stdout();
+    let mut out = BufWriter::new(stdout.lock());
+    let mut lines = QueryLines {
+        reader,
+        line: 0,
+        name,
+    };
+    const BLOCK: usize = 1024;
+    loop {
+        let block = lines.next_block(BLOCK)?;
+        if block.is_empty() {
+            break;
+        }
+        let answers = searcher.search_many(&block, &params);
+        for (q, ans) in block.iter().zip(answers) {
+            let found = ans?;
+            match a.format {
+                OutFormat::Json => write_json(&mut out, &index, q, &found, a.stats)?,
+                OutFormat::Tsv => write_tsv(&mut out, &index, q, &found)?,
+            }
+        }
+        out.flush().context("writing the answers")?;
+    }
+    out.flush().context("writing the answers")?;
+    Ok(())
+}
+
+struct QueryLines {
+    reader: Box<dyn BufRead>,
+    line: usize,
+    name: String,
+}
+
+impl QueryLines {
+    fn next_block(&mut self, max: usize) -> anyhow::Result<Vec<String>> {
+        let mut block = Vec::new();
+        let mut buf = Vec::new();
+        while block.len() < max {
+            buf.clear();
+            let got = self
+                .reader
+                .read_until(b'\n', &mut buf)
+                .with_context(|| format!("reading queries from {}", self.name))?;
+            if got == 0 {
+                break;
+            }
+            self.line += 1;
+            if buf.last() == Some(&b'\n') {
+                buf.pop();
+            }
+            if buf.last() == Some(&b'\r') {
+                buf.pop();
+            }
+            let s = String::from_utf8(std::mem::take(&mut buf)).map_err(|e| {
+                Error::Usage(format!(
+                    "{}:{}: the query is not valid UTF-8 (byte {})",
+                    self.name,
+                    self.line,
+                    e.utf8_error().valid_up_to() + 1
+                ))
+            })?;
+            block.push(s);
+        }
+        Ok(block)
+    }
+}
+
+fn id_json(id: IdRef<'_>) -> serde_json::Value {
+    match id {
+        IdRef::Int(v) => serde_json::Value::from(v),
+        IdRef::Text(b) => serde_json::Value::from(String::from_utf8_lossy(b).into_owned()),
+    }
+}
+
+fn distance_json(d: f64) -> serde_json::Value {
+    if d.fract() == 0.0 && d.abs() < 9e15 {
+        serde_json::Value::from(d as i64)
+    } else {
+        serde_json::Value::from(d)
+    }
+}
+
+fn write_json(
+    out: &mut impl Write,
+    index: &Index,
+    query: &str,
+    found: &Found,
+    stats: bool,
+) -> anyhow::Result<()> {
+    let neighbors: Vec<serde_json::Value> = found
+        .neighbors
+        .iter()
+        .map(|n| {
+            serde_json::json!({
+                "id": id_json(index.id(n.index as usize)),
+                "item": String::from_utf8_lossy(index.item(n.index as usize)),
+                "distance": distance_json(n.distance),
+            })
+        })
+        .collect();
+    let mut obj = serde_json::json!({ "query": query, "neighbors": neighbors });
+    if stats {
+        obj["distances"] = found.distances.into();
+        obj["pruned"] = found.pruned.into();
+    }
+    serde_json::to_writer(&mut *out, &obj)?;
+    out.write_all(b"\n")?;
+    Ok(())
+}
+
+/// Escapes a TSV field: backslash, tab, newline and carriage return become `\\ \t \n \r`.
+fn tsv_field(s: &str) -> std::borrow::Cow<'_, str> {
+    if !s.contains(['\\', '\t', '\n', '\r']) {
+        return s.into();
+    }
+    let mut o = String::with_capacity(s.len() + 4);
+    for c in s.chars() {
+        match c {
+            '\\' => o.push_str("\\\\"),
+            '\t' => o.push_str("\\t"),
+            '\n' => o.push_str("\\n"),
+            '\r' => o.push_str("\\r"),
+            c => o.push(c),
+        }
+    }
+    o.into()
+}
+
+fn write_tsv(
+    out: &mut impl Write,
+    index: &Index,
+    query: &str,
+    found: &Found,
+) -> anyhow::Result<()> {
+    for (rank, n) in found.neighbors.iter().enumerate() {
+        let id = match index.id(n.index as usize) {
+            IdRef::Int(v) => v.to_string(),
+            IdRef::Text(b) => String::from_utf8_lossy(b).into_owned(),
+        };
+        let item = String::from_utf8_lossy(index.item(n.index as usize));
+        writeln!(
+            out,
+            "{}\t{}\t{}\t{}\t{}",
+            tsv_field(query),
+            rank + 1,
+            tsv_field(&id),
+            tsv_field(&item),
+            distance_json(n.distance)
+        )?;
+    }
+    Ok(())
+}
+
+fn inspect(a: InspectArgs) -> anyhow::Result<()> {
+    let index = open_index(&a.index)?;
+    let t = Instant::now();
+    let verified = if a.verify {
+        index.verify()?;
+        Some(t.elapsed().as_secs_f64())
+    } else {
+        None
+    };
+    let m = index.meta();
+    let landmarks: Vec<String> = m
+        .landmarks
+        .iter()
+        .map(|&l| String::from_utf8_lossy(index.item(l as usize)).into_owned())
+        .collect();
+    let sections: Vec<(&str, usize)> = index.sections().collect();
+    let mut out = std::io::stdout().lock();
+    if a.json {
+        let obj = serde_json::json!({
+            "path": a.index.display().to_string(),
+            "format_version": crate::index::file::FORMAT_VERSION,
+            "file_bytes": index.file_len(),
+            "meta": m,
+            "landmark_items": landmarks,
+            "sections": sections.iter().map(|(k, l)| serde_json::json!({"name": k, "bytes": l})).collect::<Vec<_>>(),
+            "verified": verified.is_some(),
+        });
+        serde_json::to_writer_pretty(&mut out, &obj)?;
+        writeln!(out)?;
+        return Ok(());
+    }
+    writeln!(out, "index         {}", a.index.display())?;
+    writeln!(
+        out,
+        "format        waymark index, version {}",
+        crate::index::file::FORMAT_VERSION
+    )?;
+    writeln!(out, "written by    {}", m.written_by)?;
+    writeln!(
+        out,
+        "items         {} (from {}: {} records, {} blank skipped)",
+        m.n, m.source, m.records, m.blank_skipped
+    )?;
+    writeln!(out, "ids           {:?}", m.ids)?;
+    writeln!(out, "metric        {}", m.metric)?;
+    writeln!(
+        out,
+        "normalise     fold-case {}, trim {}",
+        m.normalize.fold_case, m.normalize.trim
+    )?;
+    writeln!(
+        out,
+        "embedding     {} landmarks, farthest-first from a sample of {} (seed {})",
+        m.dim, m.sample, m.seed
+    )?;
+    writeln!(out, "landmarks     {}", landmarks.join(" | "))?;
+    writeln!(
+        out,
+        "coordinates   u8, {} bytes per item; kd-tree of dimension {} (f32)",
+        m.stride, m.tree_dim
+    )?;
+    writeln!(
+        out,
+        "query default {} candidates ranked in {}",
+        m.candidates,
+        m.space.name()
+    )?;
+    writeln!(out, "file size     {} bytes", index.file_len())?;
+    for (name, len) in &sections {
+        writeln!(out, "  section     {name:<14} {len:>12} bytes")?;
+    }
+    match verified {
+        Some(s) => writeln!(out, "verified      every checksum matches ({s:.3} s)")?,
+        None => writeln!(out, "verified      not checked (use --verify)")?,
+    }
+    Ok(())
+}

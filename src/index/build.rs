@@ -1,0 +1,193 @@
+//! Building an index: choose landmarks, embed every item, build the tree, write the file.
+
+use std::path::Path;
+use std::time::Instant;
+
+use super::file::{ContainerWriter, SectionKind};
+use super::{coord_stride, tree, IdKind, IndexMeta};
+use crate::embed::{choose_landmarks, embed_all, LandmarkOptions, MAX_DIM};
+use crate::error::{Error, Result};
+use crate::ingest::{Corpus, Ids, Normalize};
+use crate::metric::{Levenshtein, Metric, MetricKind};
+use crate::search::Space;
+
+/// Parameters of a build.
+#[derive(Clone, Debug)]
+pub struct BuildOptions {
+    /// The metric (only Levenshtein so far).
+    pub metric: MetricKind,
+    /// Embedding dimension: number of landmarks, 1 to 64.
+    pub dim: usize,
+    /// Seed of the landmark sample.
+    pub seed: u64,
+    /// Size of the sample landmarks are chosen from.
+    pub sample: usize,
+    /// Default candidates per query stored in the index.
+    pub candidates: usize,
+    /// Default candidate space stored in the index.
+    pub space: Space,
+    /// The normalisation the corpus keys were made with; queries get the same.
+    pub normalize: Normalize,
+}
+
+impl Default for BuildOptions {
+    fn default() -> Self {
+        BuildOptions {
+            metric: MetricKind::Levenshtein,
+            dim: crate::search::DEFAULT_DIM,
+            seed: 0,
+            sample: 4096,
+            candidates: crate::search::DEFAULT_CANDIDATES,
+            space: Space::default(),
+            normalize: Normalize::default(),
+        }
+    }
+}
+
+/// What a build did, for the command's summary.
+#[derive(Clone, Debug)]
+pub struct BuildReport {
+    /// The metadata written.
+    pub meta: IndexMeta,
+    /// Size of the file written.
+    pub file_len: u64,
+    /// Seconds spent choosing landmarks and embedding.
+    pub embed_seconds: f64,
+    /// Seconds spent building the kd-tree.
+    pub tree_seconds: f64,
+    /// Seconds spent writing the file.
+    pub write_seconds: f64,
+}
+
+fn string_sections(strings: impl ExactSizeIterator<Item = impl AsRef<[u8]>>) -> (Vec<u8>, Vec<u8>) {
+    let mut offsets = Vec::with_capacity((strings.len() + 1) * 8);
+    let mut bytes = Vec::new();
+    offsets.extend_from_slice(&0u64.to_le_bytes());
+    for s in strings {
+        bytes.extend_from_slice(s.as_ref());
+        offsets.extend_from_slice(&(bytes.len() as u64).to_le_bytes());
+    }
+    (offsets, bytes)
+}
+
+/// Builds an index of `corpus` at `dest`, atomically replacing any file there.
+///
+/// `progress` is called with the number of items embedded since the last call.
+pub fn build_index(
+    corpus: &Corpus,
+    source: &str,
+    opts: &BuildOptions,
+    dest: &Path,
+    progress: &(dyn Fn(usize) + Sync),
+) -> Result<BuildReport> {
+    if opts.dim == 0 || opts.dim > MAX_DIM {
+        return Err(Error::Usage(format!(
+            "--dim must be between 1 and {MAX_DIM}, not {}",
+            opts.dim
+        )));
+    }
+    if opts.candidates == 0 {
+        return Err(Error::Usage("--candidates must be at least 1".into()));
+    }
+    let n = corpus.items.len();
+    if n == 0 {
+        return Err(Error::Usage(format!("{source}: no items to index")));
+    }
+    if n > u32::MAX as usize {
+        return Err(Error::Usage(format!(
+            "{source}: {n} items; an index holds at most {} items",
+            u32::MAX
+        )));
+    }
+    // Start the file first: an unwritable destination fails before the expensive part.
+    let mut writer = ContainerWriter::create(dest)?;
+    let keys: &[String] = corpus.keys.as_deref().unwrap_or(&corpus.items);
+
+    let t0 = Instant::now();
+    let metric = Levenshtein;
+    let landmarks = choose_landmarks(
+        &metric,
+        keys,
+        &LandmarkOptions {
+            dim: opts.dim,
+            sample: opts.sample,
+            seed: opts.seed,
+        },
+    );
+    let dim = landmarks.len();
+    let coords = embed_all(&metric, keys, &landmarks, progress);
+    let embed_seconds = t0.elapsed().as_secs_f64();
+
+    let stride = coord_stride(dim);
+    let mut small = vec![0u8; n * stride];
+    for (row, c) in small.chunks_exact_mut(stride).zip(coords.chunks_exact(dim)) {
+        for (b, &x) in row.iter_mut().zip(c) {
+            // Saturating keeps the L∞ lower bound valid: clamping is 1-Lipschitz.
+            *b = x.clamp(0.0, 255.0) as u8;
+        }
+    }
+    let t1 = Instant::now();
+    let f32s: Vec<f32> = coords.iter().map(|&x| x as f32).collect();
+    drop(coords);
+    let tree_bytes = tree::build(&f32s, dim).map_err(|e| Error::Index {
+        path: dest.to_path_buf(),
+        message: format!("building the kd-tree failed: {e}"),
+    })?;
+    drop(f32s);
+    let tree_seconds = t1.elapsed().as_secs_f64();
+
+    let t2 = Instant::now();
+    let meta = IndexMeta {
+        n: n as u64,
+        metric: metric.kind(),
+        normalize: opts.normalize,
+        dim: dim as u32,
+        stride: stride as u32,
+        tree_dim: tree::tree_dim(dim) as u32,
+        landmarks: landmarks.iter().map(|&l| l as u64).collect(),
+        seed: opts.seed,
+        sample: opts.sample.min(n) as u64,
+        ids: match corpus.ids {
+            Ids::Int(_) => IdKind::Int,
+            Ids::Text(_) => IdKind::Text,
+        },
+        candidates: opts.candidates.min(u32::MAX as usize) as u32,
+        space: opts.space,
+        source: source.to_string(),
+        records: corpus.records as u64,
+        blank_skipped: corpus.blank_skipped as u64,
+        written_by: format!("waymark {}", env!("CARGO_PKG_VERSION")),
+    };
+    let meta_json = serde_json::to_vec_pretty(&meta).expect("metadata serialises");
+    writer.add(SectionKind::Meta, &meta_json)?;
+    let (o, b) = string_sections(corpus.items.iter());
+    writer.add(SectionKind::ItemOffsets, &o)?;
+    writer.add(SectionKind::ItemBytes, &b)?;
+    if let Some(k) = &corpus.keys {
+        let (o, b) = string_sections(k.iter());
+        writer.add(SectionKind::KeyOffsets, &o)?;
+        writer.add(SectionKind::KeyBytes, &b)?;
+    }
+    match &corpus.ids {
+        Ids::Int(v) => {
+            let bytes: Vec<u8> = v.iter().flat_map(|x| x.to_le_bytes()).collect();
+            writer.add(SectionKind::IdInts, &bytes)?;
+        }
+        Ids::Text(v) => {
+            let (o, b) = string_sections(v.iter());
+            writer.add(SectionKind::IdOffsets, &o)?;
+            writer.add(SectionKind::IdBytes, &b)?;
+        }
+    }
+    writer.add(SectionKind::Coords, &small)?;
+    writer.add_aligned(SectionKind::Tree, &tree_bytes, super::file::TREE_ALIGN)?;
+    writer.finish()?;
+    let file_len = std::fs::metadata(dest).map(|m| m.len()).unwrap_or(0);
+    Ok(BuildReport {
+        meta,
+        file_len,
+        embed_seconds,
+        tree_seconds,
+        write_seconds: t2.elapsed().as_secs_f64(),
+    })
+}

@@ -1,0 +1,365 @@
+//! The container format: a header, a section table and checksummed sections in one file.
+//!
+//! ```text
+//! offset 0    header, 64 bytes
+//!   0..8      magic  b"WAYMARK\0"
+//!   8..12     format version, u32 LE
+//!   12..16    number of sections, u32 LE
+//!   16..24    total file length, u64 LE (catches truncation at open)
+//!   24..28    CRC-32 of the section table
+//!   28..32    CRC-32 of the header with this field zeroed
+//!   32..64    zero
+//! offset 64   section table, MAX_SECTIONS entries of 32 bytes
+//!   kind u32, flags u32 (0), offset u64, length u64, CRC-32 u32, zero u32
+//! then        sections, each starting on a 64-byte boundary, the kd-tree on a 4096-byte
+//!             one (it is read in place and its archive needs 128-byte alignment), zero
+//!             padding between them
+//! ```
+//!
+//! All integers are little-endian. Writes go to a temporary file in the destination folder;
+//! the header is written last, then the file is flushed to disk, renamed over the
+//! destination and the folder is flushed: an interrupted build leaves the old index or none.
+
+use std::fs::File;
+use std::io::{Seek, SeekFrom, Write};
+use std::ops::Range;
+use std::path::{Path, PathBuf};
+
+use crate::error::{Error, Result};
+
+/// Magic number at the start of every index file.
+pub const MAGIC: &[u8; 8] = b"WAYMARK\0";
+/// The format version this build writes and reads.
+pub const FORMAT_VERSION: u32 = 1;
+/// Size of the fixed header.
+pub const HEADER_LEN: usize = 64;
+/// Number of slots in the section table.
+pub const MAX_SECTIONS: usize = 16;
+const ENTRY_LEN: usize = 32;
+const TABLE_LEN: usize = MAX_SECTIONS * ENTRY_LEN;
+/// Alignment of every section.
+pub const ALIGN: usize = 64;
+/// Alignment of the kd-tree section (a page: more than its archive needs).
+pub const TREE_ALIGN: usize = 4096;
+
+/// The kinds of section an index holds.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[repr(u32)]
+pub enum SectionKind {
+    /// Build parameters and counts, as JSON.
+    Meta = 1,
+    /// `n + 1` u64 offsets into [`SectionKind::ItemBytes`].
+    ItemOffsets = 2,
+    /// The items as given (UTF-8), back to back.
+    ItemBytes = 3,
+    /// `n + 1` u64 offsets into [`SectionKind::KeyBytes`] (only when normalisation changes items).
+    KeyOffsets = 4,
+    /// The comparison forms of the items after normalisation.
+    KeyBytes = 5,
+    /// `n` i64 ids.
+    IdInts = 6,
+    /// `n + 1` u64 offsets into [`SectionKind::IdBytes`].
+    IdOffsets = 7,
+    /// Text ids, back to back.
+    IdBytes = 8,
+    /// `n × stride` u8 landmark coordinates, saturated at 255.
+    Coords = 9,
+    /// The kd-tree over the f32 coordinates, as a zero-copy archive.
+    Tree = 10,
+}
+
+impl SectionKind {
+    const ALL: [SectionKind; 10] = [
+        SectionKind::Meta,
+        SectionKind::ItemOffsets,
+        SectionKind::ItemBytes,
+        SectionKind::KeyOffsets,
+        SectionKind::KeyBytes,
+        SectionKind::IdInts,
+        SectionKind::IdOffsets,
+        SectionKind::IdBytes,
+        SectionKind::Coords,
+        SectionKind::Tree,
+    ];
+
+    fn from_u32(v: u32) -> Option<SectionKind> {
+        SectionKind::ALL.into_iter().find(|k| *k as u32 == v)
+    }
+
+    /// The name shown by `inspect` and in errors.
+    pub fn name(self) -> &'static str {
+        match self {
+            SectionKind::Meta => "meta",
+            SectionKind::ItemOffsets => "item-offsets",
+            SectionKind::ItemBytes => "items",
+            SectionKind::KeyOffsets => "key-offsets",
+            SectionKind::KeyBytes => "keys",
+            SectionKind::IdInts => "ids",
+            SectionKind::IdOffsets => "id-offsets",
+            SectionKind::IdBytes => "id-text",
+            SectionKind::Coords => "coordinates",
+            SectionKind::Tree => "kd-tree",
+        }
+    }
+
+    /// Sections small enough to check at every open without the cost growing with n.
+    fn checked_at_open(self) -> bool {
+        matches!(self, SectionKind::Meta)
+    }
+}
+
+/// One entry of the section table.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct Section {
+    /// What the section holds.
+    pub kind: SectionKind,
+    /// Byte range in the file.
+    pub range: Range<usize>,
+    /// CRC-32 of its bytes.
+    pub crc: u32,
+}
+
+/// Writes a container; nothing is visible at the destination until [`ContainerWriter::finish`].
+pub struct ContainerWriter {
+    dest: PathBuf,
+    tmp: tempfile::NamedTempFile,
+    pos: u64,
+    sections: Vec<Section>,
+}
+
+fn io_err(path: &Path, source: std::io::Error) -> Error {
+    Error::Io {
+        path: path.to_path_buf(),
+        source,
+    }
+}
+
+impl ContainerWriter {
+    /// Starts writing an index that will replace `dest` when finished.
+    pub fn create(dest: &Path) -> Result<ContainerWriter> {
+        let dir = match dest.parent() {
+            Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
+            _ => PathBuf::from("."),
+        };
+        if !dir.is_dir() {
+            return Err(Error::Io {
+                path: dir,
+                source: std::io::Error::new(
+                    std::io::ErrorKind::NotFound,
+                    "the output folder does not exist",
+                ),
+            });
+        }
+        let name = dest
+            .file_name()
+            .map(|n| n.to_string_lossy().into_owned())
+            .unwrap_or_else(|| "index".into());
+        // The prefix marks the file as unfinished; its header stays zero until finish(),
+        // so even a leftover temp file is refused by the reader.
+        let mut tmp = tempfile::Builder::new()
+            .prefix(&format!(".{name}."))
+            .suffix(".waymark-partial")
+            .tempfile_in(&dir)
+            .map_err(|e| io_err(&dir, e))?;
+        let reserved = vec![0u8; HEADER_LEN + TABLE_LEN];
+        tmp.write_all(&reserved)
+            .map_err(|e| io_err(tmp.path(), e))?;
+        Ok(ContainerWriter {
+            dest: dest.to_path_buf(),
+            tmp,
+            pos: reserved.len() as u64,
+            sections: Vec::new(),
+        })
+    }
+
+    /// Appends a section on a 64-byte boundary.
+    pub fn add(&mut self, kind: SectionKind, bytes: &[u8]) -> Result<()> {
+        self.add_aligned(kind, bytes, ALIGN)
+    }
+
+    /// Appends a section on a boundary of `align` bytes (a power of two, at least 64).
+    pub fn add_aligned(&mut self, kind: SectionKind, bytes: &[u8], align: usize) -> Result<()> {
+        if self.sections.len() == MAX_SECTIONS {
+            return Err(Error::Usage("too many sections in one index".into()));
+        }
+        let align = align.max(ALIGN) as u64;
+        let pad = (align - self.pos % align) % align;
+        let path = self.tmp.path().to_path_buf();
+        let f = self.tmp.as_file_mut();
+        f.write_all(&vec![0u8; pad as usize])
+            .and_then(|_| f.write_all(bytes))
+            .map_err(|e| io_err(&path, e))?;
+        let start = self.pos + pad;
+        self.pos = start + bytes.len() as u64;
+        self.sections.push(Section {
+            kind,
+            range: start as usize..self.pos as usize,
+            crc: crc32fast::hash(bytes),
+        });
+        Ok(())
+    }
+
+    /// Writes the header and table, flushes, and renames the file into place.
+    pub fn finish(mut self) -> Result<()> {
+        let mut table = vec![0u8; TABLE_LEN];
+        for (s, e) in self.sections.iter().zip(table.chunks_exact_mut(ENTRY_LEN)) {
+            e[0..4].copy_from_slice(&(s.kind as u32).to_le_bytes());
+            e[8..16].copy_from_slice(&(s.range.start as u64).to_le_bytes());
+            e[16..24].copy_from_slice(&(s.range.len() as u64).to_le_bytes());
+            e[24..28].copy_from_slice(&s.crc.to_le_bytes());
+        }
+        let mut header = [0u8; HEADER_LEN];
+        header[0..8].copy_from_slice(MAGIC);
+        header[8..12].copy_from_slice(&FORMAT_VERSION.to_le_bytes());
+        header[12..16].copy_from_slice(&(self.sections.len() as u32).to_le_bytes());
+        header[16..24].copy_from_slice(&self.pos.to_le_bytes());
+        header[24..28].copy_from_slice(&crc32fast::hash(&table).to_le_bytes());
+        let hcrc = crc32fast::hash(&header);
+        header[28..32].copy_from_slice(&hcrc.to_le_bytes());
+
+        let path = self.tmp.path().to_path_buf();
+        let f = self.tmp.as_file_mut();
+        f.seek(SeekFrom::Start(0))
+            .and_then(|_| f.write_all(&header))
+            .and_then(|_| f.write_all(&table))
+            .and_then(|_| f.sync_all())
+            .map_err(|e| io_err(&path, e))?;
+        self.tmp
+            .persist(&self.dest)
+            .map_err(|e| io_err(&self.dest, e.error))?;
+        // Flush the folder too, so that the rename itself survives a crash.
+        if let Some(dir) = self.dest.parent() {
+            let dir = if dir.as_os_str().is_empty() {
+                Path::new(".")
+            } else {
+                dir
+            };
+            if let Ok(d) = File::open(dir) {
+                d.sync_all().map_err(|e| io_err(dir, e))?;
+            }
+        }
+        Ok(())
+    }
+}
+
+/// Reads and checks the header and section table of `bytes` (a whole index file).
+///
+/// Checks the magic number, version, recorded length, both checksums, that every section
+/// lies inside the file on its alignment without overlapping another, that no kind appears
+/// twice, and the checksum of the small sections. Large sections are checked by
+/// [`verify_sections`] (`waymark inspect --verify`).
+pub fn read_table(path: &Path, bytes: &[u8]) -> Result<Vec<Section>> {
+    let bad = |message: String| Error::Index {
+        path: path.to_path_buf(),
+        message,
+    };
+    if bytes.len() < 8 || &bytes[0..8] != MAGIC {
+        return Err(bad(
+            "not a waymark index (the file does not start with the waymark magic number)".into(),
+        ));
+    }
+    if bytes.len() < HEADER_LEN + TABLE_LEN {
+        return Err(bad(format!(
+            "truncated index: {} bytes, shorter than its header",
+            bytes.len()
+        )));
+    }
+    let u32_at = |o: usize| u32::from_le_bytes(bytes[o..o + 4].try_into().expect("4 bytes"));
+    let u64_at = |o: usize| u64::from_le_bytes(bytes[o..o + 8].try_into().expect("8 bytes"));
+    let version = u32_at(8);
+    if version != FORMAT_VERSION {
+        return Err(bad(format!(
+            "index format version {version} is not supported: this waymark reads version {FORMAT_VERSION}; rebuild the index with `waymark build`"
+        )));
+    }
+    let mut header = [0u8; HEADER_LEN];
+    header.copy_from_slice(&bytes[..HEADER_LEN]);
+    header[28..32].fill(0);
+    if crc32fast::hash(&header) != u32_at(28) {
+        return Err(bad("corrupt index: header checksum mismatch".into()));
+    }
+    let recorded = u64_at(16);
+    if recorded != bytes.len() as u64 {
+        return Err(bad(format!(
+            "truncated or extended index: the header records {recorded} bytes, the file has {}",
+            bytes.len()
+        )));
+    }
+    let table = &bytes[HEADER_LEN..HEADER_LEN + TABLE_LEN];
+    if crc32fast::hash(table) != u32_at(24) {
+        return Err(bad("corrupt index: section table checksum mismatch".into()));
+    }
+    let count = u32_at(12) as usize;
+    if count > MAX_SECTIONS {
+        return Err(bad(format!("corrupt index: {count} sections recorded")));
+    }
+    let mut sections: Vec<Section> = Vec::with_capacity(count);
+    for e in table.chunks_exact(ENTRY_LEN).take(count) {
+        let raw = u32::from_le_bytes(e[0..4].try_into().expect("4 bytes"));
+        let kind = SectionKind::from_u32(raw)
+            .ok_or_else(|| bad(format!("corrupt index: unknown section kind {raw}")))?;
+        let off = u64::from_le_bytes(e[8..16].try_into().expect("8 bytes"));
+        let len = u64::from_le_bytes(e[16..24].try_into().expect("8 bytes"));
+        let crc = u32::from_le_bytes(e[24..28].try_into().expect("4 bytes"));
+        let end = off
+            .checked_add(len)
+            .filter(|&end| end <= bytes.len() as u64);
+        let Some(end) = end else {
+            return Err(bad(format!(
+                "corrupt index: section {} lies outside the file",
+                kind.name()
+            )));
+        };
+        if off < (HEADER_LEN + TABLE_LEN) as u64 || off % ALIGN as u64 != 0 {
+            return Err(bad(format!(
+                "corrupt index: section {} is misplaced",
+                kind.name()
+            )));
+        }
+        if sections.iter().any(|s| s.kind == kind) {
+            return Err(bad(format!(
+                "corrupt index: section {} appears twice",
+                kind.name()
+            )));
+        }
+        let range = off as usize..end as usize;
+        if sections
+            .iter()
+            .any(|s| s.range.start < range.end && range.start < s.range.end)
+        {
+            return Err(bad(format!(
+                "corrupt index: section {} overlaps another",
+                kind.name()
+            )));
+        }
+        let s = Section { kind, range, crc };
+        if kind.checked_at_open() {
+            check_crc(path, bytes, &s)?;
+        }
+        sections.push(s);
+    }
+    Ok(sections)
+}
+
+fn check_crc(path: &Path, bytes: &[u8], s: &Section) -> Result<()> {
+    if crc32fast::hash(&bytes[s.range.clone()]) != s.crc {
+        return Err(Error::Index {
+            path: path.to_path_buf(),
+            message: format!(
+                "corrupt index: checksum mismatch in section {}",
+                s.kind.name()
+            ),
+        });
+    }
+    Ok(())
+}
+
+/// Checks the checksum of every section (the full pass of `inspect --verify`).
+pub fn verify_sections(path: &Path, bytes: &[u8], sections: &[Section]) -> Result<()> {
+    sections.iter().try_for_each(|s| check_crc(path, bytes, s))
+}
+
+/// Checks the checksum of one section.
+pub fn verify_section(path: &Path, bytes: &[u8], section: &Section) -> Result<()> {
+    check_crc(path, bytes, section)
+}

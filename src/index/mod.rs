@@ -1,0 +1,341 @@
+//! The index file: items, ids, landmark coordinates and a kd-tree in one checked file.
+//!
+//! An index is opened by memory-mapping it. Opening reads the header, the section table and
+//! the small metadata section, and checks their checksums and every section's size against
+//! the counts in the metadata: its cost does not grow with the number of items. The large
+//! sections are read in place; `inspect --verify` checks their checksums, and every access
+//! is bounds-checked so that a damaged file cannot crash a query.
+//!
+//! ```no_run
+//! use waymark::index::Index;
+//!
+//! let index = Index::open("names.wmk".as_ref())?;
+//! println!("{} items, {} landmarks", index.len(), index.meta().dim);
+//! # Ok::<(), waymark::Error>(())
+//! ```
+
+mod build;
+pub mod file;
+pub mod tree;
+
+use std::fs::File;
+use std::ops::Range;
+use std::path::{Path, PathBuf};
+use std::sync::OnceLock;
+
+use memmap2::Mmap;
+use serde::{Deserialize, Serialize};
+
+pub use build::{build_index, BuildOptions, BuildReport};
+use file::{Section, SectionKind};
+
+use crate::error::{Error, Result};
+use crate::ingest::Normalize;
+use crate::metric::MetricKind;
+use crate::search::Space;
+
+/// How the ids of an index are typed.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum IdKind {
+    /// Integer ids (record numbers, or integer ids of a JSON Lines input).
+    Int,
+    /// Text ids (a CSV column, or string ids of a JSON Lines input).
+    Text,
+}
+
+/// The build parameters and counts stored in an index.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct IndexMeta {
+    /// Number of items.
+    pub n: u64,
+    /// The metric items are compared with.
+    pub metric: MetricKind,
+    /// Normalisation applied to items and, automatically, to queries.
+    pub normalize: Normalize,
+    /// Embedding dimension (number of landmarks).
+    pub dim: u32,
+    /// Bytes per item in the coordinate section (`dim` rounded up for SIMD).
+    pub stride: u32,
+    /// Dimension the kd-tree was compiled for (`dim` padded with zeros).
+    pub tree_dim: u32,
+    /// Item indices of the landmarks, in farthest-first order.
+    pub landmarks: Vec<u64>,
+    /// Seed of the landmark sample.
+    pub seed: u64,
+    /// Size of the sample landmarks were chosen from.
+    pub sample: u64,
+    /// How ids are typed.
+    pub ids: IdKind,
+    /// Default number of candidates re-ranked per query.
+    pub candidates: u32,
+    /// Default space in which candidates are ranked.
+    pub space: Space,
+    /// Name of the input file.
+    pub source: String,
+    /// Records read from the input, including skipped ones.
+    pub records: u64,
+    /// Records skipped because their item was empty.
+    pub blank_skipped: u64,
+    /// The waymark version that wrote the file.
+    pub written_by: String,
+}
+
+/// An id as stored: typed as in the input.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord)]
+pub enum IdRef<'a> {
+    /// An integer id.
+    Int(i64),
+    /// A text id (bytes of UTF-8).
+    Text(&'a [u8]),
+}
+
+/// An open, memory-mapped index.
+pub struct Index {
+    path: PathBuf,
+    map: Mmap,
+    meta: IndexMeta,
+    sections: Vec<Section>,
+    items: Strings,
+    keys: Option<Strings>,
+    id_ints: Option<Range<usize>>,
+    id_text: Option<Strings>,
+    coords: Range<usize>,
+    tree: Range<usize>,
+    tree_checked: OnceLock<std::result::Result<(), String>>,
+}
+
+/// A string table: offsets and bytes sections.
+#[derive(Clone, Debug)]
+struct Strings {
+    offsets: Range<usize>,
+    bytes: Range<usize>,
+}
+
+impl Index {
+    /// Opens and checks an index file.
+    pub fn open(path: &Path) -> Result<Index> {
+        let file = File::open(path).map_err(|source| Error::Io {
+            path: path.to_path_buf(),
+            source,
+        })?;
+        // SAFETY: the mapping is read-only and the file is never written in place: builds
+        // write a new file and rename it over the old one, so a reader's pages stay valid.
+        // Another program truncating the file while it is mapped is outside what any mapped
+        // reader can defend against; every access below is bounds-checked against the
+        // mapping's length fixed at open.
+        let map = unsafe { Mmap::map(&file) }.map_err(|source| Error::Io {
+            path: path.to_path_buf(),
+            source,
+        })?;
+        let sections = file::read_table(path, &map)?;
+        let bad = |message: String| Error::Index {
+            path: path.to_path_buf(),
+            message,
+        };
+        let find = |k: SectionKind| {
+            sections
+                .iter()
+                .find(|s| s.kind == k)
+                .map(|s| s.range.clone())
+        };
+        let need = |k: SectionKind| {
+            find(k).ok_or_else(|| bad(format!("corrupt index: missing section {}", k.name())))
+        };
+        let meta_bytes = &map[need(SectionKind::Meta)?];
+        let meta: IndexMeta = serde_json::from_slice(meta_bytes)
+            .map_err(|e| bad(format!("corrupt index: metadata does not parse: {e}")))?;
+        let n = usize::try_from(meta.n).map_err(|_| bad("corrupt index: n too large".into()))?;
+        let expect_len = |k: SectionKind, r: &Range<usize>, want: Option<usize>| match want {
+            Some(w) if r.len() == w => Ok(()),
+            _ => Err(bad(format!(
+                "corrupt index: section {} has {} bytes, expected {}",
+                k.name(),
+                r.len(),
+                want.map_or("a size that fits in memory".to_string(), |w| w.to_string())
+            ))),
+        };
+        let offsets_len = n.checked_add(1).and_then(|x| x.checked_mul(8));
+        let strings = |ko: SectionKind, kb: SectionKind| -> Result<Strings> {
+            let offsets = need(ko)?;
+            expect_len(ko, &offsets, offsets_len)?;
+            let bytes = need(kb)?;
+            Ok(Strings { offsets, bytes })
+        };
+        let items = strings(SectionKind::ItemOffsets, SectionKind::ItemBytes)?;
+        let keys = match find(SectionKind::KeyOffsets) {
+            Some(_) => Some(strings(SectionKind::KeyOffsets, SectionKind::KeyBytes)?),
+            None => None,
+        };
+        let (id_ints, id_text) = match meta.ids {
+            IdKind::Int => {
+                let r = need(SectionKind::IdInts)?;
+                expect_len(SectionKind::IdInts, &r, n.checked_mul(8))?;
+                (Some(r), None)
+            }
+            IdKind::Text => (
+                None,
+                Some(strings(SectionKind::IdOffsets, SectionKind::IdBytes)?),
+            ),
+        };
+        let dim = meta.dim as usize;
+        if dim == 0 || dim > crate::embed::MAX_DIM || meta.landmarks.len() != dim {
+            return Err(bad(format!(
+                "corrupt index: dimension {dim} with {} landmarks",
+                meta.landmarks.len()
+            )));
+        }
+        if meta.stride as usize != coord_stride(dim)
+            || meta.tree_dim as usize != tree::tree_dim(dim)
+        {
+            return Err(bad(
+                "corrupt index: coordinate layout does not match its dimension".into(),
+            ));
+        }
+        if meta.landmarks.iter().any(|&l| l >= meta.n) {
+            return Err(bad("corrupt index: a landmark is not an item".into()));
+        }
+        let coords = need(SectionKind::Coords)?;
+        expect_len(
+            SectionKind::Coords,
+            &coords,
+            n.checked_mul(meta.stride as usize),
+        )?;
+        let tree = need(SectionKind::Tree)?;
+        Ok(Index {
+            path: path.to_path_buf(),
+            map,
+            meta,
+            sections,
+            items,
+            keys,
+            id_ints,
+            id_text,
+            coords,
+            tree,
+            tree_checked: OnceLock::new(),
+        })
+    }
+
+    /// The file this index was opened from.
+    pub fn path(&self) -> &Path {
+        &self.path
+    }
+
+    /// Build parameters and counts.
+    pub fn meta(&self) -> &IndexMeta {
+        &self.meta
+    }
+
+    /// Number of items.
+    pub fn len(&self) -> usize {
+        self.meta.n as usize
+    }
+
+    /// Whether the index holds no items (never true for a file written by waymark).
+    pub fn is_empty(&self) -> bool {
+        self.meta.n == 0
+    }
+
+    /// Size of the file in bytes.
+    pub fn file_len(&self) -> usize {
+        self.map.len()
+    }
+
+    /// The sections of the file with their sizes, for `inspect`.
+    pub fn sections(&self) -> impl Iterator<Item = (&'static str, usize)> + '_ {
+        self.sections.iter().map(|s| (s.kind.name(), s.range.len()))
+    }
+
+    /// Checks the checksum of every section: a full read of the file.
+    pub fn verify(&self) -> Result<()> {
+        file::verify_sections(&self.path, &self.map, &self.sections)?;
+        self.tree().map(|_| ())
+    }
+
+    fn string(&self, table: &Strings, i: usize) -> &[u8] {
+        let offs = &self.map[table.offsets.clone()];
+        let at = |j: usize| {
+            offs.get(j * 8..j * 8 + 8)
+                .map(|b| u64::from_le_bytes(b.try_into().expect("8 bytes")) as usize)
+        };
+        match (at(i), at(i + 1)) {
+            (Some(s), Some(e)) if s <= e => self.map[table.bytes.clone()].get(s..e).unwrap_or(&[]),
+            _ => &[],
+        }
+    }
+
+    /// Item `i` as given at build time (UTF-8 unless the file is damaged).
+    pub fn item(&self, i: usize) -> &[u8] {
+        self.string(&self.items, i)
+    }
+
+    /// Item `i` in the form distances are computed on (after normalisation).
+    pub fn key(&self, i: usize) -> &[u8] {
+        match &self.keys {
+            Some(k) => self.string(k, i),
+            None => self.item(i),
+        }
+    }
+
+    /// The id of item `i`, typed as in the input.
+    pub fn id(&self, i: usize) -> IdRef<'_> {
+        if let Some(r) = &self.id_ints {
+            let v = self.map[r.clone()]
+                .get(i * 8..i * 8 + 8)
+                .map_or(0, |b| i64::from_le_bytes(b.try_into().expect("8 bytes")));
+            IdRef::Int(v)
+        } else if let Some(t) = &self.id_text {
+            IdRef::Text(self.string(t, i))
+        } else {
+            IdRef::Int(i as i64)
+        }
+    }
+
+    /// The u8 coordinates, `len() × stride` bytes, row-major.
+    pub fn coords(&self) -> &[u8] {
+        &self.map[self.coords.clone()]
+    }
+
+    /// Bytes per row of [`Index::coords`].
+    pub fn stride(&self) -> usize {
+        self.meta.stride as usize
+    }
+
+    /// The kd-tree, checked on first use (its checksum and rkyv's structural validation).
+    pub fn tree(&self) -> Result<tree::TreeView<'_>> {
+        let bytes = &self.map[self.tree.clone()];
+        let dim = self.meta.dim as usize;
+        let checked = self.tree_checked.get_or_init(|| {
+            let crc = self
+                .sections
+                .iter()
+                .find(|s| s.kind == SectionKind::Tree)
+                .map(|s| s.crc);
+            if crc != Some(crc32fast::hash(bytes)) {
+                return Err("corrupt index: checksum mismatch in section kd-tree".into());
+            }
+            let t = tree::TreeView::open(bytes, dim)
+                .map_err(|e| format!("corrupt index: the kd-tree does not validate: {e}"))?;
+            if t.size() != self.len() {
+                return Err("corrupt index: the kd-tree does not hold every item".into());
+            }
+            Ok(())
+        });
+        match checked {
+            Ok(()) => Ok(tree::TreeView::validated(bytes, dim, self.len())),
+            Err(m) => Err(Error::Index {
+                path: self.path.clone(),
+                message: m.clone(),
+            }),
+        }
+    }
+}
+
+/// Bytes per item of the u8 coordinate rows for an embedding of dimension `dim`.
+pub fn coord_stride(dim: usize) -> usize {
+    [8, 16, 32, 64]
+        .into_iter()
+        .find(|&s| s >= dim)
+        .unwrap_or(64)
+}

@@ -1,0 +1,5 @@
+//! The `waymark` command: a thin layer over the library's `cli` module.
+
+fn main() -> std::process::ExitCode {
+    waymark::cli::main()
+}

@@ -1,0 +1,85 @@
+//! Distance functions between items.
+//!
+//! Every metric works on items stored as bytes (UTF-8 text for the string metrics). A query is
+//! *prepared* once — for Levenshtein that builds the bit masks of Myers' algorithm — and then
+//! compared with many items, which is the shape of every hot loop in waymark: embedding an item
+//! against the landmarks, re-ranking candidates, and brute-force scans.
+//!
+//! Distances are reported as `f64` so that later metrics with real values fit the same trait;
+//! integer metrics such as Levenshtein return whole numbers.
+
+mod levenshtein;
+
+pub use levenshtein::{Levenshtein, LevenshteinQuery};
+
+use serde::{Deserialize, Serialize};
+
+/// A distance function over items stored as bytes.
+///
+/// Implementations must be symmetric, zero on equal items and obey the triangle inequality
+/// for the lower bounds used by search to be valid.
+///
+/// ```
+/// use waymark::metric::{Levenshtein, Metric, PreparedQuery};
+///
+/// let q = Levenshtein.prepare(b"kitten");
+/// assert_eq!(q.distance(b"sitting"), 3.0);
+/// assert_eq!(q.distance_within(b"sitting", 2.0), None);
+/// ```
+pub trait Metric: Send + Sync {
+    /// The prepared form of a query, reused for many comparisons.
+    type Prepared: PreparedQuery;
+
+    /// Which metric this is, as recorded in an index file.
+    fn kind(&self) -> MetricKind;
+
+    /// Prepares `query` for repeated comparison against items.
+    fn prepare(&self, query: &[u8]) -> Self::Prepared;
+
+    /// The distance between two items. Prefer [`Metric::prepare`] in loops.
+    fn distance(&self, a: &[u8], b: &[u8]) -> f64 {
+        self.prepare(a).distance(b)
+    }
+}
+
+/// A query prepared by a [`Metric`], compared with many items.
+pub trait PreparedQuery: Send + Sync {
+    /// The exact distance from the query to `item`.
+    fn distance(&self, item: &[u8]) -> f64;
+
+    /// The distance if it is at most `bound`, else `None`.
+    ///
+    /// Implementations stop early once the distance must exceed `bound`, which is what makes
+    /// re-ranking with a running k-th best distance cheap.
+    fn distance_within(&self, item: &[u8], bound: f64) -> Option<f64>;
+}
+
+/// The metrics an index can be built with.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum MetricKind {
+    /// Unit-cost edit distance over Unicode scalar values.
+    Levenshtein,
+}
+
+impl MetricKind {
+    /// The name used on the command line and in `inspect`.
+    pub fn name(self) -> &'static str {
+        match self {
+            MetricKind::Levenshtein => "levenshtein",
+        }
+    }
+
+    /// Whether distances are always whole numbers (lets coordinates be stored as integers).
+    pub fn is_integral(self) -> bool {
+        match self {
+            MetricKind::Levenshtein => true,
+        }
+    }
+}
+
+impl std::fmt::Display for MetricKind {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.name())
+    }
+}

@@ -1,0 +1,479 @@
+//! The command line, as the README uses it: build, query, inspect, exit codes, bad input.
+
+use std::path::{Path, PathBuf};
+
+use assert_cmd::Command;
+use serde::Deserialize;
+
+/// A temp folder with helpers to write files and run the binary in it.
+struct Dir {
+    dir: tempfile::TempDir,
+}
+
+impl Dir {
+    fn new() -> Dir {
+        Dir {
+            dir: tempfile::tempdir().expect("temp dir"),
+        }
+    }
+    fn path(&self, name: &str) -> PathBuf {
+        self.dir.path().join(name)
+    }
+    fn write(&self, name: &str, bytes: &[u8]) -> PathBuf {
+        let p = self.path(name);
+        std::fs::write(&p, bytes).expect("write");
+        p
+    }
+    fn cmd(&self) -> Command {
+        let mut c = Command::cargo_bin("waymark").expect("binary");
+        c.current_dir(self.dir.path());
+        c
+    }
+    fn build(&self, input: &Path, extra: &[&str]) -> PathBuf {
+        let out = self.path("idx.wmk");
+        self.cmd()
+            .arg("build")
+            .arg(input)
+            .arg("-o")
+            .arg(&out)
+            .args(extra)
+            .assert()
+            .success();
+        out
+    }
+}
+
+/// The documented JSON Lines schema of `waymark query`.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct Answer {
+    query: String,
+    neighbors: Vec<Hit>,
+    #[serde(default)]
+    distances: Option<u64>,
+    #[serde(default)]
+    pruned: Option<u64>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct Hit {
+    id: serde_json::Value,
+    item: String,
+    distance: u64,
+}
+
+fn answers(stdout: &[u8]) -> Vec<Answer> {
+    String::from_utf8(stdout.to_vec())
+        .expect("utf-8")
+        .lines()
+        .map(|l| serde_json::from_str(l).expect("one JSON object per line"))
+        .collect()
+}
+
+const NAMES: &str = "Orvane Quay\nTessamir Row\nLower Kaldrith\nUpper Kaldrith\nOrvane Strand\n\nKeth Landing\nMirrow Steps\nTessamir Reach\n";
+
+#[test]
+fn build_then_query_finds_the_nearest_names_in_input_order() {
+    let d = Dir::new();
+    let input = d.write("names.txt", NAMES.as_bytes());
+    let idx = d.build(&input, &["--dim", "4", "--seed", "3"]);
+    let out = d
+        .cmd()
+        .args(["query"])
+        .arg(&idx)
+        .args(["-k", "2"])
+        .write_stdin("Orvane Qauy\nlower kaldrith\nTesamir Row\n")
+        .assert()
+        .success()
+        .get_output()
+        .stdout
+        .clone();
+    let a = answers(&out);
+    assert_eq!(a.len(), 3);
+    assert_eq!(a[0].query, "Orvane Qauy");
+    assert_eq!(a[0].neighbors[0].item, "Orvane Quay");
+    // Transposition "ua"→"au" costs 2 under unit-cost Levenshtein (common practice).
+    assert_eq!(a[0].neighbors[0].distance, 2);
+    // Record numbers count the blank line 5: "Keth Landing" is record 6.
+    assert_eq!(a[0].neighbors[0].id, serde_json::json!(0));
+    assert_eq!(a[1].neighbors[0].item, "Lower Kaldrith");
+    assert_eq!(a[1].neighbors[0].distance, 1);
+    assert_eq!(a[2].neighbors[0].item, "Tessamir Row");
+    assert_eq!(a[2].neighbors[0].distance, 1);
+    assert!(a
+        .iter()
+        .all(|x| x.distances.is_none() && x.pruned.is_none()));
+}
+
+#[test]
+fn ids_point_back_at_records_and_skip_nothing() {
+    let d = Dir::new();
+    let input = d.write("names.txt", NAMES.as_bytes());
+    let idx = d.build(&input, &["--dim", "3"]);
+    let out = d
+        .cmd()
+        .arg("query")
+        .arg(&idx)
+        .args(["-k", "1"])
+        .write_stdin("Keth Landing\n")
+        .assert()
+        .success()
+        .get_output()
+        .stdout
+        .clone();
+    let a = answers(&out);
+    assert_eq!(a[0].neighbors[0].id, serde_json::json!(6));
+    assert_eq!(a[0].neighbors[0].distance, 0);
+}
+
+#[test]
+fn fold_case_is_stored_and_applied_to_queries() {
+    let d = Dir::new();
+    let input = d.write("names.txt", NAMES.as_bytes());
+    let idx = d.build(&input, &["--dim", "4", "--fold-case"]);
+    let out = d
+        .cmd()
+        .arg("query")
+        .arg(&idx)
+        .args(["-k", "1"])
+        .write_stdin("ORVANE QUAY\n")
+        .assert()
+        .success()
+        .get_output()
+        .stdout
+        .clone();
+    let a = answers(&out);
+    assert_eq!(a[0].neighbors[0].distance, 0);
+    // The item is shown as given, not folded.
+    assert_eq!(a[0].neighbors[0].item, "Orvane Quay");
+}
+
+#[test]
+fn csv_text_ids_are_strings_and_tsv_output_has_one_line_per_neighbour() {
+    let d = Dir::new();
+    let input = d.write(
+        "reg.csv",
+        b"code,name\nKV-001,Orvane Quay\nKV-002,\"Tessamir Row, East\"\nKV-003,Lower Kaldrith\n",
+    );
+    let idx = d.build(
+        &input,
+        &["--field", "name", "--id-field", "code", "--dim", "2"],
+    );
+    let out = d
+        .cmd()
+        .arg("query")
+        .arg(&idx)
+        .args(["-k", "2", "--format", "tsv"])
+        .write_stdin("Tessamir Row East\n")
+        .assert()
+        .success()
+        .get_output()
+        .stdout
+        .clone();
+    let text = String::from_utf8(out).unwrap();
+    let lines: Vec<&str> = text.lines().collect();
+    assert_eq!(lines.len(), 2);
+    assert_eq!(
+        lines[0],
+        "Tessamir Row East\t1\tKV-002\tTessamir Row, East\t1"
+    );
+    let json = d
+        .cmd()
+        .arg("query")
+        .arg(&idx)
+        .args(["-k", "1", "--stats"])
+        .write_stdin("Orvane Quay\n")
+        .assert()
+        .success()
+        .get_output()
+        .stdout
+        .clone();
+    let a = answers(&json);
+    assert_eq!(a[0].neighbors[0].id, serde_json::json!("KV-001"));
+    assert!(a[0].distances.unwrap() >= 2);
+}
+
+#[test]
+fn queries_from_a_file_and_k_larger_than_n() {
+    let d = Dir::new();
+    let input = d.write("names.txt", NAMES.as_bytes());
+    let idx = d.build(&input, &["--dim", "2"]);
+    let q = d.write("q.txt", b"Mirrow Steps\r\n");
+    let out = d
+        .cmd()
+        .arg("query")
+        .arg(&idx)
+        .args(["-k", "50", "--queries"])
+        .arg(&q)
+        .assert()
+        .success()
+        .get_output()
+        .stdout
+        .clone();
+    let a = answers(&out);
+    assert_eq!(a[0].query, "Mirrow Steps");
+    assert_eq!(a[0].neighbors.len(), 8);
+    let ds: Vec<u64> = a[0].neighbors.iter().map(|h| h.distance).collect();
+    let mut sorted = ds.clone();
+    sorted.sort();
+    assert_eq!(ds, sorted);
+}
+
+#[test]
+fn inspect_reports_what_the_index_holds_and_verifies() {
+    let d = Dir::new();
+    let input = d.write("names.txt", NAMES.as_bytes());
+    let idx = d.build(&input, &["--dim", "3", "--seed", "9"]);
+    let out = d
+        .cmd()
+        .arg("inspect")
+        .arg(&idx)
+        .args(["--verify", "--json"])
+        .assert()
+        .success()
+        .get_output()
+        .stdout
+        .clone();
+    let v: serde_json::Value = serde_json::from_slice(&out).unwrap();
+    assert_eq!(v["meta"]["n"], 8);
+    assert_eq!(v["meta"]["dim"], 3);
+    assert_eq!(v["meta"]["seed"], 9);
+    assert_eq!(v["meta"]["metric"], "levenshtein");
+    assert_eq!(v["meta"]["blank_skipped"], 1);
+    assert_eq!(v["format_version"], 1);
+    assert_eq!(v["verified"], true);
+    d.cmd()
+        .arg("inspect")
+        .arg(&idx)
+        .assert()
+        .success()
+        .stdout(predicates::str::contains("landmarks"));
+}
+
+#[test]
+fn same_seed_same_file() {
+    let d = Dir::new();
+    let input = d.write("names.txt", NAMES.as_bytes());
+    let a = d.path("a.wmk");
+    let b = d.path("b.wmk");
+    for p in [&a, &b] {
+        d.cmd()
+            .arg("build")
+            .arg(&input)
+            .arg("-o")
+            .arg(p)
+            .args(["--seed", "5", "--dim", "4", "-q"])
+            .assert()
+            .success();
+    }
+    assert_eq!(std::fs::read(a).unwrap(), std::fs::read(b).unwrap());
+}
+
+#[test]
+fn candidates_from_the_tree_give_answers_too() {
+    let d = Dir::new();
+    let input = d.write("names.txt", NAMES.as_bytes());
+    let idx = d.build(&input, &["--dim", "4"]);
+    let out = d
+        .cmd()
+        .arg("query")
+        .arg(&idx)
+        .args(["-k", "1", "--candidates-from", "tree", "--space", "linf"])
+        .write_stdin("Upper Kaldrit\n")
+        .assert()
+        .success()
+        .get_output()
+        .stdout
+        .clone();
+    assert_eq!(answers(&out)[0].neighbors[0].item, "Upper Kaldrith");
+}
+
+// ---- exit codes and bad input -------------------------------------------------------
+
+#[test]
+fn bad_usage_exits_2() {
+    let d = Dir::new();
+    d.cmd().arg("frobnicate").assert().code(2);
+    d.cmd().args(["build"]).assert().code(2);
+    let input = d.write("names.txt", NAMES.as_bytes());
+    d.cmd()
+        .arg("build")
+        .arg(&input)
+        .args(["-o", "x.wmk", "--dim", "0"])
+        .assert()
+        .code(2)
+        .stderr(predicates::str::contains("--dim"));
+    d.cmd()
+        .arg("build")
+        .arg(&input)
+        .args(["-o", "x.wmk", "--dim", "65"])
+        .assert()
+        .code(2);
+    assert!(!d.path("x.wmk").exists());
+    let idx = d.build(&input, &["--dim", "2"]);
+    d.cmd()
+        .arg("query")
+        .arg(&idx)
+        .args(["-k", "0"])
+        .write_stdin("a\n")
+        .assert()
+        .code(2)
+        .stderr(predicates::str::contains("-k must be at least 1"));
+}
+
+#[test]
+fn missing_empty_and_invalid_inputs_exit_2_and_write_nothing() {
+    let d = Dir::new();
+    d.cmd()
+        .args(["build", "nope.txt", "-o", "x.wmk"])
+        .assert()
+        .code(2)
+        .stderr(predicates::str::contains("nope.txt"));
+    let empty = d.write("empty.txt", b"\n\n");
+    d.cmd()
+        .arg("build")
+        .arg(&empty)
+        .args(["-o", "x.wmk"])
+        .assert()
+        .code(2)
+        .stderr(predicates::str::contains("no items"));
+    let bad = d.write("bad.txt", b"fine\nalso fine\nbro\xffken\n");
+    d.cmd()
+        .arg("build")
+        .arg(&bad)
+        .args(["-o", "x.wmk"])
+        .assert()
+        .code(2)
+        .stderr(predicates::str::contains(":3"));
+    d.cmd()
+        .arg("build")
+        .arg(&bad)
+        .args(["-o", "no/such/folder/x.wmk"])
+        .assert()
+        .code(2);
+    assert!(!d.path("x.wmk").exists());
+    let leftovers: Vec<_> = std::fs::read_dir(d.dir.path())
+        .unwrap()
+        .filter_map(|e| e.ok())
+        .filter(|e| e.file_name().to_string_lossy().contains("partial"))
+        .collect();
+    assert!(leftovers.is_empty(), "no temp file is left behind");
+}
+
+#[test]
+fn a_failed_rebuild_leaves_the_old_index() {
+    let d = Dir::new();
+    let input = d.write("names.txt", NAMES.as_bytes());
+    let idx = d.build(&input, &["--dim", "2"]);
+    let before = std::fs::read(&idx).unwrap();
+    let bad = d.write("bad.txt", b"\xff\n");
+    d.cmd()
+        .arg("build")
+        .arg(&bad)
+        .arg("-o")
+        .arg(&idx)
+        .assert()
+        .code(2);
+    assert_eq!(std::fs::read(&idx).unwrap(), before);
+}
+
+#[test]
+fn invalid_utf8_query_names_its_line() {
+    let d = Dir::new();
+    let input = d.write("names.txt", NAMES.as_bytes());
+    let idx = d.build(&input, &["--dim", "2"]);
+    d.cmd()
+        .arg("query")
+        .arg(&idx)
+        .write_stdin(b"ok\n\xfe\n".to_vec())
+        .assert()
+        .code(2)
+        .stderr(predicates::str::contains("<stdin>:2"));
+}
+
+#[test]
+fn refused_index_files_exit_3_with_the_reason() {
+    let d = Dir::new();
+    let input = d.write("names.txt", NAMES.as_bytes());
+    let idx = d.build(&input, &["--dim", "2"]);
+    let good = std::fs::read(&idx).unwrap();
+
+    let not = d.write("not.wmk", b"hello, this is not an index");
+    d.cmd()
+        .arg("inspect")
+        .arg(&not)
+        .assert()
+        .code(3)
+        .stderr(predicates::str::contains("not a waymark index"));
+
+    let trunc = d.write("trunc.wmk", &good[..good.len() - 100]);
+    d.cmd()
+        .arg("query")
+        .arg(&trunc)
+        .write_stdin("a\n")
+        .assert()
+        .code(3)
+        .stderr(predicates::str::contains("truncated"));
+
+    let mut v2 = good.clone();
+    v2[8..12].copy_from_slice(&2u32.to_le_bytes());
+    let v2p = d.write("v2.wmk", &v2);
+    d.cmd()
+        .arg("inspect")
+        .arg(&v2p)
+        .assert()
+        .code(3)
+        .stderr(predicates::str::contains(
+            "index format version 2 is not supported: this waymark reads version 1; rebuild the index with `waymark build`",
+        ));
+
+    // A flipped byte in the item text is found by --verify.
+    let mut corrupt = good.clone();
+    let at = good
+        .windows(b"Mirrow".len())
+        .position(|w| w == b"Mirrow")
+        .expect("item bytes in file");
+    corrupt[at] ^= 0x20;
+    let cp = d.write("corrupt.wmk", &corrupt);
+    d.cmd().arg("inspect").arg(&cp).assert().success();
+    d.cmd()
+        .arg("inspect")
+        .arg(&cp)
+        .arg("--verify")
+        .assert()
+        .code(3)
+        .stderr(predicates::str::contains(
+            "checksum mismatch in section items",
+        ));
+
+    d.cmd()
+        .args(["query", "missing.wmk"])
+        .write_stdin("a\n")
+        .assert()
+        .code(2)
+        .stderr(predicates::str::contains("missing.wmk"));
+}
+
+#[test]
+fn a_closed_pipe_is_not_an_error() {
+    // Many queries, stdout closed after the first line: the exit code stays 0.
+    let d = Dir::new();
+    let input = d.write("names.txt", NAMES.as_bytes());
+    let idx = d.build(&input, &["--dim", "2"]);
+    let queries = "Orvane\n".repeat(20000);
+    let q = d.write("q.txt", queries.as_bytes());
+    let out = std::process::Command::new("bash")
+        .arg("-c")
+        .arg(format!(
+            "{} query {} --queries {} 2>err.txt | head -n 1 >/dev/null; echo \"${{PIPESTATUS[0]}}\"",
+            assert_cmd::cargo::cargo_bin("waymark").display(),
+            idx.display(),
+            q.display()
+        ))
+        .current_dir(d.dir.path())
+        .output()
+        .unwrap();
+    assert_eq!(String::from_utf8_lossy(&out.stdout).trim(), "0");
+    assert_eq!(std::fs::read_to_string(d.path("err.txt")).unwrap(), "");
+}

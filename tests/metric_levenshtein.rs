@@ -1,0 +1,245 @@
+//! Checks of the bit-parallel Levenshtein kernel against outside references.
+//!
+//! The main reference is `strsim::levenshtein`, a general-purpose string-similarity crate that
+//! computes the plain dynamic program over `char`s; it shares no code with waymark. Invalid
+//! UTF-8 is compared through `String::from_utf8_lossy` from the standard library, which
+//! defines the U+FFFD-per-bad-sequence reading the kernel must follow.
+
+use proptest::prelude::*;
+use waymark::metric::{Levenshtein, LevenshteinQuery, Metric, MetricKind, PreparedQuery};
+
+/// Reference distance: `strsim` (general-purpose crate, full dynamic program over chars).
+fn reference(a: &str, b: &str) -> u32 {
+    strsim::levenshtein(a, b) as u32
+}
+
+/// Mostly a small alphabet (so strings share characters and distances are not trivially the
+/// longer length), with multi-byte chars of every UTF-8 width and U+FFFD itself.
+const ALPHABET: &[char] = &[
+    'a', 'b', 'c', 'd', 'e', 'a', 'b', 'é', 'ß', 'ж', '中', '語', '😀', '\u{FFFD}', '\u{7F}', '\0',
+];
+
+fn string_of_len(len: usize) -> impl Strategy<Value = String> {
+    prop::collection::vec(prop::sample::select(ALPHABET), len).prop_map(|v| v.into_iter().collect())
+}
+
+/// Lengths up to 200, with extra weight on the block edges of the 64-bit kernel.
+fn length() -> impl Strategy<Value = usize> {
+    prop_oneof![
+        2 => 0usize..=200,
+        1 => prop::sample::select(vec![0usize, 1, 63, 64, 65, 127, 128, 129, 191, 192, 193]),
+    ]
+}
+
+fn string() -> impl Strategy<Value = String> {
+    length().prop_flat_map(string_of_len)
+}
+
+#[derive(Clone, Debug)]
+enum Edit {
+    Insert(usize, char),
+    Delete(usize),
+    Substitute(usize, char),
+}
+
+fn edit() -> impl Strategy<Value = Edit> {
+    let c = prop::sample::select(ALPHABET);
+    prop_oneof![
+        (any::<usize>(), c.clone()).prop_map(|(i, c)| Edit::Insert(i, c)),
+        any::<usize>().prop_map(Edit::Delete),
+        (any::<usize>(), c).prop_map(|(i, c)| Edit::Substitute(i, c)),
+    ]
+}
+
+fn apply(base: &str, edits: &[Edit]) -> String {
+    let mut v: Vec<char> = base.chars().collect();
+    for e in edits {
+        match *e {
+            Edit::Insert(i, c) => v.insert(i % (v.len() + 1), c),
+            Edit::Delete(i) if !v.is_empty() => {
+                let at = i % v.len();
+                v.remove(at);
+            }
+            Edit::Substitute(i, c) if !v.is_empty() => {
+                let at = i % v.len();
+                v[at] = c;
+            }
+            _ => {}
+        }
+    }
+    v.into_iter().collect()
+}
+
+/// Pairs that are either unrelated or a few random edits apart (small distances, which is
+/// where the bounded form and the block carries matter most).
+fn pair() -> impl Strategy<Value = (String, String)> {
+    prop_oneof![
+        (string(), string()),
+        (string(), prop::collection::vec(edit(), 0..12)).prop_map(|(a, e)| {
+            let b = apply(&a, &e);
+            (a, b)
+        }),
+    ]
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig::with_cases(2000))]
+
+    #[test]
+    fn dist_matches_strsim((a, b) in pair()) {
+        let want = reference(&a, &b);
+        let q = Levenshtein.prepare(a.as_bytes());
+        prop_assert_eq!(q.len(), a.chars().count());
+        prop_assert_eq!(q.dist(b.as_bytes()), want);
+        prop_assert_eq!(q.distance(b.as_bytes()), f64::from(want));
+        prop_assert_eq!(Levenshtein.distance(a.as_bytes(), b.as_bytes()), f64::from(want));
+    }
+
+    #[test]
+    fn dist_within_is_some_exactly_when_within_bound((a, b) in pair(), k in 0u32..40) {
+        let d = reference(&a, &b);
+        let q = LevenshteinQuery::new(a.as_bytes());
+        let want = (d <= k).then_some(d);
+        prop_assert_eq!(q.dist_within(b.as_bytes(), k), want);
+        // Also exactly at the distance and one below it.
+        prop_assert_eq!(q.dist_within(b.as_bytes(), d), Some(d));
+        if d > 0 {
+            prop_assert_eq!(q.dist_within(b.as_bytes(), d - 1), None);
+        }
+        // The f64 form rounds the bound down.
+        prop_assert_eq!(
+            q.distance_within(b.as_bytes(), f64::from(k) + 0.75),
+            want.map(f64::from)
+        );
+    }
+
+    #[test]
+    fn symmetric((a, b) in pair()) {
+        let ab = LevenshteinQuery::new(a.as_bytes()).dist(b.as_bytes());
+        let ba = LevenshteinQuery::new(b.as_bytes()).dist(a.as_bytes());
+        prop_assert_eq!(ab, ba);
+    }
+
+    #[test]
+    fn arbitrary_bytes_read_as_lossy_utf8(
+        a in prop::collection::vec(prop_oneof![any::<u8>(), 0x80u8..=0xff], 0..200),
+        b in prop::collection::vec(prop_oneof![any::<u8>(), 0x80u8..=0xff], 0..200),
+        k in 0u32..300,
+    ) {
+        // Reference reading of bad bytes: the standard library's lossy decoder.
+        let (la, lb) = (String::from_utf8_lossy(&a), String::from_utf8_lossy(&b));
+        let want = reference(&la, &lb);
+        let q = LevenshteinQuery::new(&a);
+        prop_assert_eq!(q.len(), la.chars().count());
+        prop_assert_eq!(q.dist(&b), want);
+        prop_assert_eq!(q.dist_within(&b, k), (want <= k).then_some(want));
+    }
+}
+
+proptest! {
+    // Queries beyond the four blocks kept on the stack (more than 256 chars).
+    #![proptest_config(ProptestConfig::with_cases(200))]
+
+    #[test]
+    fn long_queries_match_strsim(
+        a in (250usize..400).prop_flat_map(string_of_len),
+        edits in prop::collection::vec(edit(), 0..30),
+        k in 0u32..40,
+    ) {
+        let b = apply(&a, &edits);
+        let d = reference(&a, &b);
+        let q = LevenshteinQuery::new(a.as_bytes());
+        prop_assert_eq!(q.dist(b.as_bytes()), d);
+        prop_assert_eq!(q.dist_within(b.as_bytes(), k), (d <= k).then_some(d));
+        prop_assert_eq!(LevenshteinQuery::new(b.as_bytes()).dist(a.as_bytes()), d);
+    }
+}
+
+#[test]
+fn textbook_examples() {
+    // Common textbook examples of edit distance (values known from memory), each recomputed
+    // here by strsim's dynamic program as well.
+    for (a, b, d) in [
+        ("kitten", "sitting", 3),
+        ("Saturday", "Sunday", 3),
+        ("book", "back", 2),
+        ("flaw", "lawn", 2),
+    ] {
+        assert_eq!(reference(a, b), d, "strsim disagrees on {a}/{b}");
+        let q = LevenshteinQuery::new(a.as_bytes());
+        assert_eq!(q.dist(b.as_bytes()), d, "{a}/{b}");
+        assert_eq!(q.dist_within(b.as_bytes(), d), Some(d), "{a}/{b}");
+        assert_eq!(q.dist_within(b.as_bytes(), d - 1), None, "{a}/{b}");
+        assert_eq!(LevenshteinQuery::new(b.as_bytes()).dist(a.as_bytes()), d);
+    }
+}
+
+#[test]
+fn empty_strings() {
+    // By definition (common practice): the distance to the empty string is the other length.
+    let empty = LevenshteinQuery::new(b"");
+    assert!(empty.is_empty());
+    assert_eq!(empty.len(), 0);
+    assert_eq!(empty.dist(b""), 0);
+    assert_eq!(empty.dist("abc".as_bytes()), 3);
+    assert_eq!(empty.dist("é中😀".as_bytes()), 3);
+    assert_eq!(empty.dist_within("é中😀".as_bytes(), 3), Some(3));
+    assert_eq!(empty.dist_within("é中😀".as_bytes(), 2), None);
+    let q = LevenshteinQuery::new("é中😀".as_bytes());
+    assert_eq!(q.dist(b""), 3);
+    assert_eq!(q.dist_within(b"", 3), Some(3));
+    assert_eq!(q.dist_within(b"", 2), None);
+    assert_eq!(Levenshtein.distance(b"", b""), 0.0);
+}
+
+#[test]
+fn counts_chars_not_bytes() {
+    // "ééé" is 3 chars in 6 bytes: a byte-length filter alone would reject it at k = 0.
+    let q = LevenshteinQuery::new("ééé".as_bytes());
+    assert_eq!(q.len(), 3);
+    assert_eq!(q.dist_within("ééé".as_bytes(), 0), Some(0));
+    assert_eq!(q.dist("eee".as_bytes()), reference("ééé", "eee"));
+    assert_eq!(q.dist_within("ééééé".as_bytes(), 1), None);
+    assert_eq!(q.dist_within("ééééé".as_bytes(), 2), Some(2));
+}
+
+#[test]
+fn long_items_and_length_filter() {
+    let q = LevenshteinQuery::new(b"a");
+    let long = vec![b'a'; 10_000];
+    let want = reference("a", std::str::from_utf8(&long).unwrap());
+    assert_eq!(q.dist(&long), want);
+    assert_eq!(q.dist_within(&long, want - 1), None);
+    assert_eq!(q.dist_within(&long, want), Some(want));
+    assert_eq!(q.dist_within(&long, u32::MAX), Some(want));
+    assert_eq!(
+        q.distance_within(&long, f64::INFINITY),
+        Some(f64::from(want))
+    );
+    assert_eq!(q.distance_within(&long, -1.0), None);
+}
+
+#[test]
+fn truncated_and_overlong_sequences() {
+    // Truncated 4-byte sequence, overlong encoding, surrogate, lone continuation bytes:
+    // compared with the standard library's lossy reading.
+    let cases: [&[u8]; 6] = [
+        b"\xf0\x9f\x98",
+        b"\xc0\xaf",
+        b"\xed\xa0\x80",
+        b"\x80\x80\x80",
+        b"ab\xffcd\xfe",
+        b"\xf4\x90\x80\x80",
+    ];
+    for a in cases {
+        for b in cases {
+            let want = reference(&String::from_utf8_lossy(a), &String::from_utf8_lossy(b));
+            assert_eq!(LevenshteinQuery::new(a).dist(b), want, "{a:?} / {b:?}");
+        }
+    }
+}
+
+#[test]
+fn kind_is_levenshtein() {
+    assert_eq!(Levenshtein.kind(), MetricKind::Levenshtein);
+}
