@@ -192,6 +192,8 @@ fn is_broken_pipe(e: &anyhow::Error) -> bool {
     e.chain().any(|c| {
         c.downcast_ref::<std::io::Error>()
             .is_some_and(|io| io.kind() == std::io::ErrorKind::BrokenPipe)
+            || c.downcast_ref::<serde_json::Error>()
+                .is_some_and(|j| j.io_error_kind() == Some(std::io::ErrorKind::BrokenPipe))
     })
 }
 

@@ -19,6 +19,7 @@ pub mod eval;
 pub mod index;
 pub mod ingest;
 pub mod metric;
+pub mod scan;
 pub mod search;
 
 pub use error::{Error, Result};

@@ -114,6 +114,22 @@ proptest! {
     }
 
     #[test]
+    fn batch_forms_match_strsim(
+        q in string(),
+        items in prop::collection::vec(string(), 0..7),
+    ) {
+        let want: Vec<u32> = items.iter().map(|s| reference(&q, s)).collect();
+        let p = LevenshteinQuery::new(q.as_bytes());
+        let mut got = Vec::new();
+        p.dist_each(items.iter().map(String::as_bytes), |i, d| got.push((i, d)));
+        let want_each: Vec<(usize, u32)> = want.iter().copied().enumerate().collect();
+        prop_assert_eq!(got, want_each);
+        for (pair, want) in items.chunks_exact(2).zip(want.chunks_exact(2)) {
+            prop_assert_eq!(p.dist2(pair[0].as_bytes(), pair[1].as_bytes()), [want[0], want[1]]);
+        }
+    }
+
+    #[test]
     fn symmetric((a, b) in pair()) {
         let ab = LevenshteinQuery::new(a.as_bytes()).dist(b.as_bytes());
         let ba = LevenshteinQuery::new(b.as_bytes()).dist(a.as_bytes());

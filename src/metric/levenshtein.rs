@@ -99,6 +99,9 @@ pub struct LevenshteinQuery {
     /// Masks of `other_chars`, `(other_chars.len() + 1) × words`, laid out `[char][block]`.
     /// The extra last row is all zero: the mask of chars absent from the query.
     other_masks: Box<[u64]>,
+    /// Whether this CPU has `popcnt` and `bmi1`, checked once when the query is prepared.
+    #[cfg(target_arch = "x86_64")]
+    x86_fast: bool,
 }
 
 impl LevenshteinQuery {
@@ -135,6 +138,9 @@ impl LevenshteinQuery {
             ascii: ascii.into_boxed_slice(),
             other_chars: other_chars.into_boxed_slice(),
             other_masks: other_masks.into_boxed_slice(),
+            #[cfg(target_arch = "x86_64")]
+            x86_fast: std::arch::is_x86_feature_detected!("popcnt")
+                && std::arch::is_x86_feature_detected!("bmi1"),
         }
     }
 
@@ -242,6 +248,63 @@ impl LevenshteinQuery {
         d.map(saturate)
     }
 
+    /// Whether the x86-64 kernels compiled for `popcnt` and `bmi1` may run on this CPU.
+    #[inline(always)]
+    fn use_x86_fast(&self) -> bool {
+        #[cfg(target_arch = "x86_64")]
+        {
+            self.x86_fast
+        }
+        #[cfg(not(target_arch = "x86_64"))]
+        {
+            false
+        }
+    }
+
+    /// Unbounded single-block distance, on the fastest kernel this CPU runs.
+    #[inline]
+    fn dist_one_word(&self, item: &[u8]) -> usize {
+        #[cfg(target_arch = "x86_64")]
+        if self.use_x86_fast() {
+            // SAFETY: `x86_fast` is set only when the CPU reports `popcnt` and `bmi1`.
+            return unsafe { x86::dist_one_word(self, item) };
+        }
+        self.dist_one_word_impl(item)
+    }
+
+    /// Two unbounded single-block distances, on the fastest kernel this CPU runs.
+    #[inline]
+    fn dist_one_word_pair(&self, a: &[u8], b: &[u8]) -> [usize; 2] {
+        #[cfg(target_arch = "x86_64")]
+        if self.use_x86_fast() {
+            // SAFETY: `x86_fast` is set only when the CPU reports `popcnt` and `bmi1`.
+            return unsafe { x86::dist_one_word_pair(self, a, b) };
+        }
+        self.dist_one_word_pair_impl(a, b)
+    }
+
+    /// Bounded single-block distance, on the fastest kernel this CPU runs.
+    #[inline]
+    fn dist_one_word_within(&self, item: &[u8], k: usize) -> Option<usize> {
+        #[cfg(target_arch = "x86_64")]
+        if self.use_x86_fast() {
+            // SAFETY: `x86_fast` is set only when the CPU reports `popcnt` and `bmi1`.
+            return unsafe { x86::dist_one_word_within(self, item, k) };
+        }
+        self.dist_one_word_within_impl(item, k)
+    }
+
+    /// Multi-block distance, on the fastest kernel this CPU runs.
+    #[inline]
+    fn dist_blocks(&self, item: &[u8], k: usize) -> Option<usize> {
+        #[cfg(target_arch = "x86_64")]
+        if self.use_x86_fast() {
+            // SAFETY: `x86_fast` is set only when the CPU reports `popcnt` and `bmi1`.
+            return unsafe { x86::dist_blocks(self, item, k) };
+        }
+        self.dist_blocks_impl(item, k)
+    }
+
     /// The ASCII mask table of a single-block query.
     #[inline(always)]
     fn ascii_one_word(&self) -> &[u64; 128] {
@@ -305,20 +368,12 @@ impl LevenshteinQuery {
     }
 
     /// Unbounded single-block kernel (`1 ≤ m ≤ 64`).
-    #[inline]
-    fn dist_one_word(&self, item: &[u8]) -> usize {
+    #[inline(always)]
+    fn dist_one_word_impl(&self, item: &[u8]) -> usize {
         let ascii = self.ascii_one_word();
-        let high = self.last_bit;
-        let mut pv = !0u64;
-        let mut mv = 0u64;
-        let mut score = self.len;
-        let mut i = 0;
-        while let Some(&b) = item.get(i) {
-            let eq = self.eq_one_word(ascii, item, &mut i, b);
-            let (ph, mh) = step(&mut pv, &mut mv, eq);
-            score = score + usize::from(ph & high != 0) - usize::from(mh & high != 0);
-        }
-        score
+        let mut col = Column::new();
+        self.run_one_word(ascii, item, &mut 0, &mut col);
+        self.finish_one_word(&col)
     }
 
     /// Unbounded single-block kernel over two items at once.
@@ -326,8 +381,8 @@ impl LevenshteinQuery {
     /// Each column costs a chain of about a dozen dependent word operations, so one item at a
     /// time leaves most of the processor's arithmetic units idle; two independent chains run
     /// side by side in the same time.
-    #[inline]
-    fn dist_one_word_pair(&self, a: &[u8], b: &[u8]) -> [usize; 2] {
+    #[inline(always)]
+    fn dist_one_word_pair_impl(&self, a: &[u8], b: &[u8]) -> [usize; 2] {
         let ascii = self.ascii_one_word();
         let (mut ca, mut cb) = (Column::new(), Column::new());
         let (mut ia, mut ib) = (0, 0);
@@ -345,8 +400,8 @@ impl LevenshteinQuery {
     }
 
     /// Bounded single-block kernel; the caller has applied the length filter.
-    #[inline]
-    fn dist_one_word_within(&self, item: &[u8], k: usize) -> Option<usize> {
+    #[inline(always)]
+    fn dist_one_word_within_impl(&self, item: &[u8], k: usize) -> Option<usize> {
         let ascii = self.ascii_one_word();
         let high = self.last_bit;
         let mut pv = !0u64;
@@ -368,7 +423,8 @@ impl LevenshteinQuery {
     }
 
     /// Multi-block kernel (`m > 64`), bounded by `k` (`usize::MAX` for no bound).
-    fn dist_blocks(&self, item: &[u8], k: usize) -> Option<usize> {
+    #[inline(always)]
+    fn dist_blocks_impl(&self, item: &[u8], k: usize) -> Option<usize> {
         let w = self.words;
         if w <= STACK_WORDS {
             let mut pv = [!0u64; STACK_WORDS];
@@ -382,7 +438,20 @@ impl LevenshteinQuery {
     }
 
     /// Multi-block kernel over caller-provided state (`pv` all ones, `mv` all zeros).
-    #[inline]
+    ///
+    /// Only the blocks that meet the diagonal band `j − k ≤ i ≤ j + k` of column `j` are
+    /// computed (Ukkonen's cut-off, applied at both ends), so a small bound costs one or two
+    /// blocks per column however long the query is. This is exact for every distance up to
+    /// `k` and never reports a distance above `k` as within it:
+    ///
+    /// * every cell outside the band holds more than `k`, and an optimal path of cost `≤ k`
+    ///   stays inside it, so the result depends only on band cells;
+    /// * a block entering the band from below starts as "+1 per row" from the block above,
+    ///   and a block leaving it at the top is replaced by "+1 per column" along its last row.
+    ///   Both are upper bounds of the true values (a deletion or insertion away), so the
+    ///   computed table is never below the true one and equals it along every path of cost
+    ///   `≤ k`.
+    #[inline(always)]
     fn dist_blocks_in(
         &self,
         item: &[u8],
@@ -391,36 +460,108 @@ impl LevenshteinQuery {
         mv: &mut [u64],
     ) -> Option<usize> {
         let w = self.words;
-        let high = self.last_bit;
-        let (last_pv, pv) = pv.split_last_mut().expect("at least two blocks");
-        let (last_mv, mv) = mv.split_last_mut().expect("at least two blocks");
-        let mut score = self.len;
+        let m = self.len;
+        let rows_in = |b: usize| if b + 1 == w { m - WORD * b } else { WORD };
+        // Active blocks are `first..=last`; `score` is D[bottom row of `last`][j].
+        let (mut first, mut last) = (0usize, 0usize);
+        let mut score = rows_in(0);
         let limit = k.saturating_add(item.len());
+        let mut columns = 0usize;
         let mut i = 0;
         while let Some(&b) = item.get(i) {
-            let masks = if b < 0x80 {
+            let row = if b < 0x80 {
                 i += 1;
-                let at = b as usize * w;
-                &self.ascii[at..at + w]
+                b as usize
             } else {
                 let (row, size) = self.decode_other(&item[i..]);
                 i += size;
-                &self.other_masks[row * w..row * w + w]
+                128 + row
             };
-            let (last_eq, masks) = masks.split_last().expect("at least two blocks");
-            // Row 0 of the global table is 0, 1, 2, …: the horizontal delta entering the
-            // first block is always +1.
-            let (mut hp, mut hm) = (1u64, 0u64);
-            for ((p, m), &eq) in pv.iter_mut().zip(mv.iter_mut()).zip(masks) {
-                (hp, hm) = step_block(p, m, eq, hp, hm, 1 << 63);
+            columns += 1;
+            // Rows are numbered from 1; block `x` holds rows 64x + 1 ..= 64x + 64.
+            let bottom = columns.saturating_add(k).min(m);
+            while last < (bottom - 1) / WORD {
+                last += 1;
+                score += rows_in(last);
             }
+            // `min(last)` never binds after the length filter (n ≤ m + k); it keeps the band
+            // non-empty for any input all the same.
+            first = first
+                .max((columns.saturating_sub(k).max(1) - 1) / WORD)
+                .min(last);
+            let masks = if row < 128 {
+                &self.ascii[row * w..row * w + w]
+            } else {
+                let r = row - 128;
+                &self.other_masks[r * w..r * w + w]
+            };
+            let (pv, mv, eqs) = (
+                &mut pv[first..=last],
+                &mut mv[first..=last],
+                &masks[first..=last],
+            );
+            let (last_pv, pv) = pv.split_last_mut().expect("non-empty band");
+            let (last_mv, mv) = mv.split_last_mut().expect("non-empty band");
+            let (last_eq, eqs) = eqs.split_last().expect("non-empty band");
+            // The horizontal delta entering the top active block is +1: exact for row 0 of
+            // the global table, an upper bound for a block that left the band.
+            let (mut hp, mut hm) = (1u64, 0u64);
+            for ((p, q), &eq) in pv.iter_mut().zip(mv.iter_mut()).zip(eqs) {
+                (hp, hm) = step_block(p, q, eq, hp, hm, 1 << 63);
+            }
+            let high = if last + 1 == w {
+                self.last_bit
+            } else {
+                1 << 63
+            };
             let (hp, hm) = step_block(last_pv, last_mv, *last_eq, hp, hm, high);
             score = score + hp as usize - hm as usize;
-            if score + i > limit {
+            // Once the last row is tracked, the final distance is at least
+            // `score − remaining columns`, and at most `item.len() − i` columns remain.
+            if last + 1 == w && score + i > limit {
                 return None;
             }
         }
+        // Rows below the band at the end are "+1 per row" (only reached when the distance
+        // exceeds `k`, as then m > n + k).
+        while last + 1 < w {
+            last += 1;
+            score += rows_in(last);
+        }
         (score <= k).then_some(score)
+    }
+}
+
+/// The same kernels compiled for x86-64 CPUs with `popcnt` and `bmi1` (nearly all since
+/// 2013): the final population counts become one instruction each instead of a dozen, and
+/// `a & !b` one `andn`, which shortens every column. Chosen at run time, so the binary still
+/// runs on the x86-64 baseline.
+#[cfg(target_arch = "x86_64")]
+mod x86 {
+    use super::LevenshteinQuery;
+
+    #[target_feature(enable = "popcnt,bmi1")]
+    pub(super) fn dist_one_word(q: &LevenshteinQuery, item: &[u8]) -> usize {
+        q.dist_one_word_impl(item)
+    }
+
+    #[target_feature(enable = "popcnt,bmi1")]
+    pub(super) fn dist_one_word_pair(q: &LevenshteinQuery, a: &[u8], b: &[u8]) -> [usize; 2] {
+        q.dist_one_word_pair_impl(a, b)
+    }
+
+    #[target_feature(enable = "popcnt,bmi1")]
+    pub(super) fn dist_one_word_within(
+        q: &LevenshteinQuery,
+        item: &[u8],
+        k: usize,
+    ) -> Option<usize> {
+        q.dist_one_word_within_impl(item, k)
+    }
+
+    #[target_feature(enable = "popcnt,bmi1")]
+    pub(super) fn dist_blocks(q: &LevenshteinQuery, item: &[u8], k: usize) -> Option<usize> {
+        q.dist_blocks_impl(item, k)
     }
 }
 
@@ -488,7 +629,7 @@ fn step_block(
     let hp_out = u64::from(ph & high != 0);
     let hm_out = u64::from(mh & high != 0);
     let phs = (ph << 1) | hp_in;
-    let mhs = (mh << 1) | hm_in;
+    let mhs = mh << 1;
     *pv = mhs | !(xv | phs);
     *mv = phs & xv;
     (hp_out, hm_out)
@@ -619,6 +760,42 @@ mod tests {
         let lossy = String::from_utf8_lossy(bytes);
         assert_eq!(Chars::new(bytes).collect::<String>(), lossy);
         assert_eq!(char_len(bytes), lossy.chars().count());
+    }
+
+    /// The same query with the run-time CPU check forced off: the portable kernels.
+    fn portable(q: &[u8]) -> LevenshteinQuery {
+        #[allow(unused_mut)]
+        let mut p = LevenshteinQuery::new(q);
+        #[cfg(target_arch = "x86_64")]
+        {
+            p.x86_fast = false;
+        }
+        p
+    }
+
+    proptest::proptest! {
+        #![proptest_config(proptest::prelude::ProptestConfig::with_cases(500))]
+
+        /// Portable and CPU-specific kernels give the same answers, equal to the plain
+        /// dynamic program, for every entry point.
+        #[test]
+        fn portable_and_dispatched_kernels_agree(
+            a in "[abcdé中😀]{0,140}",
+            b in "[abcdé中😀]{0,140}",
+            c in "[abcdé中😀]{0,140}",
+            k in 0u32..30,
+        ) {
+            let want_b = dp(&a, &b) as u32;
+            let want_c = dp(&a, &c) as u32;
+            for q in [portable(a.as_bytes()), LevenshteinQuery::new(a.as_bytes())] {
+                proptest::prop_assert_eq!(q.dist(b.as_bytes()), want_b);
+                proptest::prop_assert_eq!(q.dist2(b.as_bytes(), c.as_bytes()), [want_b, want_c]);
+                proptest::prop_assert_eq!(
+                    q.dist_within(b.as_bytes(), k),
+                    (want_b <= k).then_some(want_b)
+                );
+            }
+        }
     }
 
     #[test]

@@ -1,0 +1,671 @@
+//! The candidate scan: every item's u8 coordinate row scored against the query's, with the
+//! score histogram filled in the same pass.
+//!
+//! Scores are integers: L1 = Σ|a−b|, L2 = Σ(a−b)² (squared, so no square root and no float)
+//! and L∞ = max|a−b|. Alongside each score the pass counts it in a histogram of
+//! [`HIST_BINS`] bins (scores past the last bin share it), which is what the caller needs to
+//! find the score of the C-th best without sorting.
+//!
+//! Hand-written rather than taken from a crate: no well-kept crate offers a fused
+//! "score u8 rows of a fixed small stride and count the scores" kernel, and the generic
+//! compiled loop does poorly here — per-row horizontal reductions compiled one row at a
+//! time, plus a second pass for the histogram. The AVX2 path instead scores eight rows at
+//! a time and reduces them together into one vector of eight scores:
+//!
+//! - the absolute difference of u8 lanes is `max(a, b) − min(a, b)`;
+//! - L1 uses `vpsadbw`, which sums the absolute differences of each 8 bytes into a u64;
+//! - L2 splits the differences into even and odd bytes as u16 (a mask and a shift, no lane
+//!   crossing) and squares and sums pairs with `vpmaddwd`, giving i32 partial sums;
+//! - L∞ folds rows onto each other until each row's maximum sits in one byte.
+//!
+//! The AVX2 path is chosen at run time ([`has_avx2`]); the portable path (plain loops,
+//! correct on any CPU) is used otherwise, for the last `n % 8` rows, and on other
+//! architectures. Both give identical scores and histograms; the tests check both against a
+//! direct scalar reference.
+
+use crate::search::Space;
+
+/// Number of histogram bins filled by [`score_rows`]; scores at or past the last bin are
+/// counted in it.
+pub const HIST_BINS: usize = 1 << 14;
+
+/// The strides (bytes per coordinate row) that [`score_rows`] accepts.
+pub const STRIDES: [usize; 4] = [8, 16, 32, 64];
+
+/// Scores every row of `coords` against the query row `q` and counts the scores.
+///
+/// `coords` is row-major with `stride` bytes per row, `stride` one of [`STRIDES`]; only the
+/// first `stride` bytes of `q` are used (unused trailing bytes in rows and in `q` are
+/// expected to be zero, and are simply included in the score if they are not). One score
+/// per row is written to `out`: L1 = Σ|a−b|, L2 = Σ(a−b)² (squared) and L∞ = max|a−b|.
+/// In the same pass `hist[min(score, HIST_BINS − 1)]` is incremented for every row; the
+/// caller clears `hist` beforehand (counts are added to what is there).
+///
+/// Uses AVX2 when the CPU has it, else [`score_rows_portable`]; the results are identical.
+///
+/// # Panics
+///
+/// If `stride` is not one of [`STRIDES`], if `coords.len() != out.len() * stride`, or if
+/// `hist.len() != HIST_BINS`.
+pub fn score_rows(
+    coords: &[u8],
+    stride: usize,
+    q: &[u8; 64],
+    space: Space,
+    out: &mut [u32],
+    hist: &mut [u32],
+) {
+    let hist = check_args(coords, stride, out, hist);
+    #[cfg(target_arch = "x86_64")]
+    {
+        if has_avx2() {
+            // SAFETY: the CPU supports AVX2 (checked on the line above), which is the only
+            // requirement of the `target_feature` functions called here.
+            unsafe {
+                match stride {
+                    8 => avx2::rows::<8>(coords, q, space, out, hist),
+                    16 => avx2::rows::<16>(coords, q, space, out, hist),
+                    32 => avx2::rows::<32>(coords, q, space, out, hist),
+                    _ => avx2::rows::<64>(coords, q, space, out, hist),
+                }
+            }
+            return;
+        }
+    }
+    portable_dispatch(coords, stride, q, space, out, hist);
+}
+
+/// The portable form of [`score_rows`]: same arguments, same results, plain loops on any CPU.
+///
+/// Public so that benches and tests can compare it with the dispatched version.
+///
+/// # Panics
+///
+/// As [`score_rows`].
+pub fn score_rows_portable(
+    coords: &[u8],
+    stride: usize,
+    q: &[u8; 64],
+    space: Space,
+    out: &mut [u32],
+    hist: &mut [u32],
+) {
+    let hist = check_args(coords, stride, out, hist);
+    portable_dispatch(coords, stride, q, space, out, hist);
+}
+
+/// Whether [`score_rows`] takes its AVX2 path on this CPU.
+pub fn has_avx2() -> bool {
+    #[cfg(target_arch = "x86_64")]
+    {
+        // The macro caches the CPUID result; this is one relaxed atomic load.
+        std::arch::is_x86_feature_detected!("avx2")
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    {
+        false
+    }
+}
+
+/// Checks the arguments shared by both entry points; returns the histogram as an array so
+/// that indexing it with a masked score needs no bounds check.
+fn check_args<'h>(
+    coords: &[u8],
+    stride: usize,
+    out: &[u32],
+    hist: &'h mut [u32],
+) -> &'h mut [u32; HIST_BINS] {
+    assert!(
+        STRIDES.contains(&stride),
+        "stride {stride} is not one of {STRIDES:?}"
+    );
+    assert_eq!(
+        Some(coords.len()),
+        out.len().checked_mul(stride),
+        "coords must hold out.len() rows of {stride} bytes"
+    );
+    let len = hist.len();
+    hist.try_into()
+        .unwrap_or_else(|_| panic!("hist has {len} bins, expected {HIST_BINS}"))
+}
+
+fn portable_dispatch(
+    coords: &[u8],
+    stride: usize,
+    q: &[u8; 64],
+    space: Space,
+    out: &mut [u32],
+    hist: &mut [u32; HIST_BINS],
+) {
+    match stride {
+        8 => portable::<8>(coords, q, space, out, hist),
+        16 => portable::<16>(coords, q, space, out, hist),
+        32 => portable::<32>(coords, q, space, out, hist),
+        _ => portable::<64>(coords, q, space, out, hist),
+    }
+}
+
+/// Histogram bin of a score.
+#[inline(always)]
+fn bin(score: u32) -> usize {
+    (score as usize).min(HIST_BINS - 1)
+}
+
+/// Portable scoring of rows of `S` bytes (`coords.len() == out.len() * S`).
+#[inline(always)]
+fn portable<const S: usize>(
+    coords: &[u8],
+    q: &[u8; 64],
+    space: Space,
+    out: &mut [u32],
+    hist: &mut [u32; HIST_BINS],
+) {
+    let q: &[u8; S] = q[..S].try_into().expect("S <= 64");
+    match space {
+        Space::L1 => portable_with::<S>(coords, out, hist, |r| {
+            let mut s = 0u32;
+            for i in 0..S {
+                s += u32::from(r[i].abs_diff(q[i]));
+            }
+            s
+        }),
+        Space::L2 => portable_with::<S>(coords, out, hist, |r| {
+            let mut s = 0u32;
+            for i in 0..S {
+                let d = u32::from(r[i].abs_diff(q[i]));
+                s += d * d;
+            }
+            s
+        }),
+        Space::Linf => portable_with::<S>(coords, out, hist, |r| {
+            let mut m = 0u8;
+            for i in 0..S {
+                m = m.max(r[i].abs_diff(q[i]));
+            }
+            u32::from(m)
+        }),
+    }
+}
+
+#[inline(always)]
+fn portable_with<const S: usize>(
+    coords: &[u8],
+    out: &mut [u32],
+    hist: &mut [u32; HIST_BINS],
+    score: impl Fn(&[u8; S]) -> u32,
+) {
+    for (row, o) in coords.chunks_exact(S).zip(out.iter_mut()) {
+        let s = score(row.try_into().expect("row of S bytes"));
+        *o = s;
+        hist[bin(s)] += 1;
+    }
+}
+
+#[cfg(target_arch = "x86_64")]
+mod avx2 {
+    use std::arch::x86_64::*;
+
+    use super::{portable, Space, HIST_BINS};
+
+    /// Loads 32 bytes from the start of `b`.
+    #[inline]
+    #[target_feature(enable = "avx2")]
+    fn load(b: &[u8]) -> __m256i {
+        assert!(b.len() >= 32);
+        // SAFETY: `b` has at least 32 readable bytes (asserted above); `loadu` has no
+        // alignment requirement.
+        unsafe { _mm256_loadu_si256(b.as_ptr().cast()) }
+    }
+
+    /// Stores eight u32 lanes into `o`.
+    #[inline]
+    #[target_feature(enable = "avx2")]
+    fn store(o: &mut [u32; 8], v: __m256i) {
+        // SAFETY: `o` is 32 writable bytes; `storeu` has no alignment requirement.
+        unsafe { _mm256_storeu_si256(o.as_mut_ptr().cast(), v) }
+    }
+
+    /// |a − b| per u8 lane.
+    #[inline]
+    #[target_feature(enable = "avx2")]
+    fn absdiff(a: __m256i, b: __m256i) -> __m256i {
+        _mm256_sub_epi8(_mm256_max_epu8(a, b), _mm256_min_epu8(a, b))
+    }
+
+    /// The query laid out to match one 32-byte load of rows: the row repeated 4 (S = 8) or
+    /// 2 (S = 16) times; for S = 64, `hi` holds bytes 32..64.
+    struct Query {
+        lo: __m256i,
+        hi: __m256i,
+    }
+
+    #[inline]
+    #[target_feature(enable = "avx2")]
+    fn query<const S: usize>(q: &[u8; 64]) -> Query {
+        let mut tiled = [0u8; 32];
+        for (i, t) in tiled.iter_mut().enumerate() {
+            *t = q[i % S.min(32)];
+        }
+        Query {
+            lo: load(&tiled),
+            hi: load(&q[32..]),
+        }
+    }
+
+    /// Scores rows of `S` bytes: eight at a time with AVX2, the rest with the portable loop.
+    #[target_feature(enable = "avx2")]
+    pub(super) fn rows<const S: usize>(
+        coords: &[u8],
+        q: &[u8; 64],
+        space: Space,
+        out: &mut [u32],
+        hist: &mut [u32; HIST_BINS],
+    ) {
+        let full = out.len() / 8 * 8;
+        let (head, tail) = coords.split_at(full * S);
+        let (head_out, tail_out) = out.split_at_mut(full);
+        let qv = query::<S>(q);
+        let groups = head.chunks_exact(8 * S).zip(head_out.chunks_exact_mut(8));
+        match space {
+            Space::L1 => {
+                for (c, o) in groups {
+                    let o: &mut [u32; 8] = o.try_into().expect("8 scores");
+                    store(o, l1::<S>(c, &qv));
+                    count_small(o, hist);
+                }
+            }
+            Space::L2 => {
+                let last = _mm256_set1_epi32((HIST_BINS - 1) as i32);
+                for (c, o) in groups {
+                    let o: &mut [u32; 8] = o.try_into().expect("8 scores");
+                    let v = l2::<S>(c, &qv);
+                    store(o, v);
+                    let mut bins = [0u32; 8];
+                    store(&mut bins, _mm256_min_epu32(v, last));
+                    count_small(&bins, hist);
+                }
+            }
+            Space::Linf => {
+                for (c, o) in groups {
+                    let o: &mut [u32; 8] = o.try_into().expect("8 scores");
+                    store(o, linf::<S>(c, &qv));
+                    count_small(o, hist);
+                }
+            }
+        }
+        portable::<S>(tail, q, space, tail_out, hist);
+    }
+
+    /// Counts eight scores known to be below `HIST_BINS` (the mask only spares the bounds
+    /// check; it never changes a value).
+    #[inline(always)]
+    fn count_small(s: &[u32; 8], hist: &mut [u32; HIST_BINS]) {
+        for &s in s {
+            hist[s as usize & (HIST_BINS - 1)] += 1;
+        }
+    }
+
+    /// Lane order to undo the interleaving of the reductions, for `_mm256_permutevar8x32_epi32`.
+    #[inline]
+    #[target_feature(enable = "avx2")]
+    fn order(idx: [i32; 8]) -> __m256i {
+        _mm256_setr_epi32(
+            idx[0], idx[1], idx[2], idx[3], idx[4], idx[5], idx[6], idx[7],
+        )
+    }
+
+    /// Packs the low u32 of each u64 lane of `a` and `b` as `[a0, b0, a1, b1, …]`.
+    #[inline]
+    #[target_feature(enable = "avx2")]
+    fn pair_low32(a: __m256i, b: __m256i) -> __m256i {
+        _mm256_or_si256(a, _mm256_slli_epi64::<32>(b))
+    }
+
+    /// L1 of eight rows (`c` is `8 * S` bytes), as eight u32 in row order.
+    #[inline]
+    #[target_feature(enable = "avx2")]
+    fn l1<const S: usize>(c: &[u8], q: &Query) -> __m256i {
+        let c = &c[..8 * S];
+        match S {
+            8 => {
+                // One u64 sum per row: s0 = rows 0..4, s1 = rows 4..8.
+                let s0 = _mm256_sad_epu8(load(&c[0..]), q.lo);
+                let s1 = _mm256_sad_epu8(load(&c[32..]), q.lo);
+                // [r0 r4 r1 r5 r2 r6 r3 r7]
+                let t = pair_low32(s0, s1);
+                _mm256_permutevar8x32_epi32(t, order([0, 2, 4, 6, 1, 3, 5, 7]))
+            }
+            16 => {
+                // Each register: two rows (one per 128-bit lane), two u64 half-sums each.
+                let s: [__m256i; 4] =
+                    std::array::from_fn(|k| _mm256_sad_epu8(load(&c[32 * k..]), q.lo));
+                // [r0a r2a r0b r2b | r1a r3a r1b r3b] and likewise rows 4..8.
+                let t0 = pair_low32(s[0], s[1]);
+                let t1 = pair_low32(s[2], s[3]);
+                // [r0 r2 r4 r6 | r1 r3 r5 r7]
+                let u =
+                    _mm256_add_epi32(_mm256_unpacklo_epi64(t0, t1), _mm256_unpackhi_epi64(t0, t1));
+                _mm256_permutevar8x32_epi32(u, order([0, 4, 1, 5, 2, 6, 3, 7]))
+            }
+            _ => {
+                // One row per register, four u64 quarter-sums (two registers' worth for S = 64).
+                let s: [__m256i; 8] = std::array::from_fn(|k| {
+                    let row = &c[S * k..];
+                    let a = _mm256_sad_epu8(load(row), q.lo);
+                    if S == 64 {
+                        _mm256_add_epi64(a, _mm256_sad_epu8(load(&row[32..]), q.hi))
+                    } else {
+                        a
+                    }
+                });
+                four_quarters(&s)
+            }
+        }
+    }
+
+    /// Eight rows' u64 quarter-sums `[k0 k1 | k2 k3]` (row k in `s[k]`) to eight u32 totals.
+    #[inline]
+    #[target_feature(enable = "avx2")]
+    fn four_quarters(s: &[__m256i; 8]) -> __m256i {
+        // [0_0 1_0 0_1 1_1 | 0_2 1_2 0_3 1_3] for each pair of rows.
+        let t01 = pair_low32(s[0], s[1]);
+        let t23 = pair_low32(s[2], s[3]);
+        let t45 = pair_low32(s[4], s[5]);
+        let t67 = pair_low32(s[6], s[7]);
+        // [0 1 2 3 (quarters 0+1) | 0 1 2 3 (quarters 2+3)]
+        let a = _mm256_add_epi32(
+            _mm256_unpacklo_epi64(t01, t23),
+            _mm256_unpackhi_epi64(t01, t23),
+        );
+        let b = _mm256_add_epi32(
+            _mm256_unpacklo_epi64(t45, t67),
+            _mm256_unpackhi_epi64(t45, t67),
+        );
+        _mm256_add_epi32(
+            _mm256_permute2x128_si256::<0x20>(a, b),
+            _mm256_permute2x128_si256::<0x31>(a, b),
+        )
+    }
+
+    /// Squared differences of one 32-byte load, summed in i32 groups of four bytes.
+    #[inline]
+    #[target_feature(enable = "avx2")]
+    fn squares(r: __m256i, q: __m256i) -> __m256i {
+        let d = absdiff(r, q);
+        let even = _mm256_and_si256(d, _mm256_set1_epi16(0xff));
+        let odd = _mm256_srli_epi16::<8>(d);
+        _mm256_add_epi32(_mm256_madd_epi16(even, even), _mm256_madd_epi16(odd, odd))
+    }
+
+    /// Squared L2 of eight rows, as eight u32 in row order.
+    #[inline]
+    #[target_feature(enable = "avx2")]
+    fn l2<const S: usize>(c: &[u8], q: &Query) -> __m256i {
+        let c = &c[..8 * S];
+        match S {
+            8 => {
+                // Two i32 per row: e0 = rows 0..4, e1 = rows 4..8.
+                let e0 = squares(load(&c[0..]), q.lo);
+                let e1 = squares(load(&c[32..]), q.lo);
+                // [r0 r1 r4 r5 | r2 r3 r6 r7]
+                let h = _mm256_hadd_epi32(e0, e1);
+                _mm256_permute4x64_epi64::<0b11_01_10_00>(h)
+            }
+            16 => {
+                // Each register: two rows (one per 128-bit lane), four i32 each.
+                let e: [__m256i; 4] = std::array::from_fn(|k| squares(load(&c[32 * k..]), q.lo));
+                let h01 = _mm256_hadd_epi32(e[0], e[1]);
+                let h23 = _mm256_hadd_epi32(e[2], e[3]);
+                // [r0 r2 r4 r6 | r1 r3 r5 r7]
+                let h = _mm256_hadd_epi32(h01, h23);
+                _mm256_permutevar8x32_epi32(h, order([0, 4, 1, 5, 2, 6, 3, 7]))
+            }
+            _ => {
+                // One row per register, eight i32 each.
+                let e: [__m256i; 8] = std::array::from_fn(|k| {
+                    let row = &c[S * k..];
+                    let a = squares(load(row), q.lo);
+                    if S == 64 {
+                        _mm256_add_epi32(a, squares(load(&row[32..]), q.hi))
+                    } else {
+                        a
+                    }
+                });
+                let h01 = _mm256_hadd_epi32(e[0], e[1]);
+                let h23 = _mm256_hadd_epi32(e[2], e[3]);
+                let h45 = _mm256_hadd_epi32(e[4], e[5]);
+                let h67 = _mm256_hadd_epi32(e[6], e[7]);
+                // [r0 r1 r2 r3 (low halves) | r0 r1 r2 r3 (high halves)], and rows 4..8.
+                let a = _mm256_hadd_epi32(h01, h23);
+                let b = _mm256_hadd_epi32(h45, h67);
+                _mm256_add_epi32(
+                    _mm256_permute2x128_si256::<0x20>(a, b),
+                    _mm256_permute2x128_si256::<0x31>(a, b),
+                )
+            }
+        }
+    }
+
+    /// L∞ of eight rows, as eight u32 in row order.
+    #[inline]
+    #[target_feature(enable = "avx2")]
+    fn linf<const S: usize>(c: &[u8], q: &Query) -> __m256i {
+        let c = &c[..8 * S];
+        // Fold the rows' absolute differences down to 8 bytes per row, four rows per
+        // register (one per u64 lane): `g0`, `g1` hold rows in the order given by `idx`.
+        let (g0, g1, idx) = if S == 8 {
+            let g0 = absdiff(load(&c[0..]), q.lo);
+            let g1 = absdiff(load(&c[32..]), q.lo);
+            // Rows [0 1 2 3] and [4 5 6 7].
+            (g0, g1, [0, 2, 4, 6, 1, 3, 5, 7])
+        } else {
+            // Registers of two rows, 16 bytes each (one per 128-bit lane).
+            let f: [__m256i; 4] = std::array::from_fn(|k| {
+                if S == 16 {
+                    absdiff(load(&c[32 * k..]), q.lo)
+                } else {
+                    let [a, b] = [2 * k, 2 * k + 1].map(|r| {
+                        let row = &c[S * r..];
+                        let d = absdiff(load(row), q.lo);
+                        if S == 64 {
+                            _mm256_max_epu8(d, absdiff(load(&row[32..]), q.hi))
+                        } else {
+                            d
+                        }
+                    });
+                    _mm256_max_epu8(
+                        _mm256_permute2x128_si256::<0x20>(a, b),
+                        _mm256_permute2x128_si256::<0x31>(a, b),
+                    )
+                }
+            });
+            // [r0 r2 | r1 r3] and [r4 r6 | r5 r7], 8 bytes per row.
+            let g0 = _mm256_max_epu8(
+                _mm256_unpacklo_epi64(f[0], f[1]),
+                _mm256_unpackhi_epi64(f[0], f[1]),
+            );
+            let g1 = _mm256_max_epu8(
+                _mm256_unpacklo_epi64(f[2], f[3]),
+                _mm256_unpackhi_epi64(f[2], f[3]),
+            );
+            (g0, g1, [0, 4, 2, 6, 1, 5, 3, 7])
+        };
+        // 8 → 4 bytes per row; then the two registers' rows interleaved in u32 lanes.
+        let g0 = _mm256_max_epu8(g0, _mm256_srli_epi64::<32>(g0));
+        let g1 = _mm256_max_epu8(g1, _mm256_slli_epi64::<32>(g1));
+        let t = _mm256_blend_epi32::<0b1010_1010>(g0, g1);
+        // 4 → 1 byte per row.
+        let t = _mm256_max_epu8(t, _mm256_srli_epi32::<16>(t));
+        let t = _mm256_max_epu8(t, _mm256_srli_epi32::<8>(t));
+        let t = _mm256_and_si256(t, _mm256_set1_epi32(0xff));
+        _mm256_permutevar8x32_epi32(t, order(idx))
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use rand::{Rng, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
+
+    use super::*;
+
+    const SPACES: [Space; 3] = [Space::L1, Space::L2, Space::Linf];
+
+    /// The definitions, one row at a time.
+    fn reference(coords: &[u8], stride: usize, q: &[u8; 64], space: Space) -> Vec<u32> {
+        coords
+            .chunks(stride)
+            .map(|row| {
+                let d = row
+                    .iter()
+                    .zip(q)
+                    .map(|(&a, &b)| (i64::from(a) - i64::from(b)).abs());
+                let s = match space {
+                    Space::L1 => d.sum::<i64>(),
+                    Space::L2 => d.map(|x| x * x).sum(),
+                    Space::Linf => d.max().unwrap_or(0),
+                };
+                u32::try_from(s).expect("fits u32")
+            })
+            .collect()
+    }
+
+    fn reference_hist(scores: &[u32]) -> Vec<u32> {
+        let mut h = vec![0u32; HIST_BINS];
+        for &s in scores {
+            h[(s as usize).min(HIST_BINS - 1)] += 1;
+        }
+        h
+    }
+
+    /// Random rows: values drawn from a mix of 0, 255, small and any byte; the `stride − dim`
+    /// trailing bytes of every row and of the query are zero.
+    fn data(rng: &mut ChaCha8Rng, n: usize, stride: usize, dim: usize) -> (Vec<u8>, [u8; 64]) {
+        let mut byte = |rng: &mut ChaCha8Rng| match rng.gen_range(0..4) {
+            0 => 0,
+            1 => 255,
+            2 => rng.gen_range(0..16),
+            _ => rng.gen(),
+        };
+        let mut coords = vec![0u8; n * stride];
+        for row in coords.chunks_mut(stride) {
+            for v in &mut row[..dim] {
+                *v = byte(rng);
+            }
+        }
+        let mut q = [0u8; 64];
+        for v in &mut q[..dim] {
+            *v = byte(rng);
+        }
+        (coords, q)
+    }
+
+    type ScoreFn = fn(&[u8], usize, &[u8; 64], Space, &mut [u32], &mut [u32]);
+
+    fn check(f: ScoreFn, coords: &[u8], stride: usize, q: &[u8; 64], space: Space, what: &str) {
+        let n = coords.len() / stride;
+        let want = reference(coords, stride, q, space);
+        let mut out = vec![u32::MAX; n];
+        let mut hist = vec![0u32; HIST_BINS];
+        f(coords, stride, q, space, &mut out, &mut hist);
+        assert_eq!(
+            out, want,
+            "{what}: scores, stride {stride}, {space:?}, n {n}"
+        );
+        assert!(
+            hist == reference_hist(&want),
+            "{what}: histogram, stride {stride}, {space:?}, n {n}"
+        );
+    }
+
+    #[test]
+    fn matches_the_definitions() {
+        let mut rng = ChaCha8Rng::seed_from_u64(7);
+        for stride in STRIDES {
+            for dim in [stride, stride / 2 + 1, 1] {
+                for n in [0, 1, 7, 8, 9, 16, 23, 1001] {
+                    let (coords, q) = data(&mut rng, n, stride, dim);
+                    for space in SPACES {
+                        check(score_rows, &coords, stride, &q, space, "dispatched");
+                        check(score_rows_portable, &coords, stride, &q, space, "portable");
+                    }
+                }
+            }
+        }
+    }
+
+    /// Extreme rows: every difference 255, so L1 and L2 reach their maxima and L2 lands past
+    /// the last bin; and a single differing byte at each position, which catches a lane
+    /// mixed up between rows.
+    #[test]
+    fn extremes_and_single_positions() {
+        for stride in STRIDES {
+            let mut coords = vec![255u8; 8 * stride];
+            coords.extend(std::iter::repeat_n(0, 8 * stride));
+            for pos in 0..stride {
+                for r in 0..9 {
+                    let mut row = vec![0u8; stride];
+                    row[pos] = (pos * 8 + r) as u8 | 1;
+                    coords.extend(row);
+                }
+            }
+            let q = [0u8; 64];
+            for space in SPACES {
+                check(score_rows, &coords, stride, &q, space, "dispatched");
+                check(score_rows_portable, &coords, stride, &q, space, "portable");
+            }
+        }
+    }
+
+    #[test]
+    fn adds_to_the_histogram_given() {
+        let mut rng = ChaCha8Rng::seed_from_u64(8);
+        let (coords, q) = data(&mut rng, 37, 16, 16);
+        let mut out = vec![0u32; 37];
+        let mut hist = vec![0u32; HIST_BINS];
+        score_rows(&coords, 16, &q, Space::L1, &mut out, &mut hist);
+        score_rows(&coords, 16, &q, Space::L1, &mut out, &mut hist);
+        let once = reference_hist(&out);
+        let twice: Vec<u32> = once.iter().map(|h| 2 * h).collect();
+        assert!(hist == twice);
+    }
+
+    #[test]
+    #[should_panic(expected = "stride 24")]
+    fn refuses_other_strides() {
+        score_rows(
+            &[0; 48],
+            24,
+            &[0; 64],
+            Space::L1,
+            &mut [0; 2],
+            &mut vec![0; HIST_BINS],
+        );
+    }
+
+    #[test]
+    #[should_panic(expected = "coords must hold")]
+    fn refuses_mismatched_lengths() {
+        score_rows(
+            &[0; 48],
+            16,
+            &[0; 64],
+            Space::L1,
+            &mut [0; 2],
+            &mut vec![0; HIST_BINS],
+        );
+    }
+
+    #[test]
+    #[should_panic(expected = "bins")]
+    fn refuses_short_histograms() {
+        score_rows(
+            &[0; 32],
+            16,
+            &[0; 64],
+            Space::L1,
+            &mut [0; 2],
+            &mut [0; 100],
+        );
+    }
+}
