@@ -148,6 +148,9 @@ struct QueryArgs {
     /// Add per-query cost figures (distances computed, candidates pruned) to JSON output.
     #[arg(long)]
     stats: bool,
+    /// Print a one-line summary on stderr when done (queries, q/s, distances per query).
+    #[arg(long)]
+    summary: bool,
 }
 
 #[derive(Debug, clap::Args)]
@@ -355,6 +358,8 @@ fn query(a: QueryArgs) -> anyhow::Result<()> {
         name,
     };
     const BLOCK: usize = 1024;
+    let t0 = Instant::now();
+    let (mut answered, mut distances, mut exact_hits) = (0usize, 0usize, 0usize);
     loop {
         let block = lines.next_block(BLOCK)?;
         if block.is_empty() {
@@ -363,6 +368,9 @@ fn query(a: QueryArgs) -> anyhow::Result<()> {
         let answers = searcher.search_many(&block, &params);
         for (q, ans) in block.iter().zip(answers) {
             let found = ans?;
+            answered += 1;
+            distances += found.distances;
+            exact_hits += usize::from(found.neighbors.first().is_some_and(|n| n.distance == 0.0));
             match a.format {
                 OutFormat::Json => write_json(&mut out, &index, q, &found, a.stats)?,
                 OutFormat::Tsv => write_tsv(&mut out, &index, q, &found)?,
@@ -371,6 +379,16 @@ fn query(a: QueryArgs) -> anyhow::Result<()> {
         out.flush().context("writing the answers")?;
     }
     out.flush().context("writing the answers")?;
+    if a.summary {
+        let secs = t0.elapsed().as_secs_f64();
+        let per = distances as f64 / answered.max(1) as f64;
+        eprintln!(
+            "answered {answered} queries in {secs:.3} s ({:.0} queries/s); {per:.0} distances per query ({:.2}% of {} items); {exact_hits} found an exact match",
+            answered as f64 / secs.max(1e-9),
+            100.0 * per / index.len() as f64,
+            index.len()
+        );
+    }
     Ok(())
 }
 
