@@ -48,9 +48,10 @@ fn push_sorted(index: &Index, best: &mut Vec<Neighbor>, k: usize, cand: Neighbor
 /// Exact k-NN with the unbounded kernel against every item.
 pub fn full_scan(index: &Index, query: &str, k: usize) -> Vec<Neighbor> {
     let q = prepare(index, query);
+    let keys = index.keys();
     let mut best: Vec<Neighbor> = Vec::with_capacity(k + 1);
     for i in 0..index.len() {
-        let d = q.dist(index.key(i));
+        let d = q.dist(keys.get(i));
         let kth = if best.len() == k {
             best[k - 1].distance
         } else {
@@ -74,9 +75,10 @@ pub fn full_scan(index: &Index, query: &str, k: usize) -> Vec<Neighbor> {
 /// Exact k-NN with the bounded kernel and a running k-th distance.
 pub fn best_scan(index: &Index, query: &str, k: usize) -> Vec<Neighbor> {
     let q = prepare(index, query);
+    let keys = index.keys();
     let mut best: Vec<Neighbor> = Vec::with_capacity(k + 1);
     for i in 0..index.len() {
-        let item = index.key(i);
+        let item = keys.get(i);
         let d = if best.len() == k {
             match q.dist_within(item, best[k - 1].distance as u32) {
                 Some(d) => d,

@@ -8,9 +8,9 @@
 //!
 //! Candidates come from one of two sources, both measured by `benches/end_to_end.rs`:
 //!
-//! - **scan** (default): one pass over the compact u8 coordinates, scored with SIMD, and
-//!   the best `C` picked with a counting histogram instead of a heap (coordinates are small
-//!   integers, so scores are too);
+//! - **scan** (default): one pass over the compact u8 coordinates, scored with AVX2
+//!   ([`crate::scan`]), and the best `C` picked with a counting histogram filled in the same
+//!   pass instead of a heap (coordinates are small integers, so scores are too);
 //! - **tree**: kiddo's exact `nearest_n` on the stored kd-tree over the f32 coordinates.
 //!
 //! ```no_run
@@ -31,7 +31,7 @@ use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
-use crate::index::Index;
+use crate::index::{Index, StrTable};
 use crate::metric::{Levenshtein, LevenshteinQuery, Metric, PreparedQuery};
 
 /// Default embedding dimension, chosen from `benches/end_to_end.rs` (see the README).
@@ -132,9 +132,10 @@ pub struct Scratch {
 pub struct Searcher<'a> {
     index: &'a Index,
     landmarks: Vec<&'a [u8]>,
+    keys: StrTable<'a>,
 }
 
-const HIST_BINS: usize = 1 << 14;
+use crate::scan::{self, HIST_BINS};
 
 impl<'a> Searcher<'a> {
     /// Prepares a searcher (collects the landmark keys).
@@ -145,7 +146,11 @@ impl<'a> Searcher<'a> {
             .iter()
             .map(|&l| index.key(l as usize))
             .collect();
-        Searcher { index, landmarks }
+        Searcher {
+            index,
+            landmarks,
+            keys: index.keys(),
+        }
     }
 
     /// The index searched.
@@ -207,8 +212,10 @@ impl<'a> Searcher<'a> {
         let n = self.index.len();
         let coords = self.index.coords();
         s.scores.resize(n, 0);
-        score_all(coords, self.index.stride(), q, space, &mut s.scores);
-        select_best(&s.scores, c, &mut s.hist, &mut s.picked);
+        s.hist.clear();
+        s.hist.resize(HIST_BINS, 0);
+        scan::score_rows(coords, self.index.stride(), q, space, &mut s.scores, &mut s.hist);
+        select_best(&s.scores, c, &s.hist, &mut s.picked);
     }
 
     /// Re-ranks candidates (in the order given) by the true distance.
@@ -224,7 +231,22 @@ impl<'a> Searcher<'a> {
         let mut best: Vec<Neighbor> = Vec::with_capacity(k + 1);
         let mut distances = 0;
         let mut pruned = 0;
-        for &(_, i) in cands {
+        const AHEAD: usize = 8;
+        for &(_, i) in cands.iter().take(2 * AHEAD) {
+            self.keys.prefetch_offsets(i as usize);
+        }
+        for (j, &(_, i)) in cands.iter().enumerate() {
+            // Two-stage prefetch: offsets (and coordinates) 2·AHEAD ahead, item bytes
+            // AHEAD ahead, once their offsets are in cache.
+            if let Some(&(_, f)) = cands.get(j + 2 * AHEAD) {
+                self.keys.prefetch_offsets(f as usize);
+                if let Some(r) = coords.get(f as usize * stride..) {
+                    crate::prefetch(r.as_ptr());
+                }
+            }
+            if let Some(&(_, f)) = cands.get(j + AHEAD) {
+                self.keys.prefetch_bytes(f as usize);
+            }
             let iu = i as usize;
             let full = best.len() == k;
             let kth = if full {
@@ -234,17 +256,14 @@ impl<'a> Searcher<'a> {
             };
             if full {
                 let row = coords.get(iu * stride..iu * stride + stride).unwrap_or(&[]);
-                let lb = row
-                    .iter()
-                    .zip(small.iter())
-                    .fold(0u8, |m, (a, b)| m.max(a.abs_diff(*b)));
+                let lb = linf_bound(row, small);
                 if f64::from(lb) > kth {
                     pruned += 1;
                     continue;
                 }
             }
             distances += 1;
-            let item = self.index.key(iu);
+            let item = self.keys.get(iu);
             let d = if full {
                 match q.distance_within(item, kth) {
                     Some(d) => d,
@@ -292,91 +311,16 @@ impl<'a> Searcher<'a> {
     }
 }
 
-/// Scores every row of `coords` (row length `stride`) against `q` in `space`.
-///
-/// Hand-written dispatch because the gain comes from the CPU's wider vector units, which
-/// the portable build cannot assume: the same plain loop is compiled once for the baseline
-/// and once with AVX2 enabled, and the AVX2 one is chosen at run time when available.
-pub fn score_all(coords: &[u8], stride: usize, q: &[u8; 64], space: Space, out: &mut [u32]) {
-    #[cfg(target_arch = "x86_64")]
-    {
-        if std::arch::is_x86_feature_detected!("avx2") {
-            // SAFETY: the CPU supports AVX2, checked on the line above.
-            unsafe { score_all_avx2(coords, stride, q, space, out) };
-            return;
-        }
-    }
-    score_all_portable(coords, stride, q, space, out);
-}
-
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2")]
-unsafe fn score_all_avx2(
-    coords: &[u8],
-    stride: usize,
-    q: &[u8; 64],
-    space: Space,
-    out: &mut [u32],
-) {
-    score_all_portable(coords, stride, q, space, out)
-}
-
-#[inline(always)]
-fn score_all_portable(coords: &[u8], stride: usize, q: &[u8; 64], space: Space, out: &mut [u32]) {
-    match stride {
-        8 => score_rows::<8>(coords, q, space, out),
-        16 => score_rows::<16>(coords, q, space, out),
-        32 => score_rows::<32>(coords, q, space, out),
-        _ => score_rows::<64>(coords, q, space, out),
-    }
-}
-
-#[inline(always)]
-fn score_rows<const S: usize>(coords: &[u8], q: &[u8; 64], space: Space, out: &mut [u32]) {
-    let q: &[u8; S] = q[..S].try_into().expect("S <= 64");
-    let rows = coords.chunks_exact(S).zip(out.iter_mut());
-    match space {
-        Space::L1 => rows.for_each(|(r, o)| {
-            let r: &[u8; S] = r.try_into().expect("row of S bytes");
-            let mut s = 0u16;
-            for i in 0..S {
-                s += u16::from(r[i].abs_diff(q[i]));
-            }
-            *o = u32::from(s);
-        }),
-        Space::L2 => rows.for_each(|(r, o)| {
-            let r: &[u8; S] = r.try_into().expect("row of S bytes");
-            let mut s = 0u32;
-            for i in 0..S {
-                let d = u32::from(r[i].abs_diff(q[i]));
-                s += d * d;
-            }
-            *o = s;
-        }),
-        Space::Linf => rows.for_each(|(r, o)| {
-            let r: &[u8; S] = r.try_into().expect("row of S bytes");
-            let mut m = 0u8;
-            for i in 0..S {
-                m = m.max(r[i].abs_diff(q[i]));
-            }
-            *o = u32::from(m);
-        }),
-    }
-}
-
 /// Picks the `c` smallest scores, ordered by (score, item), into `picked` as (score, item).
 ///
-/// A counting histogram finds the score of the c-th best in one pass; only items at or
-/// below it are collected and sorted. Scores above the histogram's range share its last bin.
-pub fn select_best(scores: &[u32], c: usize, hist: &mut Vec<u32>, picked: &mut Vec<(u32, u32)>) {
+/// `hist` is the counting histogram of the scores that [`scan::score_rows`] filled in the
+/// same pass: it gives the score of the c-th best at once, and a counting sort over the bins
+/// up to it collects the candidates already in order, in one more pass and without a heap.
+/// Scores above the histogram's range share its last bin, which is sorted when it is used.
+pub fn select_best(scores: &[u32], c: usize, hist: &[u32], picked: &mut Vec<(u32, u32)>) {
     picked.clear();
-    if c == 0 {
+    if c == 0 || scores.is_empty() {
         return;
-    }
-    hist.clear();
-    hist.resize(HIST_BINS, 0);
-    for &s in scores {
-        hist[(s as usize).min(HIST_BINS - 1)] += 1;
     }
     let mut seen = 0usize;
     let mut cut = HIST_BINS - 1;
@@ -387,18 +331,51 @@ pub fn select_best(scores: &[u32], c: usize, hist: &mut Vec<u32>, picked: &mut V
             break;
         }
     }
-    let cut = cut as u32;
-    let last_bin = (HIST_BINS - 1) as u32;
-    picked.extend(
-        scores
-            .iter()
-            .enumerate()
-            .filter(|(_, &s)| s.min(last_bin) <= cut)
-            .map(|(i, &s)| (s, i as u32)),
-    );
-    if picked.len() > c {
-        picked.select_nth_unstable(c - 1);
-        picked.truncate(c);
+    // Start of each bin up to the cut in the output.
+    let mut start: Vec<u32> = Vec::with_capacity(cut + 1);
+    let mut acc = 0u32;
+    for &h in &hist[..=cut] {
+        start.push(acc);
+        acc += h;
     }
-    picked.sort_unstable();
+    picked.resize(acc as usize, (0, 0));
+    let last_bin = (HIST_BINS - 1) as u32;
+    let cut = cut as u32;
+    for (i, &sc) in scores.iter().enumerate() {
+        let b = sc.min(last_bin);
+        if b <= cut {
+            let slot = &mut start[b as usize];
+            picked[*slot as usize] = (sc, i as u32);
+            *slot += 1;
+        }
+    }
+    if cut == last_bin {
+        // The overflow bin holds different scores: order it.
+        let from = acc as usize - hist[last_bin as usize] as usize;
+        picked[from..].sort_unstable();
+    }
+    picked.truncate(c);
+}
+
+/// L∞ distance of a u8 coordinate row and the query's: the lower bound of the true distance.
+#[inline]
+fn linf_bound(row: &[u8], q: &[u8; 64]) -> u8 {
+    #[inline(always)]
+    fn fixed<const S: usize>(row: &[u8], q: &[u8; 64]) -> u8 {
+        let (Ok(r), Ok(q)) = (<&[u8; S]>::try_from(row), <&[u8; S]>::try_from(&q[..S])) else {
+            return 0;
+        };
+        let mut m = 0u8;
+        for i in 0..S {
+            m = m.max(r[i].abs_diff(q[i]));
+        }
+        m
+    }
+    match row.len() {
+        8 => fixed::<8>(row, q),
+        16 => fixed::<16>(row, q),
+        32 => fixed::<32>(row, q),
+        64 => fixed::<64>(row, q),
+        _ => 0,
+    }
 }

@@ -253,16 +253,20 @@ impl Index {
         self.tree().map(|_| ())
     }
 
-    fn string(&self, table: &Strings, i: usize) -> &[u8] {
-        let offs = &self.map[table.offsets.clone()];
-        let at = |j: usize| {
-            offs.get(j * 8..j * 8 + 8)
-                .map(|b| u64::from_le_bytes(b.try_into().expect("8 bytes")) as usize)
-        };
-        match (at(i), at(i + 1)) {
-            (Some(s), Some(e)) if s <= e => self.map[table.bytes.clone()].get(s..e).unwrap_or(&[]),
-            _ => &[],
+    fn table(&self, table: &Strings) -> StrTable<'_> {
+        StrTable {
+            offsets: &self.map[table.offsets.clone()],
+            bytes: &self.map[table.bytes.clone()],
         }
+    }
+
+    fn string(&self, table: &Strings, i: usize) -> &[u8] {
+        self.table(table).get(i)
+    }
+
+    /// The comparison keys as a table, for loops that read many of them.
+    pub fn keys(&self) -> StrTable<'_> {
+        self.table(self.keys.as_ref().unwrap_or(&self.items))
     }
 
     /// Item `i` as given at build time (UTF-8 unless the file is damaged).
@@ -328,6 +332,48 @@ impl Index {
                 path: self.path.clone(),
                 message: m.clone(),
             }),
+        }
+    }
+}
+
+/// A table of strings read in place: offsets and bytes of one index section pair.
+#[derive(Clone, Copy, Debug)]
+pub struct StrTable<'a> {
+    offsets: &'a [u8],
+    bytes: &'a [u8],
+}
+
+impl<'a> StrTable<'a> {
+    /// Asks the CPU to fetch the offsets of string `i` into cache (no effect on results).
+    #[inline]
+    pub fn prefetch_offsets(&self, i: usize) {
+        if let Some(b) = self.offsets.get(i * 8..i * 8 + 16) {
+            crate::prefetch(b.as_ptr());
+        }
+    }
+
+    /// Asks the CPU to fetch the first bytes of string `i` into cache.
+    #[inline]
+    pub fn prefetch_bytes(&self, i: usize) {
+        if let Some(b) = self.offsets.get(i * 8..i * 8 + 8) {
+            let at = u64::from_le_bytes(b.try_into().expect("8 bytes")) as usize;
+            if let Some(x) = self.bytes.get(at..) {
+                crate::prefetch(x.as_ptr());
+            }
+        }
+    }
+
+    /// String `i`; empty when the file is damaged so that its offsets make no sense.
+    #[inline]
+    pub fn get(&self, i: usize) -> &'a [u8] {
+        let at = |j: usize| {
+            self.offsets
+                .get(j * 8..j * 8 + 8)
+                .map(|b| u64::from_le_bytes(b.try_into().expect("8 bytes")) as usize)
+        };
+        match (at(i), at(i + 1)) {
+            (Some(s), Some(e)) if s <= e => self.bytes.get(s..e).unwrap_or(&[]),
+            _ => &[],
         }
     }
 }
