@@ -2,8 +2,9 @@
 //!
 //! * `scan`: one prepared query of 9 chars against an English word list (the system
 //!   dictionary at /usr/share/dict/american-english when present, else a generated list of
-//!   similar lengths), unbounded and bounded with k = 2 — the shape of a brute-force scan and
-//!   of re-ranking with a running k-th best distance.
+//!   similar lengths): unbounded one item per call (`dist`), unbounded two items at a time
+//!   (`dist_each`), and bounded with k = 2 — the shapes of a brute-force scan and of
+//!   re-ranking with a running k-th best distance.
 //! * `long`: a 300-char query (five 64-row blocks) against 300-char items a few edits away.
 
 use std::hint::black_box;
@@ -47,6 +48,13 @@ fn scan(c: &mut Criterion) {
             for item in &items {
                 sum += u64::from(query.dist(black_box(item)));
             }
+            sum
+        })
+    });
+    group.bench_function("unbounded_dist_each", |b| {
+        b.iter(|| {
+            let mut sum = 0u64;
+            query.dist_each(black_box(&items), |_, d| sum += u64::from(d));
             sum
         })
     });

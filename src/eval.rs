@@ -45,13 +45,12 @@ fn push_sorted(index: &Index, best: &mut Vec<Neighbor>, k: usize, cand: Neighbor
     best.truncate(k);
 }
 
-/// Exact k-NN with the unbounded kernel against every item.
+/// Exact k-NN with the unbounded kernel against every item (two items per kernel call).
 pub fn full_scan(index: &Index, query: &str, k: usize) -> Vec<Neighbor> {
     let q = prepare(index, query);
     let keys = index.keys();
     let mut best: Vec<Neighbor> = Vec::with_capacity(k + 1);
-    for i in 0..index.len() {
-        let d = q.dist(keys.get(i));
+    q.dist_each((0..index.len()).map(|i| keys.get(i)), |i, d| {
         let kth = if best.len() == k {
             best[k - 1].distance
         } else {
@@ -68,7 +67,7 @@ pub fn full_scan(index: &Index, query: &str, k: usize) -> Vec<Neighbor> {
                 },
             );
         }
-    }
+    });
     best
 }
 

@@ -28,6 +28,9 @@ use std::path::Path;
 
 use serde::{Deserialize, Serialize};
 
+/// The UTF-8 byte-order mark, dropped at the start of an input.
+const BOM: &[u8] = b"\xEF\xBB\xBF";
+
 /// The layout of an input file.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub enum InputFormat {
@@ -74,9 +77,11 @@ pub struct IngestOptions {
 /// every query, so that queries are compared exactly like the items were.
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
 pub struct Normalize {
-    /// Compare in lower case (Unicode lower-casing of every character).
+    /// Compare in lower case (`str::to_lowercase`, Unicode's default lower-casing: `Å` → `å`).
+    /// This is lower-casing, not full case folding: `ß` stays `ß`.
     pub fold_case: bool,
-    /// Ignore leading and trailing white space.
+    /// Ignore leading and trailing white space (Unicode `White_Space`); an item that is only
+    /// white space then counts as blank and is skipped.
     pub trim: bool,
 }
 
@@ -84,7 +89,9 @@ impl Normalize {
     /// The comparison form of `s`.
     pub fn apply<'a>(&self, s: &'a str) -> Cow<'a, str> {
         let s = if self.trim { s.trim() } else { s };
-        if self.fold_case && s.chars().any(|c| c.is_uppercase()) {
+        // A character changes under lower-casing iff its lower case is not itself; this also
+        // catches title-case letters such as U+01C5, which `char::is_uppercase` does not.
+        if self.fold_case && s.chars().any(|c| !c.to_lowercase().eq([c])) {
             Cow::Owned(s.to_lowercase())
         } else {
             Cow::Borrowed(s)
@@ -350,16 +357,22 @@ fn read_text<R: Read>(reader: R, b: &mut Builder<'_>) -> Result<(), IngestError>
             buf.pop();
         }
         let mut bytes = &buf[..];
-        if line == 1 && bytes.starts_with(b"\xEF\xBB\xBF") {
-            bytes = &bytes[3..];
+        let mut bom = 0;
+        if line == 1 && bytes.starts_with(BOM) {
+            bytes = &bytes[BOM.len()..];
+            bom = BOM.len();
         }
         let item = match std::str::from_utf8(bytes) {
             Ok(s) => s.to_string(),
             Err(e) => {
+                // 1-based byte position in the line as stored in the file (BOM included).
                 return Err(b.record_error(
                     line,
-                    format!("invalid UTF-8 at byte {} of the line", e.valid_up_to() + 1),
-                ))
+                    format!(
+                        "invalid UTF-8 at byte {} of the line",
+                        bom + e.valid_up_to() + 1
+                    ),
+                ));
             }
         };
         b.push(item, None, line)?;
@@ -394,20 +407,26 @@ fn read_csv<R: Read>(reader: R, delimiter: u8, b: &mut Builder<'_>) -> Result<()
         .has_headers(true)
         .flexible(true)
         .from_reader(reader);
-    let csv_error = |b: &Builder<'_>, e: csv::Error| -> IngestError {
+    let csv_error = |b: &Builder<'_>, headers: Option<&csv::StringRecord>, e: csv::Error| {
         let line = e.position().map_or(0, |p| p.line());
-        match e.kind() {
+        let message = e.to_string();
+        match e.into_kind() {
             csv::ErrorKind::Utf8 { err, .. } => {
-                b.record_error(line, format!("invalid UTF-8 in column {}", err.field() + 1))
+                let col = err.field();
+                let name = match headers.and_then(|h| h.get(col)) {
+                    Some(h) => format!("column \"{h}\" (number {col}, counting from 0)"),
+                    None => format!("the header, column number {col} (counting from 0)"),
+                };
+                b.record_error(line, format!("invalid UTF-8 in {name}"))
             }
-            csv::ErrorKind::Io(_) => IngestError::Io {
+            csv::ErrorKind::Io(error) => IngestError::Io {
                 source_name: b.name.to_string(),
-                error: std::io::Error::other(e.to_string()),
+                error,
             },
-            _ => b.record_error(line, e.to_string()),
+            _ => b.record_error(line, message),
         }
     };
-    let headers = rdr.headers().map_err(|e| csv_error(b, e))?.clone();
+    let headers = rdr.headers().map_err(|e| csv_error(b, None, e))?.clone();
     // Strip a BOM from the first header name.
     let headers: csv::StringRecord = headers
         .iter()
@@ -420,14 +439,20 @@ fn read_csv<R: Read>(reader: R, delimiter: u8, b: &mut Builder<'_>) -> Result<()
             }
         })
         .collect();
+    if headers.is_empty() {
+        // An empty input: no header and no rows, reported as "no items".
+        return Ok(());
+    }
     let col = match &b.opts.field {
         Some(f) => find_column(&headers, f, b)?,
         None if headers.len() == 1 => 0,
         None => {
+            let names: Vec<&str> = headers.iter().collect();
             return Err(b.options_error(format!(
-                "the input has {} columns: say which holds the items with --field",
-                headers.len()
-            )))
+                "the input has {} columns ({}): say which holds the items with --field",
+                headers.len(),
+                names.join(", ")
+            )));
         }
     };
     let id_col = match &b.opts.id_field {
@@ -439,7 +464,7 @@ fn read_csv<R: Read>(reader: R, delimiter: u8, b: &mut Builder<'_>) -> Result<()
         match rdr.read_record(&mut rec) {
             Ok(true) => {}
             Ok(false) => break,
-            Err(e) => return Err(csv_error(b, e)),
+            Err(e) => return Err(csv_error(b, Some(&headers), e)),
         }
         let line = rec.position().map_or(0, |p| p.line());
         let field = |c: usize| -> Result<String, IngestError> {
@@ -496,16 +521,25 @@ fn read_jsonl<R: Read>(reader: R, b: &mut Builder<'_>) -> Result<(), IngestError
         }
         line += 1;
         let mut bytes = &buf[..];
-        if line == 1 && bytes.starts_with(b"\xEF\xBB\xBF") {
-            bytes = &bytes[3..];
+        if line == 1 && bytes.starts_with(BOM) {
+            bytes = &bytes[BOM.len()..];
         }
         if bytes.iter().all(|c| c.is_ascii_whitespace()) {
             b.records += 1;
             b.blank += 1;
             continue;
         }
-        let v: serde_json::Value = serde_json::from_slice(bytes)
-            .map_err(|e| b.record_error(line, format!("not a JSON object: {e}")))?;
+        let v: serde_json::Value = serde_json::from_slice(bytes).map_err(|e| {
+            // serde_json counts lines within the one line it was given; report the file's
+            // line and serde_json's column instead.
+            let full = e.to_string();
+            let suffix = format!(" at line {} column {}", e.line(), e.column());
+            let what = full.strip_suffix(&suffix).unwrap_or(&full);
+            b.record_error(
+                line,
+                format!("invalid JSON at column {}: {what}", e.column()),
+            )
+        })?;
         let Some(obj) = v.as_object() else {
             return Err(b.record_error(
                 line,
@@ -533,17 +567,17 @@ fn read_jsonl<R: Read>(reader: R, b: &mut Builder<'_>) -> Result<(), IngestError
                     Some(IdValue::Int(n.as_i64().expect("checked")))
                 }
                 Some(other) => {
+                    let found = match other {
+                        serde_json::Value::Number(n) if n.is_u64() => {
+                            "an integer larger than 9223372036854775807 (2^63 - 1)"
+                        }
+                        serde_json::Value::Number(_) => "a non-integer number",
+                        _ => json_type(other),
+                    };
                     return Err(b.record_error(
                         line,
-                        format!(
-                            "id field \"{f}\" must be an integer or a string, found {}",
-                            if other.is_number() {
-                                "a non-integer number"
-                            } else {
-                                json_type(other)
-                            }
-                        ),
-                    ))
+                        format!("id field \"{f}\" must be an integer or a string, found {found}"),
+                    ));
                 }
                 None => return Err(b.record_error(line, format!("id field \"{f}\" is missing"))),
             },

@@ -14,9 +14,13 @@
 //!
 //! - the absolute difference of u8 lanes is `max(a, b) − min(a, b)`;
 //! - L1 uses `vpsadbw`, which sums the absolute differences of each 8 bytes into a u64;
-//! - L2 splits the differences into even and odd bytes as u16 (a mask and a shift, no lane
-//!   crossing) and squares and sums pairs with `vpmaddwd`, giving i32 partial sums;
-//! - L∞ folds rows onto each other until each row's maximum sits in one byte.
+//! - L2 splits rows and query into even and odd bytes as u16 (a mask and a shift, no lane
+//!   crossing), subtracts in i16, and squares and sums pairs with `vpmaddwd`, giving i32
+//!   partial sums;
+//! - L∞ folds rows onto each other until each row's maximum sits in one byte;
+//! - the partial sums of eight rows are reduced together (`vphaddd`, unpacks, shifts) into
+//!   one vector of eight scores, stored at once; the histogram is then counted from the
+//!   stored scores, one block of rows at a time.
 //!
 //! The AVX2 path is chosen at run time ([`has_avx2`]); the portable path (plain loops,
 //! correct on any CPU) is used otherwise, for the last `n % 8` rows, and on other
@@ -252,6 +256,12 @@ mod avx2 {
         }
     }
 
+    /// Rows scored by the vector pass before their scores are counted. The scores of a
+    /// block are still in L1 when the counting loop reads them back with plain loads;
+    /// counting straight from the vector register instead takes one vector-to-integer
+    /// extract per score, which measured slower (`benches/scan.rs`).
+    const BLOCK: usize = 256;
+
     /// Scores rows of `S` bytes: eight at a time with AVX2, the rest with the portable loop.
     #[target_feature(enable = "avx2")]
     pub(super) fn rows<const S: usize>(
@@ -265,43 +275,70 @@ mod avx2 {
         let (head, tail) = coords.split_at(full * S);
         let (head_out, tail_out) = out.split_at_mut(full);
         let qv = query::<S>(q);
-        let groups = head.chunks_exact(8 * S).zip(head_out.chunks_exact_mut(8));
-        match space {
-            Space::L1 => {
-                for (c, o) in groups {
-                    let o: &mut [u32; 8] = o.try_into().expect("8 scores");
-                    store(o, l1::<S>(c, &qv));
-                    count_small(o, hist);
-                }
+        // The bins counted are below HIST_BINS (L1 ≤ 64 × 255, L2 clamped), so the mask
+        // never changes one; it only lets the compiler drop the bounds check.
+        let mut count = |bins: &[u32]| {
+            for &b in bins {
+                hist[b as usize & (HIST_BINS - 1)] += 1;
             }
+        };
+        match space {
+            Space::L1 => blocks::<S, false>(head, head_out, |c| l1::<S>(c, &qv), &mut count),
             Space::L2 => {
-                let last = _mm256_set1_epi32((HIST_BINS - 1) as i32);
-                for (c, o) in groups {
-                    let o: &mut [u32; 8] = o.try_into().expect("8 scores");
-                    let v = l2::<S>(c, &qv);
-                    store(o, v);
-                    let mut bins = [0u32; 8];
-                    store(&mut bins, _mm256_min_epu32(v, last));
-                    count_small(&bins, hist);
-                }
+                let qs = SplitQuery::new(&qv);
+                blocks::<S, true>(head, head_out, |c| l2::<S>(c, &qs), &mut count)
             }
             Space::Linf => {
-                for (c, o) in groups {
-                    let o: &mut [u32; 8] = o.try_into().expect("8 scores");
-                    store(o, linf::<S>(c, &qv));
-                    count_small(o, hist);
+                // L∞ scores take few distinct values and neighbouring rows often share one;
+                // four small tables, used in turn, keep increments of one bin from waiting
+                // on each other.
+                let mut local = [[0u32; 256]; 4];
+                blocks::<S, false>(
+                    head,
+                    head_out,
+                    |c| linf::<S>(c, &qv),
+                    |bins| {
+                        for four in bins.chunks_exact(4) {
+                            for (t, &b) in local.iter_mut().zip(four) {
+                                t[b as usize & 255] += 1;
+                            }
+                        }
+                    },
+                );
+                for t in &local {
+                    for (h, &l) in hist.iter_mut().zip(t) {
+                        *h += l;
+                    }
                 }
             }
         }
         portable::<S>(tail, q, space, tail_out, hist);
     }
 
-    /// Counts eight scores known to be below `HIST_BINS` (the mask only spares the bounds
-    /// check; it never changes a value).
-    #[inline(always)]
-    fn count_small(s: &[u32; 8], hist: &mut [u32; HIST_BINS]) {
-        for &s in s {
-            hist[s as usize & (HIST_BINS - 1)] += 1;
+    /// Runs `score` on each group of eight rows (`coords.len() == S * out.len()`,
+    /// `out.len()` a multiple of 8), stores the scores, and calls `count` with each block's
+    /// histogram bins once the block is scored. With `CLAMP` the bins are the scores clamped
+    /// to the last bin, made in the vector pass; without, they are the scores themselves.
+    #[inline]
+    #[target_feature(enable = "avx2")]
+    fn blocks<const S: usize, const CLAMP: bool>(
+        coords: &[u8],
+        out: &mut [u32],
+        score: impl Fn(&[u8]) -> __m256i,
+        mut count: impl FnMut(&[u32]),
+    ) {
+        let last = _mm256_set1_epi32((HIST_BINS - 1) as i32);
+        let mut clamped = [0u32; BLOCK];
+        for (cb, ob) in coords.chunks(BLOCK * S).zip(out.chunks_mut(BLOCK)) {
+            let groups = cb.chunks_exact(8 * S).zip(ob.chunks_exact_mut(8));
+            for ((c, o), b) in groups.zip(clamped.chunks_exact_mut(8)) {
+                let v = score(c);
+                store(o.try_into().expect("8 scores"), v);
+                if CLAMP {
+                    store(b.try_into().expect("8 bins"), _mm256_min_epu32(v, last));
+                }
+            }
+            count(if CLAMP { &clamped[..ob.len()] } else { ob });
         }
     }
 
@@ -387,33 +424,62 @@ mod avx2 {
         )
     }
 
-    /// Squared differences of one 32-byte load, summed in i32 groups of four bytes.
+    /// The query's bytes as u16: even and odd positions of each 32-byte load.
+    struct SplitQuery {
+        lo: [__m256i; 2],
+        hi: [__m256i; 2],
+    }
+
+    impl SplitQuery {
+        #[inline]
+        #[target_feature(enable = "avx2")]
+        fn new(q: &Query) -> SplitQuery {
+            SplitQuery {
+                lo: split(q.lo),
+                hi: split(q.hi),
+            }
+        }
+    }
+
+    /// Even and odd bytes of `v` as u16 lanes (a mask and a shift, no lane crossing).
     #[inline]
     #[target_feature(enable = "avx2")]
-    fn squares(r: __m256i, q: __m256i) -> __m256i {
-        let d = absdiff(r, q);
-        let even = _mm256_and_si256(d, _mm256_set1_epi16(0xff));
-        let odd = _mm256_srli_epi16::<8>(d);
-        _mm256_add_epi32(_mm256_madd_epi16(even, even), _mm256_madd_epi16(odd, odd))
+    fn split(v: __m256i) -> [__m256i; 2] {
+        [
+            _mm256_and_si256(v, _mm256_set1_epi16(0xff)),
+            _mm256_srli_epi16::<8>(v),
+        ]
+    }
+
+    /// Squared differences of one 32-byte load against the split query, summed in i32 groups
+    /// of four bytes. The differences are taken in i16 (|a − b| ≤ 255), so `vpmaddwd` squares
+    /// and adds pairs exactly: at most 2 × 255² per i32.
+    #[inline]
+    #[target_feature(enable = "avx2")]
+    fn squares(r: __m256i, q: &[__m256i; 2]) -> __m256i {
+        let [even, odd] = split(r);
+        let de = _mm256_sub_epi16(even, q[0]);
+        let d_o = _mm256_sub_epi16(odd, q[1]);
+        _mm256_add_epi32(_mm256_madd_epi16(de, de), _mm256_madd_epi16(d_o, d_o))
     }
 
     /// Squared L2 of eight rows, as eight u32 in row order.
     #[inline]
     #[target_feature(enable = "avx2")]
-    fn l2<const S: usize>(c: &[u8], q: &Query) -> __m256i {
+    fn l2<const S: usize>(c: &[u8], q: &SplitQuery) -> __m256i {
         let c = &c[..8 * S];
         match S {
             8 => {
                 // Two i32 per row: e0 = rows 0..4, e1 = rows 4..8.
-                let e0 = squares(load(&c[0..]), q.lo);
-                let e1 = squares(load(&c[32..]), q.lo);
+                let e0 = squares(load(&c[0..]), &q.lo);
+                let e1 = squares(load(&c[32..]), &q.lo);
                 // [r0 r1 r4 r5 | r2 r3 r6 r7]
                 let h = _mm256_hadd_epi32(e0, e1);
                 _mm256_permute4x64_epi64::<0b11_01_10_00>(h)
             }
             16 => {
                 // Each register: two rows (one per 128-bit lane), four i32 each.
-                let e: [__m256i; 4] = std::array::from_fn(|k| squares(load(&c[32 * k..]), q.lo));
+                let e: [__m256i; 4] = std::array::from_fn(|k| squares(load(&c[32 * k..]), &q.lo));
                 let h01 = _mm256_hadd_epi32(e[0], e[1]);
                 let h23 = _mm256_hadd_epi32(e[2], e[3]);
                 // [r0 r2 r4 r6 | r1 r3 r5 r7]
@@ -424,9 +490,9 @@ mod avx2 {
                 // One row per register, eight i32 each.
                 let e: [__m256i; 8] = std::array::from_fn(|k| {
                     let row = &c[S * k..];
-                    let a = squares(load(row), q.lo);
+                    let a = squares(load(row), &q.lo);
                     if S == 64 {
-                        _mm256_add_epi32(a, squares(load(&row[32..]), q.hi))
+                        _mm256_add_epi32(a, squares(load(&row[32..]), &q.hi))
                     } else {
                         a
                     }
@@ -541,7 +607,7 @@ mod tests {
     /// Random rows: values drawn from a mix of 0, 255, small and any byte; the `stride − dim`
     /// trailing bytes of every row and of the query are zero.
     fn data(rng: &mut ChaCha8Rng, n: usize, stride: usize, dim: usize) -> (Vec<u8>, [u8; 64]) {
-        let mut byte = |rng: &mut ChaCha8Rng| match rng.gen_range(0..4) {
+        let byte = |rng: &mut ChaCha8Rng| match rng.gen_range(0..4) {
             0 => 0,
             1 => 255,
             2 => rng.gen_range(0..16),

@@ -214,7 +214,14 @@ impl<'a> Searcher<'a> {
         s.scores.resize(n, 0);
         s.hist.clear();
         s.hist.resize(HIST_BINS, 0);
-        scan::score_rows(coords, self.index.stride(), q, space, &mut s.scores, &mut s.hist);
+        scan::score_rows(
+            coords,
+            self.index.stride(),
+            q,
+            space,
+            &mut s.scores,
+            &mut s.hist,
+        );
         select_best(&s.scores, c, &s.hist, &mut s.picked);
     }
 

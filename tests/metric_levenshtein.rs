@@ -83,7 +83,7 @@ fn pair() -> impl Strategy<Value = (String, String)> {
 }
 
 proptest! {
-    #![proptest_config(ProptestConfig::with_cases(2000))]
+    #![proptest_config(ProptestConfig::with_cases(1000))]
 
     #[test]
     fn dist_matches_strsim((a, b) in pair()) {

@@ -20,9 +20,21 @@
 //!   Characters of the item that do not occur in the query have the empty mask.
 //! * Queries longer than 64 characters use one word per 64 rows (the blocked form from the
 //!   same paper), passing the horizontal delta of each block's last row on to the next block.
-//! * [`LevenshteinQuery::dist_within`] gives up as soon as the distance must exceed the bound:
-//!   first by the length difference (no work at all), then, after each column `j` of an item
-//!   of `n` characters, because the final distance is at least `D[m][j] − (n − j)`.
+//! * [`LevenshteinQuery::dist_within`] gives up as soon as the distance must exceed the bound.
+//!   First by the length difference, at no cost. Then, for queries up to 64 chars, by the
+//!   cell of the current column on the diagonal that ends in the answer (values never decrease
+//!   along a diagonal). For longer queries, by computing only the blocks that meet the band of
+//!   diagonals within the bound (Ukkonen's cut-off), so a small bound costs one or two
+//!   blocks per column.
+//!
+//! # Speed
+//!
+//! One character costs a chain of 9 dependent word operations, so a single short item
+//! keeps the processor's arithmetic units mostly idle. [`LevenshteinQuery::dist_each`] and
+//! [`LevenshteinQuery::dist2`] run two items side by side and are the fastest way to scan.
+//! [`LevenshteinQuery::dist_within`] is faster still when the bound is small. On x86-64 the
+//! kernels are also compiled for `popcnt` and `bmi1` and picked at run time, since the
+//! baseline target has neither instruction. `benches/kernel.rs` measures all of these.
 //!
 //! # Why this is written here
 //!
@@ -164,9 +176,11 @@ impl LevenshteinQuery {
         let d = match self.words {
             0 => char_len(item),
             1 => self.dist_one_word(item),
-            _ => self
-                .dist_blocks(item, usize::MAX)
-                .expect("an unbounded scan always finishes"),
+            _ => {
+                let d = self.dist_blocks(item, usize::MAX);
+                debug_assert!(d.is_some(), "an unbounded scan always finishes");
+                d.unwrap_or(usize::MAX)
+            }
         };
         saturate(d)
     }
@@ -174,7 +188,8 @@ impl LevenshteinQuery {
     /// The distances from the query to two items, computed together.
     ///
     /// Same results as two calls of [`LevenshteinQuery::dist`], but for queries of up to 64
-    /// chars the two items are interleaved, which nearly doubles throughput on one core.
+    /// chars the two items are interleaved, giving about 1.5 times the throughput on one core
+    /// (see `benches/kernel.rs`).
     ///
     /// ```
     /// use waymark::metric::LevenshteinQuery;
@@ -236,36 +251,29 @@ impl LevenshteinQuery {
         if bytes.saturating_add(k) < m {
             return None;
         }
+        if self.words == 1 {
+            let n = char_len(item);
+            if n.abs_diff(m) > k {
+                return None;
+            }
+            return self.dist_one_word_within(item, k, n).map(saturate);
+        }
         // Too many bytes may still be few enough chars; count them only then.
         if bytes > m.saturating_add(k) && (item.is_ascii() || char_len(item) > m + k) {
             return None;
         }
         let d = match self.words {
             0 => Some(char_len(item)).filter(|&d| d <= k),
-            1 => self.dist_one_word_within(item, k),
             _ => self.dist_blocks(item, k),
         };
         d.map(saturate)
-    }
-
-    /// Whether the x86-64 kernels compiled for `popcnt` and `bmi1` may run on this CPU.
-    #[inline(always)]
-    fn use_x86_fast(&self) -> bool {
-        #[cfg(target_arch = "x86_64")]
-        {
-            self.x86_fast
-        }
-        #[cfg(not(target_arch = "x86_64"))]
-        {
-            false
-        }
     }
 
     /// Unbounded single-block distance, on the fastest kernel this CPU runs.
     #[inline]
     fn dist_one_word(&self, item: &[u8]) -> usize {
         #[cfg(target_arch = "x86_64")]
-        if self.use_x86_fast() {
+        if self.x86_fast {
             // SAFETY: `x86_fast` is set only when the CPU reports `popcnt` and `bmi1`.
             return unsafe { x86::dist_one_word(self, item) };
         }
@@ -276,7 +284,7 @@ impl LevenshteinQuery {
     #[inline]
     fn dist_one_word_pair(&self, a: &[u8], b: &[u8]) -> [usize; 2] {
         #[cfg(target_arch = "x86_64")]
-        if self.use_x86_fast() {
+        if self.x86_fast {
             // SAFETY: `x86_fast` is set only when the CPU reports `popcnt` and `bmi1`.
             return unsafe { x86::dist_one_word_pair(self, a, b) };
         }
@@ -285,20 +293,20 @@ impl LevenshteinQuery {
 
     /// Bounded single-block distance, on the fastest kernel this CPU runs.
     #[inline]
-    fn dist_one_word_within(&self, item: &[u8], k: usize) -> Option<usize> {
+    fn dist_one_word_within(&self, item: &[u8], k: usize, n: usize) -> Option<usize> {
         #[cfg(target_arch = "x86_64")]
-        if self.use_x86_fast() {
+        if self.x86_fast {
             // SAFETY: `x86_fast` is set only when the CPU reports `popcnt` and `bmi1`.
-            return unsafe { x86::dist_one_word_within(self, item, k) };
+            return unsafe { x86::dist_one_word_within(self, item, k, n) };
         }
-        self.dist_one_word_within_impl(item, k)
+        self.dist_one_word_within_impl(item, k, n)
     }
 
     /// Multi-block distance, on the fastest kernel this CPU runs.
     #[inline]
     fn dist_blocks(&self, item: &[u8], k: usize) -> Option<usize> {
         #[cfg(target_arch = "x86_64")]
-        if self.use_x86_fast() {
+        if self.x86_fast {
             // SAFETY: `x86_fast` is set only when the CPU reports `popcnt` and `bmi1`.
             return unsafe { x86::dist_blocks(self, item, k) };
         }
@@ -378,9 +386,9 @@ impl LevenshteinQuery {
 
     /// Unbounded single-block kernel over two items at once.
     ///
-    /// Each column costs a chain of about a dozen dependent word operations, so one item at a
-    /// time leaves most of the processor's arithmetic units idle; two independent chains run
-    /// side by side in the same time.
+    /// Each column costs a chain of 9 dependent word operations, so one item at a time leaves
+    /// most of the processor's arithmetic units idle; two independent chains run side by side
+    /// in little more time.
     #[inline(always)]
     fn dist_one_word_pair_impl(&self, a: &[u8], b: &[u8]) -> [usize; 2] {
         let ascii = self.ascii_one_word();
@@ -399,42 +407,118 @@ impl LevenshteinQuery {
         [self.finish_one_word(&ca), self.finish_one_word(&cb)]
     }
 
-    /// Bounded single-block kernel; the caller has applied the length filter.
+    /// Bounded single-block kernel for an item of `n` chars; the caller has applied the
+    /// length filter `|m − n| ≤ k`.
+    ///
+    /// Values never decrease along a diagonal of the table (`D[i][j] ≤ D[i+1][j+1]`, a lemma
+    /// of Ukkonen, 1985), so after column `j` the distance is at least `D[j + m − n][j]`, the
+    /// cell on the diagonal that ends in `D[m][n]` (or at least `D[0][j] = j ≤ n − m` before
+    /// that diagonal enters the table). That cell is the column prefix sum up to row
+    /// `j + m − n`: two population counts, off the loop-carried chain, and far stronger than a
+    /// last-row bound, so most items that are too far stop after a few chars.
     #[inline(always)]
-    fn dist_one_word_within_impl(&self, item: &[u8], k: usize) -> Option<usize> {
+    fn dist_one_word_within_impl(&self, item: &[u8], k: usize, n: usize) -> Option<usize> {
         let ascii = self.ascii_one_word();
-        let high = self.last_bit;
-        let mut pv = !0u64;
-        let mut mv = 0u64;
-        let mut score = self.len;
-        // After reading up to byte `i`, at most `item.len() − i` columns remain, and the final
-        // distance is at least `score − remaining`: stop once `score + i > k + item.len()`.
-        let limit = k.saturating_add(item.len());
+        let m = self.len;
+        let mut col = Column::new();
         let mut i = 0;
         while let Some(&b) = item.get(i) {
             let eq = self.eq_one_word(ascii, item, &mut i, b);
-            let (ph, mh) = step(&mut pv, &mut mv, eq);
-            score = score + usize::from(ph & high != 0) - usize::from(mh & high != 0);
-            if score + i > limit {
+            step(&mut col.pv, &mut col.mv, eq);
+            col.n += 1;
+            // Row of the final diagonal in this column (0 while it is still above the table);
+            // at most m ≤ 64.
+            let r = (col.n + m).saturating_sub(n);
+            let rows = if r >= WORD { !0 } else { (1u64 << r) - 1 };
+            let diagonal = col.n + (col.pv & rows).count_ones() as usize
+                - (col.mv & rows).count_ones() as usize;
+            if diagonal > k {
                 return None;
             }
         }
-        (score <= k).then_some(score)
+        let d = self.finish_one_word(&col);
+        (d <= k).then_some(d)
     }
 
     /// Multi-block kernel (`m > 64`), bounded by `k` (`usize::MAX` for no bound).
     #[inline(always)]
     fn dist_blocks_impl(&self, item: &[u8], k: usize) -> Option<usize> {
         let w = self.words;
+        // The band j − k ≤ i ≤ j + k covers every row of every column when k + 1 ≥ m and
+        // k + 1 ≥ n (bytes bound chars); then the plain loop does the same work faster.
+        if k.saturating_add(1) >= self.len.max(item.len()) {
+            return match w {
+                2 => self.dist_blocks_fixed::<2>(item, k),
+                3 => self.dist_blocks_fixed::<3>(item, k),
+                4 => self.dist_blocks_fixed::<4>(item, k),
+                _ => {
+                    let mut pv = vec![!0u64; w];
+                    let mut mv = vec![0u64; w];
+                    self.dist_blocks_full(item, k, &mut pv, &mut mv)
+                }
+            };
+        }
         if w <= STACK_WORDS {
             let mut pv = [!0u64; STACK_WORDS];
             let mut mv = [0u64; STACK_WORDS];
-            self.dist_blocks_in(item, k, &mut pv[..w], &mut mv[..w])
+            self.dist_blocks_band(item, k, &mut pv[..w], &mut mv[..w])
         } else {
             let mut pv = vec![!0u64; w];
             let mut mv = vec![0u64; w];
-            self.dist_blocks_in(item, k, &mut pv, &mut mv)
+            self.dist_blocks_band(item, k, &mut pv, &mut mv)
         }
+    }
+
+    /// [`Self::dist_blocks_full`] on `W` blocks held in fixed-size arrays, which the compiler
+    /// keeps in registers instead of memory.
+    #[inline(always)]
+    fn dist_blocks_fixed<const W: usize>(&self, item: &[u8], k: usize) -> Option<usize> {
+        let mut pv = [!0u64; W];
+        let mut mv = [0u64; W];
+        self.dist_blocks_full(item, k, &mut pv, &mut mv)
+    }
+
+    /// Multi-block kernel computing every block of every column (`pv` all ones, `mv` all
+    /// zeros on entry, one entry per block).
+    #[inline(always)]
+    fn dist_blocks_full(
+        &self,
+        item: &[u8],
+        k: usize,
+        pv: &mut [u64],
+        mv: &mut [u64],
+    ) -> Option<usize> {
+        let w = self.words;
+        let high = self.last_bit;
+        let (last_pv, pv) = pv.split_last_mut()?;
+        let (last_mv, mv) = mv.split_last_mut()?;
+        let mut score = self.len;
+        let limit = k.saturating_add(item.len());
+        let mut i = 0;
+        while let Some(&b) = item.get(i) {
+            let masks = if b < 0x80 {
+                i += 1;
+                let at = b as usize * w;
+                &self.ascii[at..at + w]
+            } else {
+                let (row, size) = self.decode_other(&item[i..]);
+                i += size;
+                &self.other_masks[row * w..row * w + w]
+            };
+            let (last_eq, masks) = masks.split_last()?;
+            // Row 0 of the global table is 0, 1, 2, …: the horizontal delta entering the
+            // first block is always +1.
+            let (mut hp, mut hm) = (1u64, 0u64);
+            for ((p, m), &eq) in pv.iter_mut().zip(mv.iter_mut()).zip(masks) {
+                (hp, hm) = step_block(p, m, eq, hp, hm, 1 << 63);
+            }
+            let (hp, hm) = step_block(last_pv, last_mv, *last_eq, hp, hm, high);
+            score = score + hp as usize - hm as usize;
+            if score + i > limit {
+                return None;
+            }
+        }
+        (score <= k).then_some(score)
     }
 
     /// Multi-block kernel over caller-provided state (`pv` all ones, `mv` all zeros).
@@ -452,7 +536,7 @@ impl LevenshteinQuery {
     ///   computed table is never below the true one and equals it along every path of cost
     ///   `≤ k`.
     #[inline(always)]
-    fn dist_blocks_in(
+    fn dist_blocks_band(
         &self,
         item: &[u8],
         k: usize,
@@ -469,52 +553,39 @@ impl LevenshteinQuery {
         let mut columns = 0usize;
         let mut i = 0;
         while let Some(&b) = item.get(i) {
-            let row = if b < 0x80 {
+            let (table, base) = if b < 0x80 {
                 i += 1;
-                b as usize
+                (&self.ascii, b as usize * w)
             } else {
                 let (row, size) = self.decode_other(&item[i..]);
                 i += size;
-                128 + row
+                (&self.other_masks, row * w)
             };
             columns += 1;
-            // Rows are numbered from 1; block `x` holds rows 64x + 1 ..= 64x + 64.
-            let bottom = columns.saturating_add(k).min(m);
-            while last < (bottom - 1) / WORD {
+            // Rows are numbered from 1 and block `x` holds rows 64x + 1 ..= 64x + 64. Column
+            // `j` needs rows up to j + k (a block entering the band starts as all +1) ...
+            while last + 1 < w && WORD * (last + 1) < columns.saturating_add(k) {
                 last += 1;
                 score += rows_in(last);
             }
-            // `min(last)` never binds after the length filter (n ≤ m + k); it keeps the band
-            // non-empty for any input all the same.
-            first = first
-                .max((columns.saturating_sub(k).max(1) - 1) / WORD)
-                .min(last);
-            let masks = if row < 128 {
-                &self.ascii[row * w..row * w + w]
-            } else {
-                let r = row - 128;
-                &self.other_masks[r * w..r * w + w]
-            };
-            let (pv, mv, eqs) = (
-                &mut pv[first..=last],
-                &mut mv[first..=last],
-                &masks[first..=last],
-            );
-            let (last_pv, pv) = pv.split_last_mut().expect("non-empty band");
-            let (last_mv, mv) = mv.split_last_mut().expect("non-empty band");
-            let (last_eq, eqs) = eqs.split_last().expect("non-empty band");
+            // ... and none above j − k. `first < last` never binds after the length filter
+            // (n ≤ m + k); it keeps the band non-empty for any input all the same.
+            while first < last && WORD * (first + 1) + k < columns {
+                first += 1;
+            }
             // The horizontal delta entering the top active block is +1: exact for row 0 of
             // the global table, an upper bound for a block that left the band.
             let (mut hp, mut hm) = (1u64, 0u64);
-            for ((p, q), &eq) in pv.iter_mut().zip(mv.iter_mut()).zip(eqs) {
-                (hp, hm) = step_block(p, q, eq, hp, hm, 1 << 63);
+            for x in first..last {
+                (hp, hm) = step_block(&mut pv[x], &mut mv[x], table[base + x], hp, hm, 1 << 63);
             }
             let high = if last + 1 == w {
                 self.last_bit
             } else {
                 1 << 63
             };
-            let (hp, hm) = step_block(last_pv, last_mv, *last_eq, hp, hm, high);
+            let eq = table[base + last];
+            let (hp, hm) = step_block(&mut pv[last], &mut mv[last], eq, hp, hm, high);
             score = score + hp as usize - hm as usize;
             // Once the last row is tracked, the final distance is at least
             // `score − remaining columns`, and at most `item.len() − i` columns remain.
@@ -555,8 +626,9 @@ mod x86 {
         q: &LevenshteinQuery,
         item: &[u8],
         k: usize,
+        n: usize,
     ) -> Option<usize> {
-        q.dist_one_word_within_impl(item, k)
+        q.dist_one_word_within_impl(item, k, n)
     }
 
     #[target_feature(enable = "popcnt,bmi1")]
@@ -629,7 +701,7 @@ fn step_block(
     let hp_out = u64::from(ph & high != 0);
     let hm_out = u64::from(mh & high != 0);
     let phs = (ph << 1) | hp_in;
-    let mhs = mh << 1;
+    let mhs = (mh << 1) | hm_in;
     *pv = mhs | !(xv | phs);
     *mv = phs & xv;
     (hp_out, hm_out)

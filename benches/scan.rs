@@ -1,0 +1,110 @@
+//! Throughput of the candidate scan (`waymark::scan::score_rows`), in rows per second.
+//!
+//! Rows are real landmark coordinates: each word of the system word list
+//! (/usr/share/dict/american-english, 104,334 words, or as many generated words when it is
+//! missing) against 64 landmarks drawn from the list, saturated at 255 like an index's
+//! rows; the query is a word with one substitution. For each space (L1, squared L2, L∞)
+//! and stride 16, 32 and 64 the portable loop is timed against the dispatched version (AVX2
+//! when the CPU has it; skipped otherwise). Each iteration clears the histogram, as a
+//! caller does, then scores all rows and fills it.
+
+use std::hint::black_box;
+
+use criterion::{criterion_group, criterion_main, BenchmarkId, Criterion, Throughput};
+use rand::{Rng, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+use waymark::metric::LevenshteinQuery;
+use waymark::scan::{has_avx2, score_rows, score_rows_portable, HIST_BINS};
+use waymark::search::Space;
+
+const DICTIONARY: &str = "/usr/share/dict/american-english";
+const ROWS: usize = 104_334;
+const LANDMARKS: usize = 64;
+
+/// The word list, or `ROWS` generated lowercase words of 3–15 letters if it is missing.
+fn words() -> Vec<Vec<u8>> {
+    if let Ok(text) = std::fs::read(DICTIONARY) {
+        let list: Vec<Vec<u8>> = text
+            .split(|&b| b == b'\n')
+            .filter(|w| !w.is_empty())
+            .map(<[u8]>::to_vec)
+            .collect();
+        if !list.is_empty() {
+            return list;
+        }
+    }
+    let mut rng = ChaCha8Rng::seed_from_u64(1);
+    (0..ROWS)
+        .map(|_| {
+            let len = rng.gen_range(3..=15);
+            (0..len).map(|_| rng.gen_range(b'a'..=b'z')).collect()
+        })
+        .collect()
+}
+
+/// Coordinates of `item` against the landmarks: 64 bytes, saturated at 255.
+fn row(landmarks: &[LevenshteinQuery], item: &[u8]) -> [u8; 64] {
+    let mut r = [0u8; 64];
+    for (c, l) in r.iter_mut().zip(landmarks) {
+        *c = l.dist(item).min(255) as u8;
+    }
+    r
+}
+
+fn scan(c: &mut Criterion) {
+    let words = words();
+    let mut rng = ChaCha8Rng::seed_from_u64(3);
+    let landmarks: Vec<LevenshteinQuery> = (0..LANDMARKS)
+        .map(|_| LevenshteinQuery::new(&words[rng.gen_range(0..words.len())]))
+        .collect();
+    let full: Vec<[u8; 64]> = words.iter().map(|w| row(&landmarks, w)).collect();
+    let mut typo = words[rng.gen_range(0..words.len())].clone();
+    let at = rng.gen_range(0..typo.len());
+    typo[at] = b'q';
+    let q_full = row(&landmarks, &typo);
+    let n = full.len();
+    if !has_avx2() {
+        println!("this CPU has no AVX2: only the portable scan is timed");
+    }
+
+    let mut out = vec![0u32; n];
+    let mut hist = vec![0u32; HIST_BINS];
+    for space in [Space::L1, Space::L2, Space::Linf] {
+        let mut group = c.benchmark_group(format!("scan_{}", space.name()));
+        group.throughput(Throughput::Elements(n as u64));
+        for stride in [16, 32, 64] {
+            // The first `stride` landmarks, as an index of dimension `stride` stores them.
+            let coords: Vec<u8> = full
+                .iter()
+                .flat_map(|r| r[..stride].iter().copied())
+                .collect();
+            let mut q = [0u8; 64];
+            q[..stride].copy_from_slice(&q_full[..stride]);
+            type ScoreFn = fn(&[u8], usize, &[u8; 64], Space, &mut [u32], &mut [u32]);
+            let mut kernels: Vec<(&str, ScoreFn)> = vec![("portable", score_rows_portable)];
+            if has_avx2() {
+                kernels.push(("avx2", score_rows));
+            }
+            for (name, f) in kernels {
+                group.bench_function(BenchmarkId::new(name, stride), |b| {
+                    b.iter(|| {
+                        hist.fill(0);
+                        f(
+                            black_box(&coords),
+                            stride,
+                            black_box(&q),
+                            space,
+                            &mut out,
+                            &mut hist,
+                        );
+                        black_box((&out, &hist));
+                    })
+                });
+            }
+        }
+        group.finish();
+    }
+}
+
+criterion_group!(benches, scan);
+criterion_main!(benches);
