@@ -97,7 +97,7 @@ struct BuildArgs {
     #[arg(long, value_name = "C", default_value_t = crate::search::DEFAULT_CANDIDATES)]
     candidates: usize,
     /// Default space candidates are ranked in, stored in the index.
-    #[arg(long, value_enum, default_value = "l2")]
+    #[arg(long, value_enum, default_value = "l1")]
     space: SpaceArg,
     /// Number of items landmarks are chosen from.
     #[arg(long = "landmark-sample", value_name = "N", default_value_t = 4096)]
