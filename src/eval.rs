@@ -45,7 +45,7 @@ fn push_sorted(index: &Index, best: &mut Vec<Neighbor>, k: usize, cand: Neighbor
     best.truncate(k);
 }
 
-/// Exact k-NN with the unbounded kernel against every item (two items per kernel call).
+/// Exact k-NN with the unbounded kernel against every item (several items per kernel call).
 pub fn full_scan(index: &Index, query: &str, k: usize) -> Vec<Neighbor> {
     let q = prepare(index, query);
     let keys = index.keys();

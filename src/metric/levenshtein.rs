@@ -208,7 +208,8 @@ impl LevenshteinQuery {
 
     /// Calls `f(position, distance)` for every item, in order; the fastest way to scan.
     ///
-    /// Items are taken two at a time through [`LevenshteinQuery::dist2`].
+    /// Single-block queries take items four at a time (four independent dependency chains);
+    /// longer queries two at a time through [`LevenshteinQuery::dist2`].
     ///
     /// ```
     /// use waymark::metric::LevenshteinQuery;
