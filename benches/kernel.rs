@@ -7,6 +7,8 @@
 //!   re-ranking with a running k-th best distance.
 //! * `long`: a 300-char query (five 64-row blocks) against 300-char items a few edits away.
 
+mod common;
+
 use std::hint::black_box;
 
 use criterion::{criterion_group, criterion_main, BenchmarkId, Criterion, Throughput};
@@ -14,31 +16,8 @@ use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use waymark::metric::LevenshteinQuery;
 
-const DICTIONARY: &str = "/usr/share/dict/american-english";
-
-/// The word list, or ~100k generated lowercase words of 3–15 letters if it is missing.
-fn words() -> Vec<Vec<u8>> {
-    if let Ok(text) = std::fs::read(DICTIONARY) {
-        let list: Vec<Vec<u8>> = text
-            .split(|&b| b == b'\n')
-            .filter(|w| !w.is_empty())
-            .map(<[u8]>::to_vec)
-            .collect();
-        if !list.is_empty() {
-            return list;
-        }
-    }
-    let mut rng = ChaCha8Rng::seed_from_u64(1);
-    (0..100_000)
-        .map(|_| {
-            let len = rng.gen_range(3..=15);
-            (0..len).map(|_| rng.gen_range(b'a'..=b'z')).collect()
-        })
-        .collect()
-}
-
 fn scan(c: &mut Criterion) {
-    let items = words();
+    let items = common::words(100_000);
     let query = LevenshteinQuery::new(b"continent");
     let mut group = c.benchmark_group("scan");
     group.throughput(Throughput::Elements(items.len() as u64));

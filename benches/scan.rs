@@ -8,6 +8,8 @@
 //! when the CPU has it; skipped otherwise). Each iteration clears the histogram, as a
 //! caller does, then scores all rows and fills it.
 
+mod common;
+
 use std::hint::black_box;
 
 use criterion::{criterion_group, criterion_main, BenchmarkId, Criterion, Throughput};
@@ -17,30 +19,8 @@ use waymark::metric::LevenshteinQuery;
 use waymark::scan::{has_avx2, score_rows, score_rows_portable, HIST_BINS};
 use waymark::search::Space;
 
-const DICTIONARY: &str = "/usr/share/dict/american-english";
 const ROWS: usize = 104_334;
 const LANDMARKS: usize = 64;
-
-/// The word list, or `ROWS` generated lowercase words of 3–15 letters if it is missing.
-fn words() -> Vec<Vec<u8>> {
-    if let Ok(text) = std::fs::read(DICTIONARY) {
-        let list: Vec<Vec<u8>> = text
-            .split(|&b| b == b'\n')
-            .filter(|w| !w.is_empty())
-            .map(<[u8]>::to_vec)
-            .collect();
-        if !list.is_empty() {
-            return list;
-        }
-    }
-    let mut rng = ChaCha8Rng::seed_from_u64(1);
-    (0..ROWS)
-        .map(|_| {
-            let len = rng.gen_range(3..=15);
-            (0..len).map(|_| rng.gen_range(b'a'..=b'z')).collect()
-        })
-        .collect()
-}
 
 /// Coordinates of `item` against the landmarks: 64 bytes, saturated at 255.
 fn row(landmarks: &[LevenshteinQuery], item: &[u8]) -> [u8; 64] {
@@ -52,7 +32,7 @@ fn row(landmarks: &[LevenshteinQuery], item: &[u8]) -> [u8; 64] {
 }
 
 fn scan(c: &mut Criterion) {
-    let words = words();
+    let words = common::words(ROWS);
     let mut rng = ChaCha8Rng::seed_from_u64(3);
     let landmarks: Vec<LevenshteinQuery> = (0..LANDMARKS)
         .map(|_| LevenshteinQuery::new(&words[rng.gen_range(0..words.len())]))
