@@ -87,13 +87,6 @@ pub fn choose_landmarks<M: Metric, T: AsRef<[u8]> + Sync>(
     chosen
 }
 
-/// The landmark coordinates of one item: its distance to each landmark.
-pub fn coordinates<Q: PreparedQuery>(query: &Q, landmarks: &[&[u8]], out: &mut [f64]) {
-    for (o, l) in out.iter_mut().zip(landmarks) {
-        *o = query.distance(l);
-    }
-}
-
 /// Landmark coordinates of every item, row-major (`n × landmarks.len()`), in parallel.
 ///
 /// Each landmark is prepared once and compared with every item, which is the cheap direction

@@ -358,8 +358,3 @@ fn check_crc(path: &Path, bytes: &[u8], s: &Section) -> Result<()> {
 pub fn verify_sections(path: &Path, bytes: &[u8], sections: &[Section]) -> Result<()> {
     sections.iter().try_for_each(|s| check_crc(path, bytes, s))
 }
-
-/// Checks the checksum of one section.
-pub fn verify_section(path: &Path, bytes: &[u8], section: &Section) -> Result<()> {
-    check_crc(path, bytes, section)
-}
