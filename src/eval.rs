@@ -21,33 +21,14 @@
 use rayon::prelude::*;
 
 use crate::index::Index;
-use crate::metric::{Levenshtein, LevenshteinQuery, Metric};
-use crate::search::Neighbor;
+use crate::search::{keep_best, prepare_query, Neighbor};
 
 /// Tolerance of threshold recall.
 pub const RECALL_EPSILON: f64 = 1e-3;
 
-fn prepare(index: &Index, query: &str) -> LevenshteinQuery {
-    let key = index.meta().normalize.apply(query);
-    Levenshtein.prepare(key.as_bytes())
-}
-
-fn push_sorted(index: &Index, best: &mut Vec<Neighbor>, k: usize, cand: Neighbor) {
-    let before = |a: &Neighbor, b: &Neighbor| {
-        (a.distance, index.id(a.index as usize), a.index)
-            < (b.distance, index.id(b.index as usize), b.index)
-    };
-    if best.len() == k && !before(&cand, &best[k - 1]) {
-        return;
-    }
-    let pos = best.partition_point(|b| before(b, &cand));
-    best.insert(pos, cand);
-    best.truncate(k);
-}
-
 /// Exact k-NN with the unbounded kernel against every item (several items per kernel call).
 pub fn full_scan(index: &Index, query: &str, k: usize) -> Vec<Neighbor> {
-    let q = prepare(index, query);
+    let q = prepare_query(index, query);
     let keys = index.keys();
     let mut best: Vec<Neighbor> = Vec::with_capacity(k + 1);
     q.dist_each((0..index.len()).map(|i| keys.get(i)), |i, d| {
@@ -57,7 +38,7 @@ pub fn full_scan(index: &Index, query: &str, k: usize) -> Vec<Neighbor> {
             f64::INFINITY
         };
         if f64::from(d) <= kth {
-            push_sorted(
+            keep_best(
                 index,
                 &mut best,
                 k,
@@ -73,7 +54,7 @@ pub fn full_scan(index: &Index, query: &str, k: usize) -> Vec<Neighbor> {
 
 /// Exact k-NN with the bounded kernel and a running k-th distance.
 pub fn best_scan(index: &Index, query: &str, k: usize) -> Vec<Neighbor> {
-    let q = prepare(index, query);
+    let q = prepare_query(index, query);
     let keys = index.keys();
     let mut best: Vec<Neighbor> = Vec::with_capacity(k + 1);
     for i in 0..index.len() {
@@ -86,7 +67,7 @@ pub fn best_scan(index: &Index, query: &str, k: usize) -> Vec<Neighbor> {
         } else {
             q.dist(item)
         };
-        push_sorted(
+        keep_best(
             index,
             &mut best,
             k,

@@ -160,8 +160,7 @@ impl<'a> Searcher<'a> {
 
     /// Prepares a query: applies the index's normalisation and builds the kernel's masks.
     pub fn prepare(&self, query: &str) -> LevenshteinQuery {
-        let key = self.index.meta().normalize.apply(query);
-        Levenshtein.prepare(key.as_bytes())
+        prepare_query(self.index, query)
     }
 
     /// Landmark coordinates of a prepared query, as stored (u8, saturated) and exact.
@@ -279,33 +278,20 @@ impl<'a> Searcher<'a> {
             } else {
                 q.distance(item)
             };
-            let cand = Neighbor {
-                index: i,
-                distance: d,
-            };
-            if full && !self.before(&cand, &best[k - 1]) {
-                continue;
-            }
-            let pos = best.partition_point(|b| self.before(b, &cand));
-            best.insert(pos, cand);
-            best.truncate(k);
+            keep_best(
+                self.index,
+                &mut best,
+                k,
+                Neighbor {
+                    index: i,
+                    distance: d,
+                },
+            );
         }
         Found {
             neighbors: best,
             distances,
             pruned,
-        }
-    }
-
-    /// Order of answers: by distance, then by id.
-    fn before(&self, a: &Neighbor, b: &Neighbor) -> bool {
-        match a.distance.total_cmp(&b.distance) {
-            std::cmp::Ordering::Less => true,
-            std::cmp::Ordering::Greater => false,
-            std::cmp::Ordering::Equal => {
-                (self.index.id(a.index as usize), a.index)
-                    < (self.index.id(b.index as usize), b.index)
-            }
         }
     }
 
@@ -316,6 +302,29 @@ impl<'a> Searcher<'a> {
             .map_init(Scratch::default, |s, q| self.search(q, p, s))
             .collect()
     }
+}
+
+/// Prepares `query` for `index`: its normalisation, then the kernel's masks.
+pub(crate) fn prepare_query(index: &Index, query: &str) -> LevenshteinQuery {
+    let key = index.meta().normalize.apply(query);
+    Levenshtein.prepare(key.as_bytes())
+}
+
+/// Inserts `cand` into `best` (at most `k` answers, ordered by distance, then id, then item
+/// index) if it belongs there. The one place that defines the order of answers.
+pub(crate) fn keep_best(index: &Index, best: &mut Vec<Neighbor>, k: usize, cand: Neighbor) {
+    let before = |a: &Neighbor, b: &Neighbor| match a.distance.total_cmp(&b.distance) {
+        std::cmp::Ordering::Equal => {
+            (index.id(a.index as usize), a.index) < (index.id(b.index as usize), b.index)
+        }
+        o => o.is_lt(),
+    };
+    if best.len() == k && !before(&cand, &best[k - 1]) {
+        return;
+    }
+    let pos = best.partition_point(|b| before(b, &cand));
+    best.insert(pos, cand);
+    best.truncate(k);
 }
 
 /// Picks the `c` smallest scores, ordered by (score, item), into `picked` as (score, item).
