@@ -529,7 +529,8 @@ fn inspect(a: InspectArgs) -> anyhow::Result<()> {
     };
     let m = index.meta();
     let landmarks: Vec<String> = m
-        .landmarks
+        .embedding
+        .refs()
         .iter()
         .map(|&l| String::from_utf8_lossy(index.item(l as usize)).into_owned())
         .collect();

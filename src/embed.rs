@@ -24,6 +24,8 @@ use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
 
+use serde::{Deserialize, Serialize};
+
 use crate::metric::{Metric, PreparedQuery};
 
 /// The largest embedding dimension an index supports.
@@ -128,4 +130,121 @@ pub fn linf(a: &[f64], b: &[f64]) -> f64 {
     a.iter()
         .zip(b)
         .fold(0.0, |m, (x, y)| f64::max(m, (x - y).abs()))
+}
+
+/// How an index's coordinates were made, as recorded in its metadata.
+///
+/// Every method computes a query's coordinates from its true distances to a fixed list of
+/// reference items ([`Embedding::refs`]), so that embedding a query costs `refs().len()`
+/// distance computations.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(tag = "method", rename_all = "snake_case")]
+pub enum Embedding {
+    /// Coordinate `j` is the distance to landmark item `landmarks[j]` (farthest-first order).
+    Landmarks {
+        /// Item indices of the landmarks.
+        landmarks: Vec<u64>,
+    },
+}
+
+impl Embedding {
+    /// The method's name, as on the command line and in `inspect`.
+    pub fn name(&self) -> &'static str {
+        match self {
+            Embedding::Landmarks { .. } => "landmarks",
+        }
+    }
+
+    /// Number of coordinates.
+    pub fn dim(&self) -> usize {
+        match self {
+            Embedding::Landmarks { landmarks } => landmarks.len(),
+        }
+    }
+
+    /// Item indices a query must be measured against, in the order [`Embedding::coords`]
+    /// expects their distances.
+    pub fn refs(&self) -> Vec<u64> {
+        match self {
+            Embedding::Landmarks { landmarks } => landmarks.clone(),
+        }
+    }
+
+    /// Whether the L∞ distance of two coordinate vectors never exceeds the true distance.
+    /// Search prunes candidates and answers exactly only when it does.
+    pub fn contractive(&self) -> bool {
+        match self {
+            Embedding::Landmarks { .. } => true,
+        }
+    }
+
+    /// The coordinates of a query from its distances to [`Embedding::refs`] (same order).
+    /// Writes `dim()` values to the front of `out`.
+    pub fn coords(&self, ref_distances: &[f64], out: &mut [f64]) {
+        match self {
+            Embedding::Landmarks { .. } => {
+                out[..ref_distances.len()].copy_from_slice(ref_distances);
+            }
+        }
+    }
+}
+
+/// How a real coordinate is stored in the index's compact u8 rows: `floor(x / scale)`,
+/// saturated to 0..=255. Both steps are 1-Lipschitz in units of `scale`, so differences of
+/// stored values still bound true distances from below (see [`Bound`]).
+#[inline]
+pub fn quantize(x: f64, scale: f64) -> u8 {
+    (x / scale).floor().clamp(0.0, 255.0) as u8
+}
+
+/// Turns the L∞ difference of two stored (u8) coordinate rows into a lower bound of the
+/// true distance, for contractive embeddings.
+///
+/// With `scale = 1` and whole-number distances, stored values are the distances themselves
+/// (saturated at 255), and the bound is the difference itself. Otherwise flooring loses up to
+/// one unit per value, and the bound is `scale · (diff − 1)`.
+///
+/// ```
+/// use waymark::embed::Bound;
+///
+/// let b = Bound { scale: 1.0, whole: true };
+/// assert_eq!(b.lower(3), 3.0);
+/// assert_eq!(b.max_diff_within(2.5), 2);
+/// let r = Bound { scale: 0.5, whole: false };
+/// assert_eq!(r.lower(3), 1.0);
+/// assert_eq!(r.max_diff_within(1.0), 3);
+/// ```
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Bound {
+    /// The coordinate quantum (see [`quantize`]).
+    pub scale: f64,
+    /// Whether distances are whole numbers and `scale == 1` (stored values are exact).
+    pub whole: bool,
+}
+
+impl Bound {
+    /// Lower bound of the true distance for a stored L∞ difference `diff`.
+    #[inline]
+    pub fn lower(&self, diff: u8) -> f64 {
+        if self.whole {
+            f64::from(diff)
+        } else {
+            self.scale * (f64::from(diff) - 1.0).max(0.0)
+        }
+    }
+
+    /// The largest stored L∞ difference whose lower bound is at most `r`: items with a larger
+    /// difference are certainly farther than `r`. Saturates at 255 (no item excluded).
+    #[inline]
+    pub fn max_diff_within(&self, r: f64) -> u8 {
+        if r.is_nan() || r < 0.0 {
+            return 0;
+        }
+        let d = if self.whole {
+            r.floor()
+        } else {
+            (r / self.scale).floor() + 1.0
+        };
+        d.min(255.0) as u8
+    }
 }

@@ -131,24 +131,26 @@ pub struct Scratch {
 /// Runs queries against one index.
 pub struct Searcher<'a> {
     index: &'a Index,
-    landmarks: Vec<&'a [u8]>,
+    /// Keys of the reference items a query is measured against.
+    refs: Vec<&'a [u8]>,
     keys: StrTable<'a>,
 }
 
 use crate::scan::{self, HIST_BINS};
 
 impl<'a> Searcher<'a> {
-    /// Prepares a searcher (collects the landmark keys).
+    /// Prepares a searcher (collects the reference items' keys).
     pub fn new(index: &'a Index) -> Searcher<'a> {
-        let landmarks = index
+        let refs = index
             .meta()
-            .landmarks
+            .embedding
+            .refs()
             .iter()
             .map(|&l| index.key(l as usize))
             .collect();
         Searcher {
             index,
-            landmarks,
+            refs,
             keys: index.keys(),
         }
     }
@@ -163,12 +165,15 @@ impl<'a> Searcher<'a> {
         prepare_query(self.index, query)
     }
 
-    /// Landmark coordinates of a prepared query, as stored (u8, saturated) and exact.
+    /// Coordinates of a prepared query, as stored (u8, quantised) and exact.
     fn embed(&self, q: &LevenshteinQuery, small: &mut [u8; 64], exact: &mut [f32; 64]) {
-        for (j, l) in self.landmarks.iter().enumerate() {
-            let d = q.distance(l);
-            exact[j] = d as f32;
-            small[j] = d.clamp(0.0, 255.0) as u8;
+        let meta = self.index.meta();
+        let dists: Vec<f64> = self.refs.iter().map(|r| q.distance(r)).collect();
+        let mut coords = [0f64; 64];
+        meta.embedding.coords(&dists, &mut coords);
+        for j in 0..meta.dim as usize {
+            exact[j] = coords[j] as f32;
+            small[j] = crate::embed::quantize(coords[j], meta.scale);
         }
     }
 
@@ -192,7 +197,7 @@ impl<'a> Searcher<'a> {
             }
             CandidateSource::Tree => {
                 let tree = self.index.tree()?;
-                let dim = self.landmarks.len();
+                let dim = self.index.meta().dim as usize;
                 tree.nearest(&exact[..dim], c, p.space, &mut scratch.tree_out);
                 scratch.picked.clear();
                 scratch
@@ -201,7 +206,7 @@ impl<'a> Searcher<'a> {
             }
         }
         let mut found = self.rerank(&q, &small, p.k, &scratch.picked);
-        found.distances += self.landmarks.len();
+        found.distances += self.refs.len();
         Ok(found)
     }
 
@@ -234,6 +239,7 @@ impl<'a> Searcher<'a> {
     ) -> Found {
         let stride = self.index.stride();
         let coords = self.index.coords();
+        let bound = self.index.bound();
         let mut best: Vec<Neighbor> = Vec::with_capacity(k + 1);
         let mut distances = 0;
         let mut pruned = 0;
@@ -260,10 +266,9 @@ impl<'a> Searcher<'a> {
             } else {
                 f64::INFINITY
             };
-            if full {
+            if let (true, Some(b)) = (full, bound) {
                 let row = coords.get(iu * stride..iu * stride + stride).unwrap_or(&[]);
-                let lb = linf_bound(row, small);
-                if f64::from(lb) > kth {
+                if b.lower(linf_bound(row, small)) > kth {
                     pruned += 1;
                     continue;
                 }

@@ -5,7 +5,7 @@ use std::time::Instant;
 
 use super::file::{ContainerWriter, SectionKind};
 use super::{coord_stride, tree, IdKind, IndexMeta};
-use crate::embed::{choose_landmarks, embed_all, LandmarkOptions, MAX_DIM};
+use crate::embed::{choose_landmarks, embed_all, quantize, Embedding, LandmarkOptions, MAX_DIM};
 use crate::error::{Error, Result};
 use crate::ingest::{Corpus, Ids, Normalize};
 use crate::metric::{Levenshtein, Metric, MetricKind};
@@ -119,11 +119,11 @@ pub fn build_index(
     let embed_seconds = t0.elapsed().as_secs_f64();
 
     let stride = coord_stride(dim);
+    let scale = 1.0;
     let mut small = vec![0u8; n * stride];
     for (row, c) in small.chunks_exact_mut(stride).zip(coords.chunks_exact(dim)) {
         for (b, &x) in row.iter_mut().zip(c) {
-            // Saturating keeps the L∞ lower bound valid: clamping is 1-Lipschitz.
-            *b = x.clamp(0.0, 255.0) as u8;
+            *b = quantize(x, scale);
         }
     }
     let t1 = Instant::now();
@@ -144,7 +144,10 @@ pub fn build_index(
         dim: dim as u32,
         stride: stride as u32,
         tree_dim: tree::tree_dim(dim) as u32,
-        landmarks: landmarks.iter().map(|&l| l as u64).collect(),
+        embedding: Embedding::Landmarks {
+            landmarks: landmarks.iter().map(|&l| l as u64).collect(),
+        },
+        scale,
         seed: opts.seed,
         sample: opts.sample.min(n) as u64,
         ids: match corpus.ids {

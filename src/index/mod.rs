@@ -59,8 +59,10 @@ pub struct IndexMeta {
     pub stride: u32,
     /// Dimension the kd-tree was compiled for (`dim` padded with zeros).
     pub tree_dim: u32,
-    /// Item indices of the landmarks, in farthest-first order.
-    pub landmarks: Vec<u64>,
+    /// How coordinates were made (method and its reference items).
+    pub embedding: crate::embed::Embedding,
+    /// Coordinate quantum of the u8 rows (see [`crate::embed::quantize`]).
+    pub scale: f64,
     /// Seed of the landmark sample.
     pub seed: u64,
     /// Size of the sample landmarks were chosen from.
@@ -179,10 +181,16 @@ impl Index {
             ),
         };
         let dim = meta.dim as usize;
-        if dim == 0 || dim > crate::embed::MAX_DIM || meta.landmarks.len() != dim {
+        if dim == 0 || dim > crate::embed::MAX_DIM || meta.embedding.dim() != dim {
             return Err(bad(format!(
-                "corrupt index: dimension {dim} with {} landmarks",
-                meta.landmarks.len()
+                "corrupt index: dimension {dim} with {} coordinates in its embedding",
+                meta.embedding.dim()
+            )));
+        }
+        if !(meta.scale.is_finite() && meta.scale > 0.0) {
+            return Err(bad(format!(
+                "corrupt index: coordinate scale {} is not a positive number",
+                meta.scale
             )));
         }
         if meta.stride as usize != coord_stride(dim)
@@ -192,8 +200,8 @@ impl Index {
                 "corrupt index: coordinate layout does not match its dimension".into(),
             ));
         }
-        if meta.landmarks.iter().any(|&l| l >= meta.n) {
-            return Err(bad("corrupt index: a landmark is not an item".into()));
+        if meta.embedding.refs().iter().any(|&l| l >= meta.n) {
+            return Err(bad("corrupt index: a reference item is not an item".into()));
         }
         let coords = need(SectionKind::Coords)?;
         expect_len(
@@ -215,6 +223,18 @@ impl Index {
             tree,
             tree_checked: OnceLock::new(),
         })
+    }
+
+    /// How to turn stored coordinate differences into lower bounds of the true distance, or
+    /// `None` when the embedding is not contractive (no pruning, no exact answers).
+    pub fn bound(&self) -> Option<crate::embed::Bound> {
+        self.meta
+            .embedding
+            .contractive()
+            .then(|| crate::embed::Bound {
+                scale: self.meta.scale,
+                whole: self.meta.metric.is_integral() && self.meta.scale == 1.0,
+            })
     }
 
     /// The file this index was opened from.
