@@ -1,0 +1,25 @@
+//! Ground truth by brute force, and recall against it.
+//!
+//! Two scans compute exact answers: [`full_scan`] is what a user without an index would run
+//! (the unbounded kernel against every item), [`best_scan`] keeps a running k-th distance and
+//! gives it to the bounded kernel, which skips most items after a length check. Both run on
+//! all cores when called through [`scan_many`].
+//!
+//! Recall follows the common convention for approximate k-NN: a returned item counts when
+//! its true distance is at most the true k-th distance plus ε = 1e-3, so that ties do not
+//! punish a correct answer (threshold recall); plain recall counts the returned ids that are
+//! among the true k ids.
+//!
+//! ```
+//! use waymark::eval::threshold_recall;
+//!
+//! // True 2-NN distances [1, 2]; an answer at distances [1, 2] via another item with
+//! // distance 2 is still fully correct under threshold recall.
+//! assert_eq!(threshold_recall(&[1.0, 2.0], &[(7, 1.0), (9, 2.0)], 2), 1.0);
+//! ```
+
+mod recall;
+mod scan;
+
+pub use recall::{plain_recall, threshold_recall, typo_queries, RECALL_EPSILON};
+pub use scan::{best_scan, full_scan, scan_many, Scan};
