@@ -183,7 +183,11 @@ pub fn main() -> ExitCode {
             }
             let mut msg = format!("waymark: error: {e}");
             for cause in e.chain().skip(1) {
-                msg.push_str(&format!(": {cause}"));
+                // Library errors already print their source; do not repeat it.
+                let text = cause.to_string();
+                if !msg.contains(&text) {
+                    msg.push_str(&format!(": {text}"));
+                }
             }
             eprintln!("{msg}");
             ExitCode::from(exit_code(&e))

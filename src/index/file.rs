@@ -134,6 +134,18 @@ fn io_err(path: &Path, source: std::io::Error) -> Error {
     }
 }
 
+/// A failed write of the temporary file, reported against the index being written (the
+/// temporary file is removed when the writer is dropped, so its name would only confuse).
+fn write_err(dest: &Path, e: std::io::Error) -> Error {
+    Error::Io {
+        path: dest.to_path_buf(),
+        source: std::io::Error::new(
+            e.kind(),
+            format!("writing the index failed ({e}); the previous file, if any, is untouched"),
+        ),
+    }
+}
+
 impl ContainerWriter {
     /// Starts writing an index that will replace `dest` when finished.
     pub fn create(dest: &Path) -> Result<ContainerWriter> {
@@ -142,12 +154,17 @@ impl ContainerWriter {
             _ => PathBuf::from("."),
         };
         if !dir.is_dir() {
-            return Err(Error::Io {
-                path: dir,
-                source: std::io::Error::new(
+            let (kind, what) = if dir.exists() {
+                (std::io::ErrorKind::NotADirectory, "is not a folder")
+            } else {
+                (
                     std::io::ErrorKind::NotFound,
                     "the output folder does not exist",
-                ),
+                )
+            };
+            return Err(Error::Io {
+                path: dir,
+                source: std::io::Error::new(kind, what),
             });
         }
         let name = dest
@@ -162,8 +179,7 @@ impl ContainerWriter {
             .tempfile_in(&dir)
             .map_err(|e| io_err(&dir, e))?;
         let reserved = vec![0u8; HEADER_LEN + TABLE_LEN];
-        tmp.write_all(&reserved)
-            .map_err(|e| io_err(tmp.path(), e))?;
+        tmp.write_all(&reserved).map_err(|e| write_err(dest, e))?;
         Ok(ContainerWriter {
             dest: dest.to_path_buf(),
             tmp,
@@ -184,11 +200,10 @@ impl ContainerWriter {
         }
         let align = align.max(ALIGN) as u64;
         let pad = (align - self.pos % align) % align;
-        let path = self.tmp.path().to_path_buf();
         let f = self.tmp.as_file_mut();
         f.write_all(&vec![0u8; pad as usize])
             .and_then(|_| f.write_all(bytes))
-            .map_err(|e| io_err(&path, e))?;
+            .map_err(|e| write_err(&self.dest, e))?;
         let start = self.pos + pad;
         self.pos = start + bytes.len() as u64;
         self.sections.push(Section {
@@ -217,13 +232,12 @@ impl ContainerWriter {
         let hcrc = crc32fast::hash(&header);
         header[28..32].copy_from_slice(&hcrc.to_le_bytes());
 
-        let path = self.tmp.path().to_path_buf();
         let f = self.tmp.as_file_mut();
         f.seek(SeekFrom::Start(0))
             .and_then(|_| f.write_all(&header))
             .and_then(|_| f.write_all(&table))
             .and_then(|_| f.sync_all())
-            .map_err(|e| io_err(&path, e))?;
+            .map_err(|e| write_err(&self.dest, e))?;
         self.tmp
             .persist(&self.dest)
             .map_err(|e| io_err(&self.dest, e.error))?;
@@ -355,6 +369,36 @@ fn check_crc(path: &Path, bytes: &[u8], s: &Section) -> Result<()> {
 }
 
 /// Checks the checksum of every section (the full pass of `inspect --verify`).
+///
+/// Also checks that every byte outside the header, table and sections (the padding between
+/// sections, and the unused table entries) is zero, so that no byte of a file goes unchecked.
 pub fn verify_sections(path: &Path, bytes: &[u8], sections: &[Section]) -> Result<()> {
-    sections.iter().try_for_each(|s| check_crc(path, bytes, s))
+    sections
+        .iter()
+        .try_for_each(|s| check_crc(path, bytes, s))?;
+    let mut ranges: Vec<Range<usize>> = sections.iter().map(|s| s.range.clone()).collect();
+    ranges.sort_by_key(|r| r.start);
+    let used_table = HEADER_LEN + sections.len() * ENTRY_LEN;
+    let mut gaps = vec![used_table..HEADER_LEN + TABLE_LEN];
+    let mut at = HEADER_LEN + TABLE_LEN;
+    for r in &ranges {
+        gaps.push(at..r.start.max(at));
+        at = at.max(r.end);
+    }
+    gaps.push(at..bytes.len());
+    for g in gaps {
+        if let Some(off) = bytes
+            .get(g.clone())
+            .and_then(|b| b.iter().position(|&x| x != 0))
+        {
+            return Err(Error::Index {
+                path: path.to_path_buf(),
+                message: format!(
+                    "corrupt index: non-zero byte at offset {} outside every section",
+                    g.start + off
+                ),
+            });
+        }
+    }
+    Ok(())
 }
