@@ -379,7 +379,8 @@ pub fn verify_sections(path: &Path, bytes: &[u8], sections: &[Section]) -> Resul
     let mut ranges: Vec<Range<usize>> = sections.iter().map(|s| s.range.clone()).collect();
     ranges.sort_by_key(|r| r.start);
     let used_table = HEADER_LEN + sections.len() * ENTRY_LEN;
-    let mut gaps = vec![used_table..HEADER_LEN + TABLE_LEN];
+    let mut gaps: Vec<Range<usize>> = Vec::with_capacity(ranges.len() + 2);
+    gaps.push(used_table..HEADER_LEN + TABLE_LEN);
     let mut at = HEADER_LEN + TABLE_LEN;
     for r in &ranges {
         gaps.push(at..r.start.max(at));
