@@ -253,9 +253,15 @@ fn build(a: BuildArgs) -> anyhow::Result<()> {
         ))
         .into());
     }
+    let source_name = a.input.display().to_string();
+    if let Ok(m) = std::fs::metadata(&a.input) {
+        crate::resources::check_input(&source_name, m.len())?;
+    }
     let corpus = read_corpus(&a.input, &opts).map_err(Error::from)?;
     let read_seconds = t0.elapsed().as_secs_f64();
     let n = corpus.items.len();
+    let text_bytes: usize = corpus.items.iter().map(String::len).sum();
+    crate::resources::check_build(&source_name, n, text_bytes, a.dim)?;
     let bar = if std::io::stderr().is_terminal() && !a.quiet {
         let b = indicatif::ProgressBar::new(n as u64);
         b.set_style(

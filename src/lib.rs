@@ -9,6 +9,7 @@
 //! - [`index`] stores items, ids, coordinates and a kd-tree in one checked, memory-mapped file;
 //! - [`search`] takes candidates by embedded distance and re-ranks them by the true distance;
 //! - [`eval`] measures recall against brute force;
+//! - [`resources`] refuses builds that would not fit in memory;
 //! - [`cli`] is the command line (the binary only calls [`cli::main`]).
 #![warn(missing_docs)]
 
@@ -19,6 +20,7 @@ pub mod eval;
 pub mod index;
 pub mod ingest;
 pub mod metric;
+pub mod resources;
 pub mod scan;
 pub mod search;
 

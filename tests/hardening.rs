@@ -724,3 +724,28 @@ fn readers_see_the_old_or_the_new_index_whole_while_it_is_replaced() {
         "an open mapping is not disturbed"
     );
 }
+
+#[test]
+fn bad_input_an_input_too_large_for_memory_is_refused_up_front() {
+    let d = Dir::new();
+    let path = d.write("w.txt", words(5_000).join("\n").as_bytes());
+    // The file's text alone is over the budget: refused before reading.
+    d.cmd()
+        .arg("build")
+        .arg(&path)
+        .args(["-o", "x.wmk"])
+        .env("WAYMARK_MEMORY_BUDGET", "10000")
+        .assert()
+        .code(2)
+        .stderr(contains("needs about").and(contains("WAYMARK_MEMORY_BUDGET")));
+    // The text fits but the build's estimate does not: refused after reading, before work.
+    d.cmd()
+        .arg("build")
+        .arg(&path)
+        .args(["-o", "x.wmk", "--dim", "64"])
+        .env("WAYMARK_MEMORY_BUDGET", "2000000")
+        .assert()
+        .code(2)
+        .stderr(contains("building an index of 5000 items"));
+    assert_eq!(d.others(&["w.txt"]), Vec::<String>::new());
+}

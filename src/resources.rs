@@ -1,0 +1,84 @@
+//! Memory budget of a build: refuse up front what would not fit, instead of swapping.
+//!
+//! A build holds the whole corpus and its coordinates in memory. Its peak resident memory was
+//! measured against n (`/usr/bin/time -f %M waymark build …` on prefixes of Debian's
+//! wamerican-insane list, d = 64; see DEVELOPERS.md, "Resource bounds") and is modelled here
+//! with a margin: [`build_estimate`]. The budget is the memory the system says is available
+//! (`MemAvailable` in /proc/meminfo, capped by a cgroup v2 `memory.max`), or the number of
+//! bytes in the environment variable `WAYMARK_MEMORY_BUDGET` when it is set.
+//!
+//! ```
+//! use waymark::resources::build_estimate;
+//!
+//! // 663,473 words, 6.1 MB of text, 64 coordinates: a bit above the 0.93 GB measured.
+//! let est = build_estimate(663_473, 6_100_000, 64);
+//! assert!(est > 930_000_000 && est < 1_400_000_000);
+//! ```
+
+use crate::error::{Error, Result};
+
+/// Estimated peak memory of a build, in bytes, for `n` items of `bytes` bytes in all, at
+/// dimension `dim`: coordinates as f64 and f32 and the kd-tree's copy (`20·dim` bytes per
+/// item), the corpus (items and keys as owned strings: about 100 bytes per item plus twice
+/// the text), and the file sections being written.
+pub fn build_estimate(n: usize, bytes: usize, dim: usize) -> u64 {
+    let n = n as u64;
+    let per_item = 20 * dim as u64 + 100 + 24;
+    n * per_item + 3 * bytes as u64 + (16 << 20)
+}
+
+/// The memory this process may use, in bytes, if the system tells.
+pub fn budget() -> Option<u64> {
+    if let Ok(v) = std::env::var("WAYMARK_MEMORY_BUDGET") {
+        return v.trim().parse().ok();
+    }
+    let available = std::fs::read_to_string("/proc/meminfo").ok().and_then(|m| {
+        m.lines()
+            .find_map(|l| l.strip_prefix("MemAvailable:"))
+            .and_then(|v| v.trim().trim_end_matches("kB").trim().parse::<u64>().ok())
+            .map(|kb| kb * 1024)
+    });
+    let cgroup = std::fs::read_to_string("/sys/fs/cgroup/memory.max")
+        .ok()
+        .and_then(|v| v.trim().parse::<u64>().ok());
+    match (available, cgroup) {
+        (Some(a), Some(c)) => Some(a.min(c)),
+        (a, c) => a.or(c),
+    }
+}
+
+fn refuse(what: &str, need: u64, have: u64) -> Error {
+    Error::Usage(format!(
+        "{what} needs about {:.1} GB of memory and {:.1} GB is available; \
+         build a smaller input (split it), use a lower --dim, or free memory \
+         (the budget can be set with WAYMARK_MEMORY_BUDGET=bytes)",
+        need as f64 / 1e9,
+        have as f64 / 1e9
+    ))
+}
+
+/// Refuses to read an input file of `file_bytes` bytes when even its text would not fit
+/// (reading keeps about three times the text: items, keys and parse buffers).
+pub fn check_input(source: &str, file_bytes: u64) -> Result<()> {
+    match budget() {
+        Some(have) if 3 * file_bytes > have => Err(refuse(
+            &format!("reading {source} ({:.1} GB)", file_bytes as f64 / 1e9),
+            3 * file_bytes,
+            have,
+        )),
+        _ => Ok(()),
+    }
+}
+
+/// Refuses a build whose estimated peak memory ([`build_estimate`]) exceeds the budget.
+pub fn check_build(source: &str, n: usize, bytes: usize, dim: usize) -> Result<()> {
+    let need = build_estimate(n, bytes, dim);
+    match budget() {
+        Some(have) if need > have => Err(refuse(
+            &format!("building an index of {n} items from {source} at dimension {dim}"),
+            need,
+            have,
+        )),
+        _ => Ok(()),
+    }
+}
