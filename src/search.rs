@@ -1,4 +1,5 @@
-//! Approximate k-NN: candidates by embedded distance, re-ranked by the true distance.
+//! Approximate k-NN: candidates by embedded distance, re-ranked by the true distance; and
+//! exact k-NN and range queries, visiting items in order of their lower bound.
 //!
 //! A query is embedded (one distance per landmark), then `C` candidates are taken by their
 //! distance in landmark coordinates — L1, L2 or L∞ — and re-ranked with the bounded kernel.
@@ -24,6 +25,10 @@
 //! for n in &found.neighbors {
 //!     println!("{:?} {}", index.id(n.index as usize), n.distance);
 //! }
+//! // Exact answers, with the certificate of their completeness:
+//! let exact = searcher.search_exact("Orvane Qauy", 5, &mut Default::default())?;
+//! let all_within_2 = searcher.search_within("Orvane Qauy", 2.0, None, &mut Default::default())?;
+//! println!("{:?} {}", exact.certificate, all_within_2.neighbors.len());
 //! # Ok::<(), waymark::Error>(())
 //! ```
 

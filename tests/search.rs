@@ -279,7 +279,11 @@ fn the_coarse_stage_returns_true_distances_in_order() {
         }
     }
     coarse.set_coarse_factor(1000);
-    let a = coarse.search("buoy 12", &p, &mut Default::default()).unwrap();
-    let b = plain.search("buoy 12", &p, &mut Default::default()).unwrap();
+    let a = coarse
+        .search("buoy 12", &p, &mut Default::default())
+        .unwrap();
+    let b = plain
+        .search("buoy 12", &p, &mut Default::default())
+        .unwrap();
     assert_eq!(a, b);
 }
