@@ -16,7 +16,7 @@ use clap::{Parser, Subcommand, ValueEnum};
 use crate::error::Error;
 use crate::index::{build_index, BuildOptions, IdRef, Index};
 use crate::ingest::{read_corpus, IngestOptions, InputFormat, Normalize};
-use crate::search::{CandidateSource, Found, SearchParams, Searcher, Space};
+use crate::search::{CandidateSource, Found, Request, SearchParams, Searcher, Space};
 
 /// Near-neighbour search for strings that are not vectors.
 #[derive(Debug, Parser)]
@@ -127,18 +127,25 @@ enum SourceArg {
 struct QueryArgs {
     /// The index file.
     index: PathBuf,
-    /// Number of neighbours per query.
-    #[arg(short = 'k', value_name = "K", default_value_t = 10)]
-    k: usize,
+    /// Number of neighbours per query [default: 10; with --within: every item within R].
+    #[arg(short = 'k', value_name = "K")]
+    k: Option<usize>,
+    /// Exact k nearest neighbours, each answer with its certificate (needs an index whose
+    /// embedding gives a lower bound of the true distance).
+    #[arg(long, conflicts_with_all = ["candidates", "space", "candidates_from"])]
+    exact: bool,
+    /// Every item at true distance at most R, exactly (with -k: the k nearest of them).
+    #[arg(long, value_name = "R", allow_negative_numbers = true, conflicts_with_all = ["candidates", "space", "candidates_from"])]
+    within: Option<f64>,
     /// Candidates re-ranked by the true distance (default: stored in the index).
     #[arg(long, value_name = "C")]
     candidates: Option<usize>,
     /// Space candidates are ranked in (default: stored in the index).
     #[arg(long, value_enum)]
     space: Option<SpaceArg>,
-    /// Where candidates come from.
-    #[arg(long = "candidates-from", value_enum, default_value = "scan")]
-    candidates_from: SourceArg,
+    /// Where candidates come from [default: scan].
+    #[arg(long = "candidates-from", value_enum)]
+    candidates_from: Option<SourceArg>,
     /// Read queries from this file instead of stdin, one per line.
     #[arg(long, value_name = "FILE")]
     queries: Option<PathBuf>,
@@ -330,7 +337,7 @@ fn open_index(path: &Path) -> anyhow::Result<Index> {
 
 fn query(a: QueryArgs) -> anyhow::Result<()> {
     let index = open_index(&a.index)?;
-    let mut params = SearchParams::from_index(&index, a.k);
+    let mut params = SearchParams::from_index(&index, a.k.unwrap_or(10));
     if let Some(c) = a.candidates {
         params.candidates = c;
     }
@@ -338,16 +345,16 @@ fn query(a: QueryArgs) -> anyhow::Result<()> {
         params.space = s.into();
     }
     params.source = match a.candidates_from {
-        SourceArg::Scan => CandidateSource::Scan,
-        SourceArg::Tree => CandidateSource::Tree,
+        Some(SourceArg::Scan) | None => CandidateSource::Scan,
+        Some(SourceArg::Tree) => CandidateSource::Tree,
     };
-    if params.k == 0 {
-        return Err(Error::Usage("-k must be at least 1".into()).into());
-    }
-    if params.candidates == 0 {
-        return Err(Error::Usage("--candidates must be at least 1".into()).into());
-    }
+    let request = match (a.within, a.exact) {
+        (Some(radius), _) => Request::Within { radius, k: a.k },
+        (None, true) => Request::Exact { k: params.k },
+        (None, false) => Request::Approximate(params),
+    };
     let searcher = Searcher::new(&index);
+    searcher.check(&request)?;
     let (reader, name): (Box<dyn BufRead>, String) = match &a.queries {
         Some(p) => (
             Box::new(std::io::BufReader::new(std::fs::File::open(p).map_err(
@@ -375,7 +382,7 @@ fn query(a: QueryArgs) -> anyhow::Result<()> {
         if block.is_empty() {
             break;
         }
-        let answers = searcher.search_many(&block, &params);
+        let answers = searcher.answer_many(&block, &request);
         for (q, ans) in block.iter().zip(answers) {
             let found = ans?;
             answered += 1;
@@ -480,6 +487,13 @@ fn write_json(
         obj["distances"] = found.distances.into();
         obj["pruned"] = found.pruned.into();
     }
+    if let Some(c) = &found.certificate {
+        obj["exact"] = serde_json::json!({
+            "examined": c.examined,
+            "computed": c.computed,
+            "bound": c.bound.map(distance_json),
+        });
+    }
     serde_json::to_writer(&mut *out, &obj)?;
     out.write_all(b"\n")?;
     Ok(())
@@ -515,7 +529,7 @@ fn write_tsv(
             IdRef::Text(b) => String::from_utf8_lossy(b).into_owned(),
         };
         let item = String::from_utf8_lossy(index.item(n.index as usize));
-        writeln!(
+        write!(
             out,
             "{}\t{}\t{}\t{}\t{}",
             tsv_field(query),
@@ -524,6 +538,10 @@ fn write_tsv(
             tsv_field(&item),
             distance_json(n.distance)
         )?;
+        match &found.certificate {
+            Some(c) => writeln!(out, "\t{}\t{}", c.examined, c.computed)?,
+            None => writeln!(out)?,
+        }
     }
     Ok(())
 }

@@ -249,3 +249,41 @@ fn fewer_distinct_items_than_landmarks_gives_a_smaller_embedding() {
     let ids: Vec<u32> = f.neighbors.iter().map(|n| n.index).collect();
     assert_eq!(ids, [0, 1, 3, 2]);
 }
+
+/// The coarse stage (first landmarks, then all of them) still returns true distances, in
+/// answer order, and with a factor too large to apply it gives the plain scan's answer.
+#[test]
+fn the_coarse_stage_returns_true_distances_in_order() {
+    let dir = tempfile::tempdir().unwrap();
+    let items: Vec<String> = (0..2000)
+        .map(|i| format!("buoy {}", (i * 7919) % 10007))
+        .collect();
+    let idx = build(&corpus(&items), 16, &dir);
+    let p = SearchParams {
+        k: 5,
+        candidates: 20,
+        ..SearchParams::from_index(&idx, 5)
+    };
+    let plain = Searcher::new(&idx);
+    let mut coarse = Searcher::new(&idx);
+    coarse.set_coarse_factor(4);
+    for q in ["buoy 12", "bouy 7001", "buoy 99999"] {
+        let f = coarse.search(q, &p, &mut Default::default()).unwrap();
+        assert_eq!(f.neighbors.len(), 5);
+        for (a, b) in f.neighbors.iter().zip(f.neighbors.iter().skip(1)) {
+            assert!(a.distance <= b.distance);
+        }
+        for n in &f.neighbors {
+            let d = strsim::levenshtein(q, &items[n.index as usize]) as f64;
+            assert_eq!(n.distance, d, "{q}");
+        }
+    }
+    coarse.set_coarse_factor(1000);
+    let a = coarse
+        .search("buoy 12", &p, &mut Default::default())
+        .unwrap();
+    let b = plain
+        .search("buoy 12", &p, &mut Default::default())
+        .unwrap();
+    assert_eq!(a, b);
+}

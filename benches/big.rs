@@ -1,0 +1,287 @@
+//! The large bench: Debian's wamerican-insane list (663,473 words), every query mode and the
+//! two brute forces in one run, plus build time, index size and a query process's peak RSS.
+//!
+//! Run with `cargo bench --bench big`. Compare ratios measured in one run (ours vs brute
+//! force): the machine is shared, absolute figures are noisy.
+//!
+//! Settings through the environment (defaults in brackets):
+//! - `WAYMARK_BIG_WORDS` word list [/usr/share/dict/american-english-insane]
+//! - `WAYMARK_BIG_QUERIES` number of typo queries [1000]
+//! - `WAYMARK_BIG_CANDIDATES` extra candidate counts for the approximate path [2000,4000]
+//! - `WAYMARK_BIG_DIM` embedding dimension of the index [the default]
+//! - `WAYMARK_BIG_COARSE` coarse-stage factors to measure beside the default path [8,32]
+
+use std::path::{Path, PathBuf};
+use std::time::Instant;
+
+use rayon::prelude::*;
+use waymark::eval::{scan_many, threshold_recall, typo_queries, Scan};
+use waymark::index::{build_index, BuildOptions, Index};
+use waymark::ingest::{read_corpus, IngestOptions};
+use waymark::search::{Found, Neighbor, Request, SearchParams, Searcher};
+
+fn env_list<T: std::str::FromStr>(name: &str, default: &str) -> Vec<T> {
+    std::env::var(name)
+        .unwrap_or_else(|_| default.to_string())
+        .split(',')
+        .filter_map(|s| s.trim().parse().ok())
+        .collect()
+}
+
+struct Row {
+    name: String,
+    qps: f64,
+    dists: f64,
+    recall: f64,
+}
+
+/// Peak resident memory (kB) of `waymark query` answering `queries`, from GNU time.
+fn query_peak_rss(index: &Path, queries: &Path, extra: &[&str]) -> Option<u64> {
+    let out = std::process::Command::new("/usr/bin/time")
+        .arg("-v")
+        .arg(env!("CARGO_BIN_EXE_waymark"))
+        .arg("query")
+        .arg(index)
+        .arg("--queries")
+        .arg(queries)
+        .args(extra)
+        .stdout(std::process::Stdio::null())
+        .output()
+        .ok()?;
+    let err = String::from_utf8_lossy(&out.stderr);
+    err.lines()
+        .find_map(|l| {
+            l.trim()
+                .strip_prefix("Maximum resident set size (kbytes): ")
+        })
+        .and_then(|v| v.trim().parse().ok())
+}
+
+fn main() {
+    let words = PathBuf::from(
+        std::env::var("WAYMARK_BIG_WORDS")
+            .unwrap_or_else(|_| "/usr/share/dict/american-english-insane".into()),
+    );
+    if !words.exists() {
+        eprintln!(
+            "{} is missing: install Debian's wamerican-insane (apt-get install -y wamerican-insane)",
+            words.display()
+        );
+        return;
+    }
+    let nq: usize = env_list("WAYMARK_BIG_QUERIES", "1000")[0];
+    let extra_c: Vec<usize> = env_list("WAYMARK_BIG_CANDIDATES", "2000,4000");
+    let dim: usize = env_list("WAYMARK_BIG_DIM", &waymark::search::DEFAULT_DIM.to_string())[0];
+    let k = 10;
+    let corpus = read_corpus(&words, &IngestOptions::default()).expect("word list reads");
+    let n = corpus.items.len();
+    let raw_bytes = std::fs::metadata(&words).map(|m| m.len()).unwrap_or(0);
+    let queries = typo_queries(&corpus.items, nq, 20261202);
+    println!(
+        "word list {}: {n} items, {raw_bytes} bytes; {nq} typo queries (1-3 edits); k = {k}; {} threads",
+        words.display(),
+        rayon::current_num_threads()
+    );
+
+    let dir = tempfile::tempdir().expect("temp dir");
+    let path = dir.path().join("big.wmk");
+    let t = Instant::now();
+    let report = build_index(
+        &corpus,
+        "bench",
+        &BuildOptions {
+            dim,
+            ..BuildOptions::default()
+        },
+        &path,
+        &|_| {},
+    )
+    .expect("build");
+    let build_s = t.elapsed().as_secs_f64();
+    drop(corpus);
+    let index = Index::open(&path).expect("open");
+    let d = index.meta().dim as usize;
+    let size_limit = 3 * (raw_bytes + 4 * d as u64 * n as u64);
+    println!(
+        "build (d = {d}): {build_s:.2} s; index {} bytes ({:.1} MB; limit 3 × (text + 4·d·n) = {:.1} MB)",
+        report.file_len,
+        report.file_len as f64 / 1e6,
+        size_limit as f64 / 1e6
+    );
+    let searcher = Searcher::new(&index);
+    let mut plain = Searcher::new(&index);
+    plain.set_coarse_factor(0);
+    let factors: Vec<usize> = env_list("WAYMARK_BIG_COARSE", "8,32");
+
+    let t = Instant::now();
+    let truth = scan_many(&index, &queries, k, Scan::Full);
+    let full_qps = nq as f64 / t.elapsed().as_secs_f64();
+    let t = Instant::now();
+    let best = scan_many(&index, &queries, k, Scan::Best);
+    let best_qps = nq as f64 / t.elapsed().as_secs_f64();
+    assert_eq!(truth, best, "the two brute forces disagree");
+    let truth_d: Vec<Vec<f64>> = truth
+        .iter()
+        .map(|t| t.iter().map(|n| n.distance).collect())
+        .collect();
+    println!(
+        "full scan {full_qps:.1} q/s ({:.1} M pairs/s); best scan {best_qps:.1} q/s",
+        full_qps * n as f64 / 1e6
+    );
+    let mut rows = vec![
+        Row {
+            name: "full scan (unbounded, all cores)".into(),
+            qps: full_qps,
+            dists: n as f64,
+            recall: 1.0,
+        },
+        Row {
+            name: "best scan (bounded, running k-th)".into(),
+            qps: best_qps,
+            dists: n as f64,
+            recall: 1.0,
+        },
+    ];
+
+    let run_on = |searcher: &Searcher, req: &Request| -> (f64, Vec<Found>) {
+        let t = Instant::now();
+        let found: Vec<Found> = searcher
+            .answer_many(&queries, req)
+            .into_iter()
+            .map(|f| f.expect("query"))
+            .collect();
+        (nq as f64 / t.elapsed().as_secs_f64(), found)
+    };
+    let summarise = |name: String, qps: f64, found: &[Found]| {
+        let mut rec = 0.0;
+        let mut dist = 0usize;
+        for (f, td) in found.iter().zip(&truth_d) {
+            dist += f.distances;
+            let got: Vec<(u32, f64)> = f.neighbors.iter().map(|n| (n.index, n.distance)).collect();
+            rec += threshold_recall(td, &got, k);
+        }
+        Row {
+            name,
+            qps,
+            dists: dist as f64 / nq as f64,
+            recall: rec / nq as f64,
+        }
+    };
+
+    let run = |req: &Request| run_on(&searcher, req);
+    let default = SearchParams::from_index(&index, k);
+    let mut cs = vec![default.candidates];
+    cs.extend(extra_c.iter().copied().filter(|&c| c != default.candidates));
+    for c in cs {
+        let p = SearchParams {
+            candidates: c,
+            ..default
+        };
+        let (qps, found) = run_on(&plain, &Request::Approximate(p));
+        let tag = if c == default.candidates {
+            " (default)"
+        } else {
+            ""
+        };
+        rows.push(summarise(format!("approx. C={c}{tag}"), qps, &found));
+        for &f in &factors {
+            let mut s = Searcher::new(&index);
+            s.set_coarse_factor(f);
+            let (qps, found) = run_on(&s, &Request::Approximate(p));
+            rows.push(summarise(
+                format!("approx. C={c}, coarse ×{f}"),
+                qps,
+                &found,
+            ));
+        }
+    }
+
+    let (qps, found) = run(&Request::Exact { k });
+    for (f, t) in found.iter().zip(&truth) {
+        assert_eq!(&f.neighbors, t, "exact answer differs from the brute force");
+    }
+    let computed: f64 = found
+        .iter()
+        .map(|f| f.certificate.map_or(0, |c| c.computed) as f64)
+        .sum::<f64>()
+        / nq as f64;
+    let examined: f64 = found
+        .iter()
+        .map(|f| f.certificate.map_or(0, |c| c.examined) as f64)
+        .sum::<f64>()
+        / nq as f64;
+    println!("exact k={k}: {examined:.0} items examined, {computed:.0} measured per query");
+    rows.push(summarise(format!("exact k={k}"), qps, &found));
+
+    let radius = 2.0;
+    let (qps, found) = run(&Request::Within { radius, k: None });
+    // The range answers against a bounded brute force over every item.
+    let t = Instant::now();
+    let brute: Vec<Vec<Neighbor>> = queries
+        .par_iter()
+        .map(|q| {
+            let p = waymark::metric::LevenshteinQuery::new(q.as_bytes());
+            let keys = index.keys();
+            (0..n)
+                .filter_map(|i| {
+                    p.dist_within(keys.get(i), radius as u32).map(|d| Neighbor {
+                        index: i as u32,
+                        distance: f64::from(d),
+                    })
+                })
+                .collect()
+        })
+        .collect();
+    let brute_qps = nq as f64 / t.elapsed().as_secs_f64();
+    let mut total = 0usize;
+    for (f, b) in found.iter().zip(&brute) {
+        let mut got: Vec<u32> = f.neighbors.iter().map(|n| n.index).collect();
+        got.sort_unstable();
+        let want: Vec<u32> = b.iter().map(|n| n.index).collect();
+        assert_eq!(got, want, "range answer differs from the brute force");
+        total += got.len();
+    }
+    println!(
+        "range R={radius}: {:.1} items per query on average; bounded brute-force range {brute_qps:.1} q/s",
+        total as f64 / nq as f64
+    );
+    let mut r = summarise(format!("range R={radius}"), qps, &found);
+    r.recall = 1.0; // checked equal to the brute force above; recall@k does not apply
+    rows.push(r);
+
+    // Peak memory of a query process answering every query (default, exact, range).
+    let qfile = dir.path().join("queries.txt");
+    std::fs::write(&qfile, queries.join("\n") + "\n").expect("write queries");
+    let limit_kb = (report.file_len + 64 * 1024 * 1024) / 1024;
+    for (name, extra) in [
+        ("approximate", &[][..]),
+        ("exact", &["--exact"][..]),
+        ("range R=2", &["--within", "2"][..]),
+    ] {
+        match query_peak_rss(&path, &qfile, extra) {
+            Some(kb) => println!(
+                "peak RSS of `waymark query` ({name}, {nq} queries): {:.1} MB (limit index + 64 MiB = {:.1} MB)",
+                kb as f64 * 1024.0 / 1e6,
+                limit_kb as f64 * 1024.0 / 1e6
+            ),
+            None => println!("peak RSS ({name}): /usr/bin/time -v unavailable"),
+        }
+    }
+
+    println!();
+    println!(
+        "{:<36} {:>10} {:>12} {:>10} {:>10} {:>10}",
+        "mode", "q/s", "dist/query", "recall@10", "vs full", "vs best"
+    );
+    for r in &rows {
+        println!(
+            "{:<36} {:>10.1} {:>12.1} {:>10.4} {:>9.1}x {:>9.2}x",
+            r.name,
+            r.qps,
+            r.dists,
+            r.recall,
+            r.qps / full_qps,
+            r.qps / best_qps
+        );
+    }
+}

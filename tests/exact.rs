@@ -1,0 +1,270 @@
+//! Exact k-NN and range queries: the same answers as brute force, with a certificate.
+
+use assert_cmd::Command;
+use proptest::prelude::*;
+use waymark::eval::full_scan;
+use waymark::index::{build_index, BuildOptions, IdRef, Index};
+use waymark::ingest::{read_corpus, Corpus, Ids, IngestOptions};
+use waymark::search::{Found, Neighbor, Searcher};
+
+fn corpus(items: &[String], ids: Option<Vec<String>>) -> Corpus {
+    Corpus {
+        items: items.to_vec(),
+        keys: None,
+        ids: match ids {
+            Some(t) => Ids::Text(t),
+            None => Ids::Int((0..items.len() as i64).collect()),
+        },
+        blank_skipped: 0,
+        records: items.len(),
+    }
+}
+
+fn build(c: &Corpus, dim: usize, dir: &tempfile::TempDir) -> Index {
+    let path = dir.path().join("t.wmk");
+    build_index(
+        c,
+        "test",
+        &BuildOptions {
+            dim,
+            seed: 5,
+            ..BuildOptions::default()
+        },
+        &path,
+        &|_| {},
+    )
+    .expect("build");
+    Index::open(&path).expect("open")
+}
+
+/// Every item within `r` of `q`, by strsim's Levenshtein (a reference crate; counts chars),
+/// ordered by distance, then id, then item index: the documented order of answers.
+fn within_by_strsim(idx: &Index, q: &str, r: usize) -> Vec<Neighbor> {
+    let mut v: Vec<(usize, IdRef<'_>, u32)> = (0..idx.len())
+        .filter_map(|i| {
+            let item = std::str::from_utf8(idx.key(i)).expect("utf-8");
+            let d = strsim::levenshtein(q, item);
+            (d <= r).then_some((d, idx.id(i), i as u32))
+        })
+        .collect();
+    v.sort();
+    v.into_iter()
+        .map(|(d, _, i)| Neighbor {
+            index: i,
+            distance: d as f64,
+        })
+        .collect()
+}
+
+/// The certificate is consistent with the answer: every item is examined or pruned, no
+/// item is measured without being examined, and the unexamined items' bound is at least
+/// the k-th distance (k-NN) or above the radius.
+fn check_certificate(idx: &Index, f: &Found, k: Option<usize>, r: Option<f64>) {
+    let c = f.certificate.expect("exact answers carry a certificate");
+    assert_eq!(c.examined + f.pruned, idx.len());
+    assert!(c.computed <= c.examined);
+    if let Some(b) = c.bound {
+        if let Some(r) = r {
+            if f.neighbors.len() < k.unwrap_or(usize::MAX) {
+                assert!(b > r, "bound {b} with radius {r}");
+            }
+        }
+        if let (Some(k), Some(last)) = (k, f.neighbors.last()) {
+            if f.neighbors.len() == k {
+                assert!(
+                    b >= last.distance,
+                    "bound {b} below the k-th {}",
+                    last.distance
+                );
+            }
+        }
+    }
+}
+
+fn word() -> impl Strategy<Value = String> {
+    // A small alphabet: many equal distances, so ties at the k-th distance are common.
+    proptest::string::string_regex("[abé]{0,7}").unwrap()
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig::with_cases(48))]
+
+    /// Exact k-NN equals the brute force (distances and which items win ties), for integer
+    /// ids and for text ids in an order unrelated to the items'.
+    #[test]
+    fn exact_knn_equals_brute_force(
+        items in proptest::collection::vec(word(), 1..80),
+        queries in proptest::collection::vec(word(), 1..4),
+        k in 1usize..12,
+        dim in 1usize..9,
+        text_ids in any::<bool>(),
+    ) {
+        let dir = tempfile::tempdir().unwrap();
+        let ids = text_ids.then(|| {
+            (0..items.len()).map(|i| format!("{:03}", (i * 37) % 101)).collect()
+        });
+        let idx = build(&corpus(&items, ids), dim, &dir);
+        let s = Searcher::new(&idx);
+        for q in &queries {
+            let got = s.search_exact(q, k, &mut Default::default()).unwrap();
+            prop_assert_eq!(&got.neighbors, &full_scan(&idx, q, k));
+            check_certificate(&idx, &got, Some(k), None);
+        }
+    }
+
+    /// A range query returns every item within R, as strsim's Levenshtein finds them, and
+    /// with -k the first k of those.
+    #[test]
+    fn range_equals_brute_force(
+        items in proptest::collection::vec(word(), 1..80),
+        queries in proptest::collection::vec(word(), 1..4),
+        r in 0usize..5,
+        k in 1usize..6,
+        dim in 1usize..9,
+    ) {
+        let dir = tempfile::tempdir().unwrap();
+        let idx = build(&corpus(&items, None), dim, &dir);
+        let s = Searcher::new(&idx);
+        for q in &queries {
+            let want = within_by_strsim(&idx, q, r);
+            let got = s.search_within(q, r as f64, None, &mut Default::default()).unwrap();
+            prop_assert_eq!(&got.neighbors, &want);
+            check_certificate(&idx, &got, None, Some(r as f64));
+            // A fractional radius reaches the same whole distances.
+            let frac = s.search_within(q, r as f64 + 0.5, None, &mut Default::default()).unwrap();
+            prop_assert_eq!(&frac.neighbors, &want);
+            let top = s.search_within(q, r as f64, Some(k), &mut Default::default()).unwrap();
+            prop_assert_eq!(&top.neighbors[..], &want[..want.len().min(k)]);
+            check_certificate(&idx, &top, Some(k), Some(r as f64));
+        }
+    }
+}
+
+/// Open data: a sample of Debian's `wamerican` list (/usr/share/dict/american-english, every
+/// 13th word) with typo queries; exact k = 10 must equal the full scan and R = 2 must equal
+/// strsim's brute force.
+#[test]
+fn exact_and_range_on_a_word_list_sample() {
+    let path = std::path::Path::new("/usr/share/dict/american-english");
+    if !path.exists() {
+        panic!("install Debian's wamerican (apt-get install -y wamerican) to run this test");
+    }
+    let all = read_corpus(path, &IngestOptions::default()).unwrap();
+    let items: Vec<String> = all.items.iter().step_by(13).cloned().collect();
+    let dir = tempfile::tempdir().unwrap();
+    let idx = build(&corpus(&items, None), 32, &dir);
+    let s = Searcher::new(&idx);
+    let queries = waymark::eval::typo_queries(&items, 40, 3);
+    let mut scratch = Default::default();
+    for q in &queries {
+        let got = s.search_exact(q, 10, &mut scratch).unwrap();
+        assert_eq!(got.neighbors, full_scan(&idx, q, 10), "query {q}");
+        check_certificate(&idx, &got, Some(10), None);
+        let within = s.search_within(q, 2.0, None, &mut scratch).unwrap();
+        assert_eq!(within.neighbors, within_by_strsim(&idx, q, 2), "query {q}");
+    }
+}
+
+#[test]
+fn without_a_lower_bound_exact_queries_are_refused() {
+    let dir = tempfile::tempdir().unwrap();
+    let items: Vec<String> = (0..50).map(|i| format!("buoy {i}")).collect();
+    let idx = build(&corpus(&items, None), 4, &dir);
+    let s = Searcher::without_bound(&idx);
+    let err = s
+        .search_exact("buoy 7", 3, &mut Default::default())
+        .unwrap_err();
+    assert!(err.to_string().contains("lower bound"), "{err}");
+    let err = s
+        .search_within("buoy 7", 1.0, None, &mut Default::default())
+        .unwrap_err();
+    assert!(err.to_string().contains("lower bound"), "{err}");
+    // Approximate queries still work, and with every item as a candidate they are exact.
+    let p = waymark::search::SearchParams {
+        candidates: 50,
+        ..waymark::search::SearchParams::from_index(&idx, 3)
+    };
+    let f = s.search("buoy 7", &p, &mut Default::default()).unwrap();
+    assert_eq!(f.neighbors, full_scan(&idx, "buoy 7", 3));
+    assert_eq!(f.pruned, 0);
+}
+
+const FERRIES: &str = "Orvane Quay\nTessamir Row\nLower Kaldrith\nUpper Kaldrith\nOrvane Strand\nKeth Landing\nMirrow Steps\nTessamir Reach\nKeth Lantern\n";
+
+fn cli(dir: &tempfile::TempDir) -> Command {
+    let mut c = Command::cargo_bin("waymark").expect("binary");
+    c.current_dir(dir.path());
+    c
+}
+
+#[test]
+fn cli_exact_and_range_answers_carry_a_certificate() {
+    let dir = tempfile::tempdir().unwrap();
+    std::fs::write(dir.path().join("ferries.txt"), FERRIES).unwrap();
+    cli(&dir)
+        .args(["build", "ferries.txt", "-o", "f.wmk", "--dim", "4", "-q"])
+        .assert()
+        .success();
+    let out = cli(&dir)
+        .args(["query", "f.wmk", "-k", "2", "--exact"])
+        .write_stdin("Keth Landin\n")
+        .assert()
+        .success()
+        .get_output()
+        .stdout
+        .clone();
+    let v: serde_json::Value = serde_json::from_slice(&out).unwrap();
+    assert_eq!(v["neighbors"][0]["item"], "Keth Landing");
+    assert_eq!(v["neighbors"][0]["distance"], 1);
+    assert_eq!(v["neighbors"].as_array().unwrap().len(), 2);
+    let cert = &v["exact"];
+    assert!(cert["examined"].as_u64().unwrap() >= 2);
+    assert!(cert["computed"].as_u64().unwrap() <= cert["examined"].as_u64().unwrap());
+    // Range: every item within 2 edits of the query, and nothing else (worked by hand:
+    // "Keth Landing" is 1 edit away, "Keth Lantern" 3: d→t, i→e, insert r).
+    let out = cli(&dir)
+        .args(["query", "f.wmk", "--within", "2", "--format", "tsv"])
+        .write_stdin("Keth Landin\n")
+        .assert()
+        .success()
+        .get_output()
+        .stdout
+        .clone();
+    let text = String::from_utf8(out).unwrap();
+    let lines: Vec<Vec<&str>> = text.lines().map(|l| l.split('\t').collect()).collect();
+    assert_eq!(lines.len(), 1, "{text}");
+    assert_eq!(
+        &lines[0][..5],
+        ["Keth Landin", "1", "5", "Keth Landing", "1"]
+    );
+    assert_eq!(
+        lines[0].len(),
+        7,
+        "TSV of exact answers adds examined and computed"
+    );
+}
+
+#[test]
+fn cli_bad_exact_usage_exits_2() {
+    let dir = tempfile::tempdir().unwrap();
+    std::fs::write(dir.path().join("ferries.txt"), FERRIES).unwrap();
+    cli(&dir)
+        .args(["build", "ferries.txt", "-o", "f.wmk", "--dim", "4", "-q"])
+        .assert()
+        .success();
+    for args in [
+        &["--within", "-1"][..],
+        &["--within", "nan"],
+        &["--exact", "-k", "0"],
+        &["--within", "2", "-k", "0"],
+        &["--exact", "--candidates", "50"],
+        &["--within", "2", "--space", "l2"],
+    ] {
+        cli(&dir)
+            .args(["query", "f.wmk"])
+            .args(args)
+            .write_stdin("Keth\n")
+            .assert()
+            .code(2);
+    }
+}
