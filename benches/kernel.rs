@@ -2,9 +2,14 @@
 //!
 //! * `scan`: one prepared query of 9 chars against an English word list (the system
 //!   dictionary at /usr/share/dict/american-english when present, else a generated list of
-//!   similar lengths): unbounded one item per call (`dist`), unbounded two items at a time
-//!   (`dist_each`), and bounded with k = 2 — the shapes of a brute-force scan and of
-//!   re-ranking with a running k-th best distance.
+//!   similar lengths): unbounded one item per call (`dist`), unbounded in batches
+//!   (`dist_each`, `dist_batch`: one item per AVX2 lane where the CPU has it; also with a
+//!   40-char query, which takes 64-bit lanes), and bounded with k = 2 — the shapes of a
+//!   brute-force scan and of re-ranking with a running k-th best distance.
+//! * With `WAYMARK_BENCH_SCANS=1`: instead of the above, the brute forces of `eval`
+//!   (full scan and best scan through `scan_many`, both cores) on the whole word list with
+//!   typo queries, in pairs per second by wall time and by CPU time; `=kernel` runs only the
+//!   one-thread comparison of `dist` with `dist_batch`.
 //! * `long`: a 300-char query (five 64-row blocks) against 300-char items a few edits away.
 
 mod common;
@@ -35,6 +40,22 @@ fn scan(c: &mut Criterion) {
             let mut sum = 0u64;
             query.dist_each(black_box(&items), |_, d| sum += u64::from(d));
             sum
+        })
+    });
+    let slices: Vec<&[u8]> = items.iter().map(Vec::as_slice).collect();
+    let mut out = vec![0u32; slices.len()];
+    group.bench_function("unbounded_dist_batch", |b| {
+        b.iter(|| {
+            query.dist_batch(black_box(&slices), &mut out);
+            out.iter().map(|&d| u64::from(d)).sum::<u64>()
+        })
+    });
+    // A query of 40 chars: past the eight 32-bit lanes, so four 64-bit lanes.
+    let long_query = LevenshteinQuery::new(b"continental shelf of the vessmark islands");
+    group.bench_function("unbounded_dist_batch_q40", |b| {
+        b.iter(|| {
+            long_query.dist_batch(black_box(&slices), &mut out);
+            out.iter().map(|&d| u64::from(d)).sum::<u64>()
         })
     });
     group.bench_function("bounded_k2", |b| {

@@ -30,20 +30,24 @@
 //! # Speed
 //!
 //! One character costs a chain of 9 dependent word operations, so a single short item
-//! keeps the processor's arithmetic units mostly idle. [`LevenshteinQuery::dist_each`] and
-//! [`LevenshteinQuery::dist2`] run two items side by side and are the fastest way to scan.
-//! [`LevenshteinQuery::dist_within`] is faster still when the bound is small. On x86-64 the
-//! kernels are also compiled for `popcnt` and `bmi1` and picked at run time, since the
-//! baseline target has neither instruction. `benches/kernel.rs` measures all of these.
+//! keeps the processor's arithmetic units mostly idle. Scans therefore go through
+//! [`LevenshteinQuery::dist_batch`] (or [`LevenshteinQuery::dist_each`]), which on x86-64
+//! CPUs with AVX2 runs one item per vector lane: eight items in 32-bit lanes for queries of
+//! up to 32 chars, four in 64-bit lanes up to 64 chars. Elsewhere (no AVX2, or another
+//! architecture) four items are interleaved as four independent dependency chains, with the
+//! same results. [`LevenshteinQuery::dist_within`] stops early when the bound is small. On
+//! x86-64 every kernel is also compiled for `popcnt` and `bmi1` and picked at run time, since
+//! the baseline target has neither instruction. `benches/kernel.rs` measures all of these.
 //!
 //! # Why this is written here
 //!
 //! General-purpose string crates (such as `strsim`, used by the tests as a reference) run the
 //! full quadratic dynamic program for every pair and keep no state between calls. Search
 //! compares one query with thousands to millions of items, so it needs the masks prepared
-//! once, the multi-block form for long items and the bounded form for re-ranking; no
-//! well-kept crate offers that combination over Unicode scalar values with lossy decoding,
-//! so the kernel is written by hand.
+//! once, a batched form that runs many items per vector register, the multi-block form for
+//! long items and the bounded form for re-ranking; no well-kept crate offers a batched
+//! bit-parallel Levenshtein with prepared masks (nor that combination over Unicode scalar
+//! values with lossy decoding), so the kernel is written by hand.
 //!
 //! # Bytes that are not UTF-8
 //!
@@ -219,8 +223,9 @@ impl LevenshteinQuery {
 
     /// Calls `f(position, distance)` for every item, in order; the fastest way to scan.
     ///
-    /// Single-block queries take items four at a time (four independent dependency chains);
-    /// longer queries two at a time through [`LevenshteinQuery::dist2`].
+    /// Single-block queries go through [`LevenshteinQuery::dist_batch`] in groups of 64
+    /// items (vector lanes with AVX2, else four independent dependency chains); longer
+    /// queries take items two at a time through [`LevenshteinQuery::dist2`].
     ///
     /// ```
     /// use waymark::metric::LevenshteinQuery;
