@@ -2,16 +2,21 @@
 //!
 //! * `scan`: one prepared query of 9 chars against an English word list (the system
 //!   dictionary at /usr/share/dict/american-english when present, else a generated list of
-//!   similar lengths): unbounded one item per call (`dist`), unbounded two items at a time
-//!   (`dist_each`), and bounded with k = 2 — the shapes of a brute-force scan and of
-//!   re-ranking with a running k-th best distance.
+//!   similar lengths): unbounded one item per call (`dist`), unbounded in batches
+//!   (`dist_each`, `dist_batch`: one item per AVX2 lane where the CPU has it; also with a
+//!   40-char query, which takes 64-bit lanes), and bounded with k = 2 — the shapes of a
+//!   brute-force scan and of re-ranking with a running k-th best distance.
+//! * With `WAYMARK_BENCH_SCANS=1`: instead of the above, the brute forces of `eval`
+//!   (full scan and best scan through `scan_many`, both cores) on the whole word list with
+//!   typo queries, in pairs per second by wall time and by CPU time; `=kernel` runs only the
+//!   one-thread comparison of `dist` with `dist_batch`.
 //! * `long`: a 300-char query (five 64-row blocks) against 300-char items a few edits away.
 
 mod common;
 
 use std::hint::black_box;
 
-use criterion::{criterion_group, criterion_main, BenchmarkId, Criterion, Throughput};
+use criterion::{criterion_group, BenchmarkId, Criterion, Throughput};
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use waymark::metric::LevenshteinQuery;
@@ -35,6 +40,22 @@ fn scan(c: &mut Criterion) {
             let mut sum = 0u64;
             query.dist_each(black_box(&items), |_, d| sum += u64::from(d));
             sum
+        })
+    });
+    let slices: Vec<&[u8]> = items.iter().map(Vec::as_slice).collect();
+    let mut out = vec![0u32; slices.len()];
+    group.bench_function("unbounded_dist_batch", |b| {
+        b.iter(|| {
+            query.dist_batch(black_box(&slices), &mut out);
+            out.iter().map(|&d| u64::from(d)).sum::<u64>()
+        })
+    });
+    // A query of 40 chars: past the eight 32-bit lanes, so four 64-bit lanes.
+    let long_query = LevenshteinQuery::new(b"continental shelf of the vessmark islands");
+    group.bench_function("unbounded_dist_batch_q40", |b| {
+        b.iter(|| {
+            long_query.dist_batch(black_box(&slices), &mut out);
+            out.iter().map(|&d| u64::from(d)).sum::<u64>()
         })
     });
     group.bench_function("bounded_k2", |b| {
@@ -90,5 +111,154 @@ fn long(c: &mut Criterion) {
     group.finish();
 }
 
+/// Brute-force k-NN through `eval::scan_many` (all cores) on the whole word list with typo
+/// queries: pairs per second of the full scan and of the best scan, measured in one run so
+/// that their ratio holds even on a busy machine. `WAYMARK_BENCH_QUERIES` sets the number of
+/// queries [1000], `WAYMARK_BENCH_ROUNDS` how often each scan is repeated [3] (the fastest
+/// round is reported, every round is printed).
+fn brute_force() {
+    use waymark::eval::{scan_many, typo_queries, Scan};
+    use waymark::index::{build_index, BuildOptions, Index};
+    use waymark::ingest::{read_corpus, IngestOptions};
+
+    let path = std::path::Path::new(common::DICTIONARY);
+    if !path.exists() {
+        eprintln!(
+            "{} is missing: apt-get install -y wamerican",
+            path.display()
+        );
+        return;
+    }
+    let env = |name: &str, default: usize| {
+        std::env::var(name)
+            .ok()
+            .and_then(|v| v.parse().ok())
+            .unwrap_or(default)
+    };
+    let nq = env("WAYMARK_BENCH_QUERIES", 1000);
+    let rounds = env("WAYMARK_BENCH_ROUNDS", 3).max(1);
+    let corpus = read_corpus(path, &IngestOptions::default()).expect("word list reads");
+    let queries = typo_queries(&corpus.items, nq, 20261201);
+    kernel_alone(&queries);
+    if std::env::var("WAYMARK_BENCH_SCANS").as_deref() == Ok("kernel") {
+        return;
+    }
+    let dir = tempfile::tempdir().expect("temp dir");
+    let file = dir.path().join("words.wmk");
+    build_index(&corpus, "bench", &BuildOptions::default(), &file, &|_| {}).expect("build");
+    let index = Index::open(&file).expect("open");
+    let pairs = (nq * index.len()) as f64;
+    println!(
+        "{}: {} items, {} typo queries (1-3 edits), k = 10, {} threads",
+        path.display(),
+        index.len(),
+        nq,
+        rayon::current_num_threads()
+    );
+    let mut fastest = [f64::INFINITY; 2];
+    let mut fastest_cpu = [f64::INFINITY; 2];
+    let mut answers = Vec::new();
+    for round in 0..rounds {
+        for (slot, scan) in [Scan::Full, Scan::Best].into_iter().enumerate() {
+            let (t, cpu) = (std::time::Instant::now(), cpu_seconds());
+            let got = scan_many(&index, &queries, 10, scan);
+            let s = t.elapsed().as_secs_f64();
+            let cpu = cpu_seconds() - cpu;
+            fastest[slot] = fastest[slot].min(s);
+            fastest_cpu[slot] = fastest_cpu[slot].min(cpu);
+            println!(
+                "round {round} {scan:?}: {:.3} s wall, {:.1} M pairs/s, {:.0} q/s; {:.3} CPU s, {:.1} M pairs per CPU s",
+                s,
+                pairs / s / 1e6,
+                nq as f64 / s,
+                cpu,
+                pairs / cpu / 1e6
+            );
+            answers.push(got);
+        }
+        let best = answers.pop().expect("two scans");
+        let full = answers.pop().expect("two scans");
+        assert_eq!(full, best, "the full scan and the best scan disagree");
+    }
+    println!(
+        "fastest: full scan {:.1} M pairs/s ({:.0} q/s), best scan {:.1} M pairs/s ({:.0} q/s), best/full {:.2}x",
+        pairs / fastest[0] / 1e6,
+        nq as f64 / fastest[0],
+        pairs / fastest[1] / 1e6,
+        nq as f64 / fastest[1],
+        fastest[0] / fastest[1]
+    );
+    let threads = rayon::current_num_threads() as f64;
+    println!(
+        "by CPU time ({threads} threads, what the wall time is on an idle machine): full scan {:.1} M pairs/s, best scan {:.1} M pairs/s, best/full {:.2}x",
+        pairs / fastest_cpu[0] * threads / 1e6,
+        pairs / fastest_cpu[1] * threads / 1e6,
+        fastest_cpu[0] / fastest_cpu[1]
+    );
+}
+
+/// The kernel alone on one thread over the word list, by CPU time: one item per call
+/// against the batched form, for the first 20 typo queries.
+fn kernel_alone(queries: &[String]) {
+    // The kernel alone on one thread, over the same items and the first 20 queries: one
+    // item per call against the batched form, as an anchor for the ratios below.
+    let words = common::words(100_000);
+    let keys: Vec<&[u8]> = words.iter().map(Vec::as_slice).collect();
+    let mut out = vec![0u32; keys.len()];
+    let few = &queries[..queries.len().min(20)];
+    let t = cpu_seconds();
+    let mut sum = 0u64;
+    for q in few {
+        let p = waymark::metric::LevenshteinQuery::new(q.as_bytes());
+        sum += keys.iter().map(|x| u64::from(p.dist(x))).sum::<u64>();
+    }
+    let single = cpu_seconds() - t;
+    let t = cpu_seconds();
+    let mut sum2 = 0u64;
+    for q in few {
+        let p = waymark::metric::LevenshteinQuery::new(q.as_bytes());
+        p.dist_batch(&keys, &mut out);
+        sum2 += out.iter().map(|&d| u64::from(d)).sum::<u64>();
+    }
+    let batch = cpu_seconds() - t;
+    assert_eq!(sum, sum2, "batched and one-item kernels disagree");
+    let kp = (few.len() * keys.len()) as f64;
+    println!(
+        "one thread, kernel alone, per CPU second: dist {:.1} M pairs/s, dist_batch {:.1} M pairs/s ({:.2}x)",
+        kp / single / 1e6,
+        kp / batch / 1e6,
+        single / batch
+    );
+}
+
+/// CPU time of this process so far, in seconds: the sum over its threads of the time spent
+/// on a core, from Linux's /proc/self/task/*/schedstat (first field, nanoseconds). On a
+/// machine shared with other jobs, wall time counts the waits for a core; this does not.
+fn cpu_seconds() -> f64 {
+    let Ok(tasks) = std::fs::read_dir("/proc/self/task") else {
+        return f64::NAN;
+    };
+    let mut ns = 0u64;
+    for t in tasks.flatten() {
+        if let Ok(s) = std::fs::read_to_string(t.path().join("schedstat")) {
+            ns += s
+                .split_whitespace()
+                .next()
+                .and_then(|v| v.parse::<u64>().ok())
+                .unwrap_or(0);
+        }
+    }
+    ns as f64 / 1e9
+}
+
 criterion_group!(benches, scan, long);
-criterion_main!(benches);
+
+fn main() {
+    // `WAYMARK_BENCH_SCANS=1 cargo bench --bench kernel` runs the brute-force report alone.
+    if std::env::var_os("WAYMARK_BENCH_SCANS").is_some() {
+        brute_force();
+        return;
+    }
+    benches();
+    Criterion::default().configure_from_args().final_summary();
+}

@@ -1,9 +1,10 @@
 //! Ground truth by brute force, and recall against it.
 //!
 //! Two scans compute exact answers: [`full_scan`] is what a user without an index would run
-//! (the unbounded kernel against every item), [`best_scan`] keeps a running k-th distance and
-//! gives it to the bounded kernel, which skips most items after a length check. Both run on
-//! all cores when called through [`scan_many`].
+//! (the unbounded kernel against every item, batched), [`best_scan`] keeps a running k-th
+//! distance, skips the items whose length (from the offsets, without reading their bytes)
+//! rules them out, and runs the rest through the same batched kernel. Both give the same
+//! answers and run on all cores when called through [`scan_many`].
 //!
 //! Recall follows the common convention for approximate k-NN: a returned item counts when
 //! its true distance is at most the true k-th distance plus ε = 1e-3, so that ties do not

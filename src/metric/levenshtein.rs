@@ -30,20 +30,24 @@
 //! # Speed
 //!
 //! One character costs a chain of 9 dependent word operations, so a single short item
-//! keeps the processor's arithmetic units mostly idle. [`LevenshteinQuery::dist_each`] and
-//! [`LevenshteinQuery::dist2`] run two items side by side and are the fastest way to scan.
-//! [`LevenshteinQuery::dist_within`] is faster still when the bound is small. On x86-64 the
-//! kernels are also compiled for `popcnt` and `bmi1` and picked at run time, since the
-//! baseline target has neither instruction. `benches/kernel.rs` measures all of these.
+//! keeps the processor's arithmetic units mostly idle. Scans therefore go through
+//! [`LevenshteinQuery::dist_batch`] (or [`LevenshteinQuery::dist_each`]), which on x86-64
+//! CPUs with AVX2 runs one item per vector lane: eight items in 32-bit lanes for queries of
+//! up to 32 chars, four in 64-bit lanes up to 64 chars. Elsewhere (no AVX2, or another
+//! architecture) four items are interleaved as four independent dependency chains, with the
+//! same results. [`LevenshteinQuery::dist_within`] stops early when the bound is small. On
+//! x86-64 every kernel is also compiled for `popcnt` and `bmi1` and picked at run time, since
+//! the baseline target has neither instruction. `benches/kernel.rs` measures all of these.
 //!
 //! # Why this is written here
 //!
 //! General-purpose string crates (such as `strsim`, used by the tests as a reference) run the
 //! full quadratic dynamic program for every pair and keep no state between calls. Search
 //! compares one query with thousands to millions of items, so it needs the masks prepared
-//! once, the multi-block form for long items and the bounded form for re-ranking; no
-//! well-kept crate offers that combination over Unicode scalar values with lossy decoding,
-//! so the kernel is written by hand.
+//! once, a batched form that runs many items per vector register, the multi-block form for
+//! long items and the bounded form for re-ranking; no well-kept crate offers a batched
+//! bit-parallel Levenshtein with prepared masks (nor that combination over Unicode scalar
+//! values with lossy decoding), so the kernel is written by hand.
 //!
 //! # Bytes that are not UTF-8
 //!
@@ -68,6 +72,10 @@ use super::{Metric, MetricKind, PreparedQuery};
 
 /// Rows of the dynamic-programming table held in one machine word.
 const WORD: usize = 64;
+
+/// Longest item, in bytes, that the vector-lane kernels take; longer items (rare in word
+/// lists) go to the one-item kernel.
+const LANE_BYTES: usize = 64;
 
 /// Number of blocks kept on the stack by the multi-block kernel (queries up to 256 chars).
 const STACK_WORDS: usize = 4;
@@ -114,6 +122,9 @@ pub struct LevenshteinQuery {
     /// Whether this CPU has `popcnt` and `bmi1`, checked once when the query is prepared.
     #[cfg(target_arch = "x86_64")]
     x86_fast: bool,
+    /// Whether this CPU also has AVX2, for the kernels that run one item per vector lane.
+    #[cfg(target_arch = "x86_64")]
+    x86_lanes: bool,
 }
 
 impl LevenshteinQuery {
@@ -152,6 +163,10 @@ impl LevenshteinQuery {
             other_masks: other_masks.into_boxed_slice(),
             #[cfg(target_arch = "x86_64")]
             x86_fast: std::arch::is_x86_feature_detected!("popcnt")
+                && std::arch::is_x86_feature_detected!("bmi1"),
+            #[cfg(target_arch = "x86_64")]
+            x86_lanes: std::arch::is_x86_feature_detected!("avx2")
+                && std::arch::is_x86_feature_detected!("popcnt")
                 && std::arch::is_x86_feature_detected!("bmi1"),
         }
     }
@@ -208,8 +223,9 @@ impl LevenshteinQuery {
 
     /// Calls `f(position, distance)` for every item, in order; the fastest way to scan.
     ///
-    /// Single-block queries take items four at a time (four independent dependency chains);
-    /// longer queries two at a time through [`LevenshteinQuery::dist2`].
+    /// Single-block queries go through [`LevenshteinQuery::dist_batch`] in groups of 64
+    /// items (vector lanes with AVX2, else four independent dependency chains); longer
+    /// queries take items two at a time through [`LevenshteinQuery::dist2`].
     ///
     /// ```
     /// use waymark::metric::LevenshteinQuery;
@@ -228,6 +244,30 @@ impl LevenshteinQuery {
         let mut items = items.into_iter();
         let mut position = 0;
         if self.words == 1 {
+            #[cfg(target_arch = "x86_64")]
+            if self.x86_lanes {
+                // Up to eight items at a time, one per vector lane.
+                // Items in groups of 64, one vector lane per item within the group.
+                const GROUP: usize = 64;
+                let mut held: Vec<I::Item> = Vec::with_capacity(GROUP);
+                let mut out = [0u32; GROUP];
+                loop {
+                    held.clear();
+                    held.extend(items.by_ref().take(GROUP));
+                    let mut batch: [&[u8]; GROUP] = [&[]; GROUP];
+                    for (slot, x) in batch.iter_mut().zip(&held) {
+                        *slot = x.as_ref();
+                    }
+                    self.dist_batch(&batch[..held.len()], &mut out);
+                    for (j, &d) in out[..held.len()].iter().enumerate() {
+                        f(position + j, d);
+                    }
+                    position += held.len();
+                    if held.len() < GROUP {
+                        return;
+                    }
+                }
+            }
             loop {
                 let got = [items.next(), items.next(), items.next(), items.next()];
                 if let [Some(a), Some(b), Some(c), Some(d)] = &got {
@@ -257,6 +297,57 @@ impl LevenshteinQuery {
             f(position, da);
             f(position + 1, db);
             position += 2;
+        }
+    }
+
+    /// The distances from the query to every item of `items`, written to the same positions
+    /// of `out` (only the first `min(items.len(), out.len())` are computed).
+    ///
+    /// Same results as [`LevenshteinQuery::dist`] item by item. For queries of up to 64 chars
+    /// on x86-64 CPUs with AVX2, items are computed four at a time, one per 64-bit lane of a
+    /// vector register, or eight at a time in 32-bit lanes when the query has at most 32
+    /// chars; elsewhere four interleaved items at a time.
+    ///
+    /// ```
+    /// use waymark::metric::LevenshteinQuery;
+    ///
+    /// let q = LevenshteinQuery::new(b"ferry");
+    /// let items: [&[u8]; 3] = [b"ferry", b"fairy", b"berry"];
+    /// let mut out = [0; 3];
+    /// q.dist_batch(&items, &mut out);
+    /// assert_eq!(out, [0, 2, 1]);
+    /// ```
+    pub fn dist_batch(&self, items: &[&[u8]], out: &mut [u32]) {
+        let count = items.len().min(out.len());
+        let (items, out) = (&items[..count], &mut out[..count]);
+        if self.words != 1 {
+            for (item, d) in items.iter().zip(out.iter_mut()) {
+                *d = self.dist(item);
+            }
+            return;
+        }
+        #[cfg(target_arch = "x86_64")]
+        if self.x86_lanes {
+            if self.len <= 32 {
+                // SAFETY: `x86_lanes` is set only when the CPU reports AVX2, popcnt and bmi1;
+                // the query has 1 ..= 32 chars and `out` the length of `items`.
+                unsafe { lanes::run_x8(self, items, out) }
+            } else {
+                // SAFETY: as above, with a query of 1 ..= 64 chars.
+                unsafe { lanes::run_x4(self, items, out) }
+            }
+            return;
+        }
+        let mut quads_in = items.chunks_exact(4);
+        let mut quads_out = out.chunks_exact_mut(4);
+        for (it, d) in (&mut quads_in).zip(&mut quads_out) {
+            let got = self.dist_one_word_quad([it[0], it[1], it[2], it[3]]);
+            for (d, got) in d.iter_mut().zip(got) {
+                *d = saturate(got);
+            }
+        }
+        for (item, d) in quads_in.remainder().iter().zip(quads_out.into_remainder()) {
+            *d = self.dist(item);
         }
     }
 
@@ -398,6 +489,25 @@ impl LevenshteinQuery {
             step(&mut col.pv, &mut col.mv, eq);
             col.n += 1;
         }
+    }
+
+    /// Calls `put(column, mask)` with the match mask of every char of `item` for a
+    /// single-block query; returns the number of chars.
+    #[inline(always)]
+    fn each_mask(&self, item: &[u8], mut put: impl FnMut(usize, u64)) -> usize {
+        let ascii = self.ascii_one_word();
+        let (mut i, mut j) = (0, 0);
+        while let Some(&b) = item.get(i) {
+            put(j, self.eq_one_word(ascii, item, &mut i, b));
+            j += 1;
+        }
+        j
+    }
+
+    /// Rows of the query within its single block, as a bit mask.
+    #[inline(always)]
+    fn rows_one_word(&self) -> u64 {
+        self.last_bit | (self.last_bit.wrapping_sub(1))
     }
 
     /// The distance held by a finished single-block column.
@@ -711,6 +821,239 @@ mod x86 {
     }
 }
 
+/// The single-block kernel with one item per vector lane (AVX2), for scans.
+///
+/// Myers' step uses only bitwise operations, shifts by one and one addition, all of which
+/// AVX2 has per 64-bit and per 32-bit lane with no carry between lanes, so four (or eight)
+/// items run the same instruction stream. The match masks of each item's chars are looked up
+/// first, lane by lane, into a column-major table (`columns[j]` holds char `j` of every
+/// item); the column loop then loads one row per column. Items of different lengths share
+/// a batch: the loop runs to the longest, and a lane whose item has ended keeps its state
+/// (a blend with the "still running" mask), so its final column is the one of its own length.
+///
+/// The table of one batch is filled while the previous batch runs its columns (two tables
+/// in turn): a vector load of a row just written by eight scalar stores would wait for all
+/// of them to reach the cache, and the scalar look-ups overlap the vector work this way.
+/// Results equal the scalar kernels', which the tests check lane by lane.
+#[cfg(target_arch = "x86_64")]
+mod lanes {
+    use std::arch::x86_64::*;
+    use std::mem::MaybeUninit;
+
+    use super::{saturate, LevenshteinQuery, LANE_BYTES};
+
+    /// Column-major masks of one batch: `[column][lane]`.
+    type Columns<T, const L: usize> = [MaybeUninit<[T; L]>; LANE_BYTES];
+
+    /// Fills `columns[j][lane]` with the mask of char `j` of each item (items of at most
+    /// `LANE_BYTES` bytes), rows past an item's end with zeros or stale masks (never used:
+    /// those lanes are frozen); returns the char counts. Every row below the largest count
+    /// is initialised.
+    #[inline(always)]
+    fn fill<T: Copy + Default, const L: usize>(
+        q: &LevenshteinQuery,
+        items: &[&[u8]; L],
+        columns: &mut Columns<T, L>,
+        narrow: impl Fn(u64) -> T,
+    ) -> [usize; L] {
+        // An item has at most as many chars as bytes.
+        let rows = items
+            .iter()
+            .map(|x| x.len())
+            .max()
+            .unwrap_or(0)
+            .min(LANE_BYTES);
+        for c in columns[..rows].iter_mut() {
+            c.write([T::default(); L]);
+        }
+        // SAFETY: rows `..rows` were initialised just above; `MaybeUninit<X>` has the layout
+        // of `X`.
+        let init: &mut [[T; L]] =
+            unsafe { std::slice::from_raw_parts_mut(columns.as_mut_ptr().cast(), rows) };
+        let ascii = q.ascii_one_word();
+        let mut n = [0usize; L];
+        for lane in 0..L {
+            let item = &items[lane][..items[lane].len().min(rows)];
+            // The common case: one look-up and one store per byte, assuming ASCII ...
+            let mut seen = 0u8;
+            for (row, &b) in init.iter_mut().zip(item) {
+                seen |= b;
+                row[lane] = narrow(ascii[usize::from(b & 0x7f)]);
+            }
+            n[lane] = item.len();
+            // ... and decoding again when it was not.
+            if seen >= 0x80 {
+                n[lane] = q.each_mask(item, |j, eq| {
+                    if let Some(row) = init.get_mut(j) {
+                        row[lane] = narrow(eq);
+                    }
+                });
+            }
+        }
+        n
+    }
+
+    /// Runs `items` through `columns_of` in batches of `L`, filling the table of each batch
+    /// while the previous one runs; writes the distances to `out` (same length as `items`).
+    #[inline(always)]
+    fn run<T: Copy + Default, const L: usize>(
+        q: &LevenshteinQuery,
+        items: &[&[u8]],
+        out: &mut [u32],
+        narrow: impl Fn(u64) -> T + Copy,
+        columns_of: impl Fn(&Columns<T, L>, &[usize; L]) -> [usize; L],
+    ) {
+        let mut tables = [[MaybeUninit::<[T; L]>::uninit(); LANE_BYTES]; 2];
+        let [ref mut a, ref mut b] = tables;
+        let (mut next, mut ready) = (a, b);
+        // The batch whose table is `ready`: its first position and char counts.
+        let mut pending: Option<(usize, [usize; L])> = None;
+        let finish = |at: usize, got: [usize; L], out: &mut [u32]| {
+            for (d, got) in out[at..].iter_mut().zip(got) {
+                *d = saturate(got);
+            }
+        };
+        for (c, chunk) in items.chunks(L).enumerate() {
+            let mut batch: [&[u8]; L] = [&[]; L];
+            for (slot, &item) in batch.iter_mut().zip(chunk) {
+                // Longer items go to the one-item kernel below; the lane stays empty.
+                if item.len() <= LANE_BYTES {
+                    *slot = item;
+                }
+            }
+            let n = fill(q, &batch, next, narrow);
+            if let Some((at, n_ready)) = pending.take() {
+                finish(at, columns_of(ready, &n_ready), out);
+            }
+            pending = Some((c * L, n));
+            std::mem::swap(&mut next, &mut ready);
+        }
+        if let Some((at, n_ready)) = pending {
+            finish(at, columns_of(ready, &n_ready), out);
+        }
+        for (d, item) in out.iter_mut().zip(items) {
+            if item.len() > LANE_BYTES {
+                *d = q.dist(item);
+            }
+        }
+    }
+
+    /// Distances of `items` to a query of 1 ..= 64 chars, four items at a time in 64-bit
+    /// lanes; `out` has the length of `items`.
+    #[target_feature(enable = "avx2,popcnt,bmi1")]
+    pub(super) fn run_x4(q: &LevenshteinQuery, items: &[&[u8]], out: &mut [u32]) {
+        run::<u64, 4>(q, items, out, |eq| eq, |c, n| columns_x4(q, c, n));
+    }
+
+    /// Distances of `items` to a query of 1 ..= 32 chars, eight items at a time in 32-bit
+    /// lanes; `out` has the length of `items`.
+    ///
+    /// Rows at and above 32 never reach the rows of the query (carries and shifts only move
+    /// bits upwards), so 32-bit lanes compute exactly what 64-bit ones do.
+    #[target_feature(enable = "avx2,popcnt,bmi1")]
+    pub(super) fn run_x8(q: &LevenshteinQuery, items: &[&[u8]], out: &mut [u32]) {
+        // The query fits in the low 32 bits of its masks.
+        run::<u32, 8>(q, items, out, |eq| eq as u32, |c, n| columns_x8(q, c, n));
+    }
+
+    /// The column loop of four items; `n` are their char counts from [`fill`].
+    #[target_feature(enable = "avx2,popcnt,bmi1")]
+    fn columns_x4(q: &LevenshteinQuery, columns: &Columns<u64, 4>, n: &[usize; 4]) -> [usize; 4] {
+        let longest = n.iter().copied().max().unwrap_or(0);
+        let ends = _mm256_setr_epi64x(n[0] as i64, n[1] as i64, n[2] as i64, n[3] as i64);
+        let one = _mm256_set1_epi64x(1);
+        let mut column = _mm256_setzero_si256();
+        let mut pv = _mm256_set1_epi64x(-1);
+        let mut mv = _mm256_setzero_si256();
+        for row in &columns[..longest] {
+            // SAFETY: `fill` initialised every row below the largest char count; unaligned
+            // load of 32 bytes from a `[u64; 4]`.
+            let eq = unsafe { _mm256_loadu_si256(row.as_ptr().cast()) };
+            let running = _mm256_cmpgt_epi64(ends, column);
+            column = _mm256_add_epi64(column, one);
+            // The scalar `step`, lane-wise (`andnot(a, b)` is `!a & b`).
+            let d0 = _mm256_or_si256(
+                _mm256_or_si256(
+                    _mm256_xor_si256(_mm256_add_epi64(_mm256_and_si256(eq, pv), pv), pv),
+                    eq,
+                ),
+                mv,
+            );
+            let hn = _mm256_and_si256(pv, d0);
+            let not_hp = _mm256_andnot_si256(mv, _mm256_or_si256(d0, pv));
+            let not_x = _mm256_slli_epi64::<1>(not_hp);
+            let new_pv =
+                _mm256_or_si256(_mm256_slli_epi64::<1>(hn), _mm256_andnot_si256(d0, not_x));
+            let new_mv = _mm256_andnot_si256(not_x, d0);
+            pv = _mm256_blendv_epi8(pv, new_pv, running);
+            mv = _mm256_blendv_epi8(mv, new_mv, running);
+        }
+        let (mut p, mut m) = ([0u64; 4], [0u64; 4]);
+        // SAFETY: unaligned 32-byte stores into `[u64; 4]`.
+        unsafe {
+            _mm256_storeu_si256(p.as_mut_ptr().cast(), pv);
+            _mm256_storeu_si256(m.as_mut_ptr().cast(), mv);
+        }
+        let rows = q.rows_one_word();
+        std::array::from_fn(|l| {
+            n[l] + (p[l] & rows).count_ones() as usize - (m[l] & rows).count_ones() as usize
+        })
+    }
+
+    /// The column loop of eight items; `n` are their char counts from [`fill`].
+    #[target_feature(enable = "avx2,popcnt,bmi1")]
+    fn columns_x8(q: &LevenshteinQuery, columns: &Columns<u32, 8>, n: &[usize; 8]) -> [usize; 8] {
+        let longest = n.iter().copied().max().unwrap_or(0);
+        let lane = |l: usize| n[l] as i32;
+        let ends = _mm256_setr_epi32(
+            lane(0),
+            lane(1),
+            lane(2),
+            lane(3),
+            lane(4),
+            lane(5),
+            lane(6),
+            lane(7),
+        );
+        let one = _mm256_set1_epi32(1);
+        let mut column = _mm256_setzero_si256();
+        let mut pv = _mm256_set1_epi32(-1);
+        let mut mv = _mm256_setzero_si256();
+        for row in &columns[..longest] {
+            // SAFETY: `fill` initialised every row below the largest char count; unaligned
+            // load of 32 bytes from a `[u32; 8]`.
+            let eq = unsafe { _mm256_loadu_si256(row.as_ptr().cast()) };
+            let running = _mm256_cmpgt_epi32(ends, column);
+            column = _mm256_add_epi32(column, one);
+            let d0 = _mm256_or_si256(
+                _mm256_or_si256(
+                    _mm256_xor_si256(_mm256_add_epi32(_mm256_and_si256(eq, pv), pv), pv),
+                    eq,
+                ),
+                mv,
+            );
+            let hn = _mm256_and_si256(pv, d0);
+            let not_hp = _mm256_andnot_si256(mv, _mm256_or_si256(d0, pv));
+            let not_x = _mm256_slli_epi32::<1>(not_hp);
+            let new_pv =
+                _mm256_or_si256(_mm256_slli_epi32::<1>(hn), _mm256_andnot_si256(d0, not_x));
+            let new_mv = _mm256_andnot_si256(not_x, d0);
+            pv = _mm256_blendv_epi8(pv, new_pv, running);
+            mv = _mm256_blendv_epi8(mv, new_mv, running);
+        }
+        let (mut p, mut m) = ([0u32; 8], [0u32; 8]);
+        // SAFETY: unaligned 32-byte stores into `[u32; 8]`.
+        unsafe {
+            _mm256_storeu_si256(p.as_mut_ptr().cast(), pv);
+            _mm256_storeu_si256(m.as_mut_ptr().cast(), mv);
+        }
+        let rows = q.rows_one_word() as u32;
+        std::array::from_fn(|l| {
+            n[l] + (p[l] & rows).count_ones() as usize - (m[l] & rows).count_ones() as usize
+        })
+    }
+}
+
 /// State of the single-block kernel: the vertical deltas of the current column and the
 /// number of columns (item chars) read so far.
 struct Column {
@@ -915,6 +1258,7 @@ mod tests {
         #[cfg(target_arch = "x86_64")]
         {
             p.x86_fast = false;
+            p.x86_lanes = false;
         }
         p
     }
@@ -940,6 +1284,17 @@ mod tests {
                     q.dist_within(b.as_bytes(), k),
                     (want_b <= k).then_some(want_b)
                 );
+                // Batches of nine: the eight-lane (or four-lane) kernel and a remainder, or
+                // the portable four-item kernel and a remainder.
+                let items: Vec<&[u8]> = (0..9)
+                    .map(|i| if i % 3 == 1 { c.as_bytes() } else { b.as_bytes() })
+                    .collect();
+                let mut out = [0u32; 9];
+                q.dist_batch(&items, &mut out);
+                let want: Vec<u32> = (0..9)
+                    .map(|i| if i % 3 == 1 { want_c } else { want_b })
+                    .collect();
+                proptest::prop_assert_eq!(&out[..], &want[..]);
             }
         }
     }

@@ -1,0 +1,132 @@
+//! The brute forces: the full scan, the best scan (length filter and batched kernel) and a
+//! naive scan written here (strsim's dynamic program against every item, then a sort) give
+//! the same answers: the same items, distances and order.
+
+use waymark::eval::{best_scan, full_scan, scan_many, typo_queries, Scan};
+use waymark::index::{build_index, BuildOptions, IdRef, Index};
+use waymark::ingest::{Corpus, Ids};
+use waymark::search::Neighbor;
+
+fn build(items: &[String], dir: &tempfile::TempDir) -> Index {
+    let corpus = Corpus {
+        items: items.to_vec(),
+        keys: None,
+        ids: Ids::Int((0..items.len() as i64).collect()),
+        blank_skipped: 0,
+        records: items.len(),
+    };
+    let path = dir.path().join("scan.wmk");
+    let opts = BuildOptions {
+        dim: 4,
+        ..BuildOptions::default()
+    };
+    build_index(&corpus, "test", &opts, &path, &|_| {}).expect("build");
+    Index::open(&path).expect("open")
+}
+
+/// Naive k-NN: strsim (general-purpose crate, plain dynamic program) against every item,
+/// sorted by (distance, id, item index) as the answers are defined.
+fn naive(index: &Index, items: &[String], query: &str, k: usize) -> Vec<Neighbor> {
+    let mut all: Vec<(usize, i64, usize)> = items
+        .iter()
+        .enumerate()
+        .map(|(i, x)| {
+            let id = match index.id(i) {
+                IdRef::Int(v) => v,
+                IdRef::Text(_) => unreachable!("integer ids"),
+            };
+            (strsim::levenshtein(query, x), id, i)
+        })
+        .collect();
+    all.sort();
+    all.into_iter()
+        .take(k)
+        .map(|(d, _, i)| Neighbor {
+            index: i as u32,
+            distance: d as f64,
+        })
+        .collect()
+}
+
+fn check(items: &[String], queries: &[String]) {
+    let dir = tempfile::tempdir().unwrap();
+    let index = build(items, &dir);
+    for k in [1, 5, 10] {
+        let full_many = scan_many(&index, queries, k, Scan::Full);
+        let best_many = scan_many(&index, queries, k, Scan::Best);
+        for (j, q) in queries.iter().enumerate() {
+            let want = naive(&index, items, q, k);
+            assert_eq!(
+                full_scan(&index, q, k),
+                want,
+                "full scan, query {q:?}, k = {k}"
+            );
+            assert_eq!(
+                best_scan(&index, q, k),
+                want,
+                "best scan, query {q:?}, k = {k}"
+            );
+            assert_eq!(full_many[j], want, "scan_many full, query {q:?}");
+            assert_eq!(best_many[j], want, "scan_many best, query {q:?}");
+        }
+    }
+}
+
+#[test]
+fn scans_agree_on_a_word_list_sample() {
+    // Debian's wamerican list (package wamerican, 104,334 words): every 40th word, with
+    // typo queries drawn from the sample. Skipped without the list.
+    let Ok(text) = std::fs::read_to_string("/usr/share/dict/american-english") else {
+        eprintln!("word list missing: apt-get install wamerican");
+        return;
+    };
+    let items: Vec<String> = text.lines().step_by(40).map(str::to_string).collect();
+    let mut queries = typo_queries(&items, 30, 5);
+    queries.extend(["".to_string(), "q".to_string(), "x".repeat(70)]);
+    check(&items, &queries);
+}
+
+#[test]
+fn scans_agree_with_non_ascii_and_long_items() {
+    // Invented Vessmark register entries with multi-byte chars: byte lengths differ from
+    // char lengths, so the length filter must not use bytes as chars.
+    let base = [
+        "Skärvik",
+        "Skarvik",
+        "Östra Holm",
+        "Ostra Holm",
+        "Fyrö",
+        "Fyr",
+        "Bøje 7",
+        "Boje 7",
+        "Ferjeleie",
+        "Färjeläge",
+        "ÅÅÅÅ",
+        "AAAA",
+        "中島",
+        "Sund",
+        "Sundö",
+        "",
+        "ö",
+    ];
+    let mut items: Vec<String> = base.iter().map(|s| s.to_string()).collect();
+    items.push("ö".repeat(40));
+    items.push("o".repeat(40));
+    items.push("Vessmark ferry route ".repeat(5));
+    let queries: Vec<String> = [
+        "Skärvk",
+        "Ostra Hölm",
+        "Fyrö",
+        "ÅÅÅ",
+        "ö",
+        "",
+        "Sundo",
+        &"ö".repeat(38),
+        "Vessmark ferry",
+        "中",
+    ]
+    .iter()
+    .map(|s| s.to_string())
+    .collect();
+    check(&items, &queries);
+}
