@@ -388,3 +388,27 @@ fn batch_on_the_word_list_matches_strsim() {
         }
     }
 }
+
+proptest::proptest! {
+    #![proptest_config(proptest::prelude::ProptestConfig::with_cases(200))]
+    /// Long queries sharing long prefixes and suffixes with the item (the kernel cuts the
+    /// shared ends first) agree with the reference crate strsim's levenshtein.
+    #[test]
+    fn shared_ends_of_long_strings_do_not_change_the_distance(
+        pre in "[ab]{0,150}",
+        mid_q in "[abé]{0,20}",
+        mid_i in "[abé]{0,20}",
+        suf in "[abç]{0,150}",
+        bound in 0u32..30,
+    ) {
+        let q = format!("{pre}{mid_q}{suf}");
+        let i = format!("{pre}{mid_i}{suf}");
+        let want = strsim::levenshtein(&q, &i) as u32;
+        let lq = LevenshteinQuery::new(q.as_bytes());
+        proptest::prop_assert_eq!(lq.dist(i.as_bytes()), want);
+        proptest::prop_assert_eq!(
+            lq.dist_within(i.as_bytes(), bound),
+            (want <= bound).then_some(want)
+        );
+    }
+}

@@ -119,6 +119,9 @@ pub struct LevenshteinQuery {
     /// Masks of `other_chars`, `(other_chars.len() + 1) × words`, laid out `[char][block]`.
     /// The extra last row is all zero: the mask of chars absent from the query.
     other_masks: Box<[u64]>,
+    /// The query's bytes, kept for queries of more than one block only: against a long item
+    /// that shares a long prefix or suffix with it, the shared ends are cut off first.
+    text: Option<Box<[u8]>>,
     /// Whether this CPU has `popcnt` and `bmi1`, checked once when the query is prepared.
     #[cfg(target_arch = "x86_64")]
     x86_fast: bool,
@@ -161,6 +164,7 @@ impl LevenshteinQuery {
             ascii: ascii.into_boxed_slice(),
             other_chars: other_chars.into_boxed_slice(),
             other_masks: other_masks.into_boxed_slice(),
+            text: (words > 1).then(|| query.into()),
             #[cfg(target_arch = "x86_64")]
             x86_fast: std::arch::is_x86_feature_detected!("popcnt")
                 && std::arch::is_x86_feature_detected!("bmi1"),
@@ -192,6 +196,9 @@ impl LevenshteinQuery {
             0 => char_len(item),
             1 => self.dist_one_word(item),
             _ => {
+                if let Some((q, mid)) = self.trim_common(item) {
+                    return q.dist(mid);
+                }
                 let d = self.dist_blocks(item, usize::MAX);
                 debug_assert!(d.is_some(), "an unbounded scan always finishes");
                 d.unwrap_or(usize::MAX)
@@ -375,11 +382,48 @@ impl LevenshteinQuery {
         if bytes > m.saturating_add(k) && (item.is_ascii() || char_len(item) > m + k) {
             return None;
         }
+        if let Some((q, mid)) = self.trim_common(item) {
+            return q.dist_within(mid, k as u32);
+        }
         let d = match self.words {
             0 => Some(char_len(item)).filter(|&d| d <= k),
             _ => self.dist_blocks(item, k),
         };
         d.map(saturate)
+    }
+
+    /// For a multi-block query and an item sharing at least 64 bytes of prefix and suffix
+    /// with it: the query's middle, prepared, and the item's middle. Cutting shared ends
+    /// leaves the edit distance unchanged (an optimal alignment matches them; common
+    /// practice), and turns the O(m·n/64) kernel into one over the differing middles, which
+    /// is what makes near-equal long items (reads, 1 MB lines) cheap. Only for valid UTF-8,
+    /// cut at char boundaries of both strings.
+    fn trim_common<'i>(&self, item: &'i [u8]) -> Option<(LevenshteinQuery, &'i [u8])> {
+        const WORTH: usize = 64;
+        let text = self.text.as_deref()?;
+        let mut pre = text.iter().zip(item).take_while(|(a, b)| a == b).count();
+        let (qs, is) = (
+            std::str::from_utf8(text).ok()?,
+            std::str::from_utf8(item).ok()?,
+        );
+        while !(qs.is_char_boundary(pre) && is.is_char_boundary(pre)) {
+            pre -= 1;
+        }
+        let (qr, ir) = (&text[pre..], &item[pre..]);
+        let mut suf = qr
+            .iter()
+            .rev()
+            .zip(ir.iter().rev())
+            .take_while(|(a, b)| a == b)
+            .count();
+        while !(qs.is_char_boundary(text.len() - suf) && is.is_char_boundary(item.len() - suf)) {
+            suf -= 1;
+        }
+        if pre + suf < WORTH {
+            return None;
+        }
+        let q = LevenshteinQuery::new(&qr[..qr.len() - suf]);
+        Some((q, &ir[..ir.len() - suf]))
     }
 
     /// Unbounded single-block distance, on the fastest kernel this CPU runs.
