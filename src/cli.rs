@@ -72,10 +72,17 @@ struct BuildArgs {
     /// Where to write the index (replaced atomically).
     #[arg(short = 'o', long = "output", value_name = "INDEX")]
     output: PathBuf,
-    /// Embedding dimension: the number of landmarks (1 to 64).
+    /// Embedding dimension: the number of coordinates (1 to 64).
     #[arg(long = "dim", value_name = "D", default_value_t = crate::search::DEFAULT_DIM)]
     dim: usize,
-    /// Seed of the landmark choice; the same seed and input give the same index.
+    /// How items become coordinates: distances to landmarks, to random reference sets, or
+    /// FastMap projections (not contractive: no pruning).
+    #[arg(long, value_enum, default_value = "landmarks")]
+    embedding: MethodArg,
+    /// Size of the reference-set pool: a query costs one distance per pool item (refsets).
+    #[arg(long, value_name = "P", default_value_t = crate::embed::DEFAULT_POOL)]
+    pool: usize,
+    /// Seed of the embedding's random choices; the same seed and input give the same index.
     #[arg(long, value_name = "S", default_value_t = 0)]
     seed: u64,
     /// Input format; by default from the file extension (.csv, .tsv, .jsonl, else text).
@@ -99,12 +106,32 @@ struct BuildArgs {
     /// Default space candidates are ranked in, stored in the index.
     #[arg(long, value_enum, default_value = "l1")]
     space: SpaceArg,
-    /// Number of items landmarks are chosen from.
+    /// Number of items landmarks and FastMap pivots are chosen from.
     #[arg(long = "landmark-sample", value_name = "N", default_value_t = 4096)]
     landmark_sample: usize,
     /// Print nothing on success.
     #[arg(short, long)]
     quiet: bool,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+enum MethodArg {
+    /// Distances to farthest-first landmark items.
+    Landmarks,
+    /// Distances to random sets of sizes 1, 2, 4, … drawn from a pool (Bourgain).
+    Refsets,
+    /// FastMap projections onto pivot lines.
+    Fastmap,
+}
+
+impl From<MethodArg> for crate::embed::Method {
+    fn from(m: MethodArg) -> Self {
+        match m {
+            MethodArg::Landmarks => crate::embed::Method::Landmarks,
+            MethodArg::Refsets => crate::embed::Method::RefSets,
+            MethodArg::Fastmap => crate::embed::Method::FastMap,
+        }
+    }
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -270,9 +297,11 @@ fn build(a: BuildArgs) -> anyhow::Result<()> {
         &source,
         &BuildOptions {
             metric: crate::metric::MetricKind::Levenshtein,
+            method: a.embedding.into(),
             dim: a.dim,
             seed: a.seed,
             sample: a.landmark_sample,
+            pool: a.pool,
             candidates: a.candidates,
             space: a.space.into(),
             normalize,
@@ -286,12 +315,13 @@ fn build(a: BuildArgs) -> anyhow::Result<()> {
         let mut out = std::io::stdout().lock();
         writeln!(
             out,
-            "indexed {} items from {} into {} ({}, {} landmarks, {:.1} MB) in {:.2} s",
+            "indexed {} items from {} into {} ({}, {} coordinates by {}, {:.1} MB) in {:.2} s",
             m.n,
             source,
             a.output.display(),
             m.metric,
             m.dim,
+            m.embedding.name(),
             report.file_len as f64 / 1e6,
             t0.elapsed().as_secs_f64()
         )?;
@@ -301,7 +331,7 @@ fn build(a: BuildArgs) -> anyhow::Result<()> {
         if (m.dim as usize) < a.dim {
             writeln!(
                 out,
-                "note: only {} distinct landmarks could be chosen (asked for {})",
+                "note: only {} coordinates could be made (asked for {})",
                 m.dim, a.dim
             )?;
         }
@@ -569,12 +599,25 @@ fn inspect(a: InspectArgs) -> anyhow::Result<()> {
         "normalise     fold-case {}, trim {}",
         m.normalize.fold_case, m.normalize.trim
     )?;
+    let how = match &m.embedding {
+        crate::embed::Embedding::Landmarks { .. } => {
+            format!("farthest-first from a sample of {}", m.sample)
+        }
+        crate::embed::Embedding::RefSets { pool, .. } => {
+            format!("distances to sets drawn from a pool of {}", pool.len())
+        }
+        crate::embed::Embedding::FastMap { .. } => {
+            format!("pivots from a sample of {}; not contractive", m.sample)
+        }
+    };
     writeln!(
         out,
-        "embedding     {} landmarks, farthest-first from a sample of {} (seed {})",
-        m.dim, m.sample, m.seed
+        "embedding     {}, {} coordinates, {how} (seed {})",
+        m.embedding.name(),
+        m.dim,
+        m.seed
     )?;
-    writeln!(out, "landmarks     {}", landmarks.join(" | "))?;
+    writeln!(out, "references    {}", landmarks.join(" | "))?;
     writeln!(
         out,
         "coordinates   u8, {} bytes per item; kd-tree of dimension {} (f32)",
