@@ -52,7 +52,7 @@ pub const MAX_DIM: usize = 64;
 pub const MAX_REFS: usize = 4096;
 
 /// Default size of the reference-set pool, chosen from `benches/sweep.rs` (see the README).
-pub const DEFAULT_POOL: usize = 64;
+pub const DEFAULT_POOL: usize = 32;
 
 /// How landmarks are chosen.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
