@@ -106,10 +106,9 @@ fn every_point_a_landmark_is_an_isometry_into_linf() {
 fn no_method_embeds_the_four_cycle_into_l2_below_sqrt_2() {
     // Enflo (1969): the 4-cycle needs distortion at least √2 in L2.
     let n = 4;
-    let d: Vec<f64> = (0..16)
+    let d: Vec<f64> = (0..16usize)
         .map(|k| {
-            let (i, j) = (k / 4, k % 4);
-            let c = (i as i32 - j as i32).unsigned_abs() as usize;
+            let c = (k / 4).abs_diff(k % 4);
             c.min(4 - c) as f64
         })
         .collect();
