@@ -948,7 +948,7 @@ fn eval(a: EvalArgs) -> anyhow::Result<()> {
                 let q = |x: f64| s.quantiles.iter().find(|p| p.0 == x).map_or(0.0, |p| p.1);
                 writeln!(
                     out,
-                    "{:>5} {:>8.3} {:>8.3} {:>8.3} {:>8.3} {:>8.3} {:>8.3} {:>8} {:>10.3} {:>10.3} {:>9.1}% {:>9.1}%",
+                    "{:>5} {:>8.3} {:>8.3} {:>8.3} {:>8.3} {:>8.3} {:>8.3} {:>10.3} {:>10.3} {:>9.1}% {:>9.1}%",
                     s.space.name(),
                     s.min,
                     q(0.01),
@@ -956,7 +956,6 @@ fn eval(a: EvalArgs) -> anyhow::Result<()> {
                     q(0.99),
                     s.max,
                     s.mean,
-                    "",
                     s.distortion,
                     s.distortion_98,
                     100.0 * s.contracted,
