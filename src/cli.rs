@@ -34,6 +34,10 @@ enum Command {
     Query(QueryArgs),
     /// Show what an index holds; --verify checks every checksum.
     Inspect(InspectArgs),
+    /// Measure an index: recall against brute force, cost and speed; distortion of its embedding.
+    Eval(EvalArgs),
+    /// Build and measure indexes over embedding methods, dimensions and spaces; write CSV, JSON and SVG charts.
+    Sweep(SweepArgs),
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -72,10 +76,17 @@ struct BuildArgs {
     /// Where to write the index (replaced atomically).
     #[arg(short = 'o', long = "output", value_name = "INDEX")]
     output: PathBuf,
-    /// Embedding dimension: the number of landmarks (1 to 64).
+    /// Embedding dimension: the number of coordinates (1 to 64).
     #[arg(long = "dim", value_name = "D", default_value_t = crate::search::DEFAULT_DIM)]
     dim: usize,
-    /// Seed of the landmark choice; the same seed and input give the same index.
+    /// How items become coordinates: distances to landmarks, to random reference sets, or
+    /// FastMap projections (not contractive: no pruning).
+    #[arg(long, value_enum, default_value = "landmarks")]
+    embedding: MethodArg,
+    /// Size of the reference-set pool: a query costs one distance per pool item (refsets).
+    #[arg(long, value_name = "P", default_value_t = crate::embed::DEFAULT_POOL)]
+    pool: usize,
+    /// Seed of the embedding's random choices; the same seed and input give the same index.
     #[arg(long, value_name = "S", default_value_t = 0)]
     seed: u64,
     /// Input format; by default from the file extension (.csv, .tsv, .jsonl, else text).
@@ -99,12 +110,32 @@ struct BuildArgs {
     /// Default space candidates are ranked in, stored in the index.
     #[arg(long, value_enum, default_value = "l1")]
     space: SpaceArg,
-    /// Number of items landmarks are chosen from.
+    /// Number of items landmarks and FastMap pivots are chosen from.
     #[arg(long = "landmark-sample", value_name = "N", default_value_t = 4096)]
     landmark_sample: usize,
     /// Print nothing on success.
     #[arg(short, long)]
     quiet: bool,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+enum MethodArg {
+    /// Distances to farthest-first landmark items.
+    Landmarks,
+    /// Distances to random sets of sizes 1, 2, 4, … drawn from a pool (Bourgain).
+    Refsets,
+    /// FastMap projections onto pivot lines.
+    Fastmap,
+}
+
+impl From<MethodArg> for crate::embed::Method {
+    fn from(m: MethodArg) -> Self {
+        match m {
+            MethodArg::Landmarks => crate::embed::Method::Landmarks,
+            MethodArg::Refsets => crate::embed::Method::RefSets,
+            MethodArg::Fastmap => crate::embed::Method::FastMap,
+        }
+    }
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -172,6 +203,117 @@ struct InspectArgs {
     json: bool,
 }
 
+#[derive(Debug, clap::Args)]
+struct EvalArgs {
+    /// The index file.
+    index: PathBuf,
+    /// Queries, one per line: measure recall@k against brute force (answers cached beside it).
+    #[arg(long, value_name = "FILE")]
+    queries: Option<PathBuf>,
+    /// Number of neighbours per query.
+    #[arg(short = 'k', value_name = "K", default_value_t = 10)]
+    k: usize,
+    /// Candidate counts to measure, comma-separated.
+    #[arg(
+        long,
+        value_name = "C,...",
+        value_delimiter = ',',
+        default_value = "250,500,1000,2000"
+    )]
+    candidates: Vec<usize>,
+    /// Space candidates are ranked in (default: stored in the index).
+    #[arg(long, value_enum)]
+    space: Option<SpaceArg>,
+    /// Report the distortion of the embedding on a sample of item pairs.
+    #[arg(long)]
+    distortion: bool,
+    /// Pairs measured for --distortion (all pairs when the index has no more).
+    #[arg(long, value_name = "N", default_value_t = 100_000)]
+    pairs: usize,
+    /// Recompute the exact answers even if a valid cache exists (and replace it).
+    #[arg(long = "no-cache")]
+    no_cache: bool,
+    /// Print one JSON object instead of tables.
+    #[arg(long)]
+    json: bool,
+}
+
+#[derive(Debug, clap::Args)]
+struct SweepArgs {
+    /// Input file, as for `build`.
+    input: PathBuf,
+    /// Queries, one per line (exact answers cached beside it).
+    #[arg(long, value_name = "FILE")]
+    queries: PathBuf,
+    /// Folder for sweep.csv, sweep.json and the SVG charts (created if missing).
+    #[arg(long = "out", value_name = "DIR")]
+    out: PathBuf,
+    /// Number of neighbours per query.
+    #[arg(short = 'k', value_name = "K", default_value_t = 10)]
+    k: usize,
+    /// Dimensions, comma-separated (1 to 64).
+    #[arg(
+        long,
+        value_name = "D,...",
+        value_delimiter = ',',
+        default_value = "2,4,8,16,32"
+    )]
+    dims: Vec<usize>,
+    /// Embedding methods, comma-separated.
+    #[arg(
+        long,
+        value_enum,
+        value_name = "METHOD,...",
+        value_delimiter = ',',
+        default_value = "landmarks,refsets,fastmap"
+    )]
+    embeddings: Vec<MethodArg>,
+    /// Spaces candidates are ranked in, comma-separated.
+    #[arg(
+        long,
+        value_enum,
+        value_name = "SPACE,...",
+        value_delimiter = ',',
+        default_value = "l1,l2,linf"
+    )]
+    spaces: Vec<SpaceArg>,
+    /// Candidate counts, comma-separated.
+    #[arg(
+        long,
+        value_name = "C,...",
+        value_delimiter = ',',
+        default_value = "1000"
+    )]
+    candidates: Vec<usize>,
+    /// Seed of the embeddings.
+    #[arg(long, value_name = "S", default_value_t = 0)]
+    seed: u64,
+    /// Size of the reference-set pool.
+    #[arg(long, value_name = "P", default_value_t = crate::embed::DEFAULT_POOL)]
+    pool: usize,
+    /// Number of items landmarks and FastMap pivots are chosen from.
+    #[arg(long = "landmark-sample", value_name = "N", default_value_t = 4096)]
+    landmark_sample: usize,
+    /// Input format; by default from the file extension.
+    #[arg(long = "input-format", value_enum, value_name = "FORMAT")]
+    input_format: Option<FormatArg>,
+    /// The column or JSON field holding the items.
+    #[arg(long, value_name = "NAME")]
+    field: Option<String>,
+    /// The column or JSON field holding the ids.
+    #[arg(long = "id-field", value_name = "NAME")]
+    id_field: Option<String>,
+    /// Compare ignoring case.
+    #[arg(long = "fold-case")]
+    fold_case: bool,
+    /// Compare without leading and trailing white space.
+    #[arg(long)]
+    trim: bool,
+    /// Print nothing but errors.
+    #[arg(short, long)]
+    quiet: bool,
+}
+
 /// Runs the command line and returns the process exit code.
 pub fn main() -> ExitCode {
     let args = match Args::try_parse() {
@@ -231,6 +373,8 @@ fn run(args: Args) -> anyhow::Result<()> {
         Command::Build(a) => build(a),
         Command::Query(a) => query(a),
         Command::Inspect(a) => inspect(a),
+        Command::Eval(a) => eval(a),
+        Command::Sweep(a) => sweep(a),
     }
 }
 
@@ -287,9 +431,11 @@ fn build(a: BuildArgs) -> anyhow::Result<()> {
         &source,
         &BuildOptions {
             metric: crate::metric::MetricKind::Levenshtein,
+            method: a.embedding.into(),
             dim: a.dim,
             seed: a.seed,
             sample: a.landmark_sample,
+            pool: a.pool,
             candidates: a.candidates,
             space: a.space.into(),
             normalize,
@@ -303,12 +449,13 @@ fn build(a: BuildArgs) -> anyhow::Result<()> {
         let mut out = std::io::stdout().lock();
         writeln!(
             out,
-            "indexed {} items from {} into {} ({}, {} landmarks, {:.1} MB) in {:.2} s",
+            "indexed {} items from {} into {} ({}, {} coordinates by {}, {:.1} MB) in {:.2} s",
             m.n,
             source,
             a.output.display(),
             m.metric,
             m.dim,
+            m.embedding.name(),
             report.file_len as f64 / 1e6,
             t0.elapsed().as_secs_f64()
         )?;
@@ -318,7 +465,7 @@ fn build(a: BuildArgs) -> anyhow::Result<()> {
         if (m.dim as usize) < a.dim {
             writeln!(
                 out,
-                "note: only {} distinct landmarks could be chosen (asked for {})",
+                "note: only {} coordinates could be made (asked for {})",
                 m.dim, a.dim
             )?;
         }
@@ -597,12 +744,25 @@ fn inspect(a: InspectArgs) -> anyhow::Result<()> {
         "normalise     fold-case {}, trim {}",
         m.normalize.fold_case, m.normalize.trim
     )?;
+    let how = match &m.embedding {
+        crate::embed::Embedding::Landmarks { .. } => {
+            format!("farthest-first from a sample of {}", m.sample)
+        }
+        crate::embed::Embedding::RefSets { pool, .. } => {
+            format!("distances to sets drawn from a pool of {}", pool.len())
+        }
+        crate::embed::Embedding::FastMap { .. } => {
+            format!("pivots from a sample of {}; not contractive", m.sample)
+        }
+    };
     writeln!(
         out,
-        "embedding     {} landmarks, farthest-first from a sample of {} (seed {})",
-        m.dim, m.sample, m.seed
+        "embedding     {}, {} coordinates, {how} (seed {})",
+        m.embedding.name(),
+        m.dim,
+        m.seed
     )?;
-    writeln!(out, "landmarks     {}", landmarks.join(" | "))?;
+    writeln!(out, "references    {}", landmarks.join(" | "))?;
     writeln!(
         out,
         "coordinates   u8, {} bytes per item; kd-tree of dimension {} (f32)",
@@ -621,6 +781,359 @@ fn inspect(a: InspectArgs) -> anyhow::Result<()> {
     match verified {
         Some(s) => writeln!(out, "verified      every checksum matches ({s:.3} s)")?,
         None => writeln!(out, "verified      not checked (use --verify)")?,
+    }
+    Ok(())
+}
+
+/// Every line of a queries file (UTF-8 checked, the line named on error).
+fn read_query_file(path: &Path) -> anyhow::Result<Vec<String>> {
+    let file = std::fs::File::open(path).map_err(|source| Error::Io {
+        path: path.to_path_buf(),
+        source,
+    })?;
+    let mut lines = QueryLines {
+        reader: Box::new(std::io::BufReader::new(file)),
+        line: 0,
+        name: path.display().to_string(),
+    };
+    let mut all = Vec::new();
+    loop {
+        let block = lines.next_block(4096)?;
+        if block.is_empty() {
+            break;
+        }
+        all.extend(block);
+    }
+    if all.is_empty() {
+        return Err(Error::Usage(format!("{}: no queries in the file", path.display())).into());
+    }
+    Ok(all)
+}
+
+fn counting_bar(len: u64, what: &str, show: bool) -> indicatif::ProgressBar {
+    if !show || !std::io::stderr().is_terminal() {
+        return indicatif::ProgressBar::hidden();
+    }
+    let b = indicatif::ProgressBar::new(len);
+    b.set_style(
+        indicatif::ProgressStyle::with_template(&format!(
+            "{what} {{bar:40}} {{pos}}/{{len}} ({{eta}} left)"
+        ))
+        .expect("valid template"),
+    );
+    b
+}
+
+fn eval(a: EvalArgs) -> anyhow::Result<()> {
+    use crate::eval::{load_or_compute_truth, measure_distortion, measure_recall, TruthSource};
+    if a.queries.is_none() && !a.distortion {
+        return Err(Error::Usage(
+            "nothing to measure: give --queries FILE (recall) and/or --distortion".into(),
+        )
+        .into());
+    }
+    if a.k == 0 {
+        return Err(Error::Usage("-k must be at least 1".into()).into());
+    }
+    if a.candidates.is_empty() || a.candidates.contains(&0) {
+        return Err(Error::Usage("--candidates needs values of at least 1".into()).into());
+    }
+    let index = open_index(&a.index)?;
+    let space: Space = a.space.map_or(index.meta().space, Into::into);
+    let mut json = serde_json::json!({
+        "index": a.index.display().to_string(),
+        "items": index.len(),
+        "embedding": index.meta().embedding.name(),
+        "dim": index.meta().dim,
+        "refs": index.meta().embedding.refs().len(),
+        "contractive": index.meta().embedding.contractive(),
+    });
+    let mut out = std::io::stdout().lock();
+    if let Some(qpath) = &a.queries {
+        let queries = read_query_file(qpath)?;
+        if a.no_cache {
+            let key = crate::eval::truth::index_key(&index);
+            let _ = std::fs::remove_file(crate::eval::truth::cache_path(qpath, &key, a.k));
+        }
+        let bar = counting_bar(queries.len() as u64, "exact answers", !a.json);
+        let (truth, source) =
+            load_or_compute_truth(&index, &queries, Some(qpath), a.k, &|n| bar.inc(n as u64));
+        bar.finish_and_clear();
+        let (truth_note, truth_json) = match &source {
+            TruthSource::Cached(p) => (
+                format!("exact answers read from {}", p.display()),
+                serde_json::json!({"cached": true, "path": p.display().to_string()}),
+            ),
+            TruthSource::Computed { seconds, note } => {
+                if let Some(n) = note {
+                    eprintln!("waymark: note: {n}");
+                }
+                let qps = queries.len() as f64 / seconds.max(1e-9);
+                (
+                    format!(
+                        "exact answers by full scan: {seconds:.2} s ({qps:.0} queries/s, {:.1} M pairs/s)",
+                        qps * index.len() as f64 / 1e6
+                    ),
+                    serde_json::json!({"cached": false, "seconds": seconds, "queries_per_second": qps}),
+                )
+            }
+        };
+        let mut rows = Vec::new();
+        for &c in &a.candidates {
+            rows.push(measure_recall(&index, &queries, &truth, a.k, c, space)?);
+        }
+        if a.json {
+            json["queries"] = queries.len().into();
+            json["k"] = a.k.into();
+            json["ground_truth"] = truth_json;
+            json["recall"] = serde_json::to_value(&rows)?;
+        } else {
+            writeln!(
+                out,
+                "{}: {} items, {} coordinates by {}; {} queries, k = {}, candidates ranked in {}",
+                a.index.display(),
+                index.len(),
+                index.meta().dim,
+                index.meta().embedding.name(),
+                queries.len(),
+                a.k,
+                space.name()
+            )?;
+            writeln!(out, "{truth_note}")?;
+            writeln!(
+                out,
+                "{:>10} {:>9} {:>9} {:>11} {:>8} {:>9} {:>8} {:>8} {:>8}",
+                "candidates",
+                "recall@k",
+                "plain@k",
+                "distances",
+                "% items",
+                "queries/s",
+                "p50 ms",
+                "p95 ms",
+                "p99 ms"
+            )?;
+            for r in &rows {
+                writeln!(
+                    out,
+                    "{:>10} {:>9.4} {:>9.4} {:>11.1} {:>7.2}% {:>9.0} {:>8.3} {:>8.3} {:>8.3}",
+                    r.candidates,
+                    r.recall,
+                    r.plain_recall,
+                    r.distances_per_query,
+                    100.0 * r.share_of_items,
+                    r.qps,
+                    r.p50_ms,
+                    r.p95_ms,
+                    r.p99_ms
+                )?;
+            }
+        }
+    }
+    if a.distortion {
+        let keys = index.keys();
+        let items: Vec<&[u8]> = (0..index.len()).map(|i| keys.get(i)).collect();
+        let r = measure_distortion(
+            &crate::metric::Levenshtein,
+            &items,
+            &index.meta().embedding,
+            a.pairs,
+            index.meta().seed,
+        );
+        if a.json {
+            json["distortion"] = serde_json::to_value(&r)?;
+        } else {
+            writeln!(
+                out,
+                "distortion of the {} coordinates ({}): ratio embedded / true distance over {} pairs{} ({} pairs at distance 0 skipped)",
+                r.method,
+                r.dim,
+                r.pairs,
+                if r.all_pairs {
+                    " (all pairs)".to_string()
+                } else {
+                    format!(" among {} random items", r.items)
+                },
+                r.zero_pairs
+            )?;
+            writeln!(
+                out,
+                "{:>5} {:>8} {:>8} {:>8} {:>8} {:>8} {:>8} {:>8} {:>10} {:>10} {:>10} {:>10}",
+                "space",
+                "min",
+                "p01",
+                "p50",
+                "p99",
+                "max",
+                "mean",
+                "",
+                "distortion",
+                "p99/p01",
+                "contracted",
+                "expanded"
+            )?;
+            for s in &r.spaces {
+                let q = |x: f64| s.quantiles.iter().find(|p| p.0 == x).map_or(0.0, |p| p.1);
+                writeln!(
+                    out,
+                    "{:>5} {:>8.3} {:>8.3} {:>8.3} {:>8.3} {:>8.3} {:>8.3} {:>10.3} {:>10.3} {:>9.1}% {:>9.1}%",
+                    s.space.name(),
+                    s.min,
+                    q(0.01),
+                    q(0.5),
+                    q(0.99),
+                    s.max,
+                    s.mean,
+                    s.distortion,
+                    s.distortion_98,
+                    100.0 * s.contracted,
+                    100.0 * s.expanded
+                )?;
+            }
+            for s in &r.spaces {
+                let top = s
+                    .histogram
+                    .iter()
+                    .map(|b| b.count)
+                    .max()
+                    .unwrap_or(1)
+                    .max(1);
+                writeln!(out, "histogram of the ratio in {}:", s.space.name())?;
+                for b in &s.histogram {
+                    writeln!(
+                        out,
+                        "  {:>8.3} – {:<8.3} {:>8} {}",
+                        b.lo,
+                        b.hi,
+                        b.count,
+                        "#".repeat((40 * b.count).div_ceil(top))
+                    )?;
+                }
+            }
+        }
+    }
+    if a.json {
+        serde_json::to_writer_pretty(&mut out, &json)?;
+        writeln!(out)?;
+    }
+    Ok(())
+}
+
+fn sweep(a: SweepArgs) -> anyhow::Result<()> {
+    use crate::eval::sweep::{run_sweep, write_outputs, Progress, SweepOptions};
+    let normalize = Normalize {
+        fold_case: a.fold_case,
+        trim: a.trim,
+    };
+    let opts = SweepOptions {
+        methods: a.embeddings.iter().map(|&m| m.into()).collect(),
+        dims: a.dims.clone(),
+        spaces: a.spaces.iter().map(|&s| s.into()).collect(),
+        candidates: a.candidates.clone(),
+        k: a.k,
+        seed: a.seed,
+        sample: a.landmark_sample,
+        pool: a.pool,
+        normalize,
+    };
+    if let Some(&d) = opts
+        .dims
+        .iter()
+        .find(|&&d| d == 0 || d > crate::embed::MAX_DIM)
+    {
+        return Err(Error::Usage(format!(
+            "--dims: every dimension must be between 1 and {}, not {d}",
+            crate::embed::MAX_DIM
+        ))
+        .into());
+    }
+    if a.pool == 0 {
+        return Err(Error::Usage("--pool must be at least 1".into()).into());
+    }
+    let format = a.input_format.map(|f| match f {
+        FormatArg::Text => InputFormat::Text,
+        FormatArg::Csv => InputFormat::Csv { delimiter: b',' },
+        FormatArg::Tsv => InputFormat::Csv { delimiter: b'\t' },
+        FormatArg::Jsonl => InputFormat::JsonLines,
+    });
+    let corpus = read_corpus(
+        &a.input,
+        &IngestOptions {
+            format,
+            field: a.field.clone(),
+            id_field: a.id_field.clone(),
+            normalize,
+        },
+    )
+    .map_err(Error::from)?;
+    let queries = read_query_file(&a.queries)?;
+    let configs = opts.configurations() as u64;
+    let bar = counting_bar(queries.len() as u64 + configs, "sweep", !a.quiet);
+    let source = a.input.display().to_string();
+    let report = run_sweep(
+        &corpus,
+        &source,
+        &queries,
+        Some(&a.queries),
+        &opts,
+        &a.out,
+        &|p| match p {
+            Progress::Truth(n) => bar.inc(n as u64),
+            Progress::Config => bar.inc(1),
+        },
+    )?;
+    bar.finish_and_clear();
+    let written = write_outputs(&report, &a.out)?;
+    for n in &report.notes {
+        eprintln!("waymark: note: {n}");
+    }
+    if !a.quiet {
+        let mut out = std::io::stdout().lock();
+        writeln!(
+            out,
+            "{} configurations over {} items, {} queries, k = {} in {:.1} s (exact answers: {})",
+            report.rows.len(),
+            report.items,
+            report.queries,
+            report.k,
+            report.total_seconds,
+            if report.truth_cached {
+                "cached".to_string()
+            } else {
+                format!("{:.1} s", report.truth_seconds)
+            }
+        )?;
+        writeln!(
+            out,
+            "{:<10} {:>4} {:>5} {:>10} {:>5} {:>9} {:>9} {:>10} {:>9}",
+            "method",
+            "dim",
+            "space",
+            "candidates",
+            "refs",
+            "recall@k",
+            "plain@k",
+            "distances",
+            "queries/s"
+        )?;
+        for r in &report.rows {
+            writeln!(
+                out,
+                "{:<10} {:>4} {:>5} {:>10} {:>5} {:>9.4} {:>9.4} {:>10.1} {:>9.0}",
+                r.method,
+                r.dim_made,
+                r.space,
+                r.candidates,
+                r.refs,
+                r.recall,
+                r.plain_recall,
+                r.distances_per_query,
+                r.qps
+            )?;
+        }
+        for p in &written {
+            writeln!(out, "wrote {}", p.display())?;
+        }
     }
     Ok(())
 }

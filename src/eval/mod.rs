@@ -19,8 +19,16 @@
 //! assert_eq!(threshold_recall(&[1.0, 2.0], &[(7, 1.0), (9, 2.0)], 2), 1.0);
 //! ```
 
+pub mod distortion;
+mod measure;
+pub mod plot;
 mod recall;
 mod scan;
+pub mod sweep;
+pub mod truth;
 
+pub use distortion::{measure_distortion, DistortionReport};
+pub use measure::{measure_recall, RecallRow};
 pub use recall::{plain_recall, threshold_recall, typo_queries, RECALL_EPSILON};
 pub use scan::{best_scan, full_scan, scan_many, Scan};
+pub use truth::{load_or_compute_truth, Truth, TruthSource};

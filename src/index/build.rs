@@ -1,11 +1,11 @@
-//! Building an index: choose landmarks, embed every item, build the tree, write the file.
+//! Building an index: embed every item, build the tree, write the file.
 
 use std::path::Path;
 use std::time::Instant;
 
 use super::file::{ContainerWriter, SectionKind};
 use super::{coord_stride, tree, IdKind, IndexMeta};
-use crate::embed::{choose_landmarks, embed_all, quantize, Embedding, LandmarkOptions, MAX_DIM};
+use crate::embed::{embed_items, quantize, EmbedOptions, Embedded, Method, MAX_DIM};
 use crate::error::{Error, Result};
 use crate::ingest::{Corpus, Ids, Normalize};
 use crate::metric::{Levenshtein, Metric, MetricKind};
@@ -16,12 +16,16 @@ use crate::search::Space;
 pub struct BuildOptions {
     /// The metric (only Levenshtein so far).
     pub metric: MetricKind,
-    /// Embedding dimension: number of landmarks, 1 to 64.
+    /// Embedding method.
+    pub method: Method,
+    /// Embedding dimension: number of coordinates, 1 to 64.
     pub dim: usize,
-    /// Seed of the landmark sample.
+    /// Seed of every random choice of the embedding.
     pub seed: u64,
-    /// Size of the sample landmarks are chosen from.
+    /// Size of the sample landmarks and FastMap pivots are chosen from.
     pub sample: usize,
+    /// Size of the reference-set pool (the reference-set method's cost per query).
+    pub pool: usize,
     /// Default candidates per query stored in the index.
     pub candidates: usize,
     /// Default candidate space stored in the index.
@@ -34,9 +38,11 @@ impl Default for BuildOptions {
     fn default() -> Self {
         BuildOptions {
             metric: MetricKind::Levenshtein,
+            method: Method::Landmarks,
             dim: crate::search::DEFAULT_DIM,
             seed: 0,
             sample: 4096,
+            pool: crate::embed::DEFAULT_POOL,
             candidates: crate::search::DEFAULT_CANDIDATES,
             space: Space::default(),
             normalize: Normalize::default(),
@@ -51,7 +57,7 @@ pub struct BuildReport {
     pub meta: IndexMeta,
     /// Size of the file written.
     pub file_len: u64,
-    /// Seconds spent choosing landmarks and embedding.
+    /// Seconds spent choosing reference items and embedding.
     pub embed_seconds: f64,
     /// Seconds spent building the kd-tree.
     pub tree_seconds: f64,
@@ -80,6 +86,51 @@ pub fn build_index(
     dest: &Path,
     progress: &(dyn Fn(usize) + Sync),
 ) -> Result<BuildReport> {
+    check_options(corpus, source, opts)?;
+    // Start the file first: an unwritable destination fails before the expensive part.
+    let writer = ContainerWriter::create(dest)?;
+    let keys: &[String] = corpus.keys.as_deref().unwrap_or(&corpus.items);
+    let t0 = Instant::now();
+    let embedded = embed_items(
+        &Levenshtein,
+        keys,
+        &EmbedOptions {
+            method: opts.method,
+            dim: opts.dim,
+            sample: opts.sample,
+            pool: opts.pool,
+            seed: opts.seed,
+        },
+        progress,
+    );
+    let embed_seconds = t0.elapsed().as_secs_f64();
+    write_index(corpus, source, opts, &embedded, writer, dest, embed_seconds)
+}
+
+/// Builds an index of `corpus` at `dest` from coordinates already computed (for example a
+/// prefix of a larger embedding, see [`Embedded::prefix`]). `embedded` must have been made
+/// from this corpus's keys; `opts.method`, `opts.dim` and `opts.pool` are ignored.
+pub fn build_index_from(
+    corpus: &Corpus,
+    source: &str,
+    opts: &BuildOptions,
+    embedded: &Embedded,
+    dest: &Path,
+) -> Result<BuildReport> {
+    check_options(corpus, source, opts)?;
+    if embedded.n != corpus.items.len() || embedded.dim() == 0 || embedded.dim() > MAX_DIM {
+        return Err(Error::Usage(format!(
+            "{source}: the embedding given has {} items and {} coordinates; the corpus has {} items",
+            embedded.n,
+            embedded.dim(),
+            corpus.items.len()
+        )));
+    }
+    let writer = ContainerWriter::create(dest)?;
+    write_index(corpus, source, opts, embedded, writer, dest, 0.0)
+}
+
+fn check_options(corpus: &Corpus, source: &str, opts: &BuildOptions) -> Result<()> {
     if opts.dim == 0 || opts.dim > MAX_DIM {
         return Err(Error::Usage(format!(
             "--dim must be between 1 and {MAX_DIM}, not {}",
@@ -88,6 +139,9 @@ pub fn build_index(
     }
     if opts.candidates == 0 {
         return Err(Error::Usage("--candidates must be at least 1".into()));
+    }
+    if opts.method == Method::RefSets && opts.pool == 0 {
+        return Err(Error::Usage("--pool must be at least 1".into()));
     }
     let n = corpus.items.len();
     if n == 0 {
@@ -99,27 +153,30 @@ pub fn build_index(
             u32::MAX
         )));
     }
-    // Start the file first: an unwritable destination fails before the expensive part.
-    let mut writer = ContainerWriter::create(dest)?;
-    let keys: &[String] = corpus.keys.as_deref().unwrap_or(&corpus.items);
+    Ok(())
+}
 
-    let t0 = Instant::now();
+fn write_index(
+    corpus: &Corpus,
+    source: &str,
+    opts: &BuildOptions,
+    embedded: &Embedded,
+    mut writer: ContainerWriter,
+    dest: &Path,
+    embed_seconds: f64,
+) -> Result<BuildReport> {
+    let n = corpus.items.len();
     let metric = Levenshtein;
-    let landmarks = choose_landmarks(
-        &metric,
-        keys,
-        &LandmarkOptions {
-            dim: opts.dim,
-            sample: opts.sample,
-            seed: opts.seed,
-        },
-    );
-    let dim = landmarks.len();
-    let coords = embed_all(&metric, keys, &landmarks, progress);
-    let embed_seconds = t0.elapsed().as_secs_f64();
-
+    let dim = embedded.dim();
+    if dim == 0 {
+        return Err(Error::Usage(format!(
+            "{source}: the items allow no {} coordinate (all items equal?)",
+            embedded.embedding.name()
+        )));
+    }
+    let coords = &embedded.coords;
     let stride = coord_stride(dim);
-    let scale = 1.0;
+    let scale = embedded.scale(metric.kind().is_integral());
     let mut small = vec![0u8; n * stride];
     for (row, c) in small.chunks_exact_mut(stride).zip(coords.chunks_exact(dim)) {
         for (b, &x) in row.iter_mut().zip(c) {
@@ -128,7 +185,6 @@ pub fn build_index(
     }
     let t1 = Instant::now();
     let f32s: Vec<f32> = coords.iter().map(|&x| x as f32).collect();
-    drop(coords);
     let tree_bytes = tree::build(&f32s, dim).map_err(|e| Error::Index {
         path: dest.to_path_buf(),
         message: format!("building the kd-tree failed: {e}"),
@@ -144,9 +200,7 @@ pub fn build_index(
         dim: dim as u32,
         stride: stride as u32,
         tree_dim: tree::tree_dim(dim) as u32,
-        embedding: Embedding::Landmarks {
-            landmarks: landmarks.iter().map(|&l| l as u64).collect(),
-        },
+        embedding: embedded.embedding.clone(),
         scale,
         seed: opts.seed,
         sample: opts.sample.min(n) as u64,

@@ -26,7 +26,7 @@ use std::sync::OnceLock;
 use memmap2::Mmap;
 use serde::{Deserialize, Serialize};
 
-pub use build::{build_index, BuildOptions, BuildReport};
+pub use build::{build_index, build_index_from, BuildOptions, BuildReport};
 use file::{Section, SectionKind};
 
 use crate::error::{Error, Result};
@@ -53,7 +53,7 @@ pub struct IndexMeta {
     pub metric: MetricKind,
     /// Normalisation applied to items and, automatically, to queries.
     pub normalize: Normalize,
-    /// Embedding dimension (number of landmarks).
+    /// Embedding dimension (number of coordinates).
     pub dim: u32,
     /// Bytes per item in the coordinate section (`dim` rounded up for SIMD).
     pub stride: u32,
@@ -63,9 +63,9 @@ pub struct IndexMeta {
     pub embedding: crate::embed::Embedding,
     /// Coordinate quantum of the u8 rows (see [`crate::embed::quantize`]).
     pub scale: f64,
-    /// Seed of the landmark sample.
+    /// Seed of the embedding's random choices.
     pub seed: u64,
-    /// Size of the sample landmarks were chosen from.
+    /// Size of the sample landmarks or FastMap pivots were chosen from.
     pub sample: u64,
     /// How ids are typed.
     pub ids: IdKind,
@@ -200,9 +200,9 @@ impl Index {
                 "corrupt index: coordinate layout does not match its dimension".into(),
             ));
         }
-        if meta.embedding.refs().iter().any(|&l| l >= meta.n) {
-            return Err(bad("corrupt index: a reference item is not an item".into()));
-        }
+        meta.embedding
+            .check(meta.n)
+            .map_err(|m| bad(format!("corrupt index: embedding: {m}")))?;
         let coords = need(SectionKind::Coords)?;
         expect_len(
             SectionKind::Coords,
