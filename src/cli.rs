@@ -465,7 +465,7 @@ fn build(a: BuildArgs) -> anyhow::Result<()> {
         if (m.dim as usize) < a.dim {
             writeln!(
                 out,
-                "note: only {} coordinates could be made (asked for {})",
+                "note: only {} coordinates could be made (asked for {}): the input has too few distinct items",
                 m.dim, a.dim
             )?;
         }

@@ -120,7 +120,7 @@ fn bad_input_all_identical_items_give_one_coordinate_and_ties_by_id() {
         .output()
         .unwrap();
     assert!(out.status.success());
-    assert!(stdout_of(&out).contains("only 1 distinct landmarks could be chosen"));
+    assert!(stdout_of(&out).contains("only 1 coordinates could be made"));
     let out = d
         .cmd()
         .args(["query", "same.wmk", "-k", "3", "--format", "tsv"])
@@ -247,7 +247,7 @@ fn bad_input_d_larger_than_n_is_capped_with_a_note() {
         .output()
         .unwrap();
     assert!(out.status.success());
-    assert!(stdout_of(&out).contains("only 3 distinct landmarks could be chosen (asked for 40)"));
+    assert!(stdout_of(&out).contains("only 3 coordinates could be made (asked for 40)"));
 }
 
 #[test]
