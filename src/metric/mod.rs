@@ -8,8 +8,12 @@
 //! Distances are reported as `f64` so that later metrics with real values fit the same trait;
 //! integer metrics such as Levenshtein return whole numbers.
 
+mod error;
+mod hamming;
 mod levenshtein;
 
+pub use error::MetricError;
+pub use hamming::{check_equal_lengths, Hamming, HammingQuery};
 pub use levenshtein::{Levenshtein, LevenshteinQuery};
 
 use serde::{Deserialize, Serialize};
@@ -52,6 +56,21 @@ pub trait PreparedQuery: Send + Sync {
     /// Implementations stop early once the distance must exceed `bound`, which is what makes
     /// re-ranking with a running k-th best distance cheap.
     fn distance_within(&self, item: &[u8], bound: f64) -> Option<f64>;
+
+    /// The distances from the query to each of `items`, written to `out` (same length).
+    ///
+    /// The default calls [`PreparedQuery::distance`] per item; metrics with a per-call cost
+    /// (such as an external program) answer the whole batch at once.
+    ///
+    /// # Panics
+    ///
+    /// If `out` and `items` differ in length (a programming error of the caller).
+    fn distances(&self, items: &[&[u8]], out: &mut [f64]) {
+        assert_eq!(items.len(), out.len(), "one output slot per item");
+        for (o, item) in out.iter_mut().zip(items) {
+            *o = self.distance(item);
+        }
+    }
 }
 
 /// The metrics an index can be built with.
@@ -60,6 +79,8 @@ pub trait PreparedQuery: Send + Sync {
 pub enum MetricKind {
     /// Unit-cost edit distance over Unicode scalar values.
     Levenshtein,
+    /// Number of differing positions between strings of equal length.
+    Hamming,
 }
 
 impl MetricKind {
@@ -67,13 +88,14 @@ impl MetricKind {
     pub fn name(self) -> &'static str {
         match self {
             MetricKind::Levenshtein => "levenshtein",
+            MetricKind::Hamming => "hamming",
         }
     }
 
     /// Whether distances are always whole numbers (lets coordinates be stored as integers).
     pub fn is_integral(self) -> bool {
         match self {
-            MetricKind::Levenshtein => true,
+            MetricKind::Levenshtein | MetricKind::Hamming => true,
         }
     }
 }
