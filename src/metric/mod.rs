@@ -8,10 +8,12 @@
 //! Distances are reported as `f64` so that later metrics with real values fit the same trait;
 //! integer metrics such as Levenshtein return whole numbers.
 
+mod damerau;
 mod error;
 mod hamming;
 mod levenshtein;
 
+pub use damerau::{Damerau, DamerauQuery};
 pub use error::MetricError;
 pub use hamming::{check_equal_lengths, Hamming, HammingQuery};
 pub use levenshtein::{Levenshtein, LevenshteinQuery};
@@ -81,6 +83,8 @@ pub enum MetricKind {
     Levenshtein,
     /// Number of differing positions between strings of equal length.
     Hamming,
+    /// Unrestricted Damerau–Levenshtein distance (adjacent transpositions count as one edit).
+    Damerau,
 }
 
 impl MetricKind {
@@ -89,13 +93,14 @@ impl MetricKind {
         match self {
             MetricKind::Levenshtein => "levenshtein",
             MetricKind::Hamming => "hamming",
+            MetricKind::Damerau => "damerau",
         }
     }
 
     /// Whether distances are always whole numbers (lets coordinates be stored as integers).
     pub fn is_integral(self) -> bool {
         match self {
-            MetricKind::Levenshtein | MetricKind::Hamming => true,
+            MetricKind::Levenshtein | MetricKind::Hamming | MetricKind::Damerau => true,
         }
     }
 }
