@@ -10,13 +10,23 @@
 
 mod damerau;
 mod error;
+mod external;
+mod graph;
 mod hamming;
+mod jaccard;
 mod levenshtein;
+mod vector;
+mod weighted;
 
 pub use damerau::{Damerau, DamerauQuery};
 pub use error::MetricError;
+pub use external::{ExternalMetric, ExternalQuery, MAX_BATCH, PROTOCOL, PROTOCOL_VERSION};
+pub use graph::{Disconnected, Graph, GraphMetric, GraphQuery};
 pub use hamming::{check_equal_lengths, Hamming, HammingQuery};
+pub use jaccard::{Jaccard, JaccardQuery, Tokens};
 pub use levenshtein::{Levenshtein, LevenshteinQuery};
+pub use vector::{vector_bytes, Norm, VectorMetric, VectorQuery};
+pub use weighted::{CostRules, CostTable, WeightedEdit, WeightedQuery};
 
 use serde::{Deserialize, Serialize};
 
@@ -85,6 +95,23 @@ pub enum MetricKind {
     Hamming,
     /// Unrestricted Damerau–Levenshtein distance (adjacent transpositions count as one edit).
     Damerau,
+    /// Edit distance with per-symbol costs from a cost file.
+    #[serde(rename = "weighted-edit")]
+    WeightedEdit,
+    /// Jaccard distance of token or q-gram sets.
+    Jaccard,
+    /// L1 distance of `f32` vectors.
+    L1,
+    /// L2 distance of `f32` vectors.
+    L2,
+    /// L∞ distance of `f32` vectors.
+    Linf,
+    /// Angle between `f32` vectors, divided by π.
+    Angular,
+    /// Shortest-path distance between nodes of a weighted graph.
+    Graph,
+    /// Distances computed by an external program.
+    External,
 }
 
 impl MetricKind {
@@ -94,6 +121,14 @@ impl MetricKind {
             MetricKind::Levenshtein => "levenshtein",
             MetricKind::Hamming => "hamming",
             MetricKind::Damerau => "damerau",
+            MetricKind::WeightedEdit => "weighted-edit",
+            MetricKind::Jaccard => "jaccard",
+            MetricKind::L1 => "l1",
+            MetricKind::L2 => "l2",
+            MetricKind::Linf => "linf",
+            MetricKind::Angular => "angular",
+            MetricKind::Graph => "graph",
+            MetricKind::External => "external",
         }
     }
 
@@ -101,6 +136,14 @@ impl MetricKind {
     pub fn is_integral(self) -> bool {
         match self {
             MetricKind::Levenshtein | MetricKind::Hamming | MetricKind::Damerau => true,
+            MetricKind::WeightedEdit
+            | MetricKind::Jaccard
+            | MetricKind::L1
+            | MetricKind::L2
+            | MetricKind::Linf
+            | MetricKind::Angular
+            | MetricKind::Graph
+            | MetricKind::External => false,
         }
     }
 }
