@@ -69,8 +69,9 @@ pub struct DamerauQuery {
 }
 
 thread_local! {
-    /// The table and the last-row-per-symbol array, reused between calls on one thread.
-    static SCRATCH: RefCell<(Vec<u32>, Vec<u32>)> = const { RefCell::new((Vec::new(), Vec::new())) };
+    /// The table, the last-row-per-symbol array and the item's symbols, reused between calls on one thread.
+    static SCRATCH: RefCell<(Vec<u32>, Vec<u32>, Vec<u32>)> =
+        const { RefCell::new((Vec::new(), Vec::new(), Vec::new())) };
 }
 
 impl DamerauQuery {
@@ -138,21 +139,22 @@ impl DamerauQuery {
 
     /// The distance if it is at most `k`, else `None`.
     pub fn dist_within(&self, item: &[u8], k: u32) -> Option<u32> {
-        let item: Vec<u32> = if item.is_ascii() {
-            item.iter().map(|&b| self.ascii[b as usize]).collect()
-        } else {
-            item.chars().map(|c| self.symbol(c)).collect()
-        };
-        let (n, m) = (item.len(), self.ids.len());
-        if n.abs_diff(m) > k as usize {
-            return None;
-        }
-        if n == 0 || m == 0 {
-            return Some((n + m) as u32);
-        }
         SCRATCH.with(|s| {
-            let (table, last_row) = &mut *s.borrow_mut();
-            self.table(&item, table, last_row, k)
+            let (table, last_row, symbols) = &mut *s.borrow_mut();
+            symbols.clear();
+            if item.is_ascii() {
+                symbols.extend(item.iter().map(|&b| self.ascii[b as usize]));
+            } else {
+                symbols.extend(item.chars().map(|c| self.symbol(c)));
+            }
+            let (n, m) = (symbols.len(), self.ids.len());
+            if n.abs_diff(m) > k as usize {
+                return None;
+            }
+            if n == 0 || m == 0 {
+                return Some((n + m) as u32);
+            }
+            self.table(symbols, table, last_row, k)
         })
     }
 
@@ -161,22 +163,29 @@ impl DamerauQuery {
     /// Cell `(i + 1, j + 1)` of the `(n + 2) × (m + 2)` table holds the distance between the
     /// first `i` item chars and the first `j` query chars; row 0 and column 0 are a sentinel
     /// larger than any distance, so a transposition with no earlier match is never chosen.
+    /// Every cell is written before it is read, so the reused table is not cleared.
     fn table(&self, item: &[u32], h: &mut Vec<u32>, da: &mut Vec<u32>, k: u32) -> Option<u32> {
         let (n, m) = (item.len(), self.ids.len());
         let w = m + 2;
         let big = (n + m) as u32;
-        h.clear();
-        h.resize((n + 2) * w, big);
+        if h.len() < (n + 2) * w {
+            h.resize((n + 2) * w, 0);
+        }
         da.clear();
         da.resize(self.alphabet, 0);
+        h[..w].fill(big);
+        h[w] = big;
         for j in 0..=m {
             h[w + j + 1] = j as u32;
         }
         for i in 1..=n {
             let a = item[i - 1];
             let row = (i + 1) * w;
-            let prev = i * w;
-            h[row + 1] = i as u32;
+            let (done, rest) = h.split_at_mut(row);
+            let prev = &done[i * w..];
+            let cur = &mut rest[..w];
+            cur[0] = big;
+            cur[1] = i as u32;
             let mut db = 0usize;
             let mut row_min = i as u32;
             for j in 1..=m {
@@ -190,13 +199,13 @@ impl DamerauQuery {
                 } else {
                     1
                 };
-                let sub = h[prev + j] + cost;
-                let ins = h[row + j] + 1;
-                let del = h[prev + j + 1] + 1;
-                // k1 = 0 or l1 = 0 reads the sentinel row/column.
-                let trans = h[k1 * w + l1] + (i - k1 - 1) as u32 + 1 + (j - l1 - 1) as u32;
+                let sub = prev[j] + cost;
+                let ins = cur[j] + 1;
+                let del = prev[j + 1] + 1;
+                // k1 = 0 or l1 = 0 reads the sentinel row/column; row k1 < i + 1 is done.
+                let trans = done[k1 * w + l1] + (i - k1 - 1) as u32 + 1 + (j - l1 - 1) as u32;
                 let v = sub.min(ins).min(del).min(trans);
-                h[row + j + 1] = v;
+                cur[j + 1] = v;
                 row_min = row_min.min(v);
             }
             if row_min > k {
