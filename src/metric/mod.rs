@@ -5,8 +5,22 @@
 //! compared with many items, which is the shape of every hot loop in waymark: embedding an item
 //! against the landmarks, re-ranking candidates, and brute-force scans.
 //!
-//! Distances are reported as `f64` so that later metrics with real values fit the same trait;
-//! integer metrics such as Levenshtein return whole numbers.
+//! Distances are reported as `f64`; integer metrics (Levenshtein, Hamming, Damerau) return
+//! whole numbers.
+//!
+//! | metric | items | built from |
+//! |---|---|---|
+//! | [`Levenshtein`] | strings | nothing |
+//! | [`Hamming`] | strings of one length ([`check_equal_lengths`]) | nothing |
+//! | [`Damerau`] | strings (unrestricted Damerau–Levenshtein) | nothing |
+//! | [`WeightedEdit`] | strings | a cost file ([`CostTable`]) |
+//! | [`Jaccard`] | strings, as word or q-gram sets | [`Tokens`] |
+//! | [`VectorMetric`] | little-endian `f32` vectors | [`Norm`] and the dimension |
+//! | [`GraphMetric`] | node names | an edge list ([`Graph`]) |
+//! | [`ExternalMetric`] | strings | a program speaking the `waymark-metric` protocol |
+//!
+//! Constructors that read options or side files return [`MetricError`], which names the file
+//! and line. [`PreparedQuery::distances`] is the batched form.
 
 mod damerau;
 mod error;
