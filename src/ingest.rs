@@ -28,6 +28,8 @@ use std::path::Path;
 
 use serde::{Deserialize, Serialize};
 
+pub mod vectors;
+
 /// The UTF-8 byte-order mark, dropped at the start of an input.
 const BOM: &[u8] = b"\xEF\xBB\xBF";
 

@@ -5,12 +5,42 @@
 //! compared with many items, which is the shape of every hot loop in waymark: embedding an item
 //! against the landmarks, re-ranking candidates, and brute-force scans.
 //!
-//! Distances are reported as `f64` so that later metrics with real values fit the same trait;
-//! integer metrics such as Levenshtein return whole numbers.
+//! Distances are reported as `f64`; integer metrics (Levenshtein, Hamming, Damerau) return
+//! whole numbers.
+//!
+//! | metric | items | built from |
+//! |---|---|---|
+//! | [`Levenshtein`] | strings | nothing |
+//! | [`Hamming`] | strings of one length ([`check_equal_lengths`]) | nothing |
+//! | [`Damerau`] | strings (unrestricted Damerau–Levenshtein) | nothing |
+//! | [`WeightedEdit`] | strings | a cost file ([`CostTable`]) |
+//! | [`Jaccard`] | strings, as word or q-gram sets | [`Tokens`] |
+//! | [`VectorMetric`] | little-endian `f32` vectors | [`Norm`] and the dimension |
+//! | [`GraphMetric`] | node names | an edge list ([`Graph`]) |
+//! | [`ExternalMetric`] | strings | a program speaking the `waymark-metric` protocol |
+//!
+//! Constructors that read options or side files return [`MetricError`], which names the file
+//! and line. [`PreparedQuery::distances`] is the batched form.
 
+mod damerau;
+mod error;
+mod external;
+mod graph;
+mod hamming;
+mod jaccard;
 mod levenshtein;
+mod vector;
+mod weighted;
 
+pub use damerau::{Damerau, DamerauQuery};
+pub use error::MetricError;
+pub use external::{ExternalMetric, ExternalQuery, MAX_BATCH, PROTOCOL, PROTOCOL_VERSION};
+pub use graph::{Disconnected, Graph, GraphMetric, GraphQuery};
+pub use hamming::{check_equal_lengths, Hamming, HammingQuery};
+pub use jaccard::{Jaccard, JaccardQuery, Tokens};
 pub use levenshtein::{Levenshtein, LevenshteinQuery};
+pub use vector::{vector_bytes, Norm, VectorMetric, VectorQuery};
+pub use weighted::{CostRules, CostTable, WeightedEdit, WeightedQuery};
 
 use serde::{Deserialize, Serialize};
 
@@ -52,6 +82,21 @@ pub trait PreparedQuery: Send + Sync {
     /// Implementations stop early once the distance must exceed `bound`, which is what makes
     /// re-ranking with a running k-th best distance cheap.
     fn distance_within(&self, item: &[u8], bound: f64) -> Option<f64>;
+
+    /// The distances from the query to each of `items`, written to `out` (same length).
+    ///
+    /// The default calls [`PreparedQuery::distance`] per item; metrics with a per-call cost
+    /// (such as an external program) answer the whole batch at once.
+    ///
+    /// # Panics
+    ///
+    /// If `out` and `items` differ in length (a programming error of the caller).
+    fn distances(&self, items: &[&[u8]], out: &mut [f64]) {
+        assert_eq!(items.len(), out.len(), "one output slot per item");
+        for (o, item) in out.iter_mut().zip(items) {
+            *o = self.distance(item);
+        }
+    }
 }
 
 /// The metrics an index can be built with.
@@ -60,6 +105,27 @@ pub trait PreparedQuery: Send + Sync {
 pub enum MetricKind {
     /// Unit-cost edit distance over Unicode scalar values.
     Levenshtein,
+    /// Number of differing positions between strings of equal length.
+    Hamming,
+    /// Unrestricted Damerau–Levenshtein distance (adjacent transpositions count as one edit).
+    Damerau,
+    /// Edit distance with per-symbol costs from a cost file.
+    #[serde(rename = "weighted-edit")]
+    WeightedEdit,
+    /// Jaccard distance of token or q-gram sets.
+    Jaccard,
+    /// L1 distance of `f32` vectors.
+    L1,
+    /// L2 distance of `f32` vectors.
+    L2,
+    /// L∞ distance of `f32` vectors.
+    Linf,
+    /// Angle between `f32` vectors, divided by π.
+    Angular,
+    /// Shortest-path distance between nodes of a weighted graph.
+    Graph,
+    /// Distances computed by an external program.
+    External,
 }
 
 impl MetricKind {
@@ -67,13 +133,31 @@ impl MetricKind {
     pub fn name(self) -> &'static str {
         match self {
             MetricKind::Levenshtein => "levenshtein",
+            MetricKind::Hamming => "hamming",
+            MetricKind::Damerau => "damerau",
+            MetricKind::WeightedEdit => "weighted-edit",
+            MetricKind::Jaccard => "jaccard",
+            MetricKind::L1 => "l1",
+            MetricKind::L2 => "l2",
+            MetricKind::Linf => "linf",
+            MetricKind::Angular => "angular",
+            MetricKind::Graph => "graph",
+            MetricKind::External => "external",
         }
     }
 
     /// Whether distances are always whole numbers (lets coordinates be stored as integers).
     pub fn is_integral(self) -> bool {
         match self {
-            MetricKind::Levenshtein => true,
+            MetricKind::Levenshtein | MetricKind::Hamming | MetricKind::Damerau => true,
+            MetricKind::WeightedEdit
+            | MetricKind::Jaccard
+            | MetricKind::L1
+            | MetricKind::L2
+            | MetricKind::Linf
+            | MetricKind::Angular
+            | MetricKind::Graph
+            | MetricKind::External => false,
         }
     }
 }

@@ -1,0 +1,384 @@
+//! Shortest-path distance on a weighted, undirected graph; items are node names.
+//!
+//! # The edge list
+//!
+//! One edge per line, `a b weight`, fields separated by spaces or tabs; node names are any
+//! text without white space; blank lines and lines starting with `#` are ignored. Weights
+//! are finite, non-negative decimal numbers; anything else is refused with the line. An edge
+//! given twice keeps its smaller weight; `a a w` only declares the node.
+//!
+//! ```text
+//! # Vessmark ferry legs, minutes
+//! Orvane  Keth    25
+//! Keth    Skarholm 40
+//! Orvane  Skarholm 70
+//! ```
+//!
+//! # Method
+//!
+//! [`Metric::prepare`] runs one single-source Dijkstra from the query node (binary heap,
+//! O((V + E) log V)) and keeps the distances to every node, so each item then costs a look-up.
+//! [`Graph::ball`] is the truncated form (only nodes within a bound), and
+//! [`Graph::nearest_of`] a multi-source Dijkstra: every node's distance to the nearest of a
+//! set of nodes, which is what distance-to-a-set coordinates need.
+//!
+//! # Parts that are not connected
+//!
+//! Between nodes of different connected components the true distance is +∞. Infinite
+//! coordinates break an embedding: `|d(q,l) − d(x,l)|` is ∞ − ∞ = NaN for every landmark `l`
+//! outside the component of `q` and `x`, and quantised coordinates saturate. The policy here
+//! ([`Disconnected::Capped`], the default) reports instead one large finite distance,
+//! `D = (sum of all edge weights) + 1`, larger than any path. It keeps the triangle
+//! inequality: if `x` and `z` are connected, `d(x,z) ≤ W < D` whatever `y` is; if not, one of
+//! `d(x,y)`, `d(y,z)` is `D` as well. Landmarks in other components then give every item of a
+//! component the same coordinate `D`: the lower bound they give between two items of one
+//! component is 0 (valid, but no help), so landmarks should be spread over components, and
+//! the scale of quantised coordinates should be set from the finite distances, with `D`
+//! saturating. [`Disconnected::Infinite`] reports +∞ for callers that want it. Names that are
+//! not nodes of the graph are treated as isolated nodes.
+//!
+//! Zero weights are allowed and make a pseudometric (two nodes at distance 0).
+//!
+//! ```
+//! use waymark::metric::{Graph, GraphMetric, Metric, PreparedQuery};
+//!
+//! let legs = "Orvane Keth 25\nKeth Skarholm 40\nOrvane Skarholm 70\nLille Holm 5\n";
+//! let graph = Graph::parse(legs, "legs.txt")?;
+//! let m = GraphMetric::new(graph);
+//! let q = m.prepare(b"Orvane");
+//! assert_eq!(q.distance(b"Skarholm"), 65.0);
+//! assert_eq!(q.distance_within(b"Skarholm", 60.0), None);
+//! assert_eq!(q.distance(b"Holm"), 141.0); // another component: sum of weights + 1
+//! # Ok::<(), waymark::metric::MetricError>(())
+//! ```
+
+use std::cmp::{Ordering, Reverse};
+use std::collections::{BinaryHeap, HashMap};
+use std::path::Path;
+use std::sync::Arc;
+
+use super::{Metric, MetricError, MetricKind, PreparedQuery};
+
+/// An undirected graph with non-negative edge weights, in compressed adjacency form.
+#[derive(Clone, Debug)]
+pub struct Graph {
+    names: Vec<Box<[u8]>>,
+    index: HashMap<Box<[u8]>, u32>,
+    /// `offsets[v]..offsets[v + 1]` indexes `adjacent` for node `v`.
+    offsets: Vec<usize>,
+    adjacent: Vec<(u32, f64)>,
+    total_weight: f64,
+}
+
+/// What the distance between nodes of different components is.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub enum Disconnected {
+    /// The sum of all edge weights plus one (finite; keeps the triangle inequality).
+    #[default]
+    Capped,
+    /// +∞.
+    Infinite,
+}
+
+/// A heap entry ordered by distance (smallest first through `Reverse`).
+#[derive(Clone, Copy, PartialEq)]
+struct Entry(f64, u32);
+
+impl Eq for Entry {}
+
+impl PartialOrd for Entry {
+    fn partial_cmp(&self, other: &Self) -> Option<Ordering> {
+        Some(self.cmp(other))
+    }
+}
+
+impl Ord for Entry {
+    fn cmp(&self, other: &Self) -> Ordering {
+        self.0.total_cmp(&other.0).then(self.1.cmp(&other.1))
+    }
+}
+
+impl Graph {
+    /// Reads an edge list.
+    pub fn from_path(path: &Path) -> Result<Graph, MetricError> {
+        let name = path.display().to_string();
+        let text = std::fs::read(path).map_err(|error| MetricError::Io {
+            source_name: name.clone(),
+            error,
+        })?;
+        let text = String::from_utf8(text).map_err(|e| {
+            let at = e.utf8_error().valid_up_to();
+            let line = e.as_bytes()[..at].iter().filter(|&&b| b == b'\n').count() as u64 + 1;
+            MetricError::Line {
+                source_name: name.clone(),
+                line,
+                message: "invalid UTF-8".into(),
+            }
+        })?;
+        Graph::parse(&text, &name)
+    }
+
+    /// Parses the text of an edge list; `source_name` is used in errors.
+    pub fn parse(text: &str, source_name: &str) -> Result<Graph, MetricError> {
+        let err = |line: usize, message: String| MetricError::Line {
+            source_name: source_name.to_string(),
+            line: line as u64 + 1,
+            message,
+        };
+        let mut names: Vec<Box<[u8]>> = Vec::new();
+        let mut index: HashMap<Box<[u8]>, u32> = HashMap::new();
+        let mut edges: HashMap<(u32, u32), f64> = HashMap::new();
+        let mut node = |name: &str, names: &mut Vec<Box<[u8]>>| -> u32 {
+            if let Some(&i) = index.get(name.as_bytes()) {
+                return i;
+            }
+            let i = names.len() as u32;
+            names.push(name.as_bytes().into());
+            index.insert(name.as_bytes().into(), i);
+            i
+        };
+        let text = text.strip_prefix('\u{FEFF}').unwrap_or(text);
+        for (i, raw) in text.lines().enumerate() {
+            let t = raw.trim();
+            if t.is_empty() || t.starts_with('#') {
+                continue;
+            }
+            let f: Vec<&str> = t.split_whitespace().collect();
+            if f.len() != 3 {
+                return Err(err(
+                    i,
+                    format!("expected `NODE NODE WEIGHT`, found {} fields", f.len()),
+                ));
+            }
+            let w: f64 = f[2]
+                .parse()
+                .map_err(|_| err(i, format!("weight `{}` is not a number", f[2])))?;
+            if !w.is_finite() || w < 0.0 {
+                return Err(err(
+                    i,
+                    format!("weight {} must be finite and non-negative", f[2]),
+                ));
+            }
+            let (a, b) = (node(f[0], &mut names), node(f[1], &mut names));
+            if a == b {
+                continue;
+            }
+            let slot = edges.entry((a.min(b), a.max(b))).or_insert(w);
+            *slot = slot.min(w);
+        }
+        if names.is_empty() {
+            return Err(MetricError::Options(format!("{source_name}: no edges")));
+        }
+        let total_weight: f64 = edges.values().sum();
+        if !total_weight.is_finite() {
+            return Err(MetricError::Options(format!(
+                "{source_name}: the sum of the weights overflows"
+            )));
+        }
+        let mut degree = vec![0usize; names.len() + 1];
+        for &(a, b) in edges.keys() {
+            degree[a as usize + 1] += 1;
+            degree[b as usize + 1] += 1;
+        }
+        for v in 1..degree.len() {
+            degree[v] += degree[v - 1];
+        }
+        let offsets = degree.clone();
+        let mut fill = degree;
+        let mut adjacent = vec![(0u32, 0.0f64); offsets[names.len()]];
+        let mut sorted: Vec<_> = edges.into_iter().collect();
+        sorted.sort_by_key(|&(k, _)| k); // deterministic adjacency order
+        for ((a, b), w) in sorted {
+            adjacent[fill[a as usize]] = (b, w);
+            fill[a as usize] += 1;
+            adjacent[fill[b as usize]] = (a, w);
+            fill[b as usize] += 1;
+        }
+        Ok(Graph {
+            names,
+            index,
+            offsets,
+            adjacent,
+            total_weight,
+        })
+    }
+
+    /// Number of nodes.
+    pub fn len(&self) -> usize {
+        self.names.len()
+    }
+
+    /// Whether there are no nodes (never true for a parsed graph).
+    pub fn is_empty(&self) -> bool {
+        self.names.is_empty()
+    }
+
+    /// The number of the node called `name`.
+    pub fn node(&self, name: &[u8]) -> Option<u32> {
+        self.index.get(name).copied()
+    }
+
+    /// The name of node `v`.
+    pub fn name(&self, v: u32) -> &[u8] {
+        &self.names[v as usize]
+    }
+
+    /// The distance reported between different components under [`Disconnected::Capped`].
+    pub fn disconnected_distance(&self) -> f64 {
+        self.total_weight + 1.0
+    }
+
+    /// Multi-source Dijkstra: every node's distance to the nearest of `sources`
+    /// (+∞ where none is reachable), stopping at nodes farther than `bound`.
+    fn run(&self, sources: &[u32], bound: f64) -> Vec<f64> {
+        let mut dist = vec![f64::INFINITY; self.len()];
+        let mut heap = BinaryHeap::new();
+        for &s in sources {
+            if (s as usize) < dist.len() && dist[s as usize] > 0.0 {
+                dist[s as usize] = 0.0;
+                heap.push(Reverse(Entry(0.0, s)));
+            }
+        }
+        while let Some(Reverse(Entry(d, v))) = heap.pop() {
+            if d > dist[v as usize] {
+                continue;
+            }
+            let v = v as usize;
+            for &(u, w) in &self.adjacent[self.offsets[v]..self.offsets[v + 1]] {
+                let nd = d + w;
+                if nd < dist[u as usize] && nd <= bound {
+                    dist[u as usize] = nd;
+                    heap.push(Reverse(Entry(nd, u)));
+                }
+            }
+        }
+        dist
+    }
+
+    /// Single-source Dijkstra: distances from `source` to every node (+∞ if unreachable).
+    pub fn distances_from(&self, source: u32) -> Vec<f64> {
+        self.run(&[source], f64::INFINITY)
+    }
+
+    /// Truncated Dijkstra: the nodes within `bound` of `source`, with their distances,
+    /// nearest first.
+    pub fn ball(&self, source: u32, bound: f64) -> Vec<(u32, f64)> {
+        let d = self.run(&[source], bound);
+        let mut v: Vec<(u32, f64)> = (0..self.len() as u32)
+            .zip(d)
+            .filter(|(_, d)| d.is_finite())
+            .collect();
+        v.sort_by(|a, b| a.1.total_cmp(&b.1).then(a.0.cmp(&b.0)));
+        v
+    }
+
+    /// Multi-source Dijkstra: each node's distance to the nearest node of `sources`, +∞
+    /// where none is reachable (distance-to-a-set coordinates; apply the
+    /// [`Disconnected`] policy as [`GraphMetric`] does).
+    pub fn nearest_of(&self, sources: &[u32]) -> Vec<f64> {
+        self.run(sources, f64::INFINITY)
+    }
+}
+
+/// Shortest-path distance between the nodes named by items.
+#[derive(Clone, Debug)]
+pub struct GraphMetric {
+    graph: Arc<Graph>,
+    policy: Disconnected,
+}
+
+/// A query prepared for [`GraphMetric`]: its distances to every node.
+#[derive(Clone, Debug)]
+pub struct GraphQuery {
+    graph: Arc<Graph>,
+    query: Vec<u8>,
+    dist: Vec<f64>,
+    far: f64,
+}
+
+impl GraphMetric {
+    /// The metric on `graph` with the default policy ([`Disconnected::Capped`]).
+    pub fn new(graph: Graph) -> Self {
+        Self::with_policy(graph, Disconnected::Capped)
+    }
+
+    /// The metric with a chosen policy for nodes in different components.
+    pub fn with_policy(graph: Graph, policy: Disconnected) -> Self {
+        GraphMetric {
+            graph: Arc::new(graph),
+            policy,
+        }
+    }
+
+    /// The graph.
+    pub fn graph(&self) -> &Graph {
+        &self.graph
+    }
+
+    fn far(&self) -> f64 {
+        match self.policy {
+            Disconnected::Capped => self.graph.disconnected_distance(),
+            Disconnected::Infinite => f64::INFINITY,
+        }
+    }
+}
+
+impl Metric for GraphMetric {
+    type Prepared = GraphQuery;
+
+    fn kind(&self) -> MetricKind {
+        MetricKind::Graph
+    }
+
+    fn prepare(&self, query: &[u8]) -> GraphQuery {
+        let dist = match self.graph.node(query) {
+            Some(v) => self.graph.distances_from(v),
+            None => Vec::new(),
+        };
+        GraphQuery {
+            graph: self.graph.clone(),
+            query: query.to_vec(),
+            dist,
+            far: self.far(),
+        }
+    }
+
+    /// One pair: one Dijkstra from `a`. Prefer [`Metric::prepare`] for many items.
+    fn distance(&self, a: &[u8], b: &[u8]) -> f64 {
+        if a == b {
+            return 0.0;
+        }
+        match (self.graph.node(a), self.graph.node(b)) {
+            (Some(x), Some(y)) => {
+                let d = self.graph.distances_from(x)[y as usize];
+                if d.is_finite() {
+                    d
+                } else {
+                    self.far()
+                }
+            }
+            _ => self.far(),
+        }
+    }
+}
+
+impl PreparedQuery for GraphQuery {
+    fn distance(&self, item: &[u8]) -> f64 {
+        if item == self.query.as_slice() {
+            return 0.0;
+        }
+        match self
+            .graph
+            .node(item)
+            .and_then(|v| self.dist.get(v as usize))
+        {
+            Some(d) if d.is_finite() => *d,
+            _ => self.far,
+        }
+    }
+
+    fn distance_within(&self, item: &[u8], bound: f64) -> Option<f64> {
+        let d = self.distance(item);
+        (d <= bound).then_some(d)
+    }
+}
