@@ -32,9 +32,12 @@ pub struct Chart<'a> {
     pub x_log: bool,
     /// Fixed y range, else from the data with a margin.
     pub y_range: Option<(f64, f64)>,
+    /// Join each series' points with a line; `false` draws a scatter of markers only (for
+    /// measurements such as q/s whose order along x means nothing).
+    pub lines: bool,
 }
 
-/// Draws `series` as a line chart with markers and a legend into an SVG file at `path`.
+/// Draws `series` as a line chart with markers (or a scatter, see [`Chart::lines`]) and a legend into an SVG file at `path`.
 pub fn line_chart(path: &Path, chart: &Chart<'_>, series: &[Series]) -> Result<()> {
     let fail = |e: String| Error::Io {
         path: path.to_path_buf(),
@@ -97,12 +100,19 @@ pub fn line_chart(path: &Path, chart: &Chart<'_>, series: &[Series]) -> Result<(
         let color = Palette99::pick(i).to_rgba();
         let shape = ShapeStyle::from(&color).stroke_width(2);
         let line: Vec<(f64, f64)> = s.points.iter().map(|&(x, y)| (tx(x), y)).collect();
-        ctx.draw_series(LineSeries::new(line.clone(), shape))
-            .map_err(|e| fail(e.to_string()))?
-            .label(s.label.clone())
-            .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 20, y)], shape));
-        ctx.draw_series(line.iter().map(|&p| Circle::new(p, 3, color.filled())))
-            .map_err(|e| fail(e.to_string()))?;
+        if chart.lines {
+            ctx.draw_series(LineSeries::new(line.clone(), shape))
+                .map_err(|e| fail(e.to_string()))?
+                .label(s.label.clone())
+                .legend(move |(x, y)| PathElement::new(vec![(x, y), (x + 20, y)], shape));
+            ctx.draw_series(line.iter().map(|&p| Circle::new(p, 3, color.filled())))
+                .map_err(|e| fail(e.to_string()))?;
+        } else {
+            ctx.draw_series(line.iter().map(|&p| Circle::new(p, 5, color.filled())))
+                .map_err(|e| fail(e.to_string()))?
+                .label(s.label.clone())
+                .legend(move |(x, y)| Circle::new((x + 10, y), 4, color.filled()));
+        }
     }
     ctx.configure_series_labels()
         .position(SeriesLabelPosition::LowerRight)

@@ -354,6 +354,7 @@ pub fn write_outputs(report: &SweepReport, dir: &Path) -> Result<Vec<PathBuf>> {
                 y_label: &y,
                 x_log: true,
                 y_range: None,
+                lines: true,
             },
             &series,
         )?;
@@ -393,6 +394,7 @@ pub fn write_outputs(report: &SweepReport, dir: &Path) -> Result<Vec<PathBuf>> {
             y_label: &y,
             x_log: false,
             y_range: None,
+            lines: false,
         },
         &series,
     )?;
