@@ -15,7 +15,8 @@ use clap::{Parser, Subcommand, ValueEnum};
 
 use crate::error::Error;
 use crate::index::{build_index, BuildOptions, IdRef, Index};
-use crate::ingest::{read_corpus, IngestOptions, InputFormat, Normalize};
+use crate::ingest::{read_corpus, Corpus, IngestOptions, InputFormat, Normalize};
+use crate::metric::{Graph, MetricSpec};
 use crate::search::{CandidateSource, Found, Request, SearchParams, Searcher, Space};
 
 /// Near-neighbour search for strings that are not vectors.
@@ -69,10 +70,66 @@ impl From<SpaceArg> for Space {
     }
 }
 
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+enum MetricArg {
+    /// Edit distance: insertions, deletions, substitutions of characters (text; the default).
+    Levenshtein,
+    /// Edit distance that also counts swapping two adjacent characters as one edit (unrestricted).
+    Damerau,
+    /// Number of positions where two strings of one length differ (barcodes).
+    Hamming,
+    /// Edit distance with costs per character from --costs FILE.
+    Weighted,
+    /// 1 − |A∩B|/|A∪B| of token sets (--separator) or character q-grams (--qgrams).
+    Jaccard,
+    /// Sum of absolute differences of numeric vectors (CSV/TSV rows or .npy).
+    L1,
+    /// Euclidean distance of numeric vectors.
+    L2,
+    /// Largest absolute difference of numeric vectors.
+    Linf,
+    /// Angle between numeric vectors, divided by π.
+    Angular,
+    /// Shortest-path length in a weighted graph; the input is an edge list `a b weight`.
+    Graph,
+    /// Distances from your own program (after `--`), over the waymark-metric protocol.
+    External,
+}
+
+/// How items are compared: shared by `build`, `sweep` and `check-metric`.
+#[derive(Debug, Clone, clap::Args)]
+struct MetricArgs {
+    /// The distance items are compared by.
+    #[arg(long, value_enum, default_value = "levenshtein")]
+    metric: MetricArg,
+    /// weighted: the cost file (insert/delete and substitution costs per character).
+    #[arg(long, value_name = "FILE")]
+    costs: Option<PathBuf>,
+    /// jaccard: tokens are the pieces between this separator [default: white space].
+    #[arg(long, value_name = "SEP")]
+    separator: Option<String>,
+    /// jaccard: sets of Q consecutive characters instead of tokens.
+    #[arg(long, value_name = "Q", conflicts_with = "separator")]
+    qgrams: Option<usize>,
+    /// Vector input: the first line names the columns (skipped).
+    #[arg(long)]
+    header: bool,
+    /// external: time limit for each batch of distances, in seconds.
+    #[arg(long, value_name = "SECS", default_value_t = 30.0)]
+    timeout: f64,
+    /// external: the program and its arguments, after `--` (recorded in the index; every
+    /// process querying the index starts it).
+    #[arg(last = true, value_name = "COMMAND")]
+    command: Vec<String>,
+}
+
 #[derive(Debug, clap::Args)]
 struct BuildArgs {
-    /// Input file: text (one item per line), .csv/.tsv (with --field) or .jsonl (with --field).
+    /// Input file: text (one item per line), .csv/.tsv (with --field) or .jsonl (with --field);
+    /// for vector metrics one vector per line (or .npy); for graph an edge list.
     input: PathBuf,
+    #[command(flatten)]
+    metric: MetricArgs,
     /// Where to write the index (replaced atomically).
     #[arg(short = 'o', long = "output", value_name = "INDEX")]
     output: PathBuf,
@@ -242,6 +299,8 @@ struct EvalArgs {
 struct SweepArgs {
     /// Input file, as for `build`.
     input: PathBuf,
+    #[command(flatten)]
+    metric: MetricArgs,
     /// Queries, one per line (exact answers cached beside it).
     #[arg(long, value_name = "FILE")]
     queries: PathBuf,
@@ -358,7 +417,7 @@ fn exit_code(e: &anyhow::Error) -> u8 {
         if let Some(err) = c.downcast_ref::<Error>() {
             return match err {
                 Error::Index { .. } => 3,
-                Error::Ingest(_) | Error::Usage(_) | Error::Io { .. } => 2,
+                Error::Ingest(_) | Error::Usage(_) | Error::Io { .. } | Error::Metric(_) => 2,
             };
         }
         if c.downcast_ref::<crate::ingest::IngestError>().is_some() {
@@ -376,6 +435,158 @@ fn run(args: Args) -> anyhow::Result<()> {
         Command::Eval(a) => eval(a),
         Command::Sweep(a) => sweep(a),
     }
+}
+
+/// What the input of a build holds under its metric.
+struct Input {
+    corpus: Corpus,
+    spec: MetricSpec,
+    graph: Option<Graph>,
+}
+
+/// Reads the input of `build`, `sweep` or `check-metric` as the metric wants it: text records
+/// (with the ingest options), vectors, or an edge list whose nodes are the items.
+fn load_input(path: &Path, ingest: &IngestOptions, m: &MetricArgs) -> anyhow::Result<Input> {
+    use crate::metric::{CostTable, Norm, Tokens};
+    let usage = |msg: String| -> anyhow::Error { Error::Usage(msg).into() };
+    let name = m.metric.to_possible_value().expect("no skipped values");
+    let name = name.get_name();
+    let only = |flag: &str, set: bool, for_metric: &str| -> anyhow::Result<()> {
+        if set && name != for_metric {
+            return Err(usage(format!(
+                "{flag} is an option of --metric {for_metric}, not of --metric {name}"
+            )));
+        }
+        Ok(())
+    };
+    only("--costs", m.costs.is_some(), "weighted")?;
+    only("--separator", m.separator.is_some(), "jaccard")?;
+    only("--qgrams", m.qgrams.is_some(), "jaccard")?;
+    only("a command after --", !m.command.is_empty(), "external")?;
+    let vector = match m.metric {
+        MetricArg::L1 => Some(Norm::L1),
+        MetricArg::L2 => Some(Norm::L2),
+        MetricArg::Linf => Some(Norm::Linf),
+        MetricArg::Angular => Some(Norm::Angular),
+        _ => None,
+    };
+    if m.header && vector.is_none() {
+        return Err(usage(format!(
+            "--header is for vector inputs (--metric l1, l2, linf or angular), not --metric {name}"
+        )));
+    }
+    let text_options_given = ingest.field.is_some()
+        || ingest.id_field.is_some()
+        || ingest.format.is_some()
+        || !ingest.normalize.is_identity();
+    if (vector.is_some() || m.metric == MetricArg::Graph) && text_options_given {
+        return Err(usage(format!(
+            "--field, --id-field, --input-format, --fold-case and --trim are for text inputs; \
+             --metric {name} reads {}",
+            if vector.is_some() {
+                "one vector per line (or a .npy file)"
+            } else {
+                "an edge list"
+            }
+        )));
+    }
+    let source = path.display().to_string();
+    if let Some(norm) = vector {
+        let v = crate::ingest::vectors::read_vectors(
+            path,
+            &crate::ingest::vectors::VectorOptions {
+                format: None,
+                header: m.header,
+            },
+        )
+        .map_err(Error::from)?;
+        let n = v.items.len();
+        let corpus = Corpus {
+            items: v.rows,
+            keys: Some(v.items),
+            ids: crate::ingest::Ids::Int((0..n as i64).collect()),
+            blank_skipped: 0,
+            records: n,
+        };
+        let spec = MetricSpec::Vector {
+            norm,
+            dim: u32::try_from(v.dim).map_err(|_| usage(format!("{source}: too many columns")))?,
+        };
+        return Ok(Input {
+            corpus,
+            spec,
+            graph: None,
+        });
+    }
+    if m.metric == MetricArg::Graph {
+        let g = Graph::from_path(path).map_err(Error::from)?;
+        let names: Vec<String> = (0..g.len() as u32)
+            .map(|v| String::from_utf8_lossy(g.name(v)).into_owned())
+            .collect();
+        let corpus = Corpus {
+            records: names.len(),
+            items: names.clone(),
+            keys: None,
+            ids: crate::ingest::Ids::Text(names),
+            blank_skipped: 0,
+        };
+        return Ok(Input {
+            corpus,
+            spec: MetricSpec::Graph,
+            graph: Some(g),
+        });
+    }
+    let spec = match m.metric {
+        MetricArg::Levenshtein => MetricSpec::Levenshtein,
+        MetricArg::Damerau => MetricSpec::Damerau,
+        MetricArg::Hamming => MetricSpec::Hamming { length: 0 },
+        MetricArg::Weighted => {
+            let file = m
+                .costs
+                .as_ref()
+                .ok_or_else(|| usage("--metric weighted needs --costs FILE".into()))?;
+            let table = CostTable::from_path(file).map_err(Error::from)?;
+            MetricSpec::WeightedEdit {
+                costs: table.rules().clone(),
+            }
+        }
+        MetricArg::Jaccard => MetricSpec::Jaccard {
+            tokens: match (&m.qgrams, &m.separator) {
+                (Some(q), _) => Tokens::QGrams(*q),
+                (None, Some(s)) => Tokens::Separator(s.clone()),
+                (None, None) => Tokens::Whitespace,
+            },
+        },
+        MetricArg::External => {
+            if m.command.is_empty() {
+                return Err(usage(
+                    "--metric external needs the program after `--`, e.g. \
+                     `-- python3 my_metric.py`"
+                        .into(),
+                ));
+            }
+            if !(m.timeout.is_finite() && m.timeout > 0.0) {
+                return Err(usage(format!(
+                    "--timeout must be a positive number of seconds, not {}",
+                    m.timeout
+                )));
+            }
+            MetricSpec::External {
+                command: m.command.clone(),
+                timeout_ms: (m.timeout * 1000.0).ceil() as u64,
+            }
+        }
+        _ => unreachable!("vector and graph metrics are handled above"),
+    };
+    if let MetricSpec::Jaccard { tokens } = &spec {
+        crate::metric::Jaccard::new(tokens.clone()).map_err(Error::from)?;
+    }
+    let corpus = read_corpus(path, ingest).map_err(Error::from)?;
+    Ok(Input {
+        corpus,
+        spec,
+        graph: None,
+    })
 }
 
 fn build(a: BuildArgs) -> anyhow::Result<()> {
@@ -408,10 +619,18 @@ fn build(a: BuildArgs) -> anyhow::Result<()> {
     if let Ok(m) = std::fs::metadata(&a.input) {
         crate::resources::check_input(&source_name, m.len())?;
     }
-    let corpus = read_corpus(&a.input, &opts).map_err(Error::from)?;
+    let Input {
+        corpus,
+        spec,
+        graph,
+    } = load_input(&a.input, &opts, &a.metric)?;
     let read_seconds = t0.elapsed().as_secs_f64();
     let n = corpus.items.len();
-    let text_bytes: usize = corpus.items.iter().map(String::len).sum();
+    let text_bytes: usize = corpus.items.iter().map(String::len).sum::<usize>()
+        + corpus
+            .keys
+            .as_ref()
+            .map_or(0, |k| k.iter().map(Vec::len).sum());
     crate::resources::check_build(&source_name, n, text_bytes, a.dim)?;
     let bar = if std::io::stderr().is_terminal() && !a.quiet {
         let b = indicatif::ProgressBar::new(n as u64);
@@ -430,7 +649,8 @@ fn build(a: BuildArgs) -> anyhow::Result<()> {
         &corpus,
         &source,
         &BuildOptions {
-            metric: crate::metric::MetricKind::Levenshtein,
+            metric: spec,
+            graph,
             method: a.embedding.into(),
             dim: a.dim,
             seed: a.seed,
@@ -530,8 +750,9 @@ fn query(a: QueryArgs) -> anyhow::Result<()> {
             break;
         }
         let answers = searcher.answer_many(&block, &request);
-        for (q, ans) in block.iter().zip(answers) {
-            let found = ans?;
+        let first_line = lines.line + 1 - block.len();
+        for (j, (q, ans)) in block.iter().zip(answers).enumerate() {
+            let found = ans.map_err(|e| at_query_line(e, &lines.name, first_line + j))?;
             answered += 1;
             distances += found.distances;
             exact_hits += usize::from(found.neighbors.first().is_some_and(|n| n.distance == 0.0));
@@ -554,6 +775,16 @@ fn query(a: QueryArgs) -> anyhow::Result<()> {
         );
     }
     Ok(())
+}
+
+/// Names the query line in a query's error (a query the metric cannot take, a failing
+/// metric program); errors of the index itself stay as they are.
+fn at_query_line(e: Error, name: &str, line: usize) -> Error {
+    match e {
+        Error::Usage(m) => Error::Usage(format!("{name}:{line}: {m}")),
+        Error::Metric(m) => Error::Usage(format!("{name}:{line}: {m}")),
+        other => other,
+    }
 }
 
 struct QueryLines {
@@ -851,6 +1082,13 @@ fn eval(a: EvalArgs) -> anyhow::Result<()> {
     let mut out = std::io::stdout().lock();
     if let Some(qpath) = &a.queries {
         let queries = read_query_file(qpath)?;
+        // Every query must suit the metric before any is measured.
+        let searcher = Searcher::new(&index);
+        for (i, q) in queries.iter().enumerate() {
+            searcher
+                .prepare(q)
+                .map_err(|e| at_query_line(e, &qpath.display().to_string(), i + 1))?;
+        }
         if a.no_cache {
             let key = crate::eval::truth::index_key(&index);
             let _ = std::fs::remove_file(crate::eval::truth::cache_path(qpath, &key, a.k));
@@ -933,8 +1171,9 @@ fn eval(a: EvalArgs) -> anyhow::Result<()> {
     if a.distortion {
         let keys = index.keys();
         let items: Vec<&[u8]> = (0..index.len()).map(|i| keys.get(i)).collect();
+        let metric = index.metric()?;
         let r = measure_distortion(
-            &crate::metric::Levenshtein,
+            metric,
             &items,
             &index.meta().embedding,
             a.pairs,
@@ -1035,6 +1274,8 @@ fn sweep(a: SweepArgs) -> anyhow::Result<()> {
         sample: a.landmark_sample,
         pool: a.pool,
         normalize,
+        metric: MetricSpec::Levenshtein,
+        graph: None,
     };
     if let Some(&d) = opts
         .dims
@@ -1056,7 +1297,11 @@ fn sweep(a: SweepArgs) -> anyhow::Result<()> {
         FormatArg::Tsv => InputFormat::Csv { delimiter: b'\t' },
         FormatArg::Jsonl => InputFormat::JsonLines,
     });
-    let corpus = read_corpus(
+    let Input {
+        corpus,
+        spec,
+        graph,
+    } = load_input(
         &a.input,
         &IngestOptions {
             format,
@@ -1064,8 +1309,13 @@ fn sweep(a: SweepArgs) -> anyhow::Result<()> {
             id_field: a.id_field.clone(),
             normalize,
         },
-    )
-    .map_err(Error::from)?;
+        &a.metric,
+    )?;
+    let opts = SweepOptions {
+        metric: spec,
+        graph,
+        ..opts
+    };
     let queries = read_query_file(&a.queries)?;
     let configs = opts.configurations() as u64;
     let bar = counting_bar(queries.len() as u64 + configs, "sweep", !a.quiet);

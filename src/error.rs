@@ -24,6 +24,10 @@ pub enum Error {
         /// What is wrong with it.
         message: String,
     },
+    /// A metric could not be set up or failed (bad cost file or edge list, an external
+    /// program that exited or hung, an item the metric cannot take).
+    #[error(transparent)]
+    Metric(#[from] crate::metric::MetricError),
     /// The parameters given are impossible (e.g. `k = 0`).
     #[error("{0}")]
     Usage(String),

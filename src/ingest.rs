@@ -30,6 +30,8 @@ use serde::{Deserialize, Serialize};
 
 pub mod vectors;
 
+pub use vectors::parse_vector;
+
 /// The UTF-8 byte-order mark, dropped at the start of an input.
 const BOM: &[u8] = b"\xEF\xBB\xBF";
 
@@ -135,14 +137,25 @@ impl Ids {
 pub struct Corpus {
     /// Items as given (without line endings).
     pub items: Vec<String>,
-    /// Comparison forms after normalisation; `None` when it changes no item.
-    pub keys: Option<Vec<String>>,
+    /// Comparison forms as the metric reads them: the items after normalisation (UTF-8),
+    /// or encoded vectors; `None` when they are the items' own bytes.
+    pub keys: Option<Vec<Vec<u8>>>,
     /// One id per item.
     pub ids: Ids,
     /// Records skipped because their item was empty.
     pub blank_skipped: usize,
     /// Records read, including skipped ones.
     pub records: usize,
+}
+
+impl Corpus {
+    /// The bytes each item is compared by: its key, or the item itself.
+    pub fn key_bytes(&self) -> Vec<&[u8]> {
+        match &self.keys {
+            Some(k) => k.iter().map(Vec::as_slice).collect(),
+            None => self.items.iter().map(String::as_bytes).collect(),
+        }
+    }
 }
 
 /// What went wrong reading an input, and where.
@@ -225,7 +238,7 @@ struct Builder<'a> {
     name: &'a str,
     opts: &'a IngestOptions,
     items: Vec<String>,
-    keys: Vec<String>,
+    keys: Vec<Vec<u8>>,
     keys_differ: bool,
     int_ids: Vec<i64>,
     text_ids: Vec<String>,
@@ -304,10 +317,10 @@ impl<'a> Builder<'a> {
         if !self.keys_differ && key.as_ref() != item.as_str() {
             // The first item whose key differs: earlier items are their own keys.
             self.keys_differ = true;
-            self.keys = self.items.clone();
+            self.keys = self.items.iter().map(|s| s.as_bytes().to_vec()).collect();
         }
         if self.keys_differ {
-            self.keys.push(key.into_owned());
+            self.keys.push(key.into_owned().into_bytes());
         }
         self.items.push(item);
         Ok(())

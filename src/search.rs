@@ -38,7 +38,10 @@ use serde::{Deserialize, Serialize};
 use crate::embed::Bound;
 use crate::error::{Error, Result};
 use crate::index::{Index, StrTable};
-use crate::metric::{Levenshtein, LevenshteinQuery, Metric, PreparedQuery};
+use crate::metric::{
+    vector_bytes, AnyMetric, AnyQuery, Levenshtein, LevenshteinQuery, Metric, MetricSpec,
+    PreparedQuery,
+};
 
 /// Default embedding dimension, chosen from `benches/end_to_end.rs` (see the README).
 pub const DEFAULT_DIM: usize = 64;
@@ -267,21 +270,26 @@ impl<'a> Searcher<'a> {
         self.index
     }
 
-    /// Prepares a query: applies the index's normalisation and builds the kernel's masks.
-    pub fn prepare(&self, query: &str) -> LevenshteinQuery {
-        prepare_query(self.index, query)
+    /// Prepares a query for the index's metric: text is normalised as the items were (and
+    /// for Levenshtein gets the kernel's masks), a vector row is parsed, a graph query must
+    /// name a node. A query the metric cannot take is refused with the reason.
+    pub fn prepare(&self, query: &str) -> Result<AnyQuery> {
+        prepare_any(self.index, query)
     }
 
     /// Coordinates of a prepared query, as stored (u8, quantised) and exact.
-    fn embed(&self, q: &LevenshteinQuery, small: &mut [u8; 64], exact: &mut [f32; 64]) {
+    fn embed(&self, q: &AnyQuery, small: &mut [u8; 64], exact: &mut [f32; 64]) -> Result<()> {
         let meta = self.index.meta();
-        let dists: Vec<f64> = self.refs.iter().map(|r| q.distance(r)).collect();
+        let mut dists = vec![0.0; self.refs.len()];
+        q.distances(&self.refs, &mut dists);
+        self.index.metric()?.check()?;
         let mut coords = [0f64; 64];
         meta.embedding.coords(&dists, &mut coords);
         for j in 0..meta.dim as usize {
             exact[j] = coords[j] as f32;
             small[j] = crate::embed::quantize(coords[j], meta.scale);
         }
+        Ok(())
     }
 
     /// Finds approximate k nearest neighbours of `query`.
@@ -292,10 +300,10 @@ impl<'a> Searcher<'a> {
         if p.candidates == 0 {
             return Err(Error::Usage("--candidates must be at least 1".into()));
         }
-        let q = self.prepare(query);
+        let q = self.prepare(query)?;
         let mut small = [0u8; 64];
         let mut exact = [0f32; 64];
-        self.embed(&q, &mut small, &mut exact);
+        self.embed(&q, &mut small, &mut exact)?;
         let n = self.index.len();
         let c = p.candidates.max(p.k).min(n);
         match p.source {
@@ -312,7 +320,13 @@ impl<'a> Searcher<'a> {
                     .extend(scratch.tree_out.iter().map(|&(i, _)| (0, i)));
             }
         }
-        let mut found = self.rerank(&q, &small, p.k, &scratch.picked);
+        let metric = self.index.metric()?;
+        let mut found = if metric.prefers_batches() {
+            self.rerank_batch(&q, p.k, &scratch.picked)
+        } else {
+            self.rerank(&q, &small, p.k, &scratch.picked)
+        };
+        metric.check()?;
         found.distances += self.refs.len();
         Ok(found)
     }
@@ -370,14 +384,29 @@ impl<'a> Searcher<'a> {
         select_best(&s.scores, c, &s.hist, &mut s.picked);
     }
 
+    /// Re-ranks candidates by the true distance asked for in one batch (for metrics whose
+    /// every call is a round trip to another program).
+    fn rerank_batch(&self, q: &AnyQuery, k: usize, cands: &[(u32, u32)]) -> Found {
+        let items: Vec<&[u8]> = cands
+            .iter()
+            .map(|&(_, i)| self.keys.get(i as usize))
+            .collect();
+        let mut d = vec![0.0; items.len()];
+        q.distances(&items, &mut d);
+        let mut best: Vec<Neighbor> = Vec::with_capacity(k + 1);
+        for (&(_, i), &distance) in cands.iter().zip(&d) {
+            keep_best(self.index, &mut best, k, Neighbor { index: i, distance });
+        }
+        Found {
+            neighbors: best,
+            distances: items.len(),
+            pruned: 0,
+            certificate: None,
+        }
+    }
+
     /// Re-ranks candidates (in the order given) by the true distance.
-    fn rerank(
-        &self,
-        q: &LevenshteinQuery,
-        small: &[u8; 64],
-        k: usize,
-        cands: &[(u32, u32)],
-    ) -> Found {
+    fn rerank(&self, q: &AnyQuery, small: &[u8; 64], k: usize, cands: &[(u32, u32)]) -> Found {
         let stride = self.index.stride();
         let coords = self.index.coords();
         let bound = self.bound;
@@ -547,10 +576,10 @@ impl<'a> Searcher<'a> {
         s: &mut Scratch,
     ) -> Result<Found> {
         let bound = self.require_bound()?;
-        let q = self.prepare(query);
+        let q = self.prepare(query)?;
         let mut small = [0u8; 64];
         let mut exact = [0f32; 64];
-        self.embed(&q, &mut small, &mut exact);
+        self.embed(&q, &mut small, &mut exact)?;
         let n = self.index.len();
         let keep = k.unwrap_or(usize::MAX);
         let r = radius.unwrap_or(f64::INFINITY);
@@ -662,6 +691,7 @@ impl<'a> Searcher<'a> {
                 }
             });
         }
+        self.index.metric()?.check()?;
         cert.bound = s
             .hist
             .iter()
@@ -737,7 +767,42 @@ fn bucket_order(
     starts
 }
 
-/// Prepares `query` for `index`: its normalisation, then the kernel's masks.
+/// Prepares `query` for `index`'s metric (see [`Searcher::prepare`]).
+pub(crate) fn prepare_any(index: &Index, query: &str) -> Result<AnyQuery> {
+    let metric = index.metric()?;
+    let meta = index.meta();
+    let key: Vec<u8> = match &meta.metric_spec {
+        MetricSpec::Vector { dim, .. } => {
+            let v = crate::ingest::parse_vector(query, *dim as usize).map_err(Error::Usage)?;
+            vector_bytes(&v)
+        }
+        MetricSpec::Graph => {
+            if let AnyMetric::Graph(g) = metric {
+                if g.graph().node(query.as_bytes()).is_none() {
+                    return Err(Error::Usage(format!(
+                        "`{query}` is not a node of the graph"
+                    )));
+                }
+            }
+            query.as_bytes().to_vec()
+        }
+        MetricSpec::Hamming { length } => {
+            let key = meta.normalize.apply(query);
+            let n = key.chars().count() as u64;
+            if n != *length {
+                return Err(Error::Usage(format!(
+                    "the query has {n} characters; Hamming distance needs the items' length, {length}"
+                )));
+            }
+            key.into_owned().into_bytes()
+        }
+        _ => meta.normalize.apply(query).into_owned().into_bytes(),
+    };
+    Ok(metric.prepare(&key))
+}
+
+/// Prepares `query` for the Levenshtein fast paths: its normalisation, then the kernel's
+/// masks (whatever the index's metric; callers check it is Levenshtein).
 pub(crate) fn prepare_query(index: &Index, query: &str) -> LevenshteinQuery {
     let key = index.meta().normalize.apply(query);
     Levenshtein.prepare(key.as_bytes())

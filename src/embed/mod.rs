@@ -91,12 +91,16 @@ pub fn choose_landmarks<M: Metric, T: AsRef<[u8]> + Sync>(
     while chosen.len() < opts.dim {
         let last = metric.prepare(items[*chosen.last().expect("non-empty")].as_ref());
         nearest
-            .par_iter_mut()
-            .zip(pool.par_iter())
-            .for_each(|(best, &i)| {
-                let d = last.distance(items[i].as_ref());
-                if d < *best {
-                    *best = d;
+            .par_chunks_mut(1024)
+            .zip(pool.par_chunks(1024))
+            .for_each(|(best, ids)| {
+                let chunk: Vec<&[u8]> = ids.iter().map(|&i| items[i].as_ref()).collect();
+                let mut d = vec![0.0; chunk.len()];
+                last.distances(&chunk, &mut d);
+                for (b, d) in best.iter_mut().zip(d) {
+                    if d < *b {
+                        *b = d;
+                    }
                 }
             });
         let (pos, far) =
@@ -415,7 +419,22 @@ impl Embedded {
     /// whole distances that fit a byte's range (exact storage), else the largest coordinate
     /// over 255, so that the range of the build's coordinates uses every byte value.
     pub fn scale(&self, integral_metric: bool) -> f64 {
-        let max = self.coords.iter().copied().fold(0.0, f64::max);
+        self.scale_with(integral_metric, f64::INFINITY)
+    }
+
+    /// As [`Embedded::scale`] for real-valued coordinates, but from the coordinates below
+    /// `limit` only (larger ones saturate at 255).
+    pub fn scale_below(&self, limit: f64) -> f64 {
+        self.scale_with(false, limit)
+    }
+
+    fn scale_with(&self, integral_metric: bool, limit: f64) -> f64 {
+        let max = self
+            .coords
+            .iter()
+            .copied()
+            .filter(|&x| x < limit)
+            .fold(0.0, f64::max);
         if self.embedding.distance_valued() && integral_metric && max <= 255.0 {
             return 1.0;
         }
@@ -508,19 +527,30 @@ pub fn embed_with<M: Metric, T: AsRef<[u8]> + Sync>(
         .map(|&l| metric.prepare(items[l as usize].as_ref()))
         .collect();
     const CHUNK: usize = 1024;
+    let refs = prepared.len();
     out.par_chunks_mut(CHUNK * d)
         .enumerate()
         .for_each(|(c, rows)| {
             let start = c * CHUNK;
-            let mut dists = vec![0.0; prepared.len()];
+            let len = rows.len() / d;
+            let chunk: Vec<&[u8]> = items[start..start + len]
+                .iter()
+                .map(|t| t.as_ref())
+                .collect();
+            // One batch per reference item ([`PreparedQuery::distances`]: the SIMD lanes of
+            // the Levenshtein kernel, one request to an external program), reference-major.
+            let mut by_ref = vec![0.0; refs * len];
+            for (p, col) in prepared.iter().zip(by_ref.chunks_exact_mut(len)) {
+                p.distances(&chunk, col);
+            }
+            let mut dists = vec![0.0; refs];
             for (r, row) in rows.chunks_exact_mut(d).enumerate() {
-                let item = items[start + r].as_ref();
-                for (o, p) in dists.iter_mut().zip(&prepared) {
-                    *o = p.distance(item);
+                for (j, o) in dists.iter_mut().enumerate() {
+                    *o = by_ref[j * len + r];
                 }
                 embedding.coords(&dists, row);
             }
-            progress(rows.len() / d);
+            progress(len);
         });
     out
 }

@@ -19,6 +19,7 @@
 //! assert_eq!(threshold_recall(&[1.0, 2.0], &[(7, 1.0), (9, 2.0)], 2), 1.0);
 //! ```
 
+mod brute;
 pub mod distortion;
 mod measure;
 pub mod plot;
@@ -27,6 +28,7 @@ mod scan;
 pub mod sweep;
 pub mod truth;
 
+pub use brute::brute_force;
 pub use distortion::{measure_distortion, DistortionReport};
 pub use measure::{measure_recall, RecallRow};
 pub use recall::{plain_recall, threshold_recall, typo_queries, RECALL_EPSILON};

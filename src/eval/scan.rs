@@ -122,6 +122,13 @@ pub enum Scan {
 
 /// Runs a brute force for many queries on all cores, answers in input order.
 pub fn scan_many(index: &Index, queries: &[String], k: usize, scan: Scan) -> Vec<Vec<Neighbor>> {
+    if index.meta().metric != crate::metric::MetricKind::Levenshtein {
+        // No dedicated scans for the other metrics: both are the plain brute force.
+        return queries
+            .par_iter()
+            .map(|q| super::brute_force(index, q, k))
+            .collect();
+    }
     let ascii = scan == Scan::Best && all_ascii(index);
     queries
         .par_iter()

@@ -32,11 +32,11 @@ use crate::embed::{embed_items, EmbedOptions, Method, MAX_DIM};
 use crate::error::{Error, Result};
 use crate::index::{build_index_from, BuildOptions, Index};
 use crate::ingest::{Corpus, Normalize};
-use crate::metric::Levenshtein;
+use crate::metric::{Graph, MetricSpec};
 use crate::search::Space;
 
 /// What to sweep over.
-#[derive(Clone, Debug, PartialEq)]
+#[derive(Clone, Debug)]
 pub struct SweepOptions {
     /// Embedding methods.
     pub methods: Vec<Method>,
@@ -56,6 +56,10 @@ pub struct SweepOptions {
     pub pool: usize,
     /// The normalisation the corpus keys were made with.
     pub normalize: Normalize,
+    /// The metric.
+    pub metric: MetricSpec,
+    /// The graph of a graph metric.
+    pub graph: Option<Graph>,
 }
 
 impl Default for SweepOptions {
@@ -70,6 +74,8 @@ impl Default for SweepOptions {
             sample: 4096,
             pool: crate::embed::DEFAULT_POOL,
             normalize: Normalize::default(),
+            metric: MetricSpec::Levenshtein,
+            graph: None,
         }
     }
 }
@@ -188,15 +194,18 @@ pub fn run_sweep(
             path: out_dir.to_path_buf(),
             source,
         })?;
-    let keys: &[String] = corpus.keys.as_deref().unwrap_or(&corpus.items);
+    let keys = corpus.key_bytes();
     let max_dim = *opts.dims.iter().max().expect("non-empty");
     let base = BuildOptions {
         seed: opts.seed,
         sample: opts.sample,
         pool: opts.pool,
         normalize: opts.normalize,
+        metric: opts.metric.clone(),
+        graph: opts.graph.clone(),
         ..BuildOptions::default()
     };
+    let (_, metric) = crate::index::open_metric(&keys, source, &base)?;
     let mut rows = Vec::with_capacity(opts.configurations());
     let mut embed_seconds = Vec::new();
     let mut truth = None;
@@ -205,8 +214,8 @@ pub fn run_sweep(
     for &method in &opts.methods {
         let t = Instant::now();
         let full = embed_items(
-            &Levenshtein,
-            keys,
+            &metric,
+            &keys,
             &EmbedOptions {
                 method,
                 dim: max_dim,
@@ -216,6 +225,7 @@ pub fn run_sweep(
             },
             &|_| {},
         );
+        metric.check()?;
         embed_seconds.push((method.name(), t.elapsed().as_secs_f64()));
         for &dim in &opts.dims {
             let e = full.prefix(dim);

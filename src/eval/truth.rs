@@ -14,7 +14,7 @@ use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use sha2::{Digest, Sha256};
 
-use super::scan::full_scan;
+use super::brute::brute_force;
 use crate::error::{Error, Result};
 use crate::index::{IdRef, Index};
 use crate::search::Neighbor;
@@ -120,7 +120,7 @@ pub fn cache_path(queries_file: &Path, index_key: &str, k: usize) -> PathBuf {
     queries_file.with_file_name(format!("{name}.truth-{}-k{k}.json", &index_key[..16]))
 }
 
-/// Exact answers by brute force on all cores ([`full_scan`]); `progress` is called with the
+/// Exact answers by brute force on all cores ([`brute_force`]); `progress` is called with the
 /// number of queries done since the last call.
 pub fn compute_truth(
     index: &Index,
@@ -131,7 +131,7 @@ pub fn compute_truth(
     let answers = queries
         .par_iter()
         .map(|q| {
-            let a = full_scan(index, q, k);
+            let a = brute_force(index, q, k);
             progress(1);
             a
         })

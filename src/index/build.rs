@@ -8,14 +8,16 @@ use super::{coord_stride, tree, IdKind, IndexMeta};
 use crate::embed::{embed_items, quantize, EmbedOptions, Embedded, Method, MAX_DIM};
 use crate::error::{Error, Result};
 use crate::ingest::{Corpus, Ids, Normalize};
-use crate::metric::{Levenshtein, Metric, MetricKind};
+use crate::metric::{check_equal_lengths, AnyMetric, Graph, MetricSpec};
 use crate::search::Space;
 
 /// Parameters of a build.
 #[derive(Clone, Debug)]
 pub struct BuildOptions {
-    /// The metric (only Levenshtein so far).
-    pub metric: MetricKind,
+    /// The metric and its parameters (for Hamming, the length is filled in from the items).
+    pub metric: MetricSpec,
+    /// The graph of a [`MetricSpec::Graph`] index (its nodes are the corpus's items).
+    pub graph: Option<Graph>,
     /// Embedding method.
     pub method: Method,
     /// Embedding dimension: number of coordinates, 1 to 64.
@@ -37,7 +39,8 @@ pub struct BuildOptions {
 impl Default for BuildOptions {
     fn default() -> Self {
         BuildOptions {
-            metric: MetricKind::Levenshtein,
+            metric: MetricSpec::Levenshtein,
+            graph: None,
             method: Method::Landmarks,
             dim: crate::search::DEFAULT_DIM,
             seed: 0,
@@ -87,13 +90,14 @@ pub fn build_index(
     progress: &(dyn Fn(usize) + Sync),
 ) -> Result<BuildReport> {
     check_options(corpus, source, opts)?;
+    let keys = corpus.key_bytes();
+    let (spec, metric) = open_metric(&keys, source, opts)?;
     // Start the file first: an unwritable destination fails before the expensive part.
     let writer = ContainerWriter::create(dest)?;
-    let keys: &[String] = corpus.keys.as_deref().unwrap_or(&corpus.items);
     let t0 = Instant::now();
     let embedded = embed_items(
-        &Levenshtein,
-        keys,
+        &metric,
+        &keys,
         &EmbedOptions {
             method: opts.method,
             dim: opts.dim,
@@ -103,8 +107,61 @@ pub fn build_index(
         },
         progress,
     );
+    metric.check()?;
     let embed_seconds = t0.elapsed().as_secs_f64();
-    write_index(corpus, source, opts, &embedded, writer, dest, embed_seconds)
+    write_index(
+        corpus,
+        source,
+        opts,
+        &spec,
+        &embedded,
+        writer,
+        dest,
+        embed_seconds,
+    )
+}
+
+/// The metric of a build (opened), checked against the items: Hamming items must have one length
+/// (which is recorded), vector items the recorded dimension, graph items be the graph's
+/// nodes.
+pub fn open_metric(
+    keys: &[&[u8]],
+    source: &str,
+    opts: &BuildOptions,
+) -> Result<(MetricSpec, AnyMetric)> {
+    let mut spec = opts.metric.clone();
+    match &mut spec {
+        MetricSpec::Hamming { length } => {
+            let l = check_equal_lengths(keys.iter().copied())
+                .map_err(|e| Error::Usage(format!("{source}: {e}")))?;
+            *length = l.unwrap_or(0) as u64;
+        }
+        MetricSpec::Vector { dim, .. } => {
+            let want = *dim as usize * 4;
+            if let Some(i) = keys.iter().position(|k| k.len() != want) {
+                return Err(Error::Usage(format!(
+                    "{source}: record {}: {} components, the index has {dim}",
+                    i + 1,
+                    keys[i].len() / 4
+                )));
+            }
+        }
+        MetricSpec::Graph => {
+            let g = opts.graph.as_ref().ok_or_else(|| {
+                Error::Usage(format!("{source}: the graph metric needs the graph"))
+            })?;
+            if let Some(i) = keys.iter().position(|k| g.node(k).is_none()) {
+                return Err(Error::Usage(format!(
+                    "{source}: record {}: `{}` is not a node of the graph",
+                    i + 1,
+                    String::from_utf8_lossy(keys[i])
+                )));
+            }
+        }
+        _ => {}
+    }
+    let metric = spec.open(opts.graph.clone())?;
+    Ok((spec, metric))
 }
 
 /// Builds an index of `corpus` at `dest` from coordinates already computed (for example a
@@ -118,6 +175,7 @@ pub fn build_index_from(
     dest: &Path,
 ) -> Result<BuildReport> {
     check_options(corpus, source, opts)?;
+    let (spec, _) = open_metric(&corpus.key_bytes(), source, opts)?;
     if embedded.n != corpus.items.len() || embedded.dim() == 0 || embedded.dim() > MAX_DIM {
         return Err(Error::Usage(format!(
             "{source}: the embedding given has {} items and {} coordinates; the corpus has {} items",
@@ -127,7 +185,7 @@ pub fn build_index_from(
         )));
     }
     let writer = ContainerWriter::create(dest)?;
-    write_index(corpus, source, opts, embedded, writer, dest, 0.0)
+    write_index(corpus, source, opts, &spec, embedded, writer, dest, 0.0)
 }
 
 fn check_options(corpus: &Corpus, source: &str, opts: &BuildOptions) -> Result<()> {
@@ -156,17 +214,19 @@ fn check_options(corpus: &Corpus, source: &str, opts: &BuildOptions) -> Result<(
     Ok(())
 }
 
+#[allow(clippy::too_many_arguments)]
 fn write_index(
     corpus: &Corpus,
     source: &str,
     opts: &BuildOptions,
+    spec: &MetricSpec,
     embedded: &Embedded,
     mut writer: ContainerWriter,
     dest: &Path,
     embed_seconds: f64,
 ) -> Result<BuildReport> {
     let n = corpus.items.len();
-    let metric = Levenshtein;
+    let kind = spec.kind();
     let dim = embedded.dim();
     if dim == 0 {
         return Err(Error::Usage(format!(
@@ -176,7 +236,12 @@ fn write_index(
     }
     let coords = &embedded.coords;
     let stride = coord_stride(dim);
-    let scale = embedded.scale(metric.kind().is_integral());
+    let scale = match (&opts.graph, spec) {
+        // Nodes in other components are at one large distance that says nothing about
+        // nearness: the scale comes from the other coordinates and that one saturates.
+        (Some(g), MetricSpec::Graph) => embedded.scale_below(g.disconnected_distance()),
+        _ => embedded.scale(kind.is_integral()),
+    };
     let mut small = vec![0u8; n * stride];
     for (row, c) in small.chunks_exact_mut(stride).zip(coords.chunks_exact(dim)) {
         for (b, &x) in row.iter_mut().zip(c) {
@@ -195,7 +260,8 @@ fn write_index(
     let t2 = Instant::now();
     let meta = IndexMeta {
         n: n as u64,
-        metric: metric.kind(),
+        metric: kind,
+        metric_spec: spec.clone(),
         normalize: opts.normalize,
         dim: dim as u32,
         stride: stride as u32,
@@ -235,6 +301,9 @@ fn write_index(
             writer.add(SectionKind::IdOffsets, &o)?;
             writer.add(SectionKind::IdBytes, &b)?;
         }
+    }
+    if let (MetricSpec::Graph, Some(g)) = (spec, &opts.graph) {
+        writer.add(SectionKind::Graph, g.to_edge_list().as_bytes())?;
     }
     writer.add(SectionKind::Coords, &small)?;
     writer.add_aligned(SectionKind::Tree, &tree_bytes, super::file::TREE_ALIGN)?;

@@ -66,10 +66,12 @@ pub enum SectionKind {
     Coords = 9,
     /// The kd-tree over the f32 coordinates, as a zero-copy archive.
     Tree = 10,
+    /// The graph of a graph-metric index, as an edge list (`a b weight` lines, UTF-8).
+    Graph = 11,
 }
 
 impl SectionKind {
-    const ALL: [SectionKind; 10] = [
+    const ALL: [SectionKind; 11] = [
         SectionKind::Meta,
         SectionKind::ItemOffsets,
         SectionKind::ItemBytes,
@@ -80,6 +82,7 @@ impl SectionKind {
         SectionKind::IdBytes,
         SectionKind::Coords,
         SectionKind::Tree,
+        SectionKind::Graph,
     ];
 
     fn from_u32(v: u32) -> Option<SectionKind> {
@@ -99,12 +102,14 @@ impl SectionKind {
             SectionKind::IdBytes => "id-text",
             SectionKind::Coords => "coordinates",
             SectionKind::Tree => "kd-tree",
+            SectionKind::Graph => "graph",
         }
     }
 
-    /// Sections small enough to check at every open without the cost growing with n.
+    /// Sections checked at every open: the small metadata, and the graph, which every query
+    /// of a graph index parses whole anyway.
     fn checked_at_open(self) -> bool {
-        matches!(self, SectionKind::Meta)
+        matches!(self, SectionKind::Meta | SectionKind::Graph)
     }
 }
 

@@ -26,12 +26,12 @@ use std::sync::OnceLock;
 use memmap2::Mmap;
 use serde::{Deserialize, Serialize};
 
-pub use build::{build_index, build_index_from, BuildOptions, BuildReport};
+pub use build::{build_index, build_index_from, open_metric, BuildOptions, BuildReport};
 use file::{Section, SectionKind};
 
 use crate::error::{Error, Result};
 use crate::ingest::Normalize;
-use crate::metric::MetricKind;
+use crate::metric::{AnyMetric, Graph, MetricKind, MetricSpec};
 use crate::search::Space;
 
 /// How the ids of an index are typed.
@@ -51,6 +51,9 @@ pub struct IndexMeta {
     pub n: u64,
     /// The metric items are compared with.
     pub metric: MetricKind,
+    /// The metric's parameters (files written before they were recorded are Levenshtein).
+    #[serde(default)]
+    pub metric_spec: MetricSpec,
     /// Normalisation applied to items and, automatically, to queries.
     pub normalize: Normalize,
     /// Embedding dimension (number of coordinates).
@@ -105,6 +108,8 @@ pub struct Index {
     coords: Range<usize>,
     tree: Range<usize>,
     tree_checked: OnceLock<std::result::Result<(), String>>,
+    graph: Option<Range<usize>>,
+    metric: OnceLock<std::result::Result<AnyMetric, String>>,
 }
 
 /// A string table: offsets and bytes sections.
@@ -210,6 +215,19 @@ impl Index {
             n.checked_mul(meta.stride as usize),
         )?;
         let tree = need(SectionKind::Tree)?;
+        if meta.metric_spec.kind() != meta.metric {
+            return Err(bad(format!(
+                "corrupt index: metric {} with parameters of {}",
+                meta.metric,
+                meta.metric_spec.kind()
+            )));
+        }
+        let graph = find(SectionKind::Graph);
+        if (meta.metric == MetricKind::Graph) != graph.is_some() {
+            return Err(bad(
+                "corrupt index: a graph section belongs to graph-metric indexes only".into(),
+            ));
+        }
         Ok(Index {
             path: path.to_path_buf(),
             map,
@@ -222,6 +240,8 @@ impl Index {
             coords,
             tree,
             tree_checked: OnceLock::new(),
+            graph,
+            metric: OnceLock::new(),
         })
     }
 
@@ -324,6 +344,29 @@ impl Index {
     /// Bytes per row of [`Index::coords`].
     pub fn stride(&self) -> usize {
         self.meta.stride as usize
+    }
+
+    /// The metric the index was built with, set up on first use (a graph index parses its
+    /// graph; an external metric starts its program, once per process).
+    pub fn metric(&self) -> Result<&AnyMetric> {
+        let m = self.metric.get_or_init(|| {
+            let graph = match &self.graph {
+                Some(r) => {
+                    let text = std::str::from_utf8(&self.map[r.clone()])
+                        .map_err(|_| "corrupt index: the graph section is not UTF-8".to_string())?;
+                    Some(
+                        Graph::parse(text, "graph section")
+                            .map_err(|e| format!("corrupt index: {e}"))?,
+                    )
+                }
+                None => None,
+            };
+            self.meta.metric_spec.open(graph).map_err(|e| e.to_string())
+        });
+        m.as_ref().map_err(|message| Error::Index {
+            path: self.path.clone(),
+            message: message.clone(),
+        })
     }
 
     /// The kd-tree, checked on first use (its checksum and rkyv's structural validation).

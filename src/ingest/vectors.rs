@@ -123,6 +123,43 @@ pub fn read_vectors_from<R: Read>(
     Ok(v)
 }
 
+/// Parses one query vector: `dim` numbers separated by commas or tabs, as in a vector
+/// file. The error says what is wrong (the column, or the number of components).
+///
+/// ```
+/// use waymark::ingest::parse_vector;
+///
+/// assert_eq!(parse_vector("1.5, -2,0", 3), Ok(vec![1.5, -2.0, 0.0]));
+/// assert!(parse_vector("1,2", 3).unwrap_err().contains("2 components"));
+/// assert!(parse_vector("1,x,3", 3).unwrap_err().contains("column 2"));
+/// ```
+pub fn parse_vector(row: &str, dim: usize) -> Result<Vec<f32>, String> {
+    let v =
+        read_vectors_from(row.as_bytes(), "query", &VectorOptions::default()).map_err(
+            |e| match e {
+                IngestError::Record { message, .. } => message,
+                IngestError::Empty { .. } => "the query vector is empty".to_string(),
+                other => other.to_string(),
+            },
+        )?;
+    if v.items.len() != 1 {
+        return Err(format!(
+            "a query vector is one line, not {} lines",
+            v.items.len()
+        ));
+    }
+    if v.dim != dim {
+        return Err(format!(
+            "the query has {} components; the index's vectors have {dim}",
+            v.dim
+        ));
+    }
+    Ok(v.items[0]
+        .chunks_exact(4)
+        .map(|c| f32::from_le_bytes([c[0], c[1], c[2], c[3]]))
+        .collect())
+}
+
 fn record(source_name: &str, line: u64, message: String) -> IngestError {
     IngestError::Record {
         source_name: source_name.to_string(),

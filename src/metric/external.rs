@@ -389,6 +389,15 @@ pub struct ExternalQuery {
     query: Vec<u8>,
 }
 
+impl std::fmt::Debug for ExternalQuery {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("ExternalQuery")
+            .field("command", &self.inner.command)
+            .field("query", &String::from_utf8_lossy(&self.query))
+            .finish()
+    }
+}
+
 impl ExternalQuery {
     /// The distances to `items`, sent in batches of at most [`MAX_BATCH`], or the error.
     pub fn try_distances(&self, items: &[&[u8]]) -> Result<Vec<f64>, MetricError> {

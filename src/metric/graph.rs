@@ -169,12 +169,6 @@ impl Graph {
         if names.is_empty() {
             return Err(MetricError::Options(format!("{source_name}: no edges")));
         }
-        let total_weight: f64 = edges.values().sum();
-        if !total_weight.is_finite() {
-            return Err(MetricError::Options(format!(
-                "{source_name}: the sum of the weights overflows"
-            )));
-        }
         let mut degree = vec![0usize; names.len() + 1];
         for &(a, b) in edges.keys() {
             degree[a as usize + 1] += 1;
@@ -188,6 +182,13 @@ impl Graph {
         let mut adjacent = vec![(0u32, 0.0f64); offsets[names.len()]];
         let mut sorted: Vec<_> = edges.into_iter().collect();
         sorted.sort_by_key(|&(k, _)| k); // deterministic adjacency order
+                                         // Summed in that order too, so that a graph read back gives the same value.
+        let total_weight: f64 = sorted.iter().map(|&(_, w)| w).sum();
+        if !total_weight.is_finite() {
+            return Err(MetricError::Options(format!(
+                "{source_name}: the sum of the weights overflows"
+            )));
+        }
         for ((a, b), w) in sorted {
             adjacent[fill[a as usize]] = (b, w);
             fill[a as usize] += 1;
@@ -201,6 +202,36 @@ impl Graph {
             adjacent,
             total_weight,
         })
+    }
+
+    /// The graph as an edge list that [`Graph::parse`] reads back to the same graph, with
+    /// the same node numbers: every node declared first (`a a 0`), in order, then each edge
+    /// once. Weights are written in the shortest form that reads back to the same `f64`.
+    ///
+    /// ```
+    /// use waymark::metric::Graph;
+    ///
+    /// let g = Graph::parse("Keth Orvane 25\nOrvane Lille 7.5\n", "legs.txt")?;
+    /// let back = Graph::parse(&g.to_edge_list(), "again")?;
+    /// assert_eq!(back.to_edge_list(), g.to_edge_list());
+    /// assert_eq!(back.name(2), b"Lille");
+    /// # Ok::<(), waymark::metric::MetricError>(())
+    /// ```
+    pub fn to_edge_list(&self) -> String {
+        use std::fmt::Write;
+        let mut s = String::new();
+        let name = |v: usize| String::from_utf8_lossy(&self.names[v]);
+        for v in 0..self.names.len() {
+            let _ = writeln!(s, "{0} {0} 0", name(v));
+        }
+        for v in 0..self.names.len() {
+            for &(u, w) in &self.adjacent[self.offsets[v]..self.offsets[v + 1]] {
+                if u as usize > v {
+                    let _ = writeln!(s, "{} {} {w}", name(v), name(u as usize));
+                }
+            }
+        }
+        s
     }
 
     /// Number of nodes.

@@ -22,6 +22,7 @@
 //! Constructors that read options or side files return [`MetricError`], which names the file
 //! and line. [`PreparedQuery::distances`] is the batched form.
 
+mod any;
 mod damerau;
 mod error;
 mod external;
@@ -32,6 +33,7 @@ mod levenshtein;
 mod vector;
 mod weighted;
 
+pub use any::{AnyMetric, AnyQuery, MetricSpec};
 pub use damerau::{Damerau, DamerauQuery};
 pub use error::MetricError;
 pub use external::{ExternalMetric, ExternalQuery, MAX_BATCH, PROTOCOL, PROTOCOL_VERSION};

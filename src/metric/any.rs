@@ -1,0 +1,269 @@
+//! One type for every metric an index can be built with, chosen at run time.
+//!
+//! An index records a [`MetricSpec`]: the metric's kind and what it needs besides the items
+//! (a cost table, a tokenisation, a vector dimension, the command of an external program; a
+//! graph's edges live in their own section of the index file). [`MetricSpec::open`] turns it
+//! into an [`AnyMetric`], whose prepared queries are [`AnyQuery`]s. Build, search and eval
+//! work through these two types, so every metric takes the same path.
+//!
+//! ```
+//! use waymark::metric::{AnyMetric, MetricSpec, PreparedQuery, Metric};
+//!
+//! let m = MetricSpec::Damerau.open(None)?;
+//! let q = m.prepare(b"Keth Landing");
+//! assert_eq!(q.distance(b"Ketl Hlanding"), 2.0);
+//! # Ok::<(), waymark::metric::MetricError>(())
+//! ```
+
+use std::time::Duration;
+
+use serde::{Deserialize, Serialize};
+
+use super::{
+    CostRules, CostTable, Damerau, DamerauQuery, ExternalMetric, ExternalQuery, Graph, GraphMetric,
+    GraphQuery, Hamming, HammingQuery, Jaccard, JaccardQuery, Levenshtein, LevenshteinQuery,
+    Metric, MetricError, MetricKind, Norm, PreparedQuery, Tokens, VectorMetric, VectorQuery,
+    WeightedEdit, WeightedQuery,
+};
+
+/// A metric as recorded in an index: its kind and its parameters.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(tag = "kind", rename_all = "kebab-case")]
+pub enum MetricSpec {
+    /// Unit-cost edit distance.
+    Levenshtein,
+    /// Unrestricted Damerau–Levenshtein distance.
+    Damerau,
+    /// Hamming distance on strings of one length.
+    Hamming {
+        /// The items' length in chars; queries must have it too.
+        length: u64,
+    },
+    /// Edit distance with the costs of a cost file (recorded whole).
+    WeightedEdit {
+        /// The checked rules.
+        costs: CostRules,
+    },
+    /// Jaccard distance of token or q-gram sets.
+    Jaccard {
+        /// How items are cut into set elements.
+        tokens: Tokens,
+    },
+    /// A distance between `f32` vectors.
+    Vector {
+        /// Which distance.
+        norm: Norm,
+        /// Components per vector.
+        dim: u32,
+    },
+    /// Shortest-path distance on the graph stored in the index.
+    Graph,
+    /// Distances from an external program speaking the `waymark-metric` protocol.
+    External {
+        /// Program and arguments, run again by every process that opens the index.
+        command: Vec<String>,
+        /// Time limit per batch, in milliseconds.
+        timeout_ms: u64,
+    },
+}
+
+impl Default for MetricSpec {
+    fn default() -> Self {
+        MetricSpec::Levenshtein
+    }
+}
+
+impl MetricSpec {
+    /// The kind of metric.
+    pub fn kind(&self) -> MetricKind {
+        match self {
+            MetricSpec::Levenshtein => MetricKind::Levenshtein,
+            MetricSpec::Damerau => MetricKind::Damerau,
+            MetricSpec::Hamming { .. } => MetricKind::Hamming,
+            MetricSpec::WeightedEdit { .. } => MetricKind::WeightedEdit,
+            MetricSpec::Jaccard { .. } => MetricKind::Jaccard,
+            MetricSpec::Vector { norm, .. } => match norm {
+                Norm::L1 => MetricKind::L1,
+                Norm::L2 => MetricKind::L2,
+                Norm::Linf => MetricKind::Linf,
+                Norm::Angular => MetricKind::Angular,
+            },
+            MetricSpec::Graph => MetricKind::Graph,
+            MetricSpec::External { .. } => MetricKind::External,
+        }
+    }
+
+    /// Whether items are text (and queries are normalised like items); `false` for vectors
+    /// and graph nodes.
+    pub fn is_text(&self) -> bool {
+        !matches!(self, MetricSpec::Vector { .. } | MetricSpec::Graph)
+    }
+
+    /// The metric itself. A graph metric needs the graph (`None` is refused); an external
+    /// metric starts its program here.
+    pub fn open(&self, graph: Option<Graph>) -> Result<AnyMetric, MetricError> {
+        Ok(match self {
+            MetricSpec::Levenshtein => AnyMetric::Levenshtein(Levenshtein),
+            MetricSpec::Damerau => AnyMetric::Damerau(Damerau),
+            MetricSpec::Hamming { .. } => AnyMetric::Hamming(Hamming),
+            MetricSpec::WeightedEdit { costs } => {
+                let table = CostTable::try_from(costs.clone()).map_err(MetricError::Options)?;
+                AnyMetric::WeightedEdit(WeightedEdit::new(table))
+            }
+            MetricSpec::Jaccard { tokens } => AnyMetric::Jaccard(Jaccard::new(tokens.clone())?),
+            MetricSpec::Vector { norm, dim } => {
+                AnyMetric::Vector(VectorMetric::new(*norm, *dim as usize)?)
+            }
+            MetricSpec::Graph => {
+                AnyMetric::Graph(GraphMetric::new(graph.ok_or_else(|| {
+                    MetricError::Options("the graph metric needs its graph".into())
+                })?))
+            }
+            MetricSpec::External {
+                command,
+                timeout_ms,
+            } => AnyMetric::External(ExternalMetric::spawn(
+                command,
+                Duration::from_millis(*timeout_ms),
+            )?),
+        })
+    }
+}
+
+/// Every metric, behind one type (see the module documentation).
+#[derive(Clone, Debug)]
+pub enum AnyMetric {
+    /// [`Levenshtein`].
+    Levenshtein(Levenshtein),
+    /// [`Damerau`].
+    Damerau(Damerau),
+    /// [`Hamming`].
+    Hamming(Hamming),
+    /// [`WeightedEdit`].
+    WeightedEdit(WeightedEdit),
+    /// [`Jaccard`].
+    Jaccard(Jaccard),
+    /// [`VectorMetric`].
+    Vector(VectorMetric),
+    /// [`GraphMetric`].
+    Graph(GraphMetric),
+    /// [`ExternalMetric`].
+    External(ExternalMetric),
+}
+
+/// A query prepared by an [`AnyMetric`].
+#[derive(Clone, Debug)]
+pub enum AnyQuery {
+    /// For [`Levenshtein`].
+    Levenshtein(LevenshteinQuery),
+    /// For [`Damerau`].
+    Damerau(DamerauQuery),
+    /// For [`Hamming`].
+    Hamming(HammingQuery),
+    /// For [`WeightedEdit`].
+    WeightedEdit(WeightedQuery),
+    /// For [`Jaccard`].
+    Jaccard(JaccardQuery),
+    /// For [`VectorMetric`].
+    Vector(VectorQuery),
+    /// For [`GraphMetric`].
+    Graph(GraphQuery),
+    /// For [`ExternalMetric`].
+    External(ExternalQuery),
+}
+
+macro_rules! each {
+    ($value:expr, $name:ident => $body:expr) => {
+        match $value {
+            AnyQuery::Levenshtein($name) => $body,
+            AnyQuery::Damerau($name) => $body,
+            AnyQuery::Hamming($name) => $body,
+            AnyQuery::WeightedEdit($name) => $body,
+            AnyQuery::Jaccard($name) => $body,
+            AnyQuery::Vector($name) => $body,
+            AnyQuery::Graph($name) => $body,
+            AnyQuery::External($name) => $body,
+        }
+    };
+}
+
+impl AnyMetric {
+    /// The first failure of an external program, if any; `Ok` for every other metric.
+    /// Callers check it after each batch of distances (see [`ExternalMetric::check`]).
+    pub fn check(&self) -> Result<(), MetricError> {
+        match self {
+            AnyMetric::External(m) => m.check(),
+            _ => Ok(()),
+        }
+    }
+
+    /// Whether each call costs a round trip, so that distances should be asked for in
+    /// batches ([`PreparedQuery::distances`]) rather than one at a time.
+    pub fn prefers_batches(&self) -> bool {
+        matches!(self, AnyMetric::External(_))
+    }
+}
+
+impl Metric for AnyMetric {
+    type Prepared = AnyQuery;
+
+    fn kind(&self) -> MetricKind {
+        match self {
+            AnyMetric::Levenshtein(m) => m.kind(),
+            AnyMetric::Damerau(m) => m.kind(),
+            AnyMetric::Hamming(m) => m.kind(),
+            AnyMetric::WeightedEdit(m) => m.kind(),
+            AnyMetric::Jaccard(m) => m.kind(),
+            AnyMetric::Vector(m) => m.kind(),
+            AnyMetric::Graph(m) => m.kind(),
+            AnyMetric::External(m) => m.kind(),
+        }
+    }
+
+    fn prepare(&self, query: &[u8]) -> AnyQuery {
+        match self {
+            AnyMetric::Levenshtein(m) => AnyQuery::Levenshtein(m.prepare(query)),
+            AnyMetric::Damerau(m) => AnyQuery::Damerau(m.prepare(query)),
+            AnyMetric::Hamming(m) => AnyQuery::Hamming(m.prepare(query)),
+            AnyMetric::WeightedEdit(m) => AnyQuery::WeightedEdit(m.prepare(query)),
+            AnyMetric::Jaccard(m) => AnyQuery::Jaccard(m.prepare(query)),
+            AnyMetric::Vector(m) => AnyQuery::Vector(m.prepare(query)),
+            AnyMetric::Graph(m) => AnyQuery::Graph(m.prepare(query)),
+            AnyMetric::External(m) => AnyQuery::External(m.prepare(query)),
+        }
+    }
+
+    fn distance(&self, a: &[u8], b: &[u8]) -> f64 {
+        match self {
+            // One Dijkstra, not a prepared query's full table.
+            AnyMetric::Graph(m) => m.distance(a, b),
+            _ => self.prepare(a).distance(b),
+        }
+    }
+}
+
+impl PreparedQuery for AnyQuery {
+    #[inline]
+    fn distance(&self, item: &[u8]) -> f64 {
+        each!(self, q => q.distance(item))
+    }
+
+    #[inline]
+    fn distance_within(&self, item: &[u8], bound: f64) -> Option<f64> {
+        each!(self, q => q.distance_within(item, bound))
+    }
+
+    fn distances(&self, items: &[&[u8]], out: &mut [f64]) {
+        match self {
+            AnyQuery::Levenshtein(q) => {
+                assert_eq!(items.len(), out.len(), "one output slot per item");
+                let mut d = vec![0u32; items.len()];
+                q.dist_batch(items, &mut d);
+                for (o, d) in out.iter_mut().zip(d) {
+                    *o = f64::from(d);
+                }
+            }
+            _ => each!(self, q => q.distances(items, out)),
+        }
+    }
+}
