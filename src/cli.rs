@@ -39,6 +39,38 @@ enum Command {
     Eval(EvalArgs),
     /// Build and measure indexes over embedding methods, dimensions and spaces; write CSV, JSON and SVG charts.
     Sweep(SweepArgs),
+    /// Check on a sample of the input that the distance is a metric (zero on equal items,
+    /// symmetric, triangle inequality); exit code 4 when it is not.
+    CheckMetric(CheckMetricArgs),
+}
+
+#[derive(Debug, clap::Args)]
+struct CheckMetricArgs {
+    /// Input file, as for `build`.
+    input: PathBuf,
+    #[command(flatten)]
+    metric: MetricArgs,
+    /// Items sampled: all their ordered pairs and triples are checked.
+    #[arg(long, value_name = "M", default_value_t = 200)]
+    sample: usize,
+    /// Seed of the sample.
+    #[arg(long, value_name = "S", default_value_t = 0)]
+    seed: u64,
+    /// Input format; by default from the file extension.
+    #[arg(long = "input-format", value_enum, value_name = "FORMAT")]
+    input_format: Option<FormatArg>,
+    /// The column or JSON field holding the items.
+    #[arg(long, value_name = "NAME")]
+    field: Option<String>,
+    /// Compare ignoring case.
+    #[arg(long = "fold-case")]
+    fold_case: bool,
+    /// Compare without leading and trailing white space.
+    #[arg(long)]
+    trim: bool,
+    /// Print one JSON object.
+    #[arg(long)]
+    json: bool,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -414,6 +446,9 @@ fn is_broken_pipe(e: &anyhow::Error) -> bool {
 
 fn exit_code(e: &anyhow::Error) -> u8 {
     for c in e.chain() {
+        if c.downcast_ref::<NotAMetric>().is_some() {
+            return 4;
+        }
         if let Some(err) = c.downcast_ref::<Error>() {
             return match err {
                 Error::Index { .. } => 3,
@@ -434,6 +469,7 @@ fn run(args: Args) -> anyhow::Result<()> {
         Command::Inspect(a) => inspect(a),
         Command::Eval(a) => eval(a),
         Command::Sweep(a) => sweep(a),
+        Command::CheckMetric(a) => check_metric(a),
     }
 }
 
@@ -589,6 +625,138 @@ fn load_input(path: &Path, ingest: &IngestOptions, m: &MetricArgs) -> anyhow::Re
     })
 }
 
+/// The distance is not a metric on the sample `check-metric` drew (exit code 4).
+#[derive(Debug, thiserror::Error)]
+#[error("{0}")]
+struct NotAMetric(String);
+
+fn format_format(f: Option<FormatArg>) -> Option<InputFormat> {
+    f.map(|f| match f {
+        FormatArg::Text => InputFormat::Text,
+        FormatArg::Csv => InputFormat::Csv { delimiter: b',' },
+        FormatArg::Tsv => InputFormat::Csv { delimiter: b'\t' },
+        FormatArg::Jsonl => InputFormat::JsonLines,
+    })
+}
+
+/// One line per violation kept in `r`, with the items quoted.
+fn describe_violations(r: &crate::metric::AxiomReport, corpus: &Corpus) -> Vec<String> {
+    use crate::metric::Axiom;
+    let item = |i: usize| format!("{:?}", corpus.items[i]);
+    r.worst
+        .iter()
+        .map(|v| {
+            let d = &v.distances;
+            match v.axiom {
+                Axiom::NonNegative => {
+                    format!("d({}, {}) = {}", item(v.items[0]), item(v.items[1]), d[0])
+                }
+                Axiom::Identity => format!("d({0}, {0}) = {1}", item(v.items[0]), d[0]),
+                Axiom::Symmetry => format!(
+                    "d({0}, {1}) = {2} but d({1}, {0}) = {3}",
+                    item(v.items[0]),
+                    item(v.items[1]),
+                    d[0],
+                    d[1]
+                ),
+                Axiom::Positivity => format!(
+                    "d({}, {}) = 0 for different items (a pseudometric: lower bounds still hold)",
+                    item(v.items[0]),
+                    item(v.items[1])
+                ),
+                Axiom::Triangle => format!(
+                    "d({x}, {z}) = {} > d({x}, {y}) + d({y}, {z}) = {} + {}",
+                    d[2],
+                    d[0],
+                    d[1],
+                    x = item(v.items[0]),
+                    y = item(v.items[1]),
+                    z = item(v.items[2]),
+                ),
+            }
+        })
+        .collect()
+}
+
+fn check_metric(a: CheckMetricArgs) -> anyhow::Result<()> {
+    use crate::metric::check_axioms;
+    if a.sample < 2 {
+        return Err(Error::Usage("--sample must be at least 2".into()).into());
+    }
+    let normalize = Normalize {
+        fold_case: a.fold_case,
+        trim: a.trim,
+    };
+    let input = load_input(
+        &a.input,
+        &IngestOptions {
+            format: format_format(a.input_format),
+            field: a.field.clone(),
+            id_field: None,
+            normalize,
+        },
+        &a.metric,
+    )?;
+    let source = a.input.display().to_string();
+    let keys = input.corpus.key_bytes();
+    let (spec, metric) = crate::index::open_metric(
+        &keys,
+        &source,
+        &BuildOptions {
+            metric: input.spec,
+            graph: input.graph,
+            ..BuildOptions::default()
+        },
+    )?;
+    let t0 = Instant::now();
+    let r = check_axioms(&metric, &keys, a.sample, a.seed);
+    metric.check()?;
+    let secs = t0.elapsed().as_secs_f64();
+    let lines = describe_violations(&r, &input.corpus);
+    let mut out = std::io::stdout().lock();
+    if a.json {
+        let obj = serde_json::json!({
+            "input": source,
+            "metric": spec.kind().name(),
+            "report": r,
+            "violations": lines,
+            "is_metric": r.is_metric(),
+            "seconds": secs,
+        });
+        serde_json::to_writer_pretty(&mut out, &obj)?;
+        writeln!(out)?;
+    } else {
+        writeln!(
+            out,
+            "{source}: {} metric on {} of {} items: {} pairs and {} triples in {secs:.2} s",
+            spec.kind(),
+            r.sample,
+            input.corpus.items.len(),
+            r.pairs,
+            r.triples
+        )?;
+        for &(ax, c) in &r.counts {
+            writeln!(out, "  {:<30} {c:>10} violations", ax.rule())?;
+        }
+        for l in &lines {
+            writeln!(out, "  e.g. {l}")?;
+        }
+    }
+    if r.is_metric() {
+        if !a.json {
+            writeln!(out, "no violation on this sample: lower bounds and exact answers hold as far as it shows")?;
+        }
+        Ok(())
+    } else {
+        Err(NotAMetric(format!(
+            "{source}: the {} distance is not a metric on this sample: exact answers \
+             (--exact, --within) and pruning are not sound with it",
+            spec.kind()
+        ))
+        .into())
+    }
+}
+
 fn build(a: BuildArgs) -> anyhow::Result<()> {
     let t0 = Instant::now();
     let normalize = Normalize {
@@ -664,6 +832,16 @@ fn build(a: BuildArgs) -> anyhow::Result<()> {
         &|done| bar.inc(done as u64),
     )?;
     bar.finish_and_clear();
+    if let Some(r) = report.axioms.as_ref().filter(|r| !r.is_metric()) {
+        eprintln!(
+            "waymark: warning: the {} distance breaks the metric rules on a sample of {} items \
+             (run `waymark check-metric` for more); exact answers and pruning are not sound",
+            report.meta.metric, r.sample
+        );
+        for l in describe_violations(r, &corpus).iter().take(3) {
+            eprintln!("waymark: warning:   {l}");
+        }
+    }
     if !a.quiet {
         let m = &report.meta;
         let mut out = std::io::stdout().lock();

@@ -8,7 +8,7 @@ use super::{coord_stride, tree, IdKind, IndexMeta};
 use crate::embed::{embed_items, quantize, EmbedOptions, Embedded, Method, MAX_DIM};
 use crate::error::{Error, Result};
 use crate::ingest::{Corpus, Ids, Normalize};
-use crate::metric::{check_equal_lengths, AnyMetric, Graph, MetricSpec};
+use crate::metric::{check_axioms, check_equal_lengths, AnyMetric, AxiomReport, Graph, MetricSpec};
 use crate::search::Space;
 
 /// Parameters of a build.
@@ -66,7 +66,13 @@ pub struct BuildReport {
     pub tree_seconds: f64,
     /// Seconds spent writing the file.
     pub write_seconds: f64,
+    /// The metric axioms checked on a small sample of the items ([`AXIOM_SAMPLE`]); `None`
+    /// for builds from given coordinates.
+    pub axioms: Option<AxiomReport>,
 }
+
+/// Items sampled by every build to check the metric axioms (all pairs and triples of them).
+pub const AXIOM_SAMPLE: usize = 40;
 
 fn string_sections(strings: impl ExactSizeIterator<Item = impl AsRef<[u8]>>) -> (Vec<u8>, Vec<u8>) {
     let mut offsets = Vec::with_capacity((strings.len() + 1) * 8);
@@ -107,9 +113,10 @@ pub fn build_index(
         },
         progress,
     );
+    let axioms = check_axioms(&metric, &keys, AXIOM_SAMPLE, opts.seed);
     metric.check()?;
     let embed_seconds = t0.elapsed().as_secs_f64();
-    write_index(
+    let mut report = write_index(
         corpus,
         source,
         opts,
@@ -118,7 +125,9 @@ pub fn build_index(
         writer,
         dest,
         embed_seconds,
-    )
+    )?;
+    report.axioms = Some(axioms);
+    Ok(report)
 }
 
 /// The metric of a build (opened), checked against the items: Hamming items must have one length
@@ -315,5 +324,6 @@ fn write_index(
         embed_seconds,
         tree_seconds,
         write_seconds: t2.elapsed().as_secs_f64(),
+        axioms: None,
     })
 }

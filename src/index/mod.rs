@@ -26,7 +26,9 @@ use std::sync::OnceLock;
 use memmap2::Mmap;
 use serde::{Deserialize, Serialize};
 
-pub use build::{build_index, build_index_from, open_metric, BuildOptions, BuildReport};
+pub use build::{
+    build_index, build_index_from, open_metric, BuildOptions, BuildReport, AXIOM_SAMPLE,
+};
 use file::{Section, SectionKind};
 
 use crate::error::{Error, Result};

@@ -23,6 +23,7 @@
 //! and line. [`PreparedQuery::distances`] is the batched form.
 
 mod any;
+mod check;
 mod damerau;
 mod error;
 mod external;
@@ -34,6 +35,7 @@ mod vector;
 mod weighted;
 
 pub use any::{AnyMetric, AnyQuery, MetricSpec};
+pub use check::{check_axioms, Axiom, AxiomReport, Violation, TOLERANCE};
 pub use damerau::{Damerau, DamerauQuery};
 pub use error::MetricError;
 pub use external::{ExternalMetric, ExternalQuery, MAX_BATCH, PROTOCOL, PROTOCOL_VERSION};
