@@ -157,7 +157,7 @@ fn fold_case_and_trim_make_keys() {
     assert_eq!(c.items, ["keth", "  Orvane Quay "]);
     assert_eq!(
         c.keys,
-        Some(vec!["keth".to_string(), "orvane quay".to_string()])
+        Some(vec![b"keth".to_vec(), b"orvane quay".to_vec()])
     );
     assert_eq!(c.blank_skipped, 1);
 }

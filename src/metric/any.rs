@@ -27,10 +27,11 @@ use super::{
 };
 
 /// A metric as recorded in an index: its kind and its parameters.
-#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[derive(Clone, Debug, Default, PartialEq, Serialize, Deserialize)]
 #[serde(tag = "kind", rename_all = "kebab-case")]
 pub enum MetricSpec {
     /// Unit-cost edit distance.
+    #[default]
     Levenshtein,
     /// Unrestricted Damerau–Levenshtein distance.
     Damerau,
@@ -65,12 +66,6 @@ pub enum MetricSpec {
         /// Time limit per batch, in milliseconds.
         timeout_ms: u64,
     },
-}
-
-impl Default for MetricSpec {
-    fn default() -> Self {
-        MetricSpec::Levenshtein
-    }
 }
 
 impl MetricSpec {
@@ -152,6 +147,11 @@ pub enum AnyMetric {
 }
 
 /// A query prepared by an [`AnyMetric`].
+///
+/// The Levenshtein variant holds its match masks inline, so it is much larger than the
+/// others; a query is made once and used for thousands of comparisons, never stored in
+/// bulk, so it is not boxed (that would add an indirection to the hottest call).
+#[allow(clippy::large_enum_variant)]
 #[derive(Clone, Debug)]
 pub enum AnyQuery {
     /// For [`Levenshtein`].
