@@ -1147,7 +1147,32 @@ fn inspect(a: InspectArgs) -> anyhow::Result<()> {
         m.n, m.source, m.records, m.blank_skipped
     )?;
     writeln!(out, "ids           {:?}", m.ids)?;
-    writeln!(out, "metric        {}", m.metric)?;
+    let params = match &m.metric_spec {
+        MetricSpec::Hamming { length } => format!(" ({length} characters per item)"),
+        MetricSpec::WeightedEdit { costs } => format!(
+            " ({} indel and {} substitution rules; other symbols: indel {}, substitution {})",
+            costs.indel.len(),
+            costs.sub.len(),
+            costs.default_indel,
+            costs.default_sub
+        ),
+        MetricSpec::Jaccard { tokens } => match tokens {
+            crate::metric::Tokens::Whitespace => " (token sets split on white space)".into(),
+            crate::metric::Tokens::Separator(sep) => format!(" (token sets split on {sep:?})"),
+            crate::metric::Tokens::QGrams(q) => format!(" (sets of {q}-grams)"),
+        },
+        MetricSpec::Vector { dim, .. } => format!(" ({dim} components per vector)"),
+        MetricSpec::External {
+            command,
+            timeout_ms,
+        } => format!(
+            " (program `{}`, {} s per batch)",
+            command.join(" "),
+            *timeout_ms as f64 / 1000.0
+        ),
+        MetricSpec::Levenshtein | MetricSpec::Damerau | MetricSpec::Graph => String::new(),
+    };
+    writeln!(out, "metric        {}{params}", m.metric)?;
     writeln!(
         out,
         "normalise     fold-case {}, trim {}",
@@ -1275,6 +1300,8 @@ fn eval(a: EvalArgs) -> anyhow::Result<()> {
         let (truth, source) =
             load_or_compute_truth(&index, &queries, Some(qpath), a.k, &|n| bar.inc(n as u64));
         bar.finish_and_clear();
+        // An external metric reports a failure of its program here (its distances are NaN).
+        index.metric()?.check()?;
         let (truth_note, truth_json) = match &source {
             TruthSource::Cached(p) => (
                 format!("exact answers read from {}", p.display()),

@@ -7,11 +7,11 @@
 //! work through these two types, so every metric takes the same path.
 //!
 //! ```
-//! use waymark::metric::{AnyMetric, MetricSpec, PreparedQuery, Metric};
+//! use waymark::metric::{Metric, MetricSpec, PreparedQuery};
 //!
 //! let m = MetricSpec::Damerau.open(None)?;
 //! let q = m.prepare(b"Keth Landing");
-//! assert_eq!(q.distance(b"Ketl Hlanding"), 2.0);
+//! assert_eq!(q.distance(b"Kteh Landing"), 1.0); // one swap of neighbours
 //! # Ok::<(), waymark::metric::MetricError>(())
 //! ```
 
