@@ -334,6 +334,10 @@ fn check_k<const K: usize>(bytes: &[u8], dim: usize, n: usize) -> Result<(), Str
             remaining -= w;
         }
     }
+    let points: usize = extents.iter().map(|e| usize_of(&e.1)).sum();
+    if points != n {
+        return Err(format!("its leaves hold {points} points for {n} items"));
+    }
     if longest != usize_of(&l.max_leaf_len) {
         return Err(format!(
             "it records {} points in its longest leaf, which has {longest}",
