@@ -872,7 +872,8 @@ fn a_build_killed_midway_leaves_the_old_index_intact() {
         }
         assert_eq!(std::fs::read(&idx).unwrap(), before, "old index untouched");
         assert_eq!(query_tsv(&d, &idx, "abandon\nZurich\n"), answers);
-        // A leftover temp file is never mistaken for an index.
+        // A leftover temp file is never mistaken for an index. It stays until the next
+        // build to the same destination starts (the next round's, or the one below).
         for stray in d.others(&["small.txt", "big.txt", "x.wmk"]) {
             assert!(stray.ends_with(".waymark-partial"), "{stray}");
             d.cmd()
@@ -880,13 +881,70 @@ fn a_build_killed_midway_leaves_the_old_index_intact() {
                 .assert()
                 .code(3)
                 .stderr(contains("not a waymark index"));
-            std::fs::remove_file(d.path(&stray)).unwrap();
         }
     }
     assert!(
         killed_during_write,
         "no kill landed while the temp file existed"
     );
+    // A build that runs to the end removes what the killed ones left.
+    d.build(&small, "x.wmk", &["--dim", "8"]);
+    assert_eq!(
+        d.others(&["small.txt", "big.txt", "x.wmk"]),
+        Vec::<String>::new()
+    );
+}
+
+#[test]
+fn a_build_removes_temp_files_of_dead_builds_of_its_destination_only() {
+    let d = Dir::new();
+    let input = d.write("a.txt", words(500).join("\n").as_bytes());
+    d.build(&input, "x.wmk", &["--dim", "4"]);
+    // Left by a killed writer: no process holds its lock.
+    let dead = [
+        ".x.wmk.Ab3xQ9.waymark-partial",
+        ".x.wmk.000000.waymark-partial",
+    ];
+    // Not temp files of x.wmk: another destination's (x.wmk.b, y.wmk), a name of another
+    // shape, and a folder.
+    let others = [
+        ".x.wmk.b.Ab3xQ9.waymark-partial",
+        ".y.wmk.Ab3xQ9.waymark-partial",
+        ".x.wmk.Ab3x.waymark-partial",
+        "x.wmk.Ab3xQ9.waymark-partial",
+    ];
+    for name in dead.iter().chain(&others) {
+        d.write(name, &[0u8; 4096]);
+    }
+    std::fs::create_dir(d.path(".x.wmk.Dir123.waymark-partial")).unwrap();
+    // A live writer: this process holds the lock, as a concurrent build would.
+    let live = d.write(".x.wmk.LiVe42.waymark-partial", &[0u8; 4096]);
+    let lock = std::fs::File::open(&live).unwrap();
+    lock.lock().unwrap();
+
+    d.build(&input, "x.wmk", &["--dim", "4"]);
+    for name in dead {
+        assert!(!d.path(name).exists(), "{name} removed");
+    }
+    for name in others {
+        assert!(d.path(name).exists(), "{name} kept");
+    }
+    assert!(d.path(".x.wmk.Dir123.waymark-partial").is_dir());
+    assert!(live.exists(), "the live writer's file is kept");
+    assert_eq!(
+        std::fs::read(&live).unwrap(),
+        vec![0u8; 4096],
+        "and untouched"
+    );
+    // Once its writer is gone, the next build removes it too.
+    drop(lock);
+    d.build(&input, "x.wmk", &["--dim", "4"]);
+    assert!(!live.exists());
+    d.cmd()
+        .args(["query", "x.wmk"])
+        .write_stdin("abandon\n")
+        .assert()
+        .success();
 }
 
 #[test]
