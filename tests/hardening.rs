@@ -640,7 +640,7 @@ fn map_tree(tree: &[u8]) -> TreeMap {
 }
 
 #[test]
-fn crafted_kd_tree_sections_are_refused_by_query_and_verify() {
+fn bad_input_crafted_kd_tree_sections_are_refused_by_query_and_verify() {
     let d = Dir::new();
     let list = words(3_000).join("\n");
     let input = d.write("words.txt", list.as_bytes());

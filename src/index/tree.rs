@@ -413,8 +413,8 @@ impl<'a> TreeView<'a> {
         out: &mut Vec<(u32, f32)>,
     ) {
         // SAFETY: every TreeView is made by `open`, or by `validated` after `open` succeeded,
-        // which ran rkyv's validating `access` on these exact bytes with the same K; the
-        // bytes are immutable for the lifetime 'a.
+        // which ran rkyv's validating `access` and `check_k` (every field kiddo's queries
+        // trust) on these exact bytes with the same K; the bytes are immutable for 'a.
         let t = unsafe { rkyv::access_unchecked::<Archived<K>>(self.bytes) };
         let mut q = [0f32; K];
         let d = self.dim.min(K).min(query.len());
