@@ -494,7 +494,6 @@ fn ten_thousand_damaged_or_crafted_files_are_refused_or_answered_without_a_panic
     let input = d.write("words.txt", list.as_bytes());
     let idx = d.build(&input, "w.wmk", &["--dim", "8", "--seed", "5"]);
     let good = std::fs::read(&idx).unwrap();
-    let tree = section(&good, 10);
     let meta = section(&good, 1);
     let probe = d.path("probe.wmk");
     let mut rng = ChaCha8Rng::seed_from_u64(0x5eed);
@@ -536,13 +535,10 @@ fn ten_thousand_damaged_or_crafted_files_are_refused_or_answered_without_a_panic
             fix_checksums(&mut bytes);
         }
         let changed = bytes != good;
-        let tree_touched = bytes.len() < tree.end || bytes[tree.clone()] != good[tree.clone()];
         std::fs::write(&probe, &bytes).unwrap();
-        // A crafted kd-tree passes every checksum and rkyv's structural check but may still
-        // hold offsets that kiddo trusts: the tree path is exercised only where a checksum
-        // protects it (see "Damaged and crafted files" in DEVELOPERS.md).
-        let tree_ok = !(crafted && tree_touched);
-        match open_and_query(&probe, tree_ok) {
+        // The kd-tree path runs on every variant, crafted ones included: a tree section is
+        // checked field by field on first use, so it is refused or safe to query.
+        match open_and_query(&probe, true) {
             Err(_) => refused += 1,
             Ok(_) => answered += 1,
         }
@@ -562,6 +558,269 @@ fn ten_thousand_damaged_or_crafted_files_are_refused_or_answered_without_a_panic
         refused > CASES / 4,
         "most damage is refused at open or first use"
     );
+}
+
+// kiddo's archived ImmutableKdTree<f32, K>, as rkyv lays it out (repr(C), 32-bit relative
+// pointers and lengths): the root struct sits at the end of the section. The test checks
+// each offset against what kiddo itself reports before using it.
+const ROOT_LEN: usize = 56;
+const ROOT_STEMS: usize = 0; // box: i32 offset, u32 length
+const ROOT_EXTENTS: usize = 8; // vec of (u32 offset, u32 length) per leaf
+const ROOT_ARENA: usize = 16; // box of the leaves' bytes
+const ROOT_LEAVES_SIZE: usize = 24;
+const ROOT_RESOLUTION: usize = 28; // u8 tag (0 arithmetic), u32 depth, u32 leaf count
+const ROOT_SIZE: usize = 44;
+const ROOT_MAX_LEVEL: usize = 48;
+const ROOT_MAX_LEAF: usize = 52;
+
+type Tree8 = <kiddo::ImmutableKdTree<f32, 8> as rkyv::Archive>::Archived;
+
+/// Byte positions inside a kd-tree section of tree dimension 8.
+#[derive(Clone, Copy)]
+struct TreeMap {
+    root: usize,
+    stems: usize,
+    extents: usize,
+    arena: usize,
+}
+
+fn u32_at(b: &[u8], at: usize) -> u32 {
+    u32::from_le_bytes(b[at..at + 4].try_into().unwrap())
+}
+
+fn put_u32(b: &mut [u8], at: usize, v: u32) {
+    b[at..at + 4].copy_from_slice(&v.to_le_bytes());
+}
+
+fn rel(b: &[u8], at: usize) -> usize {
+    (at as i64 + i32::from_le_bytes(b[at..at + 4].try_into().unwrap()) as i64) as usize
+}
+
+/// Whether rkyv's validation (all the old check did) accepts the tree bytes.
+fn rkyv_accepts(tree: &[u8]) -> bool {
+    let mut v = rkyv::util::AlignedVec::<128>::new();
+    v.extend_from_slice(tree);
+    rkyv::access::<Tree8, rkyv::rancor::Error>(&v).is_ok()
+}
+
+fn map_tree(tree: &[u8]) -> TreeMap {
+    use kiddo::kd_tree::KdTreeAccessor;
+    assert_eq!(std::mem::size_of::<Tree8>(), ROOT_LEN);
+    let mut v = rkyv::util::AlignedVec::<128>::new();
+    v.extend_from_slice(tree);
+    let t = rkyv::access::<Tree8, rkyv::rancor::Error>(&v).expect("a built tree validates");
+    let root = tree.len() - ROOT_LEN;
+    let m = TreeMap {
+        root,
+        stems: rel(tree, root + ROOT_STEMS),
+        extents: rel(tree, root + ROOT_EXTENTS),
+        arena: rel(tree, root + ROOT_ARENA),
+    };
+    // The offsets above read what kiddo reads.
+    assert_eq!(u32_at(tree, root + ROOT_SIZE) as usize, t.size());
+    assert_eq!(u32_at(tree, root + ROOT_LEAVES_SIZE) as usize, t.size());
+    assert_eq!(
+        u32_at(tree, root + ROOT_MAX_LEVEL) as i32,
+        t.max_stem_level()
+    );
+    assert_eq!(
+        u32_at(tree, root + ROOT_MAX_LEAF) as usize,
+        t.max_leaf_len()
+    );
+    assert_eq!(
+        u32_at(tree, root + ROOT_EXTENTS + 4) as usize,
+        t.leaf_count()
+    );
+    assert_eq!(tree[root + ROOT_RESOLUTION], 0, "arithmetic resolution");
+    let stems = KdTreeAccessor::stems(t);
+    assert_eq!(u32_at(tree, root + ROOT_STEMS + 4) as usize, stems.len());
+    assert_eq!(m.stems, stems.as_ptr() as usize - v.as_ptr() as usize);
+    assert_eq!(t.leaves().leaf_len(0), u32_at(tree, m.extents + 4) as usize);
+    m
+}
+
+#[test]
+fn bad_input_crafted_kd_tree_sections_are_refused_by_query_and_verify() {
+    let d = Dir::new();
+    let list = words(3_000).join("\n");
+    let input = d.write("words.txt", list.as_bytes());
+    // 6 coordinates in a tree compiled for 8: two padding coordinates that must stay zero.
+    let idx = d.build(&input, "w.wmk", &["--dim", "6", "--seed", "3"]);
+    let good = std::fs::read(&idx).unwrap();
+    let sec = section(&good, 10);
+    let tree = good[sec.clone()].to_vec();
+    let m = map_tree(&tree);
+    let n = u32_at(&tree, m.root + ROOT_SIZE);
+    let leaf0 = m.arena + u32_at(&tree, m.extents) as usize;
+    let len0 = u32_at(&tree, m.extents + 4) as usize;
+    let w0 = [32, 8, 4, 2, 1].into_iter().find(|&w| len0 >= w).unwrap();
+    let coord0 = move |d: usize, j: usize| leaf0 + (d * w0 + j) * 4;
+    let item0 = move |j: usize| leaf0 + (8 * w0 + j) * 4;
+    let arena_len = u32_at(&tree, m.root + ROOT_ARENA + 4);
+    let stem_count = u32_at(&tree, m.root + ROOT_STEMS + 4);
+    let leaves = u32_at(&tree, m.root + ROOT_EXTENTS + 4) as usize;
+    let last = m.extents + 8 * (leaves - 1);
+
+    type Craft = Box<dyn Fn(&mut Vec<u8>)>;
+    let r = m.root;
+    let cases: Vec<(&str, Craft, &str)> = vec![
+        (
+            "leaf offset past the arena",
+            Box::new(move |t| put_u32(t, m.extents, arena_len + 64)),
+            "leaf 0: ",
+        ),
+        (
+            "leaf length past the arena",
+            Box::new(move |t| {
+                let len = u32_at(t, last + 4);
+                put_u32(t, last + 4, len + 10_000)
+            }),
+            "do not fit in order",
+        ),
+        (
+            "a misaligned leaf offset",
+            Box::new(move |t| {
+                let off = u32_at(t, last);
+                put_u32(t, last, off + 4)
+            }),
+            "do not fit in order",
+        ),
+        (
+            "overlapping leaves",
+            Box::new(move |t| put_u32(t, last, 0)),
+            "do not fit in order",
+        ),
+        (
+            "a leaf one point short",
+            // (Its tiles then split differently, so its bytes no longer decode.)
+            Box::new(move |t| put_u32(t, m.extents + 4, len0 as u32 - 1)),
+            "leaf 0: ",
+        ),
+        (
+            "stem levels past kiddo's fixed stacks",
+            Box::new(move |t| put_u32(t, r + ROOT_MAX_LEVEL, 70)),
+            "deepest stem level is 70",
+        ),
+        (
+            "stem levels past the stems",
+            Box::new(move |t| put_u32(t, r + ROOT_MAX_LEVEL, 12)),
+            "deepest stem level is 12",
+        ),
+        (
+            "a negative stem level",
+            Box::new(move |t| put_u32(t, r + ROOT_MAX_LEVEL, (-5i32) as u32)),
+            "deepest stem level is -5",
+        ),
+        (
+            "a size that is not the item count",
+            Box::new(move |t| {
+                put_u32(t, r + ROOT_SIZE, n + 1);
+                put_u32(t, r + ROOT_LEAVES_SIZE, n + 1)
+            }),
+            "points",
+        ),
+        (
+            "a pristine (mutable) leaf resolution",
+            Box::new(move |t| t[r + ROOT_RESOLUTION] = 1),
+            "leaf resolution is not the arithmetic one",
+        ),
+        (
+            "a resolution with the wrong leaf count",
+            Box::new(move |t| put_u32(t, r + ROOT_RESOLUTION + 8, leaves as u32 * 4)),
+            "leaf resolution records",
+        ),
+        (
+            "fewer stems than its levels use",
+            Box::new(move |t| put_u32(t, r + ROOT_STEMS + 4, stem_count / 4)),
+            "stems",
+        ),
+        (
+            "a wrong longest-leaf length",
+            Box::new(move |t| put_u32(t, r + ROOT_MAX_LEAF, 7)),
+            "longest leaf",
+        ),
+        (
+            "an item index past the items",
+            Box::new(move |t| put_u32(t, item0(0), n + 5)),
+            "out of range or appears twice",
+        ),
+        (
+            "an item twice",
+            Box::new(move |t| {
+                let other = u32_at(t, item0(1));
+                put_u32(t, item0(0), other)
+            }),
+            "out of range or appears twice",
+        ),
+        (
+            "a NaN coordinate",
+            Box::new(move |t| put_u32(t, coord0(2, 0), f32::NAN.to_bits())),
+            "coordinate 2 = NaN",
+        ),
+        (
+            "a non-zero padding coordinate",
+            Box::new(move |t| put_u32(t, coord0(7, 0), 1f32.to_bits())),
+            "coordinate 7 = 1",
+        ),
+        (
+            "a root pivot that puts points on the wrong side",
+            Box::new(move |t| put_u32(t, m.stems + 4, 1.0e9f32.to_bits())),
+            "wrong side of stem",
+        ),
+        (
+            "a NaN pivot",
+            Box::new(move |t| put_u32(t, m.stems + 8, f32::NAN.to_bits())),
+            "has the pivot NaN",
+        ),
+    ];
+    let probe = d.path("crafted.wmk");
+    for (what, craft, message) in &cases {
+        let mut t = tree.clone();
+        craft(&mut t);
+        assert_ne!(t, tree, "{what}: the craft changes the tree");
+        // Each craft passes what the kd-tree check used to be: its checksum (recomputed
+        // below) and rkyv's validation.
+        assert!(
+            rkyv_accepts(&t),
+            "{what}: rkyv's validation refuses it already"
+        );
+        let mut bytes = good.clone();
+        bytes[sec.clone()].copy_from_slice(&t);
+        fix_checksums(&mut bytes);
+        std::fs::write(&probe, &bytes).unwrap();
+        for args in [
+            vec!["query", "crafted.wmk", "--candidates-from", "tree"],
+            vec!["inspect", "--verify", "crafted.wmk"],
+        ] {
+            let out = d
+                .cmd()
+                .args(&args)
+                .write_stdin("abandon\n")
+                .output()
+                .unwrap();
+            let err = String::from_utf8_lossy(&out.stderr);
+            assert_eq!(out.status.code(), Some(3), "{what}: {args:?}: {err}");
+            assert!(
+                err.contains("crafted.wmk: corrupt index: section kd-tree is refused: ")
+                    && err.contains(message)
+                    && !err.contains("panicked"),
+                "{what}: {args:?}: {err}"
+            );
+        }
+        // The scan does not read the tree: the file still answers through it.
+        d.cmd()
+            .args(["query", "crafted.wmk"])
+            .write_stdin("abandon\n")
+            .assert()
+            .success();
+    }
+    // The untouched tree is queried through kiddo and answers.
+    d.cmd()
+        .args(["query", "w.wmk", "--candidates-from", "tree"])
+        .write_stdin("abandon\n")
+        .assert()
+        .success()
+        .stdout(contains("\"neighbors\""));
 }
 
 // ---------------------------------------------------------------------------------------
@@ -613,7 +872,8 @@ fn a_build_killed_midway_leaves_the_old_index_intact() {
         }
         assert_eq!(std::fs::read(&idx).unwrap(), before, "old index untouched");
         assert_eq!(query_tsv(&d, &idx, "abandon\nZurich\n"), answers);
-        // A leftover temp file is never mistaken for an index.
+        // A leftover temp file is never mistaken for an index. It stays until the next
+        // build to the same destination starts (the next round's, or the one below).
         for stray in d.others(&["small.txt", "big.txt", "x.wmk"]) {
             assert!(stray.ends_with(".waymark-partial"), "{stray}");
             d.cmd()
@@ -621,13 +881,70 @@ fn a_build_killed_midway_leaves_the_old_index_intact() {
                 .assert()
                 .code(3)
                 .stderr(contains("not a waymark index"));
-            std::fs::remove_file(d.path(&stray)).unwrap();
         }
     }
     assert!(
         killed_during_write,
         "no kill landed while the temp file existed"
     );
+    // A build that runs to the end removes what the killed ones left.
+    d.build(&small, "x.wmk", &["--dim", "8"]);
+    assert_eq!(
+        d.others(&["small.txt", "big.txt", "x.wmk"]),
+        Vec::<String>::new()
+    );
+}
+
+#[test]
+fn a_build_removes_temp_files_of_dead_builds_of_its_destination_only() {
+    let d = Dir::new();
+    let input = d.write("a.txt", words(500).join("\n").as_bytes());
+    d.build(&input, "x.wmk", &["--dim", "4"]);
+    // Left by a killed writer: no process holds its lock.
+    let dead = [
+        ".x.wmk.Ab3xQ9.waymark-partial",
+        ".x.wmk.000000.waymark-partial",
+    ];
+    // Not temp files of x.wmk: another destination's (x.wmk.b, y.wmk), a name of another
+    // shape, and a folder.
+    let others = [
+        ".x.wmk.b.Ab3xQ9.waymark-partial",
+        ".y.wmk.Ab3xQ9.waymark-partial",
+        ".x.wmk.Ab3x.waymark-partial",
+        "x.wmk.Ab3xQ9.waymark-partial",
+    ];
+    for name in dead.iter().chain(&others) {
+        d.write(name, &[0u8; 4096]);
+    }
+    std::fs::create_dir(d.path(".x.wmk.Dir123.waymark-partial")).unwrap();
+    // A live writer: this process holds the lock, as a concurrent build would.
+    let live = d.write(".x.wmk.LiVe42.waymark-partial", &[0u8; 4096]);
+    let lock = std::fs::File::open(&live).unwrap();
+    lock.lock().unwrap();
+
+    d.build(&input, "x.wmk", &["--dim", "4"]);
+    for name in dead {
+        assert!(!d.path(name).exists(), "{name} removed");
+    }
+    for name in others {
+        assert!(d.path(name).exists(), "{name} kept");
+    }
+    assert!(d.path(".x.wmk.Dir123.waymark-partial").is_dir());
+    assert!(live.exists(), "the live writer's file is kept");
+    assert_eq!(
+        std::fs::read(&live).unwrap(),
+        vec![0u8; 4096],
+        "and untouched"
+    );
+    // Once its writer is gone, the next build removes it too.
+    drop(lock);
+    d.build(&input, "x.wmk", &["--dim", "4"]);
+    assert!(!live.exists());
+    d.cmd()
+        .args(["query", "x.wmk"])
+        .write_stdin("abandon\n")
+        .assert()
+        .success();
 }
 
 #[test]

@@ -19,6 +19,12 @@
 //! All integers are little-endian. Writes go to a temporary file in the destination folder;
 //! the header is written last, then the file is flushed to disk, renamed over the
 //! destination and the folder is flushed: an interrupted build leaves the old index or none.
+//!
+//! The temporary file is `.NAME.XXXXXX.waymark-partial` (six random letters and digits) and
+//! its writer holds an exclusive lock on it (`flock`) until it is renamed or removed. A
+//! killed writer leaves the file but not the lock (the system drops it with the process), so
+//! the next build to the same destination removes every such file that it can lock: only
+//! files of writers that are gone, never one that a concurrent build is writing.
 
 use std::fs::File;
 use std::io::{Seek, SeekFrom, Write};
@@ -176,13 +182,8 @@ impl ContainerWriter {
             .file_name()
             .map(|n| n.to_string_lossy().into_owned())
             .unwrap_or_else(|| "index".into());
-        // The prefix marks the file as unfinished; its header stays zero until finish(),
-        // so even a leftover temp file is refused by the reader.
-        let mut tmp = tempfile::Builder::new()
-            .prefix(&format!(".{name}."))
-            .suffix(".waymark-partial")
-            .tempfile_in(&dir)
-            .map_err(|e| io_err(&dir, e))?;
+        let mut tmp = create_partial(&dir, &name)?;
+        remove_stale_partials(&dir, &name, tmp.path());
         let reserved = vec![0u8; HEADER_LEN + TABLE_LEN];
         tmp.write_all(&reserved).map_err(|e| write_err(dest, e))?;
         Ok(ContainerWriter {
@@ -258,6 +259,108 @@ impl ContainerWriter {
             }
         }
         Ok(())
+    }
+}
+
+/// Random letters and digits in a temporary file's name (tempfile's default, made explicit
+/// because [`partial_name_matches`] relies on it).
+const PARTIAL_RAND: usize = 6;
+const PARTIAL_SUFFIX: &str = ".waymark-partial";
+
+/// Whether `file` is a temporary file of a build of `dest_name`:
+/// `.DEST_NAME.XXXXXX.waymark-partial` with six ASCII letters or digits. The random part
+/// has no dot, so the partial files of `a` and of `a.b` never match each other.
+fn partial_name_matches(file: &str, dest_name: &str) -> bool {
+    file.strip_prefix('.')
+        .and_then(|f| f.strip_prefix(dest_name))
+        .and_then(|f| f.strip_prefix('.'))
+        .and_then(|f| f.strip_suffix(PARTIAL_SUFFIX))
+        .is_some_and(|r| r.len() == PARTIAL_RAND && r.bytes().all(|b| b.is_ascii_alphanumeric()))
+}
+
+/// Identity of a file on disk (device and inode).
+fn file_id(m: &std::fs::Metadata) -> (u64, u64) {
+    use std::os::unix::fs::MetadataExt;
+    (m.dev(), m.ino())
+}
+
+/// Creates the locked temporary file for a build of `dest_name` in `dir`.
+///
+/// The lock is taken after the file appears, so another build's cleanup can lock and remove
+/// it in between; the writer then finds its name gone (or naming another file) and starts
+/// over with a new one.
+fn create_partial(dir: &Path, dest_name: &str) -> Result<tempfile::NamedTempFile> {
+    let mut last = None;
+    for _ in 0..8 {
+        // The prefix marks the file as unfinished; its header stays zero until finish(),
+        // so even a leftover temp file is refused by the reader.
+        let tmp = tempfile::Builder::new()
+            .prefix(&format!(".{dest_name}."))
+            .suffix(PARTIAL_SUFFIX)
+            .rand_bytes(PARTIAL_RAND)
+            .tempfile_in(dir)
+            .map_err(|e| io_err(dir, e))?;
+        tmp.as_file().lock().map_err(|e| io_err(tmp.path(), e))?;
+        let ours = tmp
+            .as_file()
+            .metadata()
+            .map_err(|e| io_err(tmp.path(), e))?;
+        match std::fs::symlink_metadata(tmp.path()) {
+            Ok(m) if file_id(&m) == file_id(&ours) => return Ok(tmp),
+            Ok(_) => last = Some(std::io::ErrorKind::AlreadyExists),
+            Err(e) => last = Some(e.kind()),
+        }
+        // Removed under us: forget the name (it is no longer ours) and try again.
+        let _ = tmp.into_temp_path().keep();
+    }
+    Err(Error::Io {
+        path: dir.to_path_buf(),
+        source: std::io::Error::new(
+            last.unwrap_or(std::io::ErrorKind::Other),
+            "could not keep a temporary file in the output folder",
+        ),
+    })
+}
+
+/// Removes the temporary files of earlier builds of `dest_name` in `dir` whose writers are
+/// gone (their lock can be taken), except `own`. Best effort: a file that cannot be read,
+/// locked or removed is left alone, and no error stops the build.
+fn remove_stale_partials(dir: &Path, dest_name: &str, own: &Path) {
+    let Ok(entries) = std::fs::read_dir(dir) else {
+        return;
+    };
+    for entry in entries.flatten() {
+        let name = entry.file_name();
+        let Some(name) = name.to_str() else {
+            continue;
+        };
+        let path = entry.path();
+        if !partial_name_matches(name, dest_name) || path == own {
+            continue;
+        }
+        // Only plain files (a symlink is never followed), opened without writing.
+        let Ok(meta) = std::fs::symlink_metadata(&path) else {
+            continue;
+        };
+        if !meta.file_type().is_file() {
+            continue;
+        }
+        let Ok(file) = File::open(&path) else {
+            continue;
+        };
+        // A live writer holds the lock: WouldBlock, and the file stays.
+        if file.try_lock().is_err() {
+            continue;
+        }
+        // Still the file that was locked (not renamed into place or replaced meanwhile)?
+        let same = match (file.metadata(), std::fs::symlink_metadata(&path)) {
+            (Ok(a), Ok(b)) => file_id(&a) == file_id(&b),
+            _ => false,
+        };
+        if same {
+            let _ = std::fs::remove_file(&path);
+        }
+        drop(file);
     }
 }
 

@@ -59,29 +59,312 @@ pub struct TreeView<'a> {
     size: usize,
 }
 
-fn check_k<const K: usize>(bytes: &[u8]) -> Result<usize, String> {
+// Why the tree is checked field by field, and how.
+//
+// rkyv's validation (bytecheck) proves that every pointer and length of the archive stays
+// inside the bytes, but kiddo's queries then read its fields with unchecked arithmetic:
+// kiddo 6.3's `ImmutableKdTree` (Eytzinger stems, `VecOfArenas` leaves) answers
+// `nearest_n` through `arithmetic_query_with_scratch_impl` (kd_tree/orchestrator), which
+//
+// - pushes one frame per stem level onto fixed stacks of 64 frames with
+//   `push_unchecked_inline`, for levels `0..=max_stem_level`;
+// - reads `stems.get_unchecked(i)` for Eytzinger indices `i < 2^(max_stem_level + 1)`,
+//   and treats a pivot of `f32::INFINITY` (its `max_value`) as "no split" (always left);
+// - takes leaf `i & !(1 << level)` at the bottom, indexes `leaf_extents[leaf]` (checked:
+//   a panic), then reads `len` points and items at `leaf_bytes.as_ptr().add(offset)` in
+//   tiles of 32, 8, 4, 2, 1 points (`LeafArena`), each tile `K` columns of f32 followed
+//   by its u32 items: no bound is checked against the arena;
+// - sorts distances with a comparison that NaN makes inconsistent;
+// - uses only `uses_arithmetic()` of the stem/leaf resolution (a `Mapped` resolution
+//   would switch to a path that panics on a miss).
+//
+// The archived fields are private to kiddo, so they are read through `Layout`, a copy of
+// the archived struct's field types in the same order: rkyv's derived archives are
+// `repr(C)`, so the copy lays out identically, which a compile-time check of size and
+// alignment and a cross-check of every field kiddo does expose (size, levels, leaf count
+// and every leaf's length, the stems' address) confirm on each file. With those fields,
+// every one of the conditions above is checked, and more: the shape is the one kiddo builds
+// for n items (levels, leaf and stem counts, the resolution), leaves lie in order in the
+// arena, every item 0..n appears exactly once, coordinates are finite and zero past the
+// embedding's dimension, and every point lies on its side of every pivot above it, so a
+// pruned search over the tree is exact. The pass is linear in the tree's size and runs
+// once, on first use of the tree.
+
+/// The archived form of kiddo's `ImmutableKdTree<f32, K>`, for any K: its fields' types
+/// in kiddo's order (`stems`, `leaves`, `stem_leaf_resolution`, `size`, `max_stem_level`,
+/// `max_leaf_len`; the phantom fields archive to nothing).
+#[derive(rkyv::Archive)]
+#[allow(dead_code)] // only the archived form is read
+struct Layout {
+    stems: Box<[f32]>,
+    leaves: LeavesLayout,
+    resolution: ResolutionLayout,
+    size: usize,
+    max_stem_level: i32,
+    max_leaf_len: usize,
+}
+
+/// kiddo's `VecOfArenas`: `(byte offset, length)` per leaf, the arena, the item count.
+#[derive(rkyv::Archive)]
+#[allow(dead_code)]
+struct LeavesLayout {
+    leaf_extents: Vec<(usize, usize)>,
+    leaf_bytes: Box<[u8]>,
+    size: usize,
+}
+
+/// kiddo's `OwnedStemLeafResolution`.
+#[derive(rkyv::Archive)]
+#[allow(dead_code)]
+enum ResolutionLayout {
+    Arithmetic {
+        stems_depth: usize,
+        leaf_count: usize,
+    },
+    Pristine {
+        stems_depth: usize,
+        leaf_count: usize,
+    },
+    Mapped {
+        min_stem_leaf_idx: usize,
+        leaf_idx_map: Vec<usize>,
+    },
+}
+
+const fn same_shape<A, B>() -> bool {
+    std::mem::size_of::<A>() == std::mem::size_of::<B>()
+        && std::mem::align_of::<A>() == std::mem::align_of::<B>()
+}
+const _: () = assert!(
+    same_shape::<ArchivedLayout, Archived<2>>()
+        && same_shape::<ArchivedLayout, Archived<4>>()
+        && same_shape::<ArchivedLayout, Archived<8>>()
+        && same_shape::<ArchivedLayout, Archived<16>>()
+        && same_shape::<ArchivedLayout, Archived<32>>()
+        && same_shape::<ArchivedLayout, Archived<64>>(),
+    "kiddo's archived tree no longer has the layout that tree.rs checks"
+);
+
+/// Points per leaf in kiddo's immutable trees (the `B` of `ImmutableKdTree`).
+const BUCKET: usize = 32;
+/// Tile widths of a `VecOfArenas` leaf, largest first (kiddo's `LEAF_ARENA_TILE_WIDTHS`).
+const TILES: [usize; 5] = [32, 8, 4, 2, 1];
+/// Deepest stem level accepted: kiddo's traversal stacks hold 64 frames and its Eytzinger
+/// stem indices are u32, so 2^(level + 1) must fit in one.
+const MAX_STEM_LEVEL: i32 = 30;
+/// Largest coordinate magnitude accepted: 64 squared differences of this size still sum
+/// to a finite f32, so no distance kiddo computes becomes infinite or NaN.
+const MAX_COORD: f32 = (1u64 << 60) as f32;
+
+fn tile_len(remaining: usize) -> usize {
+    TILES.into_iter().find(|&w| remaining >= w).unwrap_or(1)
+}
+
+/// Bytes of a leaf of `len` points in a tree of dimension `k`.
+fn leaf_bytes_len(len: usize, k: usize) -> Option<usize> {
+    len.checked_mul(k.checked_mul(4)?.checked_add(4)?)
+}
+
+fn usize_of(v: &rkyv::primitive::ArchivedUsize) -> usize {
+    v.to_native() as usize
+}
+
+/// Checks an archived tree of dimension `K` for an index of `n` items whose embedding has
+/// `dim` coordinates (the rest are zero). See the comment above `Layout`.
+fn check_k<const K: usize>(bytes: &[u8], dim: usize, n: usize) -> Result<(), String> {
+    use kiddo::kd_tree::KdTreeAccessor;
+
     let t =
         rkyv::access::<Archived<K>, rkyv::rancor::BoxedError>(bytes).map_err(|e| e.to_string())?;
-    Ok(t.size())
+    let l = rkyv::access::<ArchivedLayout, rkyv::rancor::BoxedError>(bytes)
+        .map_err(|e| format!("not in the layout this waymark reads: {e}"))?;
+    let stems: &[f32] = KdTreeAccessor::stems(t);
+    let extents = l.leaves.leaf_extents.as_slice();
+    let arena: &[u8] = l.leaves.leaf_bytes.get();
+
+    // The copy of the layout reads what kiddo reads.
+    let same_layout = stems.as_ptr() == l.stems.get().as_ptr().cast()
+        && stems.len() == l.stems.len()
+        && t.size() == usize_of(&l.size)
+        && t.max_stem_level() == l.max_stem_level.to_native()
+        && t.max_leaf_len() == usize_of(&l.max_leaf_len)
+        && t.leaf_count() == extents.len()
+        && extents
+            .iter()
+            .enumerate()
+            .all(|(i, e)| t.leaves().leaf_len(i) == usize_of(&e.1));
+    if !same_layout {
+        return Err("not in the layout this waymark reads".into());
+    }
+
+    // Counts.
+    let size = usize_of(&l.size);
+    if size != n || usize_of(&l.leaves.size) != n {
+        return Err(format!(
+            "it holds {size} points ({} in its leaves) for {n} items",
+            usize_of(&l.leaves.size)
+        ));
+    }
+
+    // Shape: the one kiddo builds for n items.
+    let level = l.max_stem_level.to_native();
+    let depth = n
+        .div_ceil(BUCKET)
+        .max(1)
+        .next_power_of_two()
+        .trailing_zeros() as i32;
+    if !(-1..=MAX_STEM_LEVEL).contains(&level) || level + 1 != depth {
+        return Err(format!(
+            "its deepest stem level is {level}; {n} items make {}",
+            depth - 1
+        ));
+    }
+    let leaves = 1usize << depth;
+    if extents.len() != leaves {
+        return Err(format!(
+            "it has {} leaves; {depth} levels of stems make {leaves}",
+            extents.len()
+        ));
+    }
+    match &l.resolution {
+        ArchivedResolutionLayout::Arithmetic {
+            stems_depth,
+            leaf_count,
+        } if usize_of(stems_depth) == depth as usize && usize_of(leaf_count) == leaves => {}
+        ArchivedResolutionLayout::Arithmetic {
+            stems_depth,
+            leaf_count,
+        } => {
+            return Err(format!(
+                "its leaf resolution records {} levels and {} leaves, not {depth} and {leaves}",
+                usize_of(stems_depth),
+                usize_of(leaf_count)
+            ))
+        }
+        _ => return Err("its leaf resolution is not the arithmetic one of a built tree".into()),
+    }
+    // kiddo sizes the stems to the Eytzinger index of the rightmost node one level below
+    // the last stem level, rounded up to a multiple of 8; unused ones hold f32::INFINITY.
+    // A tree of one leaf has none.
+    let stem_count = if depth == 0 {
+        0
+    } else {
+        (2 * leaves).div_ceil(8) * 8
+    };
+    if stems.len() != stem_count {
+        return Err(format!(
+            "it has {} stems; {depth} levels make {stem_count}",
+            stems.len()
+        ));
+    }
+    for (i, &s) in stems.iter().enumerate() {
+        let used = i >= 1 && i < leaves;
+        if !(s == f32::INFINITY || used && s.is_finite() && s.abs() <= MAX_COORD) {
+            return Err(format!("stem {i} has the pivot {s}"));
+        }
+    }
+
+    // Leaves: in order inside the arena, each item once, points finite and on their side of
+    // every pivot above them.
+    let mut seen = vec![0u64; n.div_ceil(64)];
+    let mut end_of_last = 0usize;
+    let mut longest = 0usize;
+    let mut point = [0f32; K];
+    for (leaf, e) in extents.iter().enumerate() {
+        let (offset, len) = (usize_of(&e.0), usize_of(&e.1));
+        let bytes = leaf_bytes_len(len, K)
+            .and_then(|b| offset.checked_add(b))
+            .filter(|&end| offset % 8 == 0 && offset >= end_of_last && end <= arena.len());
+        let Some(end) = bytes else {
+            return Err(format!(
+                "leaf {leaf}: {len} points at byte {offset} do not fit in order in its {}-byte arena",
+                arena.len()
+            ));
+        };
+        end_of_last = end;
+        longest = longest.max(len);
+        let mut at = offset;
+        let mut remaining = len;
+        while remaining > 0 {
+            let w = tile_len(remaining);
+            let word = |o: usize| -> [u8; 4] { arena[o..o + 4].try_into().expect("4 bytes") };
+            for j in 0..w {
+                for (d, p) in point.iter_mut().enumerate() {
+                    *p = f32::from_ne_bytes(word(at + (d * w + j) * 4));
+                }
+                let item = u32::from_ne_bytes(word(at + (K * w + j) * 4)) as usize;
+                if item >= n || seen[item / 64] & (1 << (item % 64)) != 0 {
+                    return Err(format!(
+                        "leaf {leaf}: item {item} is out of range or appears twice"
+                    ));
+                }
+                seen[item / 64] |= 1 << (item % 64);
+                for (d, &x) in point.iter().enumerate() {
+                    let ok = if d < dim {
+                        x.is_finite() && x.abs() <= MAX_COORD
+                    } else {
+                        x == 0.0
+                    };
+                    if !ok {
+                        return Err(format!("leaf {leaf}: item {item} has coordinate {d} = {x}"));
+                    }
+                }
+                // The path from the root: level v splits on coordinate v mod K at stem
+                // (leaves + leaf) >> (depth - v); bit depth - 1 - v of `leaf` says right.
+                for v in 0..depth {
+                    let stem = (leaves + leaf) >> (depth - v);
+                    let right = (leaf >> (depth - 1 - v)) & 1 == 1;
+                    let pivot = stems[stem];
+                    let x = point[v as usize % K];
+                    let ok = if pivot == f32::INFINITY {
+                        !right
+                    } else if right {
+                        x >= pivot
+                    } else {
+                        x <= pivot
+                    };
+                    if !ok {
+                        return Err(format!(
+                            "leaf {leaf}: item {item} lies on the wrong side of stem {stem}"
+                        ));
+                    }
+                }
+            }
+            at += w * (K * 4 + 4);
+            remaining -= w;
+        }
+    }
+    let points: usize = extents.iter().map(|e| usize_of(&e.1)).sum();
+    if points != n {
+        return Err(format!("its leaves hold {points} points for {n} items"));
+    }
+    if longest != usize_of(&l.max_leaf_len) {
+        return Err(format!(
+            "it records {} points in its longest leaf, which has {longest}",
+            usize_of(&l.max_leaf_len)
+        ));
+    }
+    Ok(())
 }
 
 impl<'a> TreeView<'a> {
-    /// Validates the archive's structure (rkyv's bytecheck) and returns a view.
-    pub fn open(bytes: &'a [u8], dim: usize) -> Result<TreeView<'a>, String> {
+    /// Validates the archive (rkyv's bytecheck, then every field kiddo's queries trust; see
+    /// the comment above `Layout`) for an index of `n` items and returns a view.
+    pub fn open(bytes: &'a [u8], dim: usize, n: usize) -> Result<TreeView<'a>, String> {
         let tree_dim = tree_dim(dim);
-        let size = match tree_dim {
-            2 => check_k::<2>(bytes),
-            4 => check_k::<4>(bytes),
-            8 => check_k::<8>(bytes),
-            16 => check_k::<16>(bytes),
-            32 => check_k::<32>(bytes),
-            _ => check_k::<64>(bytes),
+        match tree_dim {
+            2 => check_k::<2>(bytes, dim, n),
+            4 => check_k::<4>(bytes, dim, n),
+            8 => check_k::<8>(bytes, dim, n),
+            16 => check_k::<16>(bytes, dim, n),
+            32 => check_k::<32>(bytes, dim, n),
+            _ => check_k::<64>(bytes, dim, n),
         }?;
         Ok(TreeView {
             bytes,
             tree_dim,
             dim,
-            size,
+            size: n,
         })
     }
 
@@ -130,8 +413,8 @@ impl<'a> TreeView<'a> {
         out: &mut Vec<(u32, f32)>,
     ) {
         // SAFETY: every TreeView is made by `open`, or by `validated` after `open` succeeded,
-        // which ran rkyv's validating `access` on these exact bytes with the same K; the
-        // bytes are immutable for the lifetime 'a.
+        // which ran rkyv's validating `access` and `check_k` (every field kiddo's queries
+        // trust) on these exact bytes with the same K; the bytes are immutable for 'a.
         let t = unsafe { rkyv::access_unchecked::<Archived<K>>(self.bytes) };
         let mut q = [0f32; K];
         let d = self.dim.min(K).min(query.len());
@@ -145,5 +428,37 @@ impl<'a> TreeView<'a> {
             Space::Linf => t.query(&q).nearest_n::<Chebyshev<f32>>(count).execute(),
         };
         out.extend(res.into_iter().map(|r| (r.item, r.distance)));
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use rand::{Rng, SeedableRng};
+
+    /// Trees kiddo builds pass the check, whatever n, dimension and duplicates.
+    #[test]
+    fn every_tree_kiddo_builds_passes_the_check() {
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(7);
+        let sizes = (1..=70).chain([95, 96, 97, 128, 129, 1000, 1023, 1025, 4097]);
+        for n in sizes {
+            for dim in [1, 2, 3, 5, 8, 13, 16, 31, 40, 64] {
+                // Few distinct values, so that many points tie on their pivots.
+                let distinct = rng.gen_range(1..=8);
+                let coords: Vec<f32> = (0..n * dim)
+                    .map(|_| rng.gen_range(0..distinct) as f32 * 1.5)
+                    .collect();
+                let bytes = build(&coords, dim).expect("build");
+                let mut aligned = rkyv::util::AlignedVec::<128>::new();
+                aligned.extend_from_slice(&bytes);
+                let view = TreeView::open(&aligned, dim, n)
+                    .unwrap_or_else(|e| panic!("n = {n}, dim = {dim}: {e}"));
+                let mut out = Vec::new();
+                view.nearest(&coords[..dim], n.min(5), Space::L2, &mut out);
+                assert_eq!(out.len(), n.min(5));
+                assert_eq!(out[0].1, 0.0, "the first point is its own nearest");
+                assert!(TreeView::open(&aligned, dim, n + 1).is_err());
+            }
+        }
     }
 }
