@@ -156,7 +156,20 @@ pub struct Scratch {
     fine: Vec<u32>,
     fine_hist: Vec<u32>,
     fine_picked: Vec<(u32, u32)>,
+    /// Items gathered for one call of the lane kernel, and their distances.
+    lane_at: Vec<u32>,
+    lane_out: Vec<u32>,
 }
+
+/// Queries whose coordinates are scored together, tile by tile, in one pass over the stored
+/// rows ([`Searcher::search_many`], [`Searcher::answer_many`]).
+const QUERY_BLOCK: usize = 16;
+/// Rows per tile of that pass: 2048 rows of up to 64 bytes (128 KiB) stay in the core's L2
+/// cache while every query of a block is scored against them, so the coordinate table is
+/// read from memory once per block instead of once per query.
+const TILE_ROWS: usize = 2048;
+/// Items per call of the vector-lane kernel in exact and range queries.
+const LANE_GROUP: usize = 64;
 
 /// Runs queries against one index.
 pub struct Searcher<'a> {
@@ -170,6 +183,8 @@ pub struct Searcher<'a> {
     coarse: std::sync::OnceLock<Vec<u8>>,
     /// Coarse-stage candidates per final candidate; 0 turns the coarse stage off.
     coarse_factor: usize,
+    /// Length in chars of every key (saturated at 255), made on first exact query.
+    lens: std::sync::OnceLock<Vec<u8>>,
 }
 
 /// Coordinates per item in the coarse stage (the first landmarks, farthest-first order).
@@ -238,6 +253,7 @@ impl<'a> Searcher<'a> {
             bound: index.bound(),
             coarse: std::sync::OnceLock::new(),
             coarse_factor: DEFAULT_COARSE_FACTOR,
+            lens: std::sync::OnceLock::new(),
         }
     }
 
@@ -516,13 +532,23 @@ impl<'a> Searcher<'a> {
 
     /// Answers many queries in parallel; answers come back in input order.
     pub fn answer_many(&self, queries: &[String], req: &Request) -> Vec<Result<Found>> {
-        if let Request::Approximate(p) = req {
-            return self.search_many(queries, p);
+        let (k, radius) = match *req {
+            Request::Approximate(p) => return self.search_many(queries, &p),
+            Request::Exact { k } => (Some(k), None),
+            Request::Within { radius, k } => (k, Some(radius)),
+        };
+        if self.check(req).is_err() {
+            // Every query gets the same error, as from one call each.
+            return queries
+                .par_iter()
+                .map_init(Scratch::default, |s, q| self.answer(q, req, s))
+                .collect();
         }
-        queries
-            .par_iter()
-            .map_init(Scratch::default, |s, q| self.answer(q, req, s))
-            .collect()
+        let blocks: Vec<Vec<Result<Found>>> = queries
+            .par_chunks(QUERY_BLOCK)
+            .map_init(Vec::new, |s, block| self.exact_block(block, k, radius, s))
+            .collect();
+        blocks.into_iter().flatten().collect()
     }
 
     fn require_bound(&self) -> Result<Bound> {
@@ -547,36 +573,150 @@ impl<'a> Searcher<'a> {
         s: &mut Scratch,
     ) -> Result<Found> {
         let bound = self.require_bound()?;
+        let (q, small) = self.prepare_small(query);
+        self.score_block(
+            std::slice::from_ref(&small),
+            Space::Linf,
+            std::slice::from_mut(s),
+        );
+        Ok(self.visit_exact(&q, Some(&q), bound, k, radius, s))
+    }
+
+    /// Exact answers for a block of queries: their L∞ lower bounds are computed in one
+    /// tiled pass over the coordinates ([`Searcher::score_block`]), then each query is
+    /// answered as by [`Searcher::exact`].
+    fn exact_block(
+        &self,
+        block: &[String],
+        k: Option<usize>,
+        radius: Option<f64>,
+        s: &mut Vec<Scratch>,
+    ) -> Vec<Result<Found>> {
+        let bound = match self.require_bound() {
+            Ok(b) => b,
+            Err(_) => {
+                return block
+                    .iter()
+                    .map(|q| self.exact(q, k, radius, &mut Scratch::default()))
+                    .collect()
+            }
+        };
+        let prepared: Vec<(LevenshteinQuery, [u8; 64])> =
+            block.iter().map(|q| self.prepare_small(q)).collect();
+        let smalls: Vec<[u8; 64]> = prepared.iter().map(|p| p.1).collect();
+        if s.len() < block.len() {
+            s.resize_with(block.len(), Scratch::default);
+        }
+        self.score_block(&smalls, Space::Linf, s);
+        prepared
+            .iter()
+            .zip(s.iter_mut())
+            .map(|((q, _), sc)| Ok(self.visit_exact(q, Some(q), bound, k, radius, sc)))
+            .collect()
+    }
+
+    /// A prepared query and its stored (quantised) coordinates.
+    fn prepare_small(&self, query: &str) -> (LevenshteinQuery, [u8; 64]) {
         let q = self.prepare(query);
         let mut small = [0u8; 64];
         let mut exact = [0f32; 64];
         self.embed(&q, &mut small, &mut exact);
+        (q, small)
+    }
+
+    /// Length in chars of every key, saturated at 255; computed once per searcher.
+    fn key_lens(&self) -> &[u8] {
+        self.lens.get_or_init(|| {
+            (0..self.index.len())
+                .into_par_iter()
+                .map(|i| LevenshteinQuery::item_len(self.keys.get(i)).min(255) as u8)
+                .collect()
+        })
+    }
+
+    /// Scores every stored row against each query row of `qs` in `space`, into
+    /// `s[j].scores` and `s[j].hist` (as [`scan::score_rows`] does for one query).
+    ///
+    /// With several queries the rows are taken [`TILE_ROWS`] at a time and each tile is
+    /// scored against every query before the next is read: the scores are the same as one
+    /// [`scan::score_rows`] call per query, the coordinate table is read once per block.
+    fn score_block(&self, qs: &[[u8; 64]], space: Space, s: &mut [Scratch]) {
+        let n = self.index.len();
+        let coords = self.index.coords();
+        let stride = self.index.stride();
+        for sc in s.iter_mut().take(qs.len()) {
+            sc.scores.resize(n, 0);
+            sc.hist.clear();
+            sc.hist.resize(HIST_BINS, 0);
+        }
+        if let ([q], [sc, ..]) = (qs, &mut *s) {
+            scan::score_rows(coords, stride, q, space, &mut sc.scores, &mut sc.hist);
+            return;
+        }
+        let mut at = 0;
+        while at < n {
+            let end = (at + TILE_ROWS).min(n);
+            let tile = &coords[at * stride..end * stride];
+            for (q, sc) in qs.iter().zip(s.iter_mut()) {
+                scan::score_rows(
+                    tile,
+                    stride,
+                    q,
+                    space,
+                    &mut sc.scores[at..end],
+                    &mut sc.hist,
+                );
+            }
+            at = end;
+        }
+    }
+
+    /// Visits items in increasing stored L∞ bound (scores and histogram already in `s`)
+    /// and answers an exact request: the `k` nearest (all when `None`) among items within
+    /// `radius` (any when `None`).
+    ///
+    /// `q` measures items one at a time with its bounded distance, for any metric. With
+    /// `lanes`, the same query as Levenshtein of 1 ..= 64 chars, items are first filtered
+    /// by the difference of lengths in chars (a lower bound of the distance: the length is
+    /// the distance to the empty string) and the rest measured [`LANE_GROUP`] at a time
+    /// with the vector-lane kernel. Both give the same answer.
+    #[allow(clippy::too_many_arguments)]
+    fn visit_exact<Q: PreparedQuery>(
+        &self,
+        q: &Q,
+        lanes: Option<&LevenshteinQuery>,
+        bound: Bound,
+        k: Option<usize>,
+        radius: Option<f64>,
+        s: &mut Scratch,
+    ) -> Found {
         let n = self.index.len();
         let keep = k.unwrap_or(usize::MAX);
         let r = radius.unwrap_or(f64::INFINITY);
+        let lanes = lanes.filter(|l| (1..=64).contains(&l.len()));
+        let lens = lanes.map(|_| self.key_lens());
+        let m = lanes.map_or(0, |l| l.len());
+        let Scratch {
+            scores,
+            hist,
+            order,
+            lane_at,
+            lane_out,
+            ..
+        } = s;
+        lane_at.clear();
         // Stored L∞ differences above `cap` have a bound above the radius.
         let cap = usize::from(if r.is_finite() {
             bound.max_diff_within(r)
         } else {
             u8::MAX
         });
-        s.scores.resize(n, 0);
-        s.hist.clear();
-        s.hist.resize(HIST_BINS, 0);
-        scan::score_rows(
-            self.index.coords(),
-            self.index.stride(),
-            &small,
-            Space::Linf,
-            &mut s.scores,
-            &mut s.hist,
-        );
         // First collect the buckets that hold k items: the k-th distance is then known,
         // and it says how many more buckets are needed.
         let mut cut = cap;
         if let Some(k) = k {
             let mut seen = 0usize;
-            for (b, &h) in s.hist[..=cap].iter().enumerate() {
+            for (b, &h) in hist[..=cap].iter().enumerate() {
                 seen += h as usize;
                 if seen >= k {
                     cut = b;
@@ -596,16 +736,18 @@ impl<'a> Searcher<'a> {
             }
         };
         'visit: loop {
-            let starts = bucket_order(&s.scores, &s.hist, next, cut, &mut s.order);
+            let starts = bucket_order(scores, hist, next, cut, order);
             for b in next..=cut {
                 let lb = bound.lower(b as u8);
                 if lb > r || lb > kth_of(&best) {
                     next = b;
                     break 'visit;
                 }
-                let items = &s.order[starts[b - next] as usize..starts[b - next + 1] as usize];
+                let items = &order[starts[b - next] as usize..starts[b - next + 1] as usize];
                 for &i in items {
                     cert.examined += 1;
+                    // With items waiting in lanes this k-th distance may be larger than
+                    // the true one: the tests below then keep more items, never fewer.
                     let kth = kth_of(&best);
                     if lb >= kth {
                         // Equal bound and k-th distance: at best a tie, which only an
@@ -619,6 +761,17 @@ impl<'a> Searcher<'a> {
                         }
                     }
                     let limit = kth.min(r);
+                    if let (Some(lq), Some(lens)) = (lanes, lens) {
+                        let gap = length_gap(lens.get(i as usize).copied().unwrap_or(0), m);
+                        if gap as f64 > limit {
+                            continue;
+                        }
+                        lane_at.push(i);
+                        if lane_at.len() == LANE_GROUP {
+                            self.flush_lanes(lq, lane_at, lane_out, &mut best, k, r, &mut cert);
+                        }
+                        continue;
+                    }
                     let item = self.keys.get(i as usize);
                     cert.computed += 1;
                     let d = if limit.is_finite() {
@@ -638,6 +791,10 @@ impl<'a> Searcher<'a> {
                     } else {
                         best.push(found);
                     }
+                }
+                // The next bucket's test needs the true k-th distance.
+                if let Some(lq) = lanes {
+                    self.flush_lanes(lq, lane_at, lane_out, &mut best, k, r, &mut cert);
                 }
             }
             next = cut + 1;
@@ -662,28 +819,128 @@ impl<'a> Searcher<'a> {
                 }
             });
         }
-        cert.bound = s
-            .hist
+        cert.bound = hist
             .iter()
             .enumerate()
             .take(256)
             .skip(next)
             .find(|&(_, &h)| h > 0)
             .map(|(b, _)| bound.lower(b as u8));
-        Ok(Found {
+        Found {
             neighbors: best,
             distances: self.refs.len() + cert.computed,
             pruned: n - cert.examined,
             certificate: Some(cert),
-        })
+        }
+    }
+
+    /// Measures the items gathered in `at` with the vector-lane kernel and keeps those that
+    /// belong to the answer (within `r`; the `k` best when `k` is given); empties `at`.
+    #[allow(clippy::too_many_arguments)]
+    fn flush_lanes(
+        &self,
+        q: &LevenshteinQuery,
+        at: &mut Vec<u32>,
+        out: &mut Vec<u32>,
+        best: &mut Vec<Neighbor>,
+        k: Option<usize>,
+        r: f64,
+        cert: &mut Certificate,
+    ) {
+        if at.is_empty() {
+            return;
+        }
+        let mut items: [&[u8]; LANE_GROUP] = [&[]; LANE_GROUP];
+        for (slot, &i) in items.iter_mut().zip(at.iter()) {
+            *slot = self.keys.get(i as usize);
+        }
+        let count = at.len().min(LANE_GROUP);
+        out.clear();
+        out.resize(count, 0);
+        q.dist_batch(&items[..count], out);
+        cert.computed += count;
+        for (&i, &d) in at.iter().zip(out.iter()) {
+            let d = f64::from(d);
+            if d > r {
+                continue;
+            }
+            let found = Neighbor {
+                index: i,
+                distance: d,
+            };
+            match k {
+                Some(k) => keep_best(self.index, best, k, found),
+                None => best.push(found),
+            }
+        }
+        at.clear();
     }
 
     /// Runs many queries in parallel; answers come back in input order.
+    ///
+    /// Queries are taken in blocks of [`QUERY_BLOCK`] whose coordinates are scored together
+    /// in one pass over the stored rows; answers are those of [`Searcher::search`].
     pub fn search_many(&self, queries: &[String], p: &SearchParams) -> Vec<Result<Found>> {
-        queries
-            .par_iter()
-            .map_init(Scratch::default, |s, q| self.search(q, p, s))
+        let blocked = p.k > 0
+            && p.candidates > 0
+            && p.source == CandidateSource::Scan
+            && !self.coarse_on(p.candidates.max(p.k).min(self.index.len()));
+        if !blocked {
+            return queries
+                .par_iter()
+                .map_init(Scratch::default, |s, q| self.search(q, p, s))
+                .collect();
+        }
+        let blocks: Vec<Vec<Result<Found>>> = queries
+            .par_chunks(QUERY_BLOCK)
+            .map_init(Vec::new, |s, block| self.search_block(block, p, s))
+            .collect();
+        blocks.into_iter().flatten().collect()
+    }
+
+    /// Whether [`Searcher::scan_candidates`] takes its coarse stage for `c` candidates.
+    fn coarse_on(&self, c: usize) -> bool {
+        let c1 = c.saturating_mul(self.coarse_factor);
+        self.coarse_factor > 0 && self.index.stride() > COARSE_STRIDE && c1 < self.index.len() / 4
+    }
+
+    /// Approximate answers for a block of queries (scan source, no coarse stage): candidates
+    /// from one tiled pass ([`Searcher::score_block`]), then as [`Searcher::search`].
+    fn search_block(
+        &self,
+        block: &[String],
+        p: &SearchParams,
+        s: &mut Vec<Scratch>,
+    ) -> Vec<Result<Found>> {
+        let prepared: Vec<(LevenshteinQuery, [u8; 64])> =
+            block.iter().map(|q| self.prepare_small(q)).collect();
+        let smalls: Vec<[u8; 64]> = prepared.iter().map(|p| p.1).collect();
+        if s.len() < block.len() {
+            s.resize_with(block.len(), Scratch::default);
+        }
+        self.score_block(&smalls, p.space, s);
+        let c = p.candidates.max(p.k).min(self.index.len());
+        prepared
+            .iter()
+            .zip(s.iter_mut())
+            .map(|((q, small), sc)| {
+                select_best(&sc.scores, c, &sc.hist, &mut sc.picked);
+                let mut found = self.rerank(q, small, p.k, &sc.picked);
+                found.distances += self.refs.len();
+                Ok(found)
+            })
             .collect()
+    }
+}
+
+/// Lower bound of the distance from a query of `m` chars to an item whose length in chars
+/// is `stored` (saturated at 255: the item has at least 255 chars).
+#[inline]
+fn length_gap(stored: u8, m: usize) -> usize {
+    if stored < u8::MAX {
+        usize::from(stored).abs_diff(m)
+    } else {
+        usize::from(u8::MAX).saturating_sub(m)
     }
 }
 

@@ -187,6 +187,21 @@ impl LevenshteinQuery {
         self.len == 0
     }
 
+    /// Length of `item` in the chars this metric counts (Unicode scalar values, each invalid
+    /// UTF-8 sequence one char): the distance from `item` to the empty string, so that
+    /// `|len(a) − len(b)|` is a lower bound of the distance of `a` and `b`.
+    ///
+    /// ```
+    /// use waymark::metric::LevenshteinQuery;
+    ///
+    /// assert_eq!(LevenshteinQuery::item_len("kitteñ".as_bytes()), 6);
+    /// assert_eq!(LevenshteinQuery::new(b"").dist("kitteñ".as_bytes()), 6);
+    /// ```
+    #[inline]
+    pub fn item_len(item: &[u8]) -> usize {
+        char_len(item)
+    }
+
     /// The Levenshtein distance from the query to `item`.
     ///
     /// Saturates at `u32::MAX` for items of more than four billion chars.
