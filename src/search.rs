@@ -130,11 +130,14 @@ pub struct Found {
 
 /// The evidence that an exact answer is complete.
 ///
-/// Items are visited in increasing order of their stored L∞ lower bound. Every item that
-/// was not examined has a lower bound of at least [`Certificate::bound`], which is at least
-/// the k-th distance returned (k-NN) or above the radius (range query); an item examined
-/// but not measured had a bound equal to the k-th distance and an (id, index) that sorts
-/// after the k-th answer's, so it could at best tie and lose the tie.
+/// Items are visited in increasing order of their lower bound: the stored L∞ bound, for
+/// Levenshtein k-NN queries raised to the gap of lengths or of char signatures when that is
+/// larger (see [`LevenshteinQuery::signature`]). Every item that was not examined has a
+/// lower bound of at least [`Certificate::bound`], which is at least the k-th distance
+/// returned (k-NN) or above the radius (range query); an item examined but not measured
+/// either had a bound equal to the k-th distance and an (id, index) that sorts after the
+/// k-th answer's, so it could at best tie and lose the tie, or (Levenshtein) a length or
+/// signature gap above the k-th distance or the radius.
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
 pub struct Certificate {
     /// Items visited in bound order (each compared with the stopping rule).
