@@ -946,7 +946,7 @@ impl<'a> Searcher<'a> {
 
     /// Runs many queries in parallel; answers come back in input order.
     ///
-    /// Queries are taken in blocks of [`QUERY_BLOCK`] whose coordinates are scored together
+    /// Queries are taken in blocks of 16 whose coordinates are scored together
     /// in one pass over the stored rows; answers are those of [`Searcher::search`].
     pub fn search_many(&self, queries: &[String], p: &SearchParams) -> Vec<Result<Found>> {
         let blocked = p.k > 0
