@@ -10,6 +10,8 @@
 //! - `WAYMARK_BIG_CANDIDATES` extra candidate counts for the approximate path [2000,4000]
 //! - `WAYMARK_BIG_DIM` embedding dimension of the index [the default]
 //! - `WAYMARK_BIG_COARSE` coarse-stage factors to measure beside the default path [8,32]
+//! - `WAYMARK_BIG_PROFILE` `approx`, `exact` or `range`: run only that mode, three times,
+//!   without brute forces or checks (for a profiler) [unset]
 
 use std::path::{Path, PathBuf};
 use std::time::Instant;
@@ -109,6 +111,36 @@ fn main() {
         size_limit as f64 / 1e6
     );
     let searcher = Searcher::new(&index);
+    if let Ok(mode) = std::env::var("WAYMARK_BIG_PROFILE") {
+        // One mode only, repeated, no brute force: for a profiler.
+        let req = match mode.as_str() {
+            "exact" => Request::Exact { k },
+            "range" => Request::Within {
+                radius: 2.0,
+                k: None,
+            },
+            _ => Request::Approximate(SearchParams::from_index(&index, k)),
+        };
+        for _ in 0..3 {
+            let t = Instant::now();
+            let found = searcher.answer_many(&queries, &req);
+            let secs = t.elapsed().as_secs_f64();
+            let (mut examined, mut computed) = (0, 0);
+            for f in found.iter().flatten() {
+                if let Some(c) = f.certificate {
+                    examined += c.examined;
+                    computed += c.computed;
+                }
+            }
+            println!(
+                "{mode}: {:.1} q/s; {} examined, {} measured per query",
+                found.len() as f64 / secs,
+                examined / found.len().max(1),
+                computed / found.len().max(1)
+            );
+        }
+        return;
+    }
     let mut plain = Searcher::new(&index);
     plain.set_coarse_factor(0);
     let factors: Vec<usize> = env_list("WAYMARK_BIG_COARSE", "8,32");

@@ -133,11 +133,14 @@ pub struct Found {
 
 /// The evidence that an exact answer is complete.
 ///
-/// Items are visited in increasing order of their stored L∞ lower bound. Every item that
-/// was not examined has a lower bound of at least [`Certificate::bound`], which is at least
-/// the k-th distance returned (k-NN) or above the radius (range query); an item examined
-/// but not measured had a bound equal to the k-th distance and an (id, index) that sorts
-/// after the k-th answer's, so it could at best tie and lose the tie.
+/// Items are visited in increasing order of their lower bound: the stored L∞ bound, for
+/// Levenshtein k-NN queries raised to the gap of lengths or of char signatures when that is
+/// larger (see [`LevenshteinQuery::signature`]). Every item that was not examined has a
+/// lower bound of at least [`Certificate::bound`], which is at least the k-th distance
+/// returned (k-NN) or above the radius (range query); an item examined but not measured
+/// either had a bound equal to the k-th distance and an (id, index) that sorts after the
+/// k-th answer's, so it could at best tie and lose the tie, or (Levenshtein) a length or
+/// signature gap above the k-th distance or the radius.
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
 pub struct Certificate {
     /// Items visited in bound order (each compared with the stopping rule).
@@ -159,7 +162,20 @@ pub struct Scratch {
     fine: Vec<u32>,
     fine_hist: Vec<u32>,
     fine_picked: Vec<(u32, u32)>,
+    /// Items gathered for one call of the lane kernel, and their distances.
+    lane_at: Vec<u32>,
+    lane_out: Vec<u32>,
 }
+
+/// Queries whose coordinates are scored together, tile by tile, in one pass over the stored
+/// rows ([`Searcher::search_many`], [`Searcher::answer_many`]).
+const QUERY_BLOCK: usize = 16;
+/// Rows per tile of that pass: 2048 rows of up to 64 bytes (128 KiB) stay in the core's L2
+/// cache while every query of a block is scored against them, so the coordinate table is
+/// read from memory once per block instead of once per query.
+const TILE_ROWS: usize = 2048;
+/// Items per call of the vector-lane kernel in exact and range queries.
+const LANE_GROUP: usize = 64;
 
 /// Runs queries against one index.
 pub struct Searcher<'a> {
@@ -173,6 +189,9 @@ pub struct Searcher<'a> {
     coarse: std::sync::OnceLock<Vec<u8>>,
     /// Coarse-stage candidates per final candidate; 0 turns the coarse stage off.
     coarse_factor: usize,
+    /// Length in chars of every key (saturated at 255) and its char signature
+    /// ([`LevenshteinQuery::signature`]), made on the first exact query.
+    lens: std::sync::OnceLock<(Vec<u8>, Vec<u64>)>,
 }
 
 /// Coordinates per item in the coarse stage (the first landmarks, farthest-first order).
@@ -241,6 +260,7 @@ impl<'a> Searcher<'a> {
             bound: index.bound(),
             coarse: std::sync::OnceLock::new(),
             coarse_factor: DEFAULT_COARSE_FACTOR,
+            lens: std::sync::OnceLock::new(),
         }
     }
 
@@ -320,11 +340,23 @@ impl<'a> Searcher<'a> {
                     .extend(scratch.tree_out.iter().map(|&(i, _)| (0, i)));
             }
         }
+        self.finish(&q, &small, p.k, &scratch.picked)
+    }
+
+    /// Re-ranks the candidates picked for a query: in one batch for metrics that prefer
+    /// batches, else one by one with pruning; the landmark distances are counted in.
+    fn finish(
+        &self,
+        q: &AnyQuery,
+        small: &[u8; 64],
+        k: usize,
+        picked: &[(u32, u32)],
+    ) -> Result<Found> {
         let metric = self.index.metric()?;
         let mut found = if metric.prefers_batches() {
-            self.rerank_batch(&q, p.k, &scratch.picked)
+            self.rerank_batch(q, k, picked)
         } else {
-            self.rerank(&q, &small, p.k, &scratch.picked)
+            self.rerank(q, small, k, picked)
         };
         metric.check()?;
         found.distances += self.refs.len();
@@ -545,13 +577,23 @@ impl<'a> Searcher<'a> {
 
     /// Answers many queries in parallel; answers come back in input order.
     pub fn answer_many(&self, queries: &[String], req: &Request) -> Vec<Result<Found>> {
-        if let Request::Approximate(p) = req {
-            return self.search_many(queries, p);
+        let (k, radius) = match *req {
+            Request::Approximate(p) => return self.search_many(queries, &p),
+            Request::Exact { k } => (Some(k), None),
+            Request::Within { radius, k } => (k, Some(radius)),
+        };
+        if self.check(req).is_err() {
+            // Every query gets the same error, as from one call each.
+            return queries
+                .par_iter()
+                .map_init(Scratch::default, |s, q| self.answer(q, req, s))
+                .collect();
         }
-        queries
-            .par_iter()
-            .map_init(Scratch::default, |s, q| self.answer(q, req, s))
-            .collect()
+        let blocks: Vec<Vec<Result<Found>>> = queries
+            .par_chunks(QUERY_BLOCK)
+            .map_init(Vec::new, |s, block| self.exact_block(block, k, radius, s))
+            .collect();
+        blocks.into_iter().flatten().collect()
     }
 
     fn require_bound(&self) -> Result<Bound> {
@@ -576,36 +618,225 @@ impl<'a> Searcher<'a> {
         s: &mut Scratch,
     ) -> Result<Found> {
         let bound = self.require_bound()?;
+        let (q, small) = self.prepare_small(query)?;
+        self.score_block(
+            std::slice::from_ref(&small),
+            Space::Linf,
+            std::slice::from_mut(s),
+        );
+        let found = self.visit_exact(&q, levenshtein(&q), false, bound, k, radius, s);
+        self.index.metric()?.check()?;
+        Ok(found)
+    }
+
+    /// Exact answers for a block of queries: their L∞ lower bounds are computed in one
+    /// tiled pass over the coordinates ([`Searcher::score_block`]), then each query is
+    /// answered as by [`Searcher::exact`].
+    fn exact_block(
+        &self,
+        block: &[String],
+        k: Option<usize>,
+        radius: Option<f64>,
+        s: &mut Vec<Scratch>,
+    ) -> Vec<Result<Found>> {
+        let bound = match self.require_bound() {
+            Ok(b) => b,
+            Err(_) => {
+                return block
+                    .iter()
+                    .map(|q| self.exact(q, k, radius, &mut Scratch::default()))
+                    .collect()
+            }
+        };
+        let Ok(prepared) = block
+            .iter()
+            .map(|q| self.prepare_small(q))
+            .collect::<Result<Vec<(AnyQuery, [u8; 64])>>>()
+        else {
+            // A query the metric cannot take: one at a time, so each gets its own answer.
+            return block
+                .iter()
+                .map(|q| self.exact(q, k, radius, &mut Scratch::default()))
+                .collect();
+        };
+        let smalls: Vec<[u8; 64]> = prepared.iter().map(|p| p.1).collect();
+        if s.len() < block.len() {
+            s.resize_with(block.len(), Scratch::default);
+        }
+        self.score_block(&smalls, Space::Linf, s);
+        // Queries the lane path takes (see `visit_exact`) get their bounds raised together.
+        let lane_query = |q: &AnyQuery| levenshtein(q).is_some_and(|l| (1..=64).contains(&l.len()));
+        let raised = bound.whole && radius.is_none() && prepared.iter().all(|(q, _)| lane_query(q));
+        if raised {
+            let cap = bound_cap(bound, radius);
+            let qs: Vec<(&LevenshteinQuery, usize)> = prepared
+                .iter()
+                .filter_map(|(q, _)| levenshtein(q).map(|l| (l, cap)))
+                .collect();
+            self.raise_bounds(&qs, s);
+        }
+        prepared
+            .iter()
+            .zip(s.iter_mut())
+            .map(|((q, _), sc)| {
+                let found = self.visit_exact(q, levenshtein(q), raised, bound, k, radius, sc);
+                self.index.metric()?.check()?;
+                Ok(found)
+            })
+            .collect()
+    }
+
+    /// A prepared query and its stored (quantised) coordinates.
+    fn prepare_small(&self, query: &str) -> Result<(AnyQuery, [u8; 64])> {
         let q = self.prepare(query)?;
         let mut small = [0u8; 64];
         let mut exact = [0f32; 64];
         self.embed(&q, &mut small, &mut exact)?;
+        Ok((q, small))
+    }
+
+    /// Length in chars of every key (saturated at 255) and its char signature; computed
+    /// once per searcher (1.7 MB and 7 MB of reads at 663k words, 6 MB kept).
+    fn key_filters(&self) -> (&[u8], &[u64]) {
+        let (lens, sigs) = self.lens.get_or_init(|| {
+            (0..self.index.len())
+                .into_par_iter()
+                .map(|i| {
+                    let key = self.keys.get(i);
+                    (
+                        LevenshteinQuery::item_len(key).min(255) as u8,
+                        LevenshteinQuery::signature(key),
+                    )
+                })
+                .unzip()
+        });
+        (lens, sigs)
+    }
+
+    /// Raises each stored bound in `scores` (L∞ differences, whole distances) up to
+    /// `cap` to the larger of it and the length and signature gaps of the item to the
+    /// query, and recounts `hist`: both gaps are lower bounds of the Levenshtein distance
+    /// too, so the maximum is one, and fewer items fall in the first buckets.
+    ///
+    /// `qs[j]` is (query, cap) for `s[j]`. Rows are taken [`TILE_ROWS`] at a time for
+    /// every query of the block, so the per-item lengths and signatures are read once.
+    fn raise_bounds(&self, qs: &[(&LevenshteinQuery, usize)], s: &mut [Scratch]) {
+        let (lens, sigs) = self.key_filters();
+        let each: Vec<(usize, u64, u32)> = qs
+            .iter()
+            .map(|(q, cap)| (q.len(), q.signature_of_query(), *cap as u32))
+            .collect();
+        let n = self.index.len();
+        let mut at = 0;
+        while at < n {
+            let end = (at + TILE_ROWS).min(n);
+            for (&(m, qsig, cap), sc) in each.iter().zip(s.iter_mut()) {
+                let scores = &mut sc.scores[at..end];
+                let (lens, sigs) = (&lens[at..end], &sigs[at..end]);
+                #[cfg(target_arch = "x86_64")]
+                if std::arch::is_x86_feature_detected!("popcnt") {
+                    // SAFETY: the CPU has popcnt, the only feature the function needs.
+                    unsafe { raise_bounds_popcnt(m, qsig, cap, lens, sigs, scores) };
+                    continue;
+                }
+                raise_bounds_with(m, qsig, cap, lens, sigs, scores);
+            }
+            at = end;
+        }
+        for sc in s.iter_mut().take(qs.len()) {
+            recount_linf(&sc.scores, &mut sc.hist);
+        }
+    }
+
+    /// Scores every stored row against each query row of `qs` in `space`, into
+    /// `s[j].scores` and `s[j].hist` (as [`scan::score_rows`] does for one query).
+    ///
+    /// With several queries the rows are taken [`TILE_ROWS`] at a time and each tile is
+    /// scored against every query before the next is read: the scores are the same as one
+    /// [`scan::score_rows`] call per query, the coordinate table is read once per block.
+    fn score_block(&self, qs: &[[u8; 64]], space: Space, s: &mut [Scratch]) {
+        let n = self.index.len();
+        let coords = self.index.coords();
+        let stride = self.index.stride();
+        for sc in s.iter_mut().take(qs.len()) {
+            sc.scores.resize(n, 0);
+            sc.hist.clear();
+            sc.hist.resize(HIST_BINS, 0);
+        }
+        if let ([q], [sc, ..]) = (qs, &mut *s) {
+            scan::score_rows(coords, stride, q, space, &mut sc.scores, &mut sc.hist);
+            return;
+        }
+        let mut at = 0;
+        while at < n {
+            let end = (at + TILE_ROWS).min(n);
+            let tile = &coords[at * stride..end * stride];
+            for (q, sc) in qs.iter().zip(s.iter_mut()) {
+                scan::score_rows(
+                    tile,
+                    stride,
+                    q,
+                    space,
+                    &mut sc.scores[at..end],
+                    &mut sc.hist,
+                );
+            }
+            at = end;
+        }
+    }
+
+    /// Visits items in increasing stored L∞ bound (scores and histogram already in `s`)
+    /// and answers an exact request: the `k` nearest (all when `None`) among items within
+    /// `radius` (any when `None`).
+    ///
+    /// `q` measures items one at a time with its bounded distance, for any metric. With
+    /// `lanes`, the same query as Levenshtein of 1 ..= 64 chars, items are first filtered
+    /// by the difference of lengths in chars (a lower bound of the distance: the length is
+    /// the distance to the empty string) and the rest measured [`LANE_GROUP`] at a time
+    /// with the vector-lane kernel. Both give the same answer.
+    #[allow(clippy::too_many_arguments)]
+    fn visit_exact<Q: PreparedQuery>(
+        &self,
+        q: &Q,
+        lanes: Option<&LevenshteinQuery>,
+        raised: bool,
+        bound: Bound,
+        k: Option<usize>,
+        radius: Option<f64>,
+        s: &mut Scratch,
+    ) -> Found {
         let n = self.index.len();
         let keep = k.unwrap_or(usize::MAX);
         let r = radius.unwrap_or(f64::INFINITY);
+        let lanes = lanes.filter(|l| (1..=64).contains(&l.len()));
         // Stored L∞ differences above `cap` have a bound above the radius.
-        let cap = usize::from(if r.is_finite() {
-            bound.max_diff_within(r)
-        } else {
-            u8::MAX
-        });
-        s.scores.resize(n, 0);
-        s.hist.clear();
-        s.hist.resize(HIST_BINS, 0);
-        scan::score_rows(
-            self.index.coords(),
-            self.index.stride(),
-            &small,
-            Space::Linf,
-            &mut s.scores,
-            &mut s.hist,
-        );
+        let cap = bound_cap(bound, radius);
+        // With whole stored distances the length and signature gaps are folded into the
+        // bounds; otherwise they filter items one by one below.
+        let filters = match lanes {
+            Some(_) if raised => None,
+            Some(lq) if bound.whole && radius.is_none() => {
+                self.raise_bounds(&[(lq, cap)], std::slice::from_mut(s));
+                None
+            }
+            Some(lq) => Some((self.key_filters(), lq.len(), lq.signature_of_query())),
+            None => None,
+        };
+        let Scratch {
+            scores,
+            hist,
+            order,
+            lane_at,
+            lane_out,
+            ..
+        } = s;
+        lane_at.clear();
         // First collect the buckets that hold k items: the k-th distance is then known,
         // and it says how many more buckets are needed.
         let mut cut = cap;
         if let Some(k) = k {
             let mut seen = 0usize;
-            for (b, &h) in s.hist[..=cap].iter().enumerate() {
+            for (b, &h) in hist[..=cap].iter().enumerate() {
                 seen += h as usize;
                 if seen >= k {
                     cut = b;
@@ -625,16 +856,18 @@ impl<'a> Searcher<'a> {
             }
         };
         'visit: loop {
-            let starts = bucket_order(&s.scores, &s.hist, next, cut, &mut s.order);
+            let starts = bucket_order(scores, hist, next, cut, order);
             for b in next..=cut {
                 let lb = bound.lower(b as u8);
                 if lb > r || lb > kth_of(&best) {
                     next = b;
                     break 'visit;
                 }
-                let items = &s.order[starts[b - next] as usize..starts[b - next + 1] as usize];
+                let items = &order[starts[b - next] as usize..starts[b - next + 1] as usize];
                 for &i in items {
                     cert.examined += 1;
+                    // With items waiting in lanes this k-th distance may be larger than
+                    // the true one: the tests below then keep more items, never fewer.
                     let kth = kth_of(&best);
                     if lb >= kth {
                         // Equal bound and k-th distance: at best a tie, which only an
@@ -648,6 +881,23 @@ impl<'a> Searcher<'a> {
                         }
                     }
                     let limit = kth.min(r);
+                    if let Some(lq) = lanes {
+                        if let Some(((lens, sigs), m, qs)) = filters {
+                            let iu = i as usize;
+                            let len = lens.get(iu).copied().unwrap_or(0);
+                            let sig = sigs.get(iu).copied().unwrap_or(u64::MAX);
+                            let gap = (length_gap(len, m) as u32)
+                                .max(LevenshteinQuery::signature_gap(qs, sig));
+                            if f64::from(gap) > limit {
+                                continue;
+                            }
+                        }
+                        lane_at.push(i);
+                        if lane_at.len() == LANE_GROUP {
+                            self.flush_lanes(lq, lane_at, lane_out, &mut best, k, r, &mut cert);
+                        }
+                        continue;
+                    }
                     let item = self.keys.get(i as usize);
                     cert.computed += 1;
                     let d = if limit.is_finite() {
@@ -667,6 +917,10 @@ impl<'a> Searcher<'a> {
                     } else {
                         best.push(found);
                     }
+                }
+                // The next bucket's test needs the true k-th distance.
+                if let Some(lq) = lanes {
+                    self.flush_lanes(lq, lane_at, lane_out, &mut best, k, r, &mut cert);
                 }
             }
             next = cut + 1;
@@ -691,29 +945,184 @@ impl<'a> Searcher<'a> {
                 }
             });
         }
-        self.index.metric()?.check()?;
-        cert.bound = s
-            .hist
+        cert.bound = hist
             .iter()
             .enumerate()
             .take(256)
             .skip(next)
             .find(|&(_, &h)| h > 0)
             .map(|(b, _)| bound.lower(b as u8));
-        Ok(Found {
+        Found {
             neighbors: best,
             distances: self.refs.len() + cert.computed,
             pruned: n - cert.examined,
             certificate: Some(cert),
-        })
+        }
+    }
+
+    /// Measures the items gathered in `at` with the vector-lane kernel and keeps those that
+    /// belong to the answer (within `r`; the `k` best when `k` is given); empties `at`.
+    #[allow(clippy::too_many_arguments)]
+    fn flush_lanes(
+        &self,
+        q: &LevenshteinQuery,
+        at: &mut Vec<u32>,
+        out: &mut Vec<u32>,
+        best: &mut Vec<Neighbor>,
+        k: Option<usize>,
+        r: f64,
+        cert: &mut Certificate,
+    ) {
+        if at.is_empty() {
+            return;
+        }
+        let mut items: [&[u8]; LANE_GROUP] = [&[]; LANE_GROUP];
+        for (slot, &i) in items.iter_mut().zip(at.iter()) {
+            *slot = self.keys.get(i as usize);
+        }
+        let count = at.len().min(LANE_GROUP);
+        out.clear();
+        out.resize(count, 0);
+        q.dist_batch(&items[..count], out);
+        cert.computed += count;
+        for (&i, &d) in at.iter().zip(out.iter()) {
+            let d = f64::from(d);
+            if d > r {
+                continue;
+            }
+            let found = Neighbor {
+                index: i,
+                distance: d,
+            };
+            match k {
+                Some(k) => keep_best(self.index, best, k, found),
+                None => best.push(found),
+            }
+        }
+        at.clear();
     }
 
     /// Runs many queries in parallel; answers come back in input order.
+    ///
+    /// Queries are taken in blocks of 16 whose coordinates are scored together
+    /// in one pass over the stored rows; answers are those of [`Searcher::search`].
     pub fn search_many(&self, queries: &[String], p: &SearchParams) -> Vec<Result<Found>> {
-        queries
-            .par_iter()
-            .map_init(Scratch::default, |s, q| self.search(q, p, s))
+        let blocked = p.k > 0
+            && p.candidates > 0
+            && p.source == CandidateSource::Scan
+            && !self.coarse_on(p.candidates.max(p.k).min(self.index.len()));
+        if !blocked {
+            return queries
+                .par_iter()
+                .map_init(Scratch::default, |s, q| self.search(q, p, s))
+                .collect();
+        }
+        let blocks: Vec<Vec<Result<Found>>> = queries
+            .par_chunks(QUERY_BLOCK)
+            .map_init(Vec::new, |s, block| self.search_block(block, p, s))
+            .collect();
+        blocks.into_iter().flatten().collect()
+    }
+
+    /// Whether [`Searcher::scan_candidates`] takes its coarse stage for `c` candidates.
+    fn coarse_on(&self, c: usize) -> bool {
+        let c1 = c.saturating_mul(self.coarse_factor);
+        self.coarse_factor > 0 && self.index.stride() > COARSE_STRIDE && c1 < self.index.len() / 4
+    }
+
+    /// Approximate answers for a block of queries (scan source, no coarse stage): candidates
+    /// from one tiled pass ([`Searcher::score_block`]), then as [`Searcher::search`].
+    fn search_block(
+        &self,
+        block: &[String],
+        p: &SearchParams,
+        s: &mut Vec<Scratch>,
+    ) -> Vec<Result<Found>> {
+        let Ok(prepared) = block
+            .iter()
+            .map(|q| self.prepare_small(q))
+            .collect::<Result<Vec<(AnyQuery, [u8; 64])>>>()
+        else {
+            // A query the metric cannot take: one at a time, so each gets its own answer.
+            return block
+                .iter()
+                .map(|q| self.search(q, p, &mut Scratch::default()))
+                .collect();
+        };
+        let smalls: Vec<[u8; 64]> = prepared.iter().map(|p| p.1).collect();
+        if s.len() < block.len() {
+            s.resize_with(block.len(), Scratch::default);
+        }
+        self.score_block(&smalls, p.space, s);
+        let c = p.candidates.max(p.k).min(self.index.len());
+        prepared
+            .iter()
+            .zip(s.iter_mut())
+            .map(|((q, small), sc)| {
+                select_best(&sc.scores, c, &sc.hist, &mut sc.picked);
+                self.finish(q, small, p.k, &sc.picked)
+            })
             .collect()
+    }
+}
+
+/// The loop of [`Searcher::raise_bounds`] for a query of `m` chars and signature `qs`.
+#[inline(always)]
+fn raise_bounds_with(m: usize, qs: u64, cap: u32, lens: &[u8], sigs: &[u64], scores: &mut [u32]) {
+    for ((s, &len), &sig) in scores.iter_mut().zip(lens).zip(sigs) {
+        let gap = (length_gap(len, m) as u32)
+            .max(LevenshteinQuery::signature_gap(qs, sig))
+            .min(255);
+        *s = if *s <= cap { (*s).max(gap) } else { *s };
+    }
+}
+
+/// [`raise_bounds_with`] compiled with the `popcnt` instruction (the baseline x86-64
+/// target lacks it, and the signature gap is two population counts per item).
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "popcnt")]
+fn raise_bounds_popcnt(m: usize, qs: u64, cap: u32, lens: &[u8], sigs: &[u64], scores: &mut [u32]) {
+    raise_bounds_with(m, qs, cap, lens, sigs, scores)
+}
+
+/// Counts L∞ scores (at most 255) into `hist`, replacing its contents; four small tables
+/// used in turn, so that increments of one bin do not wait on each other.
+fn recount_linf(scores: &[u32], hist: &mut [u32]) {
+    let mut local = [[0u32; 256]; 4];
+    let mut quads = scores.chunks_exact(4);
+    for four in &mut quads {
+        for (t, &b) in local.iter_mut().zip(four) {
+            t[(b as usize).min(255)] += 1;
+        }
+    }
+    for &b in quads.remainder() {
+        local[0][(b as usize).min(255)] += 1;
+    }
+    for (j, h) in hist.iter_mut().enumerate() {
+        *h = if j < 256 {
+            local.iter().map(|t| t[j]).sum()
+        } else {
+            0
+        };
+    }
+}
+
+/// The largest stored L∞ difference an item within `radius` can have (255: any).
+fn bound_cap(bound: Bound, radius: Option<f64>) -> usize {
+    usize::from(match radius {
+        Some(r) if r.is_finite() => bound.max_diff_within(r),
+        _ => u8::MAX,
+    })
+}
+
+/// Lower bound of the distance from a query of `m` chars to an item whose length in chars
+/// is `stored` (saturated at 255: the item has at least 255 chars).
+#[inline]
+fn length_gap(stored: u8, m: usize) -> usize {
+    if stored < u8::MAX {
+        usize::from(stored).abs_diff(m)
+    } else {
+        usize::from(u8::MAX).saturating_sub(m)
     }
 }
 
@@ -765,6 +1174,14 @@ fn bucket_order(
         }
     }
     starts
+}
+
+/// The Levenshtein query inside `q`, for the fast paths that need the kernel itself.
+fn levenshtein(q: &AnyQuery) -> Option<&LevenshteinQuery> {
+    match q {
+        AnyQuery::Levenshtein(l) => Some(l),
+        _ => None,
+    }
 }
 
 /// Prepares `query` for `index`'s metric (see [`Searcher::prepare`]).

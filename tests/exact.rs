@@ -163,6 +163,20 @@ fn exact_and_range_on_a_word_list_sample() {
         let within = s.search_within(q, 2.0, None, &mut scratch).unwrap();
         assert_eq!(within.neighbors, within_by_strsim(&idx, q, 2), "query {q}");
     }
+    // Many queries at once (blocks sharing passes over the coordinates): same answers.
+    let many = s.answer_many(&queries, &waymark::search::Request::Exact { k: 10 });
+    for (q, got) in queries.iter().zip(many) {
+        assert_eq!(got.unwrap().neighbors, full_scan(&idx, q, 10), "query {q}");
+    }
+    let req = waymark::search::Request::Within {
+        radius: 2.0,
+        k: None,
+    };
+    for (q, got) in queries.iter().zip(s.answer_many(&queries, &req)) {
+        let got = got.unwrap();
+        assert_eq!(got.neighbors, within_by_strsim(&idx, q, 2), "query {q}");
+        check_certificate(&idx, &got, None, Some(2.0));
+    }
 }
 
 #[test]

@@ -177,6 +177,12 @@ fn recall_on_the_debian_word_list_stays_above_the_floor() {
     let s = Searcher::new(&idx);
     let p = SearchParams::from_index(&idx, 10);
     let found = s.search_many(&queries, &p);
+    // Blocks of queries share passes over the coordinates: the same answers as one by one.
+    let mut scratch = Default::default();
+    for (q, f) in queries.iter().zip(&found).step_by(7) {
+        let one = s.search(q, &p, &mut scratch).unwrap();
+        assert_eq!(f.as_ref().unwrap(), &one, "query {q}");
+    }
     let mut recall = 0.0;
     for (q, f) in queries.iter().zip(found) {
         let truth: Vec<f64> = full_scan(&idx, q, 10).iter().map(|n| n.distance).collect();

@@ -187,6 +187,79 @@ impl LevenshteinQuery {
         self.len == 0
     }
 
+    /// Length of `item` in the chars this metric counts (Unicode scalar values, each invalid
+    /// UTF-8 sequence one char): the distance from `item` to the empty string, so that
+    /// `|len(a) − len(b)|` is a lower bound of the distance of `a` and `b`.
+    ///
+    /// ```
+    /// use waymark::metric::LevenshteinQuery;
+    ///
+    /// assert_eq!(LevenshteinQuery::item_len("kitteñ".as_bytes()), 6);
+    /// assert_eq!(LevenshteinQuery::new(b"").dist("kitteñ".as_bytes()), 6);
+    /// ```
+    #[inline]
+    pub fn item_len(item: &[u8]) -> usize {
+        char_len(item)
+    }
+
+    /// The set of chars of `item`, folded into 64 bits: an ASCII char `c` sets bit
+    /// `c mod 63`, every other char (including each invalid UTF-8 sequence) bit 63.
+    ///
+    /// For two strings with signatures `a` and `b`, the distance is at least
+    /// `max(popcount(a & !b), popcount(b & !a))`: each bit set in `a` but not in `b` stands
+    /// for chars of the first string that the second lacks, which every alignment must
+    /// substitute or delete, one edit per char at least and distinct chars for distinct
+    /// bits. See [`LevenshteinQuery::signature_gap`].
+    ///
+    /// ```
+    /// use waymark::metric::LevenshteinQuery;
+    ///
+    /// let (a, b) = (LevenshteinQuery::signature(b"ferry"), LevenshteinQuery::signature(b"buoy"));
+    /// assert_eq!(LevenshteinQuery::signature_gap(a, b), 3); // f, e, r against b, u, o
+    /// ```
+    #[inline]
+    pub fn signature(item: &[u8]) -> u64 {
+        // A byte below 0x80 is always a char of its own in lossy decoding (it never continues
+        // a sequence), and every byte from 0x80 up belongs to a non-ASCII char or to an
+        // invalid sequence read as U+FFFD: so bytes give the same set as chars.
+        item.iter().fold(0u64, |m, &b| {
+            m | if b < 0x80 {
+                1u64 << (b % 63)
+            } else {
+                1u64 << 63
+            }
+        })
+    }
+
+    /// The [`LevenshteinQuery::signature`] of the query itself.
+    ///
+    /// ```
+    /// use waymark::metric::LevenshteinQuery;
+    ///
+    /// let q = LevenshteinQuery::new("kitteñ".as_bytes());
+    /// assert_eq!(q.signature_of_query(), LevenshteinQuery::signature("kitteñ".as_bytes()));
+    /// ```
+    pub fn signature_of_query(&self) -> u64 {
+        let mut m = if self.other_chars.is_empty() {
+            0
+        } else {
+            1u64 << 63
+        };
+        for c in 0..128usize {
+            let masks = &self.ascii[c * self.words..(c + 1) * self.words];
+            if masks.iter().any(|&w| w != 0) {
+                m |= 1u64 << (c % 63);
+            }
+        }
+        m
+    }
+
+    /// The lower bound of the distance given by two [`LevenshteinQuery::signature`]s.
+    #[inline]
+    pub fn signature_gap(a: u64, b: u64) -> u32 {
+        (a & !b).count_ones().max((b & !a).count_ones())
+    }
+
     /// The Levenshtein distance from the query to `item`.
     ///
     /// Saturates at `u32::MAX` for items of more than four billion chars.
@@ -1254,6 +1327,47 @@ impl PreparedQuery for LevenshteinQuery {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use proptest::prelude::*;
+
+    /// Short byte strings, mostly letters, with some non-ASCII and invalid UTF-8 bytes.
+    fn bytes() -> impl Strategy<Value = Vec<u8>> {
+        prop::collection::vec(
+            prop_oneof![
+                8 => b'a'..=b'h',
+                1 => Just(b'A'),
+                1 => Just(b'B' + 63), // shares a signature bit with 'B'
+                1 => Just(0xC3u8),
+                1 => Just(0xA9u8),
+                1 => Just(0xFFu8),
+            ],
+            0..14,
+        )
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(2000))]
+
+        /// Length and signature gaps never exceed the distance; reference: `strsim`
+        /// (general-purpose crate) on the lossy-decoded strings.
+        #[test]
+        fn length_and_signature_gaps_are_lower_bounds(a in bytes(), b in bytes()) {
+            let (sa, sb) = (String::from_utf8_lossy(&a), String::from_utf8_lossy(&b));
+            let d = strsim::levenshtein(&sa, &sb);
+            prop_assert_eq!(LevenshteinQuery::new(&a).dist(&b) as usize, d);
+            let la = LevenshteinQuery::item_len(&a);
+            prop_assert_eq!(la, sa.chars().count());
+            prop_assert!(la.abs_diff(LevenshteinQuery::item_len(&b)) <= d);
+            let gap = LevenshteinQuery::signature_gap(
+                LevenshteinQuery::signature(&a),
+                LevenshteinQuery::signature(&b),
+            );
+            prop_assert!(gap as usize <= d, "gap {} > distance {}", gap, d);
+            prop_assert_eq!(
+                LevenshteinQuery::new(&a).signature_of_query(),
+                LevenshteinQuery::signature(&a)
+            );
+        }
+    }
 
     /// Plain dynamic program over lossy-decoded chars: the textbook recurrence, kept small
     /// as an independent check of the bit-parallel kernel inside the crate.
