@@ -588,3 +588,16 @@ fn eval_and_sweep_work_on_other_metrics() {
     let csv = std::fs::read_to_string(dir.path().join("sweep/sweep.csv")).unwrap();
     assert_eq!(csv.lines().count(), 3, "{csv}");
 }
+
+#[test]
+fn unknown_metric_is_a_usage_error() {
+    waymark()
+        .arg("build")
+        .arg(demo("names.txt"))
+        .args(["-o", "x.wmk", "--metric", "cosine-ish"])
+        .assert()
+        .code(2)
+        .stderr(predicate::str::contains(
+            "invalid value 'cosine-ish' for '--metric <METRIC>'",
+        ));
+}
