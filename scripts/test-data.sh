@@ -1,6 +1,6 @@
 #!/usr/bin/env bash
-# The test command: installs the open datasets the tests check against when they are
-# missing (Debian's word lists, scikit-learn's bundled digits), then runs the whole suite.
+# Installs the open datasets the tests check against when they are missing: Debian's word
+# list (apt-get, as root) and scikit-learn's bundled digits (pip).
 set -euo pipefail
 cd "$(dirname "$0")/.."
 export DEBIAN_FRONTEND=noninteractive
@@ -8,9 +8,8 @@ if [ ! -f /usr/share/dict/american-english ]; then
   if [ "$(id -u)" = 0 ]; then
     apt-get update -qq && apt-get install -y -qq wamerican >/dev/null
   else
-    echo "scripts/test.sh: install Debian's word list first: sudo apt-get install -y wamerican" >&2
+    echo "scripts/test-data.sh: install Debian's word list first: sudo apt-get install -y wamerican" >&2
     exit 1
   fi
 fi
 python3 -c "import sklearn, numpy" 2>/dev/null || python3 -m pip install -q scikit-learn
-cargo test --release --locked "$@"
