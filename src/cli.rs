@@ -630,7 +630,8 @@ fn load_input(path: &Path, ingest: &IngestOptions, m: &MetricArgs) -> anyhow::Re
 #[error("{0}")]
 struct NotAMetric(String);
 
-fn format_format(f: Option<FormatArg>) -> Option<InputFormat> {
+/// The ingest format asked for on the command line (`None`: from the file extension).
+fn input_format(f: Option<FormatArg>) -> Option<InputFormat> {
     f.map(|f| match f {
         FormatArg::Text => InputFormat::Text,
         FormatArg::Csv => InputFormat::Csv { delimiter: b',' },
@@ -690,7 +691,7 @@ fn check_metric(a: CheckMetricArgs) -> anyhow::Result<()> {
     let input = load_input(
         &a.input,
         &IngestOptions {
-            format: format_format(a.input_format),
+            format: input_format(a.input_format),
             field: a.field.clone(),
             id_field: None,
             normalize,
@@ -763,12 +764,7 @@ fn build(a: BuildArgs) -> anyhow::Result<()> {
         fold_case: a.fold_case,
         trim: a.trim,
     };
-    let format = a.input_format.map(|f| match f {
-        FormatArg::Text => InputFormat::Text,
-        FormatArg::Csv => InputFormat::Csv { delimiter: b',' },
-        FormatArg::Tsv => InputFormat::Csv { delimiter: b'\t' },
-        FormatArg::Jsonl => InputFormat::JsonLines,
-    });
+    let format = input_format(a.input_format);
     let opts = IngestOptions {
         format,
         field: a.field.clone(),
@@ -1496,12 +1492,7 @@ fn sweep(a: SweepArgs) -> anyhow::Result<()> {
     if a.pool == 0 {
         return Err(Error::Usage("--pool must be at least 1".into()).into());
     }
-    let format = a.input_format.map(|f| match f {
-        FormatArg::Text => InputFormat::Text,
-        FormatArg::Csv => InputFormat::Csv { delimiter: b',' },
-        FormatArg::Tsv => InputFormat::Csv { delimiter: b'\t' },
-        FormatArg::Jsonl => InputFormat::JsonLines,
-    });
+    let format = input_format(a.input_format);
     let Input {
         corpus,
         spec,
