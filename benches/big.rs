@@ -7,9 +7,11 @@
 //! Settings through the environment (defaults in brackets):
 //! - `WAYMARK_BIG_WORDS` word list [/usr/share/dict/american-english-insane]
 //! - `WAYMARK_BIG_QUERIES` number of typo queries [1000]
-//! - `WAYMARK_BIG_CANDIDATES` extra candidate counts for the approximate path [2000,4000]
+//! - `WAYMARK_BIG_CANDIDATES` extra candidate counts for the approximate path [2000]
+//! - `WAYMARK_BIG_VISIT` rows compared per candidate with cells, beside the default [8,32]
+//! - `WAYMARK_BIG_SCAN` candidate counts measured with the whole-index scan [2000,4000]
 //! - `WAYMARK_BIG_DIM` embedding dimension of the index [the default]
-//! - `WAYMARK_BIG_COARSE` coarse-stage factors to measure beside the default path [8,32]
+//! - `WAYMARK_BIG_COARSE` coarse-stage factors to measure beside the default path [none]
 //! - `WAYMARK_BIG_PROFILE` `approx`, `exact` or `range`: run only that mode, three times,
 //!   without brute forces or checks (for a profiler) [unset]
 
@@ -72,7 +74,9 @@ fn main() {
         return;
     }
     let nq: usize = env_list("WAYMARK_BIG_QUERIES", "1000")[0];
-    let extra_c: Vec<usize> = env_list("WAYMARK_BIG_CANDIDATES", "2000,4000");
+    let extra_c: Vec<usize> = env_list("WAYMARK_BIG_CANDIDATES", "2000");
+    let visits: Vec<usize> = env_list("WAYMARK_BIG_VISIT", "8,32");
+    let scan_c: Vec<usize> = env_list("WAYMARK_BIG_SCAN", "2000,4000");
     let dim: usize = env_list("WAYMARK_BIG_DIM", &waymark::search::DEFAULT_DIM.to_string())[0];
     let k = 10;
     let corpus = read_corpus(&words, &IngestOptions::default()).expect("word list reads");
@@ -143,7 +147,7 @@ fn main() {
     }
     let mut plain = Searcher::new(&index);
     plain.set_coarse_factor(0);
-    let factors: Vec<usize> = env_list("WAYMARK_BIG_COARSE", "8,32");
+    let factors: Vec<usize> = env_list("WAYMARK_BIG_COARSE", "");
 
     let t = Instant::now();
     let truth = scan_many(&index, &queries, k, Scan::Full);
@@ -205,17 +209,29 @@ fn main() {
     let mut cs = vec![default.candidates];
     cs.extend(extra_c.iter().copied().filter(|&c| c != default.candidates));
     for c in cs {
-        let p = SearchParams {
-            candidates: c,
-            ..default
-        };
+        let p = default.with_candidates(c);
         let (qps, found) = run_on(&plain, &Request::Approximate(p));
         let tag = if c == default.candidates {
             " (default)"
         } else {
             ""
         };
-        rows.push(summarise(format!("approx. C={c}{tag}"), qps, &found));
+        rows.push(summarise(
+            format!("approx. C={c}, visit {}{tag}", p.visit),
+            qps,
+            &found,
+        ));
+        if c == default.candidates {
+            for &v in &visits {
+                let p = SearchParams { visit: v * c, ..p };
+                let (qps, found) = run_on(&plain, &Request::Approximate(p));
+                rows.push(summarise(
+                    format!("approx. C={c}, visit {}", p.visit),
+                    qps,
+                    &found,
+                ));
+            }
+        }
         for &f in &factors {
             let mut s = Searcher::new(&index);
             s.set_coarse_factor(f);
@@ -226,6 +242,19 @@ fn main() {
                 &found,
             ));
         }
+    }
+
+    for &c in &scan_c {
+        let p = SearchParams {
+            source: waymark::search::CandidateSource::Scan,
+            ..default.with_candidates(c)
+        };
+        let (qps, found) = run_on(&plain, &Request::Approximate(p));
+        rows.push(summarise(
+            format!("approx. C={c}, scan of all rows"),
+            qps,
+            &found,
+        ));
     }
 
     let (qps, found) = run(&Request::Exact { k });

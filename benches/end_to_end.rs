@@ -165,7 +165,7 @@ fn main() {
         let s = Searcher::new(&idx);
         println!("built d = {d} in {b_s:.2} s");
         for sp in &spaces {
-            let mut sources = vec![CandidateSource::Scan];
+            let mut sources = vec![CandidateSource::Cells, CandidateSource::Scan];
             if with_tree {
                 sources.push(CandidateSource::Tree);
             }
@@ -176,6 +176,7 @@ fn main() {
                         candidates: c,
                         space: space(sp),
                         source: src,
+                        visit: c * waymark::search::VISIT_PER_CANDIDATE,
                     };
                     let t = Instant::now();
                     let found = s.search_many(&queries, &p);
@@ -194,6 +195,7 @@ fn main() {
                             "d={d:<2} {:<4} {:<4} C={c}",
                             sp,
                             match src {
+                                CandidateSource::Cells => "cells",
                                 CandidateSource::Scan => "scan",
                                 CandidateSource::Tree => "tree",
                             }

@@ -193,9 +193,10 @@ struct BuildArgs {
     /// Compare items and queries without leading and trailing white space.
     #[arg(long)]
     trim: bool,
-    /// Default number of candidates re-ranked per query, stored in the index.
-    #[arg(long, value_name = "C", default_value_t = crate::search::DEFAULT_CANDIDATES)]
-    candidates: usize,
+    /// Default number of candidates re-ranked per query, stored in the index [default: the
+    /// number of items / 160, at least 1000 and at most 4000].
+    #[arg(long, value_name = "C", value_parser = clap::value_parser!(u64).range(1..))]
+    candidates: Option<u64>,
     /// Default space candidates are ranked in, stored in the index.
     #[arg(long, value_enum, default_value = "l1")]
     space: SpaceArg,
@@ -237,7 +238,9 @@ enum OutFormat {
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
 enum SourceArg {
-    /// A SIMD pass over the compact coordinates.
+    /// The rows of the cells nearest the query (the default when the index has cells).
+    Cells,
+    /// A SIMD pass over every item's compact coordinates.
     Scan,
     /// The kd-tree's exact nearest-n search on the coordinates.
     Tree,
@@ -263,9 +266,13 @@ struct QueryArgs {
     /// Space candidates are ranked in (default: stored in the index).
     #[arg(long, value_enum)]
     space: Option<SpaceArg>,
-    /// Where candidates come from [default: scan].
+    /// Where candidates come from [default: cells when the index has them, else scan].
     #[arg(long = "candidates-from", value_enum)]
     candidates_from: Option<SourceArg>,
+    /// With cells: compare the rows of the nearest cells until N rows are compared
+    /// [default: 16 per candidate]; 0 compares every row.
+    #[arg(long, value_name = "N", conflicts_with_all = ["exact", "within"])]
+    visit: Option<usize>,
     /// Read queries from this file instead of stdin, one per line.
     #[arg(long, value_name = "FILE")]
     queries: Option<PathBuf>,
@@ -820,7 +827,7 @@ fn build(a: BuildArgs) -> anyhow::Result<()> {
             seed: a.seed,
             sample: a.landmark_sample,
             pool: a.pool,
-            candidates: a.candidates,
+            candidates: a.candidates.map_or(0, |c| c as usize),
             space: a.space.into(),
             normalize,
         },
@@ -880,13 +887,18 @@ fn query(a: QueryArgs) -> anyhow::Result<()> {
     let index = open_index(&a.index)?;
     let mut params = SearchParams::from_index(&index, a.k.unwrap_or(10));
     if let Some(c) = a.candidates {
-        params.candidates = c;
+        params = params.with_candidates(c);
+    }
+    if let Some(v) = a.visit {
+        params.visit = v;
     }
     if let Some(s) = a.space {
         params.space = s.into();
     }
     params.source = match a.candidates_from {
-        Some(SourceArg::Scan) | None => CandidateSource::Scan,
+        None => params.source,
+        Some(SourceArg::Cells) => CandidateSource::Cells,
+        Some(SourceArg::Scan) => CandidateSource::Scan,
         Some(SourceArg::Tree) => CandidateSource::Tree,
     };
     let request = match (a.within, a.exact) {

@@ -45,8 +45,21 @@ use crate::metric::{
 
 /// Default embedding dimension, chosen from `benches/end_to_end.rs` (see the README).
 pub const DEFAULT_DIM: usize = 64;
-/// Default number of candidates re-ranked per query, chosen from the same bench.
+/// Default number of candidates re-ranked per query on small indexes, chosen from the same
+/// bench; larger indexes get more ([`default_candidates`]).
 pub const DEFAULT_CANDIDATES: usize = 1000;
+
+/// The default number of candidates stored in an index of `n` items: `n / 160`, at least
+/// [`DEFAULT_CANDIDATES`] and at most 4,000. `benches/big.rs` measured 4,000 as what keeps
+/// threshold recall@10 above 0.95 on 663,473 words (README), and 1,000 on 104,334.
+pub fn default_candidates(n: usize) -> usize {
+    (n / 160).clamp(DEFAULT_CANDIDATES, 4000)
+}
+
+/// Rows compared per candidate when candidates come from cells
+/// ([`CandidateSource::Cells`]): cells are visited until `VISIT_PER_CANDIDATE · C` rows have
+/// been compared. Chosen from `benches/big.rs` (README).
+pub const VISIT_PER_CANDIDATE: usize = 16;
 
 /// The space in which candidates are ranked by their landmark coordinates.
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
@@ -79,6 +92,10 @@ pub enum CandidateSource {
     /// A SIMD pass over the compact coordinates with histogram selection.
     #[default]
     Scan,
+    /// The same pass over the rows of the cells nearest the query only (the index's cells,
+    /// see [`crate::index::cells`]), until [`SearchParams::visit`] rows are compared; the
+    /// default for indexes that have cells.
+    Cells,
     /// kiddo's `nearest_n` on the kd-tree.
     Tree,
 }
@@ -94,16 +111,37 @@ pub struct SearchParams {
     pub space: Space,
     /// Where candidates come from.
     pub source: CandidateSource,
+    /// With [`CandidateSource::Cells`]: cells are visited nearest first until at least this
+    /// many rows have been compared (at least `candidates`; 0: every row). Ignored by the
+    /// other sources.
+    pub visit: usize,
 }
 
 impl SearchParams {
-    /// The index's stored defaults with `k` neighbours.
+    /// The index's stored defaults with `k` neighbours: its candidates and space, cells as
+    /// the source when the index has them (else the scan), and
+    /// [`VISIT_PER_CANDIDATE`] rows compared per candidate.
     pub fn from_index(index: &Index, k: usize) -> SearchParams {
+        let candidates = index.meta().candidates as usize;
         SearchParams {
             k,
-            candidates: index.meta().candidates as usize,
+            candidates,
             space: index.meta().space,
-            source: CandidateSource::Scan,
+            source: if index.has_cells() {
+                CandidateSource::Cells
+            } else {
+                CandidateSource::Scan
+            },
+            visit: candidates.saturating_mul(VISIT_PER_CANDIDATE),
+        }
+    }
+
+    /// These parameters with `candidates` and the matching default `visit`.
+    pub fn with_candidates(self, candidates: usize) -> SearchParams {
+        SearchParams {
+            candidates,
+            visit: candidates.saturating_mul(VISIT_PER_CANDIDATE),
+            ..self
         }
     }
 }
@@ -158,6 +196,9 @@ pub struct Scratch {
     hist: Vec<u32>,
     picked: Vec<(u32, u32)>,
     tree_out: Vec<(u32, f32)>,
+    /// Cells in visiting order, and (first score, first position) of each cell visited.
+    cell_order: Vec<(u32, u32)>,
+    spans: Vec<(u32, u32)>,
     order: Vec<u32>,
     fine: Vec<u32>,
     fine_hist: Vec<u32>,
@@ -330,6 +371,9 @@ impl<'a> Searcher<'a> {
             CandidateSource::Scan => {
                 self.scan_candidates(&small, c, p.space, scratch);
             }
+            CandidateSource::Cells => {
+                self.cells_candidates(&small, c, p.visit, p.space, scratch)?;
+            }
             CandidateSource::Tree => {
                 let tree = self.index.tree()?;
                 let dim = self.index.meta().dim as usize;
@@ -414,6 +458,53 @@ impl<'a> Searcher<'a> {
             &mut s.hist,
         );
         select_best(&s.scores, c, &s.hist, &mut s.picked);
+    }
+
+    /// Scores the rows of the cells nearest the query (cells in increasing distance of their
+    /// centre, until `visit` rows) and keeps the best `c`, nearest first, in
+    /// `scratch.picked` as (score, item). An index without cells is scanned whole.
+    fn cells_candidates(
+        &self,
+        q: &[u8; 64],
+        c: usize,
+        visit: usize,
+        space: Space,
+        s: &mut Scratch,
+    ) -> Result<()> {
+        let Some(cells) = self.index.cells()? else {
+            self.scan_candidates(q, c, space, s);
+            return Ok(());
+        };
+        let n = self.index.len();
+        let visit = if visit == 0 { n } else { visit.max(c).min(n) };
+        let stride = self.index.stride();
+        cells.visit_order(q, &mut s.cell_order);
+        s.hist.clear();
+        s.hist.resize(HIST_BINS, 0);
+        s.scores.clear();
+        s.spans.clear();
+        for &(_, cell) in &s.cell_order {
+            let r = cells.cell(cell as usize);
+            if r.is_empty() {
+                continue;
+            }
+            let at = s.scores.len();
+            s.scores.resize(at + r.len(), 0);
+            s.spans.push((at as u32, r.start as u32));
+            let rows = cells.rows(r);
+            scan::score_rows(rows, stride, q, space, &mut s.scores[at..], &mut s.hist);
+            if s.scores.len() >= visit {
+                break;
+            }
+        }
+        select_best(&s.scores, c, &s.hist, &mut s.picked);
+        // Scores are numbered in visiting order: back to cell positions, then to items.
+        for p in s.picked.iter_mut() {
+            let span = s.spans.partition_point(|&(at, _)| at <= p.1) - 1;
+            let (at, start) = s.spans[span];
+            p.1 = cells.member((start + (p.1 - at)) as usize);
+        }
+        Ok(())
     }
 
     /// Re-ranks candidates by the true distance asked for in one batch (for metrics whose
@@ -1004,9 +1095,10 @@ impl<'a> Searcher<'a> {
 
     /// Runs many queries in parallel; answers come back in input order.
     ///
-    /// Queries are taken in blocks of 16 whose coordinates are scored together
-    /// in one pass over the stored rows; answers are those of [`Searcher::search`].
+    /// With the scan source, queries are taken in blocks of 16 whose coordinates are scored
+    /// together in one pass over the stored rows; answers are those of [`Searcher::search`].
     pub fn search_many(&self, queries: &[String], p: &SearchParams) -> Vec<Result<Found>> {
+        // Cells touch a small part of the rows: each query goes on its own.
         let blocked = p.k > 0
             && p.candidates > 0
             && p.source == CandidateSource::Scan

@@ -128,8 +128,8 @@ proptest! {
         let dir = tempfile::tempdir().unwrap();
         let idx = build(&corpus(&items), 4, &dir);
         let s = Searcher::new(&idx);
-        for source in [CandidateSource::Scan, CandidateSource::Tree] {
-            let p = SearchParams { k, candidates: items.len(), space, source };
+        for source in [CandidateSource::Cells, CandidateSource::Scan, CandidateSource::Tree] {
+            let p = SearchParams { k, candidates: items.len(), space, source, visit: 0 };
             for q in &queries {
                 let got = s.search(q, &p, &mut Default::default()).unwrap();
                 let want = full_scan(&idx, q, k);
@@ -216,6 +216,7 @@ fn a_damaged_tree_is_refused_on_first_use() {
         candidates: 10,
         space: Space::L2,
         source: CandidateSource::Tree,
+        visit: 0,
     };
     let err = s.search("item7", &p, &mut Default::default()).unwrap_err();
     assert!(

@@ -9,7 +9,7 @@ use super::recall::{plain_recall, threshold_recall};
 use super::truth::Truth;
 use crate::error::Result;
 use crate::index::Index;
-use crate::search::{CandidateSource, Scratch, SearchParams, Searcher, Space};
+use crate::search::{Scratch, SearchParams, Searcher, Space};
 
 /// What one setting of the search achieved on a list of queries.
 #[derive(Clone, Debug, PartialEq, Serialize)]
@@ -62,9 +62,8 @@ pub fn measure_recall(
     let searcher = Searcher::new(index);
     let params = SearchParams {
         k,
-        candidates,
         space,
-        source: CandidateSource::Scan,
+        ..SearchParams::from_index(index, k).with_candidates(candidates)
     };
     let t = Instant::now();
     let timed: Vec<(Result<crate::search::Found>, f64)> = queries

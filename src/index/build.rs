@@ -4,7 +4,7 @@ use std::path::Path;
 use std::time::Instant;
 
 use super::file::{ContainerWriter, SectionKind};
-use super::{coord_stride, tree, IdKind, IndexMeta};
+use super::{cells, coord_stride, tree, IdKind, IndexMeta};
 use crate::embed::{embed_items, quantize, EmbedOptions, Embedded, Method, MAX_DIM};
 use crate::error::{Error, Result};
 use crate::ingest::{Corpus, Ids, Normalize};
@@ -28,7 +28,8 @@ pub struct BuildOptions {
     pub sample: usize,
     /// Size of the reference-set pool (the reference-set method's cost per query).
     pub pool: usize,
-    /// Default candidates per query stored in the index.
+    /// Default candidates per query stored in the index; 0 (the default) stores
+    /// [`crate::search::default_candidates`] of the number of items.
     pub candidates: usize,
     /// Default candidate space stored in the index.
     pub space: Space,
@@ -46,7 +47,7 @@ impl Default for BuildOptions {
             seed: 0,
             sample: 4096,
             pool: crate::embed::DEFAULT_POOL,
-            candidates: crate::search::DEFAULT_CANDIDATES,
+            candidates: 0,
             space: Space::default(),
             normalize: Normalize::default(),
         }
@@ -204,9 +205,6 @@ fn check_options(corpus: &Corpus, source: &str, opts: &BuildOptions) -> Result<(
             opts.dim
         )));
     }
-    if opts.candidates == 0 {
-        return Err(Error::Usage("--candidates must be at least 1".into()));
-    }
     if opts.method == Method::RefSets && opts.pool == 0 {
         return Err(Error::Usage("--pool must be at least 1".into()));
     }
@@ -264,6 +262,7 @@ fn write_index(
         message: format!("building the kd-tree failed: {e}"),
     })?;
     drop(f32s);
+    let cells_bytes = cells::build(&small, stride, opts.seed);
     let tree_seconds = t1.elapsed().as_secs_f64();
 
     let t2 = Instant::now();
@@ -283,7 +282,11 @@ fn write_index(
             Ids::Int(_) => IdKind::Int,
             Ids::Text(_) => IdKind::Text,
         },
-        candidates: opts.candidates.min(u32::MAX as usize) as u32,
+        candidates: match opts.candidates {
+            0 => crate::search::default_candidates(n),
+            c => c,
+        }
+        .min(u32::MAX as usize) as u32,
         space: opts.space,
         source: source.to_string(),
         records: corpus.records as u64,
@@ -315,6 +318,7 @@ fn write_index(
         writer.add(SectionKind::Graph, g.to_edge_list().as_bytes())?;
     }
     writer.add(SectionKind::Coords, &small)?;
+    writer.add(SectionKind::Cells, &cells_bytes)?;
     writer.add_aligned(SectionKind::Tree, &tree_bytes, super::file::TREE_ALIGN)?;
     writer.finish()?;
     let file_len = std::fs::metadata(dest).map(|m| m.len()).unwrap_or(0);

@@ -74,10 +74,13 @@ pub enum SectionKind {
     Tree = 10,
     /// The graph of a graph-metric index, as an edge list (`a b weight` lines, UTF-8).
     Graph = 11,
+    /// The items partitioned into cells by their coordinates, each cell's rows together
+    /// (`index/cells.rs`); absent in files written before it existed.
+    Cells = 12,
 }
 
 impl SectionKind {
-    const ALL: [SectionKind; 11] = [
+    const ALL: [SectionKind; 12] = [
         SectionKind::Meta,
         SectionKind::ItemOffsets,
         SectionKind::ItemBytes,
@@ -89,6 +92,7 @@ impl SectionKind {
         SectionKind::Coords,
         SectionKind::Tree,
         SectionKind::Graph,
+        SectionKind::Cells,
     ];
 
     fn from_u32(v: u32) -> Option<SectionKind> {
@@ -109,6 +113,7 @@ impl SectionKind {
             SectionKind::Coords => "coordinates",
             SectionKind::Tree => "kd-tree",
             SectionKind::Graph => "graph",
+            SectionKind::Cells => "cells",
         }
     }
 

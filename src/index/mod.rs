@@ -15,6 +15,7 @@
 //! ```
 
 mod build;
+pub mod cells;
 pub mod file;
 pub mod tree;
 
@@ -110,6 +111,8 @@ pub struct Index {
     coords: Range<usize>,
     tree: Range<usize>,
     tree_checked: OnceLock<std::result::Result<(), String>>,
+    cells: Option<Range<usize>>,
+    cells_checked: OnceLock<std::result::Result<(), String>>,
     graph: Option<Range<usize>>,
     metric: OnceLock<std::result::Result<AnyMetric, String>>,
 }
@@ -225,6 +228,7 @@ impl Index {
             )));
         }
         let graph = find(SectionKind::Graph);
+        let cells = find(SectionKind::Cells);
         if (meta.metric == MetricKind::Graph) != graph.is_some() {
             return Err(bad(
                 "corrupt index: a graph section belongs to graph-metric indexes only".into(),
@@ -242,6 +246,8 @@ impl Index {
             coords,
             tree,
             tree_checked: OnceLock::new(),
+            cells,
+            cells_checked: OnceLock::new(),
             graph,
             metric: OnceLock::new(),
         })
@@ -292,6 +298,7 @@ impl Index {
     /// Checks the checksum of every section: a full read of the file.
     pub fn verify(&self) -> Result<()> {
         file::verify_sections(&self.path, &self.map, &self.sections)?;
+        self.cells()?;
         self.tree().map(|_| ())
     }
 
@@ -369,6 +376,42 @@ impl Index {
             path: self.path.clone(),
             message: message.clone(),
         })
+    }
+
+    /// Whether the file has cells (see [`Index::cells`]; not checked by this call).
+    pub fn has_cells(&self) -> bool {
+        self.cells.is_some()
+    }
+
+    /// The cells (items partitioned by their coordinates, see `cells.rs`), or `None` for a
+    /// file without them; checked on first use: the checksum, then every field against the
+    /// index (a pass linear in the section's size).
+    pub fn cells(&self) -> Result<Option<cells::CellsView<'_>>> {
+        let Some(range) = self.cells.clone() else {
+            return Ok(None);
+        };
+        let bytes = &self.map[range];
+        let (n, stride) = (self.len(), self.stride());
+        let checked = self.cells_checked.get_or_init(|| {
+            let crc = self
+                .sections
+                .iter()
+                .find(|s| s.kind == SectionKind::Cells)
+                .map(|s| s.crc);
+            if crc != Some(crc32fast::hash(bytes)) {
+                return Err("corrupt index: checksum mismatch in section cells".into());
+            }
+            cells::CellsView::open(bytes, n, stride, self.coords())
+                .map(|_| ())
+                .map_err(|e| format!("corrupt index: section cells is refused: {e}"))
+        });
+        match checked {
+            Ok(()) => Ok(cells::CellsView::open_unchecked(bytes, n, stride)),
+            Err(m) => Err(Error::Index {
+                path: self.path.clone(),
+                message: m.clone(),
+            }),
+        }
     }
 
     /// The kd-tree, checked on first use: its checksum, rkyv's structural validation and
