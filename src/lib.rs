@@ -7,12 +7,15 @@
 //! - [`embed`] maps every item to landmark coordinates, whose L∞ distance is a lower bound of
 //!   the true distance;
 //! - [`index`] stores items, ids, coordinates and a kd-tree in one checked, memory-mapped file;
+//! - [`bounds`] finds the items whose stored lower bound is within a threshold (exact and
+//!   range queries);
 //! - [`search`] takes candidates by embedded distance and re-ranks them by the true distance;
 //! - [`eval`] measures recall against brute force;
 //! - [`resources`] refuses builds that would not fit in memory;
 //! - [`cli`] is the command line (the binary only calls [`cli::main`]).
 #![warn(missing_docs)]
 
+pub mod bounds;
 pub mod cli;
 pub mod embed;
 pub mod error;

@@ -35,6 +35,7 @@
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 
+use crate::bounds;
 use crate::embed::Bound;
 use crate::error::{Error, Result};
 use crate::index::{Index, StrTable};
@@ -199,13 +200,9 @@ pub struct Scratch {
     /// Cells in visiting order, and (first score, first position) of each cell visited.
     cell_order: Vec<(u32, u32)>,
     spans: Vec<(u32, u32)>,
-    order: Vec<u32>,
     fine: Vec<u32>,
     fine_hist: Vec<u32>,
     fine_picked: Vec<(u32, u32)>,
-    /// Items gathered for one call of the lane kernel, and their distances.
-    lane_at: Vec<u32>,
-    lane_out: Vec<u32>,
 }
 
 /// Queries whose coordinates are scored together, tile by tile, in one pass over the stored
@@ -217,6 +214,35 @@ const QUERY_BLOCK: usize = 16;
 const TILE_ROWS: usize = 2048;
 /// Items per call of the vector-lane kernel in exact and range queries.
 const LANE_GROUP: usize = 64;
+/// The bound up to which the first round of an exact k-NN query collects items: on typo
+/// queries the 10th neighbour is typically 2 to 3 edits away (`benches/big.rs`).
+const FIRST_THRESHOLD: u8 = 2;
+
+/// One exact request in progress ([`Searcher::start_exact`], [`Searcher::run_exact`]).
+struct ExactRun<'q> {
+    q: &'q AnyQuery,
+    /// The query's value per column of [`bounds::Columns`].
+    qv: Vec<u8>,
+    /// The query's char signature when the columns hold the items' (else 0).
+    sig: u64,
+    bound: Bound,
+    k: Option<usize>,
+    r: f64,
+    /// The largest stored bound an item within the radius can have.
+    cap: u8,
+    /// The next round collects bounds in `(lo, hi]`.
+    lo: Option<u8>,
+    hi: u8,
+    /// The first bound not visited, when the visit stopped before `cap`.
+    stopped: Option<u8>,
+    done: bool,
+    best: Vec<Neighbor>,
+    cert: Certificate,
+    /// The round's items, by stored bound.
+    buckets: Vec<Vec<u32>>,
+    lane_at: Vec<u32>,
+    lane_out: Vec<u32>,
+}
 
 /// Runs queries against one index.
 pub struct Searcher<'a> {
@@ -233,6 +259,8 @@ pub struct Searcher<'a> {
     /// Length in chars of every key (saturated at 255) and its char signature
     /// ([`LevenshteinQuery::signature`]), made on the first exact query.
     lens: std::sync::OnceLock<(Vec<u8>, Vec<u64>)>,
+    /// The coordinates in column blocks for exact queries, made on the first one.
+    columns: std::sync::OnceLock<bounds::Columns>,
 }
 
 /// Coordinates per item in the coarse stage (the first landmarks, farthest-first order).
@@ -302,6 +330,7 @@ impl<'a> Searcher<'a> {
             coarse: std::sync::OnceLock::new(),
             coarse_factor: DEFAULT_COARSE_FACTOR,
             lens: std::sync::OnceLock::new(),
+            columns: std::sync::OnceLock::new(),
         }
     }
 
@@ -399,6 +428,8 @@ impl<'a> Searcher<'a> {
         let metric = self.index.metric()?;
         let mut found = if metric.prefers_batches() {
             self.rerank_batch(q, k, picked)
+        } else if let Some(lq) = levenshtein(q).filter(|l| (1..=64).contains(&l.len())) {
+            self.rerank_lanes(lq, k, picked)
         } else {
             self.rerank(q, small, k, picked)
         };
@@ -478,13 +509,19 @@ impl<'a> Searcher<'a> {
         let n = self.index.len();
         let visit = if visit == 0 { n } else { visit.max(c).min(n) };
         let stride = self.index.stride();
-        cells.visit_order(q, &mut s.cell_order);
+        // Order enough cells for four times the average cell's share of `visit`; the rest
+        // are ordered only if the visit gets to them.
+        let first = (visit.saturating_mul(4) / (n / cells.len()).max(1)).saturating_add(8);
+        cells.visit_order(q, first, &mut s.cell_order);
         s.hist.clear();
         s.hist.resize(HIST_BINS, 0);
         s.scores.clear();
         s.spans.clear();
-        for &(_, cell) in &s.cell_order {
-            let r = cells.cell(cell as usize);
+        for j in 0..s.cell_order.len() {
+            if j == first {
+                s.cell_order[first..].sort_unstable();
+            }
+            let r = cells.cell(s.cell_order[j].1 as usize);
             if r.is_empty() {
                 continue;
             }
@@ -523,6 +560,52 @@ impl<'a> Searcher<'a> {
         Found {
             neighbors: best,
             distances: items.len(),
+            pruned: 0,
+            certificate: None,
+        }
+    }
+
+    /// Re-ranks candidates by Levenshtein distance, [`LANE_GROUP`] at a time with the
+    /// vector-lane kernel (eight items per AVX2 register). No candidate is pruned: one
+    /// distance in a lane costs less than the cache miss of fetching the candidate's
+    /// coordinate row for its bound. The next group's keys are prefetched while a group is
+    /// measured. Same answers as [`Searcher::rerank`].
+    fn rerank_lanes(&self, q: &LevenshteinQuery, k: usize, cands: &[(u32, u32)]) -> Found {
+        let mut best: Vec<Neighbor> = Vec::with_capacity(k + 1);
+        let mut items: [&[u8]; LANE_GROUP] = [&[]; LANE_GROUP];
+        let mut out = [0u32; LANE_GROUP];
+        if let Some(first) = cands.chunks(LANE_GROUP).next() {
+            for &(_, i) in first {
+                self.keys.prefetch_offsets(i as usize);
+            }
+        }
+        let mut groups = cands.chunks(LANE_GROUP).peekable();
+        while let Some(group) = groups.next() {
+            for (slot, &(_, i)) in items.iter_mut().zip(group) {
+                *slot = self.keys.get(i as usize);
+            }
+            if let Some(next) = groups.peek() {
+                for &(_, i) in *next {
+                    self.keys.prefetch_offsets(i as usize);
+                    self.keys.prefetch_bytes(i as usize);
+                }
+            }
+            q.dist_batch(&items[..group.len()], &mut out[..group.len()]);
+            for (&(_, i), &d) in group.iter().zip(&out) {
+                keep_best(
+                    self.index,
+                    &mut best,
+                    k,
+                    Neighbor {
+                        index: i,
+                        distance: f64::from(d),
+                    },
+                );
+            }
+        }
+        Found {
+            neighbors: best,
+            distances: cands.len(),
             pruned: 0,
             certificate: None,
         }
@@ -682,9 +765,45 @@ impl<'a> Searcher<'a> {
         }
         let blocks: Vec<Vec<Result<Found>>> = queries
             .par_chunks(QUERY_BLOCK)
-            .map_init(Vec::new, |s, block| self.exact_block(block, k, radius, s))
+            .map(|block| self.exact_block(block, k, radius))
             .collect();
         blocks.into_iter().flatten().collect()
+    }
+
+    /// Exact answers for a block of queries, whose rounds share passes over the columns
+    /// ([`Searcher::run_exact`]); a query the metric cannot take gets its own error.
+    fn exact_block(
+        &self,
+        block: &[String],
+        k: Option<usize>,
+        radius: Option<f64>,
+    ) -> Vec<Result<Found>> {
+        let Ok(bound) = self.require_bound() else {
+            return block
+                .iter()
+                .map(|q| self.exact(q, k, radius, &mut Scratch::default()))
+                .collect();
+        };
+        let prepared: Vec<Result<(AnyQuery, [u8; 64])>> =
+            block.iter().map(|q| self.prepare_small(q)).collect();
+        let mut runs: Vec<ExactRun<'_>> = prepared
+            .iter()
+            .filter_map(|p| p.as_ref().ok())
+            .map(|(q, small)| self.start_exact(q, small, bound, k, radius))
+            .collect();
+        let mut answers = self.run_exact(&mut runs).into_iter();
+        let check = || -> Result<()> {
+            self.index.metric()?.check()?;
+            Ok(())
+        };
+        prepared
+            .into_iter()
+            .map(|p| {
+                p?;
+                let found = answers.next().expect("one answer per prepared query");
+                check().map(|()| found)
+            })
+            .collect()
     }
 
     fn require_bound(&self) -> Result<Bound> {
@@ -708,73 +827,16 @@ impl<'a> Searcher<'a> {
         radius: Option<f64>,
         s: &mut Scratch,
     ) -> Result<Found> {
+        let _ = s;
         let bound = self.require_bound()?;
         let (q, small) = self.prepare_small(query)?;
-        self.score_block(
-            std::slice::from_ref(&small),
-            Space::Linf,
-            std::slice::from_mut(s),
-        );
-        let found = self.visit_exact(&q, levenshtein(&q), false, bound, k, radius, s);
+        let mut runs = [self.start_exact(&q, &small, bound, k, radius)];
+        let found = self
+            .run_exact(&mut runs)
+            .pop()
+            .expect("one answer per request");
         self.index.metric()?.check()?;
         Ok(found)
-    }
-
-    /// Exact answers for a block of queries: their L∞ lower bounds are computed in one
-    /// tiled pass over the coordinates ([`Searcher::score_block`]), then each query is
-    /// answered as by [`Searcher::exact`].
-    fn exact_block(
-        &self,
-        block: &[String],
-        k: Option<usize>,
-        radius: Option<f64>,
-        s: &mut Vec<Scratch>,
-    ) -> Vec<Result<Found>> {
-        let bound = match self.require_bound() {
-            Ok(b) => b,
-            Err(_) => {
-                return block
-                    .iter()
-                    .map(|q| self.exact(q, k, radius, &mut Scratch::default()))
-                    .collect()
-            }
-        };
-        let Ok(prepared) = block
-            .iter()
-            .map(|q| self.prepare_small(q))
-            .collect::<Result<Vec<(AnyQuery, [u8; 64])>>>()
-        else {
-            // A query the metric cannot take: one at a time, so each gets its own answer.
-            return block
-                .iter()
-                .map(|q| self.exact(q, k, radius, &mut Scratch::default()))
-                .collect();
-        };
-        let smalls: Vec<[u8; 64]> = prepared.iter().map(|p| p.1).collect();
-        if s.len() < block.len() {
-            s.resize_with(block.len(), Scratch::default);
-        }
-        self.score_block(&smalls, Space::Linf, s);
-        // Queries the lane path takes (see `visit_exact`) get their bounds raised together.
-        let lane_query = |q: &AnyQuery| levenshtein(q).is_some_and(|l| (1..=64).contains(&l.len()));
-        let raised = bound.whole && radius.is_none() && prepared.iter().all(|(q, _)| lane_query(q));
-        if raised {
-            let cap = bound_cap(bound, radius);
-            let qs: Vec<(&LevenshteinQuery, usize)> = prepared
-                .iter()
-                .filter_map(|(q, _)| levenshtein(q).map(|l| (l, cap)))
-                .collect();
-            self.raise_bounds(&qs, s);
-        }
-        prepared
-            .iter()
-            .zip(s.iter_mut())
-            .map(|((q, _), sc)| {
-                let found = self.visit_exact(q, levenshtein(q), raised, bound, k, radius, sc);
-                self.index.metric()?.check()?;
-                Ok(found)
-            })
-            .collect()
     }
 
     /// A prepared query and its stored (quantised) coordinates.
@@ -802,41 +864,6 @@ impl<'a> Searcher<'a> {
                 .unzip()
         });
         (lens, sigs)
-    }
-
-    /// Raises each stored bound in `scores` (L∞ differences, whole distances) up to
-    /// `cap` to the larger of it and the length and signature gaps of the item to the
-    /// query, and recounts `hist`: both gaps are lower bounds of the Levenshtein distance
-    /// too, so the maximum is one, and fewer items fall in the first buckets.
-    ///
-    /// `qs[j]` is (query, cap) for `s[j]`. Rows are taken [`TILE_ROWS`] at a time for
-    /// every query of the block, so the per-item lengths and signatures are read once.
-    fn raise_bounds(&self, qs: &[(&LevenshteinQuery, usize)], s: &mut [Scratch]) {
-        let (lens, sigs) = self.key_filters();
-        let each: Vec<(usize, u64, u32)> = qs
-            .iter()
-            .map(|(q, cap)| (q.len(), q.signature_of_query(), *cap as u32))
-            .collect();
-        let n = self.index.len();
-        let mut at = 0;
-        while at < n {
-            let end = (at + TILE_ROWS).min(n);
-            for (&(m, qsig, cap), sc) in each.iter().zip(s.iter_mut()) {
-                let scores = &mut sc.scores[at..end];
-                let (lens, sigs) = (&lens[at..end], &sigs[at..end]);
-                #[cfg(target_arch = "x86_64")]
-                if std::arch::is_x86_feature_detected!("popcnt") {
-                    // SAFETY: the CPU has popcnt, the only feature the function needs.
-                    unsafe { raise_bounds_popcnt(m, qsig, cap, lens, sigs, scores) };
-                    continue;
-                }
-                raise_bounds_with(m, qsig, cap, lens, sigs, scores);
-            }
-            at = end;
-        }
-        for sc in s.iter_mut().take(qs.len()) {
-            recount_linf(&sc.scores, &mut sc.hist);
-        }
     }
 
     /// Scores every stored row against each query row of `qs` in `space`, into
@@ -876,69 +903,148 @@ impl<'a> Searcher<'a> {
         }
     }
 
-    /// Visits items in increasing stored L∞ bound (scores and histogram already in `s`)
-    /// and answers an exact request: the `k` nearest (all when `None`) among items within
-    /// `radius` (any when `None`).
-    ///
-    /// `q` measures items one at a time with its bounded distance, for any metric. With
-    /// `lanes`, the same query as Levenshtein of 1 ..= 64 chars, items are first filtered
-    /// by the difference of lengths in chars (a lower bound of the distance: the length is
-    /// the distance to the empty string) and the rest measured [`LANE_GROUP`] at a time
-    /// with the vector-lane kernel. Both give the same answer.
-    #[allow(clippy::too_many_arguments)]
-    fn visit_exact<Q: PreparedQuery>(
+    /// Whether the column blocks start with each key's length (Levenshtein indexes whose
+    /// stored coordinates are whole distances: the length is in the same unit).
+    fn length_column(&self) -> bool {
+        matches!(self.index.meta().metric_spec, MetricSpec::Levenshtein)
+            && self.bound.is_some_and(|b| b.whole)
+    }
+
+    /// The stored coordinates in column blocks ([`bounds::Columns`]), made on the first
+    /// exact query (a copy of the coordinate section, plus one byte per item for the
+    /// length column).
+    fn columns(&self) -> &bounds::Columns {
+        self.columns.get_or_init(|| {
+            let (lens, sigs) = match self.length_column() {
+                true => {
+                    let (l, s) = self.key_filters();
+                    (Some(l), Some(s))
+                }
+                false => (None, None),
+            };
+            bounds::Columns::with_signatures(
+                self.index.coords(),
+                self.index.stride(),
+                self.index.meta().dim as usize,
+                lens,
+                sigs,
+            )
+        })
+    }
+
+    /// Starts an exact request for a prepared query: the `k` nearest (all when `None`)
+    /// among items within `radius` (any when `None`). [`Searcher::run_exact`] answers it.
+    fn start_exact<'q>(
         &self,
-        q: &Q,
-        lanes: Option<&LevenshteinQuery>,
-        raised: bool,
+        q: &'q AnyQuery,
+        small: &[u8; 64],
         bound: Bound,
         k: Option<usize>,
         radius: Option<f64>,
-        s: &mut Scratch,
-    ) -> Found {
-        let n = self.index.len();
-        let keep = k.unwrap_or(usize::MAX);
-        let r = radius.unwrap_or(f64::INFINITY);
-        let lanes = lanes.filter(|l| (1..=64).contains(&l.len()));
-        // Stored L∞ differences above `cap` have a bound above the radius.
-        let cap = bound_cap(bound, radius);
-        // With whole stored distances the length and signature gaps are folded into the
-        // bounds; otherwise they filter items one by one below.
-        let filters = match lanes {
-            Some(_) if raised => None,
-            Some(lq) if bound.whole && radius.is_none() => {
-                self.raise_bounds(&[(lq, cap)], std::slice::from_mut(s));
-                None
-            }
-            Some(lq) => Some((self.key_filters(), lq.len(), lq.signature_of_query())),
-            None => None,
+    ) -> ExactRun<'q> {
+        let cap = bound_cap(bound, radius) as u8;
+        let mut qv: Vec<u8> = Vec::with_capacity(65);
+        if self.length_column() {
+            qv.push(levenshtein(q).map_or(0, |l| l.len().min(255) as u8));
+        }
+        qv.extend_from_slice(&small[..self.index.meta().dim as usize]);
+        let sig = match levenshtein(q) {
+            Some(l) if self.length_column() => l.signature_of_query(),
+            _ => 0,
         };
-        let Scratch {
-            scores,
-            hist,
-            order,
-            lane_at,
-            lane_out,
-            ..
-        } = s;
-        lane_at.clear();
-        // First collect the buckets that hold k items: the k-th distance is then known,
-        // and it says how many more buckets are needed.
-        let mut cut = cap;
-        if let Some(k) = k {
-            let mut seen = 0usize;
-            for (b, &h) in hist[..=cap].iter().enumerate() {
-                seen += h as usize;
-                if seen >= k {
-                    cut = b;
-                    break;
+        ExactRun {
+            q,
+            qv,
+            sig,
+            bound,
+            k,
+            r: radius.unwrap_or(f64::INFINITY),
+            cap,
+            lo: None,
+            hi: if k.is_some() {
+                cap.min(FIRST_THRESHOLD)
+            } else {
+                cap
+            },
+            stopped: None,
+            done: false,
+            best: Vec::new(),
+            cert: Certificate::default(),
+            buckets: Vec::new(),
+            lane_at: Vec::new(),
+            lane_out: Vec::new(),
+        }
+    }
+
+    /// Answers exact requests started by [`Searcher::start_exact`], together.
+    ///
+    /// In rounds, [`bounds::Columns::within_many`] collects for every request not yet done
+    /// the items whose stored bound lies in its range `(lo, hi]`, by bound, in one pass over
+    /// the columns shared by all of them; each request then visits its items bound by bound,
+    /// smallest first ([`Searcher::visit_round`]). A k-NN request starts with
+    /// `hi` = [`FIRST_THRESHOLD`]; each later round reaches the bound that the k-th distance
+    /// found so far allows (or two more when fewer than k are held).
+    fn run_exact(&self, runs: &mut [ExactRun<'_>]) -> Vec<Found> {
+        let cols = self.columns();
+        let sigs = self.key_filters().1;
+        loop {
+            let active: Vec<usize> = (0..runs.len()).filter(|&j| !runs[j].done).collect();
+            if active.is_empty() {
+                break;
+            }
+            for &j in &active {
+                let run = &mut runs[j];
+                for b in run.buckets.iter_mut() {
+                    b.clear();
                 }
+                run.buckets.resize_with(usize::from(run.hi) + 1, Vec::new);
+            }
+            let mut buckets: Vec<Vec<Vec<u32>>> = active
+                .iter()
+                .map(|&j| std::mem::take(&mut runs[j].buckets))
+                .collect();
+            {
+                let ts: Vec<bounds::Threshold<'_>> = active
+                    .iter()
+                    .map(|&j| bounds::Threshold {
+                        q: &runs[j].qv,
+                        lo: runs[j].lo,
+                        hi: runs[j].hi,
+                        sig: runs[j].sig,
+                    })
+                    .collect();
+                cols.within_many(&ts, |a, i, b| buckets[a][usize::from(b)].push(i));
+            }
+            for (&j, b) in active.iter().zip(buckets) {
+                runs[j].buckets = b;
+            }
+            for &j in &active {
+                self.visit_round(&mut runs[j], sigs);
             }
         }
-        let mut best: Vec<Neighbor> = Vec::new();
-        let mut cert = Certificate::default();
-        // First bucket not yet visited.
-        let mut next = 0usize;
+        runs.iter_mut().map(|run| self.finish_exact(run)).collect()
+    }
+
+    /// Visits the items one round collected for `run`, bound by bound, and sets the next
+    /// round's range or marks the request done.
+    ///
+    /// Each item is measured with the query's bounded distance (bound: the k-th distance
+    /// or the radius), for any metric; a Levenshtein query of 1 ..= 64 chars first drops
+    /// items whose char-signature gap exceeds it, and measures the rest [`LANE_GROUP`] at
+    /// a time with the vector-lane kernel, flushed at the end of each bound so the stopping
+    /// rule sees the true k-th distance.
+    fn visit_round(&self, run: &mut ExactRun<'_>, sigs: &[u64]) {
+        let keep = run.k.unwrap_or(usize::MAX);
+        let k = run.k;
+        let r = run.r;
+        let q = run.q;
+        let lev = levenshtein(q);
+        let lanes = lev.filter(|l| (1..=64).contains(&l.len()));
+        // The columns fold the signature gap into the bound when they hold signatures;
+        // otherwise it is applied here, item by item.
+        let qsig = lev
+            .filter(|_| !self.length_column())
+            .map(|l| l.signature_of_query());
         let kth_of = |best: &Vec<Neighbor>| {
             if best.len() == keep {
                 best[keep - 1].distance
@@ -946,86 +1052,109 @@ impl<'a> Searcher<'a> {
                 f64::INFINITY
             }
         };
-        'visit: loop {
-            let starts = bucket_order(scores, hist, next, cut, order);
-            for b in next..=cut {
-                let lb = bound.lower(b as u8);
-                if lb > r || lb > kth_of(&best) {
-                    next = b;
-                    break 'visit;
-                }
-                let items = &order[starts[b - next] as usize..starts[b - next + 1] as usize];
-                for &i in items {
-                    cert.examined += 1;
-                    // With items waiting in lanes this k-th distance may be larger than
-                    // the true one: the tests below then keep more items, never fewer.
-                    let kth = kth_of(&best);
-                    if lb >= kth {
-                        // Equal bound and k-th distance: at best a tie, which only an
-                        // (id, index) before the k-th answer's wins.
-                        let tie = Neighbor {
-                            index: i,
-                            distance: kth,
-                        };
-                        if !before(self.index, &tie, &best[keep - 1]) {
-                            continue;
-                        }
-                    }
-                    let limit = kth.min(r);
-                    if let Some(lq) = lanes {
-                        if let Some(((lens, sigs), m, qs)) = filters {
-                            let iu = i as usize;
-                            let len = lens.get(iu).copied().unwrap_or(0);
-                            let sig = sigs.get(iu).copied().unwrap_or(u64::MAX);
-                            let gap = (length_gap(len, m) as u32)
-                                .max(LevenshteinQuery::signature_gap(qs, sig));
-                            if f64::from(gap) > limit {
-                                continue;
-                            }
-                        }
-                        lane_at.push(i);
-                        if lane_at.len() == LANE_GROUP {
-                            self.flush_lanes(lq, lane_at, lane_out, &mut best, k, r, &mut cert);
-                        }
+        let ExactRun {
+            bound,
+            best,
+            cert,
+            buckets,
+            lane_at,
+            lane_out,
+            ..
+        } = run;
+        let bound = *bound;
+        let from = run.lo.map_or(0, |l| usize::from(l) + 1);
+        for (b, items) in buckets
+            .iter()
+            .enumerate()
+            .take(usize::from(run.hi) + 1)
+            .skip(from)
+        {
+            let lb = bound.lower(b as u8);
+            if lb > r || lb > kth_of(best) {
+                run.stopped = Some(b as u8);
+                run.done = true;
+                return;
+            }
+            for &i in items {
+                cert.examined += 1;
+                // With items waiting in lanes this k-th distance may be larger than the
+                // true one: the tests below then keep more items, never fewer.
+                let kth = kth_of(best);
+                let limit = kth.min(r);
+                let mut item_lb = lb;
+                if let Some(qs) = qsig {
+                    let sig = sigs.get(i as usize).copied().unwrap_or(u64::MAX);
+                    item_lb = item_lb.max(f64::from(LevenshteinQuery::signature_gap(qs, sig)));
+                    if item_lb > limit {
                         continue;
                     }
-                    let item = self.keys.get(i as usize);
-                    cert.computed += 1;
-                    let d = if limit.is_finite() {
-                        match q.distance_within(item, limit) {
-                            Some(d) => d,
-                            None => continue,
-                        }
-                    } else {
-                        q.distance(item)
-                    };
-                    let found = Neighbor {
+                }
+                if item_lb >= kth {
+                    // Equal bound and k-th distance: at best a tie, which only an
+                    // (id, index) before the k-th answer's wins.
+                    let tie = Neighbor {
                         index: i,
-                        distance: d,
+                        distance: kth,
                     };
-                    if k.is_some() {
-                        keep_best(self.index, &mut best, keep, found);
-                    } else {
-                        best.push(found);
+                    if !before(self.index, &tie, &best[keep - 1]) {
+                        continue;
                     }
                 }
-                // The next bucket's test needs the true k-th distance.
                 if let Some(lq) = lanes {
-                    self.flush_lanes(lq, lane_at, lane_out, &mut best, k, r, &mut cert);
+                    lane_at.push(i);
+                    if lane_at.len() == LANE_GROUP {
+                        self.flush_lanes(lq, lane_at, lane_out, best, k, r, cert);
+                    }
+                    continue;
+                }
+                let item = self.keys.get(i as usize);
+                cert.computed += 1;
+                let d = if limit.is_finite() {
+                    match q.distance_within(item, limit) {
+                        Some(d) => d,
+                        None => continue,
+                    }
+                } else {
+                    q.distance(item)
+                };
+                let found = Neighbor {
+                    index: i,
+                    distance: d,
+                };
+                if k.is_some() {
+                    keep_best(self.index, best, keep, found);
+                } else {
+                    best.push(found);
                 }
             }
-            next = cut + 1;
-            let more = if best.len() == keep {
-                cap.min(usize::from(bound.max_diff_within(kth_of(&best))))
-            } else {
-                cap
-            };
-            if more <= cut {
-                break;
+            // The next bound's test needs the true k-th distance.
+            if let Some(lq) = lanes {
+                self.flush_lanes(lq, lane_at, lane_out, best, k, r, cert);
             }
-            cut = more;
         }
-        if k.is_none() {
+        if run.hi >= run.cap {
+            run.done = true;
+            return;
+        }
+        let next = if best.len() == keep {
+            bound.max_diff_within(kth_of(best)).min(run.cap)
+        } else {
+            run.hi.saturating_add(2).min(run.cap)
+        };
+        if next <= run.hi {
+            run.stopped = Some(run.hi + 1);
+            run.done = true;
+            return;
+        }
+        run.lo = Some(run.hi);
+        run.hi = next;
+    }
+
+    /// The answer of a finished exact request, with its certificate.
+    fn finish_exact(&self, run: &mut ExactRun<'_>) -> Found {
+        let n = self.index.len();
+        let mut best = std::mem::take(&mut run.best);
+        if run.k.is_none() {
             best.sort_unstable_by(|a, b| {
                 if before(self.index, a, b) {
                     std::cmp::Ordering::Less
@@ -1036,13 +1165,13 @@ impl<'a> Searcher<'a> {
                 }
             });
         }
-        cert.bound = hist
-            .iter()
-            .enumerate()
-            .take(256)
-            .skip(next)
-            .find(|&(_, &h)| h > 0)
-            .map(|(b, _)| bound.lower(b as u8));
+        let mut cert = run.cert;
+        // Every item not examined has a bound of at least the first bound not visited (when
+        // the visit covered every bound up to `cap`, the next one above it).
+        let stopped = run.stopped.or(run.cap.checked_add(1));
+        cert.bound = stopped
+            .filter(|_| cert.examined < n)
+            .map(|b| run.bound.lower(b));
         Found {
             neighbors: best,
             distances: self.refs.len() + cert.computed,
@@ -1158,64 +1287,12 @@ impl<'a> Searcher<'a> {
     }
 }
 
-/// The loop of [`Searcher::raise_bounds`] for a query of `m` chars and signature `qs`.
-#[inline(always)]
-fn raise_bounds_with(m: usize, qs: u64, cap: u32, lens: &[u8], sigs: &[u64], scores: &mut [u32]) {
-    for ((s, &len), &sig) in scores.iter_mut().zip(lens).zip(sigs) {
-        let gap = (length_gap(len, m) as u32)
-            .max(LevenshteinQuery::signature_gap(qs, sig))
-            .min(255);
-        *s = if *s <= cap { (*s).max(gap) } else { *s };
-    }
-}
-
-/// [`raise_bounds_with`] compiled with the `popcnt` instruction (the baseline x86-64
-/// target lacks it, and the signature gap is two population counts per item).
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "popcnt")]
-fn raise_bounds_popcnt(m: usize, qs: u64, cap: u32, lens: &[u8], sigs: &[u64], scores: &mut [u32]) {
-    raise_bounds_with(m, qs, cap, lens, sigs, scores)
-}
-
-/// Counts L∞ scores (at most 255) into `hist`, replacing its contents; four small tables
-/// used in turn, so that increments of one bin do not wait on each other.
-fn recount_linf(scores: &[u32], hist: &mut [u32]) {
-    let mut local = [[0u32; 256]; 4];
-    let mut quads = scores.chunks_exact(4);
-    for four in &mut quads {
-        for (t, &b) in local.iter_mut().zip(four) {
-            t[(b as usize).min(255)] += 1;
-        }
-    }
-    for &b in quads.remainder() {
-        local[0][(b as usize).min(255)] += 1;
-    }
-    for (j, h) in hist.iter_mut().enumerate() {
-        *h = if j < 256 {
-            local.iter().map(|t| t[j]).sum()
-        } else {
-            0
-        };
-    }
-}
-
 /// The largest stored L∞ difference an item within `radius` can have (255: any).
 fn bound_cap(bound: Bound, radius: Option<f64>) -> usize {
     usize::from(match radius {
         Some(r) if r.is_finite() => bound.max_diff_within(r),
         _ => u8::MAX,
     })
-}
-
-/// Lower bound of the distance from a query of `m` chars to an item whose length in chars
-/// is `stored` (saturated at 255: the item has at least 255 chars).
-#[inline]
-fn length_gap(stored: u8, m: usize) -> usize {
-    if stored < u8::MAX {
-        usize::from(stored).abs_diff(m)
-    } else {
-        usize::from(u8::MAX).saturating_sub(m)
-    }
 }
 
 /// What a query asks for.
@@ -1235,37 +1312,6 @@ pub enum Request {
         /// At most this many answers (the nearest), or all.
         k: Option<usize>,
     },
-}
-
-/// Orders the items whose score is in `lo..=hi` by (score, item) into `order` with one
-/// counting-sort pass, using the histogram of the scores; returns the start of each score's
-/// items in `order` (`hi − lo + 2` offsets, the last one the end).
-fn bucket_order(
-    scores: &[u32],
-    hist: &[u32],
-    lo: usize,
-    hi: usize,
-    order: &mut Vec<u32>,
-) -> Vec<u32> {
-    let mut starts = Vec::with_capacity(hi + 2 - lo);
-    let mut acc = 0u32;
-    for &h in &hist[lo..=hi] {
-        starts.push(acc);
-        acc += h;
-    }
-    starts.push(acc);
-    order.clear();
-    order.resize(acc as usize, 0);
-    let mut fill = starts.clone();
-    let (lo, hi) = (lo as u32, hi as u32);
-    for (i, &sc) in scores.iter().enumerate() {
-        if sc >= lo && sc <= hi {
-            let slot = &mut fill[(sc - lo) as usize];
-            order[*slot as usize] = i as u32;
-            *slot += 1;
-        }
-    }
-    starts
 }
 
 /// The Levenshtein query inside `q`, for the fast paths that need the kernel itself.

@@ -290,6 +290,37 @@ fn candidates_from_the_tree_give_answers_too() {
     assert_eq!(answers(&out)[0].neighbors[0].item, "Upper Kaldrith");
 }
 
+#[test]
+fn candidates_from_cells_and_visit_are_accepted() {
+    let d = Dir::new();
+    let input = d.write("names.txt", NAMES.as_bytes());
+    let idx = d.build(&input, &["--dim", "4"]);
+    for extra in [
+        &["--candidates-from", "cells"][..],
+        &["--candidates-from", "cells", "--visit", "3"],
+        &["--visit", "0"],
+        &["--candidates-from", "scan", "--visit", "5"],
+    ] {
+        let out = d
+            .cmd()
+            .arg("query")
+            .arg(&idx)
+            .args(["-k", "2"])
+            .args(extra)
+            .write_stdin("Upper Kaldrit\n")
+            .assert()
+            .success()
+            .get_output()
+            .stdout
+            .clone();
+        let a = answers(&out);
+        assert_eq!(a[0].neighbors.len(), 2, "{extra:?}");
+        // One deletion (common practice: unit-cost Levenshtein).
+        assert_eq!(a[0].neighbors[0].item, "Upper Kaldrith", "{extra:?}");
+        assert_eq!(a[0].neighbors[0].distance, 1, "{extra:?}");
+    }
+}
+
 // ---- exit codes and bad input -------------------------------------------------------
 
 #[test]
@@ -311,8 +342,25 @@ fn bad_usage_exits_2() {
         .args(["-o", "x.wmk", "--dim", "65"])
         .assert()
         .code(2);
+    d.cmd()
+        .arg("build")
+        .arg(&input)
+        .args(["-o", "x.wmk", "--candidates", "0"])
+        .assert()
+        .code(2)
+        .stderr(predicates::str::contains("--candidates"));
     assert!(!d.path("x.wmk").exists());
     let idx = d.build(&input, &["--dim", "2"]);
+    for exact in ["--exact", "--within=2"] {
+        d.cmd()
+            .arg("query")
+            .arg(&idx)
+            .args([exact, "--visit", "5"])
+            .write_stdin("a\n")
+            .assert()
+            .code(2)
+            .stderr(predicates::str::contains("--visit"));
+    }
     d.cmd()
         .arg("query")
         .arg(&idx)

@@ -462,18 +462,28 @@ fn section(bytes: &[u8], kind: u32) -> std::ops::Range<usize> {
 }
 
 /// Opens a (possibly damaged) file and runs queries on it; Err means it was refused.
+///
+/// Sources: the scan, the index's default (the cells when the file has a cells section,
+/// visiting a third of the rows) and the kd-tree.
 fn open_and_query(path: &Path, tree: bool) -> Result<usize, String> {
     let index = Index::open(path).map_err(|e| e.to_string())?;
     let searcher = Searcher::new(&index);
     let mut scratch = Default::default();
     let mut answered = 0;
-    for source in [CandidateSource::Scan, CandidateSource::Tree] {
-        if source == CandidateSource::Tree && !tree {
+    for source in [
+        Some(CandidateSource::Scan),
+        None,
+        Some(CandidateSource::Tree),
+    ] {
+        if source == Some(CandidateSource::Tree) && !tree {
             continue;
         }
         let mut p = SearchParams::from_index(&index, 5);
-        p.source = source;
         p.candidates = p.candidates.min(50);
+        match source {
+            Some(s) => p.source = s,
+            None => p.visit = index.len() / 3,
+        }
         for q in ["abandon", "Zurich", ""] {
             let found = searcher
                 .search(q, &p, &mut scratch)
@@ -495,6 +505,11 @@ fn ten_thousand_damaged_or_crafted_files_are_refused_or_answered_without_a_panic
     let idx = d.build(&input, "w.wmk", &["--dim", "8", "--seed", "5"]);
     let good = std::fs::read(&idx).unwrap();
     let meta = section(&good, 1);
+    // The index's default source, which `open_and_query` takes on every variant, is the cells.
+    assert_eq!(
+        SearchParams::from_index(&Index::open(&idx).unwrap(), 5).source,
+        CandidateSource::Cells
+    );
     let probe = d.path("probe.wmk");
     let mut rng = ChaCha8Rng::seed_from_u64(0x5eed);
     let (mut refused, mut answered, mut verify_refused) = (0, 0, 0);
@@ -524,7 +539,7 @@ fn ten_thousand_damaged_or_crafted_files_are_refused_or_answered_without_a_panic
                 }
             }
             _ => {
-                // Overwrite a run in the data sections (items, ids, coordinates, tree).
+                // Overwrite a run in the data sections (items, ids, coordinates, cells, tree).
                 let at = rng.gen_range(meta.end..bytes.len());
                 for b in bytes[at..(at + rng.gen_range(1..64)).min(good.len())].iter_mut() {
                     *b = rng.gen();
@@ -536,8 +551,9 @@ fn ten_thousand_damaged_or_crafted_files_are_refused_or_answered_without_a_panic
         }
         let changed = bytes != good;
         std::fs::write(&probe, &bytes).unwrap();
-        // The kd-tree path runs on every variant, crafted ones included: a tree section is
-        // checked field by field on first use, so it is refused or safe to query.
+        // The kd-tree and cells paths run on every variant, crafted ones included: both
+        // sections are checked field by field on first use, so they are refused or safe to
+        // query.
         match open_and_query(&probe, true) {
             Err(_) => refused += 1,
             Ok(_) => answered += 1,
@@ -821,6 +837,247 @@ fn bad_input_crafted_kd_tree_sections_are_refused_by_query_and_verify() {
         .assert()
         .success()
         .stdout(contains("\"neighbors\""));
+}
+
+/// Offset of the section-table entry of `kind` (its length is at +16, its CRC at +24).
+fn entry(bytes: &[u8], kind: u32) -> usize {
+    (0..ENTRIES)
+        .map(|e| HEADER + e * ENTRY)
+        .find(|&at| u32_at(bytes, at) == kind)
+        .unwrap_or_else(|| panic!("no section {kind}"))
+}
+
+/// Byte positions inside a cells section, from the layout at the top of `index/cells.rs`:
+/// a 64-byte head (K, stride, zeros), then centres, starts, members and rows, each on a
+/// 64-byte boundary of the section.
+#[derive(Clone, Copy)]
+struct CellsMap {
+    k: usize,
+    starts: usize,
+    members: usize,
+    rows: usize,
+    end: usize,
+}
+
+fn map_cells(cells: &[u8], n: usize, stride: usize) -> CellsMap {
+    let pad = |x: usize| x.div_ceil(64) * 64;
+    let k = u32_at(cells, 0) as usize;
+    let starts = pad(64 + k * stride);
+    let members = pad(starts + (k + 1) * 4);
+    let rows = pad(members + n * 4);
+    CellsMap {
+        k,
+        starts,
+        members,
+        rows,
+        end: rows + n * stride,
+    }
+}
+
+#[test]
+fn bad_input_crafted_cells_sections_are_refused_by_query_and_verify() {
+    let d = Dir::new();
+    let list = words(400).join("\n");
+    let input = d.write("words.txt", list.as_bytes());
+    let idx = d.build(&input, "w.wmk", &["--dim", "8", "--seed", "4"]);
+    let (n, stride) = {
+        let ix = Index::open(&idx).unwrap();
+        (ix.len(), ix.stride())
+    };
+    assert_eq!((n, stride), (400, 8), "400 distinct words, 8 coordinates");
+    let good = std::fs::read(&idx).unwrap();
+    let sec = section(&good, 12);
+    let cells = good[sec.clone()].to_vec();
+    let m = map_cells(&cells, n, stride);
+    // The layout read above is the one the file holds: it fills the section exactly, the
+    // stride is the index's, starts run from 0 to n, and each stored row is its member's
+    // row in the coordinate section (kind 9), read independently of the cells.
+    assert_eq!(m.end, cells.len(), "the section is exactly its parts");
+    assert_eq!(u32_at(&cells, 4) as usize, stride);
+    assert!(m.k >= 2, "{} cells", m.k);
+    assert_eq!(u32_at(&cells, m.starts), 0);
+    assert_eq!(u32_at(&cells, m.starts + 4 * m.k) as usize, n);
+    let coords = &good[section(&good, 9)];
+    let member = |c: &[u8], pos: usize| u32_at(c, m.members + 4 * pos) as usize;
+    for pos in 0..n {
+        let i = member(&cells, pos);
+        assert_eq!(
+            cells[m.rows + pos * stride..][..stride],
+            coords[i * stride..][..stride],
+            "position {pos}"
+        );
+    }
+    let m0 = member(&cells, 0);
+    let start = |c: usize| u32_at(&cells, m.starts + 4 * c);
+    assert!(start(2) < n as u32, "cell 2 is not the last to end");
+
+    // Each craft edits the section bytes (and may shorten its table entry, in which case the
+    // bytes cut off are zeroed, as padding must be); checksums are recomputed afterwards.
+    type Craft = Box<dyn Fn(&mut Vec<u8>, &mut u64)>;
+    let k = m.k as u32;
+    let cases: Vec<(&str, Craft, String)> = vec![
+        (
+            "no cells",
+            Box::new(|c, _| put_u32(c, 0, 0)),
+            format!("0 cells for {n} items"),
+        ),
+        (
+            "more cells than items",
+            Box::new(move |c, _| put_u32(c, 0, n as u32 + 1)),
+            format!("{} cells for {n} items", n + 1),
+        ),
+        (
+            "a cell count that does not fit the section",
+            Box::new(move |c, _| put_u32(c, 0, k - 1)),
+            format!("; {} cells of {n} items need ", k - 1),
+        ),
+        (
+            "a stride other than the index's",
+            Box::new(move |c, _| put_u32(c, 4, 2 * stride as u32)),
+            format!("stride {}, the index's is {stride}", 2 * stride),
+        ),
+        (
+            "a non-zero byte in the header padding",
+            Box::new(|c, _| c[40] = 1),
+            "header bytes past the stride are not zero".into(),
+        ),
+        (
+            "starts that stop short of the item count",
+            Box::new(move |c, _| put_u32(c, m.starts + 4 * m.k, n as u32 - 1)),
+            "cell starts do not run from 0 to the number of items".into(),
+        ),
+        (
+            "starts that begin past 0",
+            Box::new(move |c, _| put_u32(c, m.starts, 1)),
+            "cell starts do not run from 0 to the number of items".into(),
+        ),
+        (
+            "decreasing starts",
+            Box::new(move |c, _| {
+                let s2 = u32_at(c, m.starts + 8);
+                put_u32(c, m.starts + 4, s2 + 1)
+            }),
+            "cell 1 ends before it starts".into(),
+        ),
+        (
+            "a member twice",
+            Box::new(move |c, _| put_u32(c, m.members + 4, m0 as u32)),
+            format!("item {m0} is in more than one cell"),
+        ),
+        (
+            "a member past the items",
+            Box::new(move |c, _| put_u32(c, m.members, n as u32)),
+            format!("position 0 names item {n}, past the last"),
+        ),
+        (
+            "a stored row that is not its item's coordinates",
+            Box::new(move |c, _| c[m.rows] ^= 1),
+            format!("the row stored at position 0 is not item {m0}'s coordinates"),
+        ),
+        (
+            "a section one byte short",
+            Box::new(|c, len| {
+                *len -= 1;
+                let last = c.len() - 1;
+                c[last] = 0;
+            }),
+            format!(
+                "{} bytes; {} cells of {n} items need {}",
+                cells.len() - 1,
+                m.k,
+                cells.len()
+            ),
+        ),
+        (
+            "a section shorter than its header",
+            Box::new(|c, len| {
+                *len = 32;
+                c[32..].fill(0);
+            }),
+            "32 bytes, shorter than its header".into(),
+        ),
+    ];
+    let len_at = entry(&good, 12) + 16;
+    let probe = d.path("crafted.wmk");
+    for (what, craft, message) in &cases {
+        let mut c = cells.clone();
+        let mut len = sec.len() as u64;
+        craft(&mut c, &mut len);
+        assert!(
+            c != cells || len != sec.len() as u64,
+            "{what}: the craft changes the section"
+        );
+        let mut bytes = good.clone();
+        bytes[sec.clone()].copy_from_slice(&c);
+        bytes[len_at..len_at + 8].copy_from_slice(&len.to_le_bytes());
+        fix_checksums(&mut bytes);
+        std::fs::write(&probe, &bytes).unwrap();
+        for args in [
+            vec!["query", "crafted.wmk"],
+            vec!["query", "crafted.wmk", "--candidates-from", "cells"],
+            vec!["inspect", "--verify", "crafted.wmk"],
+        ] {
+            let out = d
+                .cmd()
+                .args(&args)
+                .write_stdin("abandon\n")
+                .output()
+                .unwrap();
+            let err = String::from_utf8_lossy(&out.stderr);
+            assert_eq!(out.status.code(), Some(3), "{what}: {args:?}: {err}");
+            assert!(
+                err.contains("crafted.wmk: corrupt index: section cells is refused: ")
+                    && err.contains(message.as_str())
+                    && !err.contains("panicked"),
+                "{what}: {args:?}: {err}"
+            );
+        }
+        // The scan reads the coordinate section, never the cells: it still answers, and
+        // finds the word itself (query, rank, id, item, distance; the first word of
+        // Debian's list is "A", record 0).
+        d.cmd()
+            .args([
+                "query",
+                "crafted.wmk",
+                "--candidates-from",
+                "scan",
+                "-k",
+                "1",
+            ])
+            .args(["--format", "tsv"])
+            .write_stdin("abandon\nA\n")
+            .assert()
+            .success()
+            .stdout(contains("A\t1\t0\tA\t0\n"));
+    }
+    // A changed byte without its checksum recomputed is caught by the checksum first.
+    let mut bytes = good.clone();
+    bytes[sec.start + m.rows] ^= 1;
+    std::fs::write(&probe, &bytes).unwrap();
+    for args in [
+        vec!["query", "crafted.wmk"],
+        vec!["inspect", "--verify", "crafted.wmk"],
+    ] {
+        d.cmd()
+            .args(&args)
+            .write_stdin("abandon\n")
+            .assert()
+            .code(3)
+            .stderr(contains(
+                "crafted.wmk: corrupt index: checksum mismatch in section cells",
+            ));
+    }
+    // The untouched section passes and answers through the cells.
+    d.cmd()
+        .args(["inspect", "--verify", "w.wmk"])
+        .assert()
+        .success();
+    d.cmd()
+        .args(["query", "w.wmk", "-k", "1", "--format", "tsv"])
+        .write_stdin("A\n")
+        .assert()
+        .success()
+        .stdout(contains("A\t1\t0\tA\t0\n"));
 }
 
 // ---------------------------------------------------------------------------------------

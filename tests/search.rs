@@ -8,7 +8,7 @@ use waymark::ingest::{
     read_corpus, read_corpus_from, Corpus, Ids, IngestOptions, InputFormat, Normalize,
 };
 use waymark::metric::{Levenshtein, Metric};
-use waymark::search::{CandidateSource, SearchParams, Searcher, Space};
+use waymark::search::{CandidateSource, Found, SearchParams, Searcher, Space};
 
 fn corpus(items: &[String]) -> Corpus {
     Corpus {
@@ -293,4 +293,230 @@ fn the_coarse_stage_returns_true_distances_in_order() {
         .search("buoy 12", &p, &mut Default::default())
         .unwrap();
     assert_eq!(a, b);
+}
+
+/// Invented harbour and street names from a fixed list of syllables, seeded: `n` strings of
+/// 2 to 5 syllables, some with a second word.
+fn place_names(n: usize, seed: u64) -> Vec<String> {
+    use rand::{Rng, SeedableRng};
+    const SYL: [&str; 16] = [
+        "kal", "dri", "th", "or", "va", "ne", "tes", "sa", "mir", "ro", "ke", "lan", "mi", "rrow",
+        "qu", "ay",
+    ];
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+    let word = |rng: &mut rand_chacha::ChaCha8Rng| -> String {
+        (0..rng.gen_range(2..=5))
+            .map(|_| SYL[rng.gen_range(0..SYL.len())])
+            .collect()
+    };
+    (0..n)
+        .map(|_| {
+            let first = word(&mut rng);
+            if rng.gen_bool(0.3) {
+                format!("{first} {}", word(&mut rng))
+            } else {
+                first
+            }
+        })
+        .collect()
+}
+
+/// The k nearest items by strsim's Levenshtein (an outside implementation), ordered by
+/// (distance, item index) as answers are: (index, distance).
+fn strsim_nearest(items: &[String], q: &str, k: usize) -> Vec<(u32, f64)> {
+    let mut all: Vec<(usize, u32)> = items
+        .iter()
+        .enumerate()
+        .map(|(i, s)| (strsim::levenshtein(q, s), i as u32))
+        .collect();
+    all.sort_unstable();
+    all.into_iter()
+        .take(k)
+        .map(|(d, i)| (i, d as f64))
+        .collect()
+}
+
+fn pairs(f: &Found) -> Vec<(u32, f64)> {
+    f.neighbors.iter().map(|n| (n.index, n.distance)).collect()
+}
+
+/// Cells visiting every row, with every item a candidate, give the exact answer, as the
+/// scan does; with the default parameters, with a partial visit and with a visit smaller
+/// than the candidates, answers hold k neighbours at their true distances, in answer order,
+/// and every candidate is counted as measured or pruned.
+#[test]
+fn cells_answer_like_the_scan_and_count_their_work_on_3000_names() {
+    let dir = tempfile::tempdir().unwrap();
+    let items = place_names(3000, 21);
+    let idx = build(&corpus(&items), 16, &dir);
+    let n = idx.len();
+    assert_eq!(n, 3000);
+    assert!(idx.has_cells());
+    let cells = idx.cells().unwrap().expect("a built index has cells");
+    let largest = (0..cells.len()).map(|c| cells.cell(c).len()).max().unwrap();
+    assert!(
+        cells.len() > 1 && largest < n / 2,
+        "{largest} rows in one cell"
+    );
+    let refs = idx.meta().embedding.refs().len();
+    let s = Searcher::new(&idx);
+    let defaults = SearchParams::from_index(&idx, 10);
+    assert_eq!(defaults.source, CandidateSource::Cells);
+    let mut queries = typo_queries(&items, 30, 5);
+    queries.extend(["", "kalthor", "lanmi quay", "zzzz"].map(String::from));
+    let mut scratch = Default::default();
+    let k = 10;
+    // The candidates stand out of any one cell, so a visit of 10 rows not raised to the
+    // candidates would pick fewer of them (the count below would then fall short).
+    let some = (largest + 1).max(120);
+    for q in &queries {
+        let want = strsim_nearest(&items, q, k);
+        let all = |source| SearchParams {
+            k,
+            candidates: n,
+            space: Space::L1,
+            source,
+            visit: 0,
+        };
+        let cells_all = s
+            .search(q, &all(CandidateSource::Cells), &mut scratch)
+            .unwrap();
+        let scan_all = s
+            .search(q, &all(CandidateSource::Scan), &mut scratch)
+            .unwrap();
+        assert_eq!(pairs(&cells_all), want, "{q:?}: cells, every row");
+        assert_eq!(cells_all, scan_all, "{q:?}: cells and scan, every row");
+        for (what, p) in [
+            ("defaults", defaults),
+            (
+                "a partial visit",
+                SearchParams {
+                    candidates: some,
+                    visit: 4 * some,
+                    ..defaults
+                },
+            ),
+            (
+                "a visit below the candidates",
+                SearchParams {
+                    candidates: some,
+                    visit: 10,
+                    ..defaults
+                },
+            ),
+        ] {
+            let f = s.search(q, &p, &mut scratch).unwrap();
+            let got = pairs(&f);
+            assert_eq!(got.len(), k, "{q:?}, {what}");
+            for &(i, d) in &got {
+                let truth = strsim::levenshtein(q, &items[i as usize]) as f64;
+                assert_eq!(d, truth, "{q:?}, {what}: item {i}");
+            }
+            assert!(
+                got.windows(2).all(|w| (w[0].1, w[0].0) < (w[1].1, w[1].0)),
+                "{q:?}, {what}: {got:?}"
+            );
+            // Never better than the exact answer, position by position.
+            for (g, w) in got.iter().zip(&want) {
+                assert!(g.1 >= w.1, "{q:?}, {what}: {got:?} beats {want:?}");
+            }
+            let c = p.candidates.min(n);
+            assert_eq!(
+                f.distances + f.pruned,
+                refs + c,
+                "{q:?}, {what}: reference distances plus each candidate measured or pruned"
+            );
+        }
+        // A visit below the candidates is raised to them: the same answer as a visit of
+        // exactly the candidates.
+        let raised = SearchParams {
+            candidates: some,
+            visit: 10,
+            ..defaults
+        };
+        let exact_visit = SearchParams {
+            candidates: some,
+            visit: some,
+            ..defaults
+        };
+        assert_eq!(
+            s.search(q, &raised, &mut scratch).unwrap(),
+            s.search(q, &exact_visit, &mut scratch).unwrap(),
+            "{q:?}"
+        );
+    }
+}
+
+/// The file layout of DEVELOPERS.md ("The index file"): a 64-byte header, then 16 table
+/// entries of 32 bytes (kind, flags, offset, length, CRC-32, zero).
+const HEADER: usize = 64;
+const ENTRY: usize = 32;
+const ENTRIES: usize = 16;
+
+/// A file as an older writer would have made it: the section of `kind` removed from the
+/// table (later entries moved up, the count lowered), its bytes zeroed, the table's and the
+/// header's checksums recomputed.
+fn without_section(bytes: &[u8], kind: u32) -> Vec<u8> {
+    let mut b = bytes.to_vec();
+    let u32_at = |b: &[u8], at: usize| u32::from_le_bytes(b[at..at + 4].try_into().unwrap());
+    let u64_at = |b: &[u8], at: usize| u64::from_le_bytes(b[at..at + 8].try_into().unwrap());
+    let count = u32_at(&b, 12) as usize;
+    let e = (0..count)
+        .find(|&e| u32_at(&b, HEADER + e * ENTRY) == kind)
+        .unwrap_or_else(|| panic!("no section {kind}"));
+    let at = HEADER + e * ENTRY;
+    let (off, len) = (u64_at(&b, at + 8) as usize, u64_at(&b, at + 16) as usize);
+    b[off..off + len].fill(0);
+    let table_end = HEADER + count * ENTRY;
+    b.copy_within(at + ENTRY..table_end, at);
+    b[table_end - ENTRY..table_end].fill(0);
+    b[12..16].copy_from_slice(&(count as u32 - 1).to_le_bytes());
+    let table = crc32fast::hash(&b[HEADER..HEADER + ENTRIES * ENTRY]);
+    b[24..28].copy_from_slice(&table.to_le_bytes());
+    b[28..32].fill(0);
+    let header = crc32fast::hash(&b[..HEADER]);
+    b[28..32].copy_from_slice(&header.to_le_bytes());
+    b
+}
+
+/// An index without a cells section (kind 12) opens, passes `verify`, defaults to the scan
+/// and answers as the full index's scan does; asking it for cells scans.
+#[test]
+fn an_index_without_cells_falls_back_to_the_scan() {
+    let dir = tempfile::tempdir().unwrap();
+    let items = place_names(600, 8);
+    let full = build(&corpus(&items), 8, &dir);
+    assert!(full.has_cells());
+    let stripped = dir.path().join("no-cells.wmk");
+    std::fs::write(
+        &stripped,
+        without_section(&std::fs::read(full.path()).unwrap(), 12),
+    )
+    .unwrap();
+    let idx = Index::open(&stripped).unwrap();
+    idx.verify().unwrap();
+    assert!(!idx.has_cells());
+    assert!(idx.cells().unwrap().is_none());
+    let p = SearchParams::from_index(&idx, 5);
+    assert_eq!(p.source, CandidateSource::Scan);
+    let scan_of_full = SearchParams {
+        source: CandidateSource::Scan,
+        ..SearchParams::from_index(&full, 5)
+    };
+    let (a, b) = (Searcher::new(&idx), Searcher::new(&full));
+    let mut scratch = Default::default();
+    for q in typo_queries(&items, 20, 3) {
+        let got = a.search(&q, &p, &mut scratch).unwrap();
+        assert_eq!(got.neighbors.len(), 5);
+        assert_eq!(
+            got,
+            b.search(&q, &scan_of_full, &mut scratch).unwrap(),
+            "{q}"
+        );
+        let asked = SearchParams {
+            source: CandidateSource::Cells,
+            ..p
+        };
+        assert_eq!(got, a.search(&q, &asked, &mut scratch).unwrap(), "{q}");
+    }
 }

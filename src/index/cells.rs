@@ -312,8 +312,10 @@ impl<'a> CellsView<'a> {
     }
 
     /// Cells in increasing squared L2 distance of their centre to `q` (the query's stored
-    /// coordinates), into `out` as (distance, cell), ties by cell number.
-    pub fn visit_order(&self, q: &[u8; 64], out: &mut Vec<(u32, u32)>) {
+    /// coordinates), into `out` as (distance, cell), ties by cell number; only the first
+    /// `first` entries are ordered (the rest follow in any order), as a visit that stops
+    /// early needs no more.
+    pub fn visit_order(&self, q: &[u8; 64], first: usize, out: &mut Vec<(u32, u32)>) {
         out.clear();
         for (c, centre) in self.centres.chunks_exact(self.stride).enumerate() {
             let mut d = 0u32;
@@ -323,7 +325,12 @@ impl<'a> CellsView<'a> {
             }
             out.push((d, c as u32));
         }
-        out.sort_unstable();
+        if first < out.len() {
+            out.select_nth_unstable(first);
+            out[..first].sort_unstable();
+        } else {
+            out.sort_unstable();
+        }
     }
 }
 
@@ -397,8 +404,11 @@ mod tests {
         let mut q = [0u8; 64];
         q[..8].copy_from_slice(&coords[..8]);
         let mut order = Vec::new();
-        view.visit_order(&q, &mut order);
+        view.visit_order(&q, usize::MAX, &mut order);
         assert_eq!(order.len(), view.len());
         assert!(order.windows(2).all(|w| w[0] <= w[1]));
+        let mut part = Vec::new();
+        view.visit_order(&q, 5, &mut part);
+        assert_eq!(part[..5], order[..5]);
     }
 }
