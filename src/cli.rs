@@ -238,7 +238,7 @@ enum OutFormat {
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
 enum SourceArg {
-    /// The rows of the cells nearest the query (the default when the index has cells).
+    /// The rows of the cells nearest the query (the default for large indexes).
     Cells,
     /// A SIMD pass over every item's compact coordinates.
     Scan,
@@ -266,11 +266,12 @@ struct QueryArgs {
     /// Space candidates are ranked in (default: stored in the index).
     #[arg(long, value_enum)]
     space: Option<SpaceArg>,
-    /// Where candidates come from [default: cells when the index has them, else scan].
+    /// Where candidates come from [default: cells for indexes of 250,000 items or more, else
+    /// scan].
     #[arg(long = "candidates-from", value_enum)]
     candidates_from: Option<SourceArg>,
     /// With cells: compare the rows of the nearest cells until N rows are compared
-    /// [default: 16 per candidate]; 0 compares every row.
+    /// [default: 12 per candidate]; 0 compares every row.
     #[arg(long, value_name = "N", conflicts_with_all = ["exact", "within"])]
     visit: Option<usize>,
     /// Read queries from this file instead of stdin, one per line.

@@ -360,8 +360,15 @@ fn cells_answer_like_the_scan_and_count_their_work_on_3000_names() {
     );
     let refs = idx.meta().embedding.refs().len();
     let s = Searcher::new(&idx);
-    let defaults = SearchParams::from_index(&idx, 10);
-    assert_eq!(defaults.source, CandidateSource::Cells);
+    // Below CELLS_MIN_ITEMS the default source is the scan; the cells are asked for.
+    assert_eq!(
+        SearchParams::from_index(&idx, 10).source,
+        CandidateSource::Scan
+    );
+    let defaults = SearchParams {
+        source: CandidateSource::Cells,
+        ..SearchParams::from_index(&idx, 10)
+    };
     let mut queries = typo_queries(&items, 30, 5);
     queries.extend(["", "kalthor", "lanmi quay", "zzzz"].map(String::from));
     let mut scratch = Default::default();

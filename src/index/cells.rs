@@ -305,6 +305,14 @@ impl<'a> CellsView<'a> {
         &self.rows[range.start * self.stride..range.end * self.stride]
     }
 
+    /// Asks the CPU to fetch the member entry of position `pos` into cache.
+    #[inline]
+    pub fn prefetch_member(&self, pos: usize) {
+        if let Some(b) = self.members.get(pos * 4..) {
+            crate::prefetch(b.as_ptr());
+        }
+    }
+
     /// The item stored at position `pos`.
     #[inline]
     pub fn member(&self, pos: usize) -> u32 {
