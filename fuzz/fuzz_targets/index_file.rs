@@ -1,6 +1,6 @@
 //! Any bytes as an index file, as given and with every checksum recomputed (a crafted
-//! file): open, verify, and query through both candidate sources. Nothing may panic or
-//! crash.
+//! file): open, verify, query through every candidate source, and ask exact and range
+//! queries. Nothing may panic or crash.
 #![no_main]
 
 use libfuzzer_sys::fuzz_target;
@@ -55,7 +55,11 @@ fn open_and_query(data: &[u8]) {
     let _ = index.verify();
     let searcher = Searcher::new(&index);
     let mut scratch = Default::default();
-    for source in [CandidateSource::Scan, CandidateSource::Tree] {
+    for source in [
+        CandidateSource::Scan,
+        CandidateSource::Cells,
+        CandidateSource::Tree,
+    ] {
         let mut p = SearchParams::from_index(&index, 3);
         p.source = source;
         p.candidates = p.candidates.clamp(1, 64);
@@ -66,6 +70,11 @@ fn open_and_query(data: &[u8]) {
                 }
             }
         }
+    }
+    // Exact and range answers go through the column blocks and the key filters.
+    for q in ["harbour", ""] {
+        let _ = searcher.search_exact(q, 3, &mut scratch);
+        let _ = searcher.search_within(q, 1.0, None, &mut scratch);
     }
 }
 
