@@ -653,6 +653,29 @@ fn map_tree(tree: &[u8]) -> TreeMap {
     m
 }
 
+/// `crafted.wmk` in `d` is refused with exit code 3 by a query whose candidates come from
+/// `source` and by `inspect --verify`, naming `section` and `message`, without a panic.
+fn assert_refused(d: &Dir, section: &str, source: &str, what: &str, message: &str) {
+    for args in [
+        vec!["query", "crafted.wmk", "--candidates-from", source],
+        vec!["inspect", "--verify", "crafted.wmk"],
+    ] {
+        let out = d
+            .cmd()
+            .args(&args)
+            .write_stdin("abandon\n")
+            .output()
+            .unwrap();
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(3), "{what}: {args:?}: {err}");
+        let head = format!("crafted.wmk: corrupt index: section {section} is refused: ");
+        assert!(
+            err.contains(&head) && err.contains(message) && !err.contains("panicked"),
+            "{what}: {args:?}: {err}"
+        );
+    }
+}
+
 #[test]
 fn bad_input_crafted_kd_tree_sections_are_refused_by_query_and_verify() {
     let d = Dir::new();
@@ -802,25 +825,7 @@ fn bad_input_crafted_kd_tree_sections_are_refused_by_query_and_verify() {
         bytes[sec.clone()].copy_from_slice(&t);
         fix_checksums(&mut bytes);
         std::fs::write(&probe, &bytes).unwrap();
-        for args in [
-            vec!["query", "crafted.wmk", "--candidates-from", "tree"],
-            vec!["inspect", "--verify", "crafted.wmk"],
-        ] {
-            let out = d
-                .cmd()
-                .args(&args)
-                .write_stdin("abandon\n")
-                .output()
-                .unwrap();
-            let err = String::from_utf8_lossy(&out.stderr);
-            assert_eq!(out.status.code(), Some(3), "{what}: {args:?}: {err}");
-            assert!(
-                err.contains("crafted.wmk: corrupt index: section kd-tree is refused: ")
-                    && err.contains(message)
-                    && !err.contains("panicked"),
-                "{what}: {args:?}: {err}"
-            );
-        }
+        assert_refused(&d, "kd-tree", "tree", what, message);
         // The scan does not read the tree: the file still answers through it.
         d.cmd()
             .args(["query", "crafted.wmk"])
@@ -1010,25 +1015,7 @@ fn bad_input_crafted_cells_sections_are_refused_by_query_and_verify() {
         bytes[len_at..len_at + 8].copy_from_slice(&len.to_le_bytes());
         fix_checksums(&mut bytes);
         std::fs::write(&probe, &bytes).unwrap();
-        for args in [
-            vec!["query", "crafted.wmk", "--candidates-from", "cells"],
-            vec!["inspect", "--verify", "crafted.wmk"],
-        ] {
-            let out = d
-                .cmd()
-                .args(&args)
-                .write_stdin("abandon\n")
-                .output()
-                .unwrap();
-            let err = String::from_utf8_lossy(&out.stderr);
-            assert_eq!(out.status.code(), Some(3), "{what}: {args:?}: {err}");
-            assert!(
-                err.contains("crafted.wmk: corrupt index: section cells is refused: ")
-                    && err.contains(message.as_str())
-                    && !err.contains("panicked"),
-                "{what}: {args:?}: {err}"
-            );
-        }
+        assert_refused(&d, "cells", "cells", what, message);
         // The scan reads the coordinate section, never the cells: it still answers, and
         // finds the word itself (query, rank, id, item, distance; the first word of
         // Debian's list is "A", record 0).

@@ -393,25 +393,38 @@ impl Index {
         let bytes = &self.map[range];
         let (n, stride) = (self.len(), self.stride());
         let checked = self.cells_checked.get_or_init(|| {
-            let crc = self
-                .sections
-                .iter()
-                .find(|s| s.kind == SectionKind::Cells)
-                .map(|s| s.crc);
-            if crc != Some(crc32fast::hash(bytes)) {
-                return Err("corrupt index: checksum mismatch in section cells".into());
-            }
-            cells::CellsView::open(bytes, n, stride, self.coords())
-                .map(|_| ())
-                .map_err(|e| format!("corrupt index: section cells is refused: {e}"))
+            self.check_section(SectionKind::Cells, bytes, || {
+                cells::CellsView::open(bytes, n, stride, self.coords()).map(|_| ())
+            })
         });
-        match checked {
-            Ok(()) => Ok(cells::CellsView::open_unchecked(bytes, n, stride)),
-            Err(m) => Err(Error::Index {
-                path: self.path.clone(),
-                message: m.clone(),
-            }),
+        self.checked(checked)?;
+        Ok(cells::CellsView::open_unchecked(bytes, n, stride))
+    }
+
+    /// The first-use check of a section: its checksum, then `fields`; the error names the
+    /// section.
+    fn check_section(
+        &self,
+        kind: SectionKind,
+        bytes: &[u8],
+        fields: impl FnOnce() -> std::result::Result<(), String>,
+    ) -> std::result::Result<(), String> {
+        let crc = self.sections.iter().find(|s| s.kind == kind).map(|s| s.crc);
+        if crc != Some(crc32fast::hash(bytes)) {
+            return Err(format!(
+                "corrupt index: checksum mismatch in section {}",
+                kind.name()
+            ));
         }
+        fields().map_err(|e| format!("corrupt index: section {} is refused: {e}", kind.name()))
+    }
+
+    /// The outcome of a first-use check as this index's error.
+    fn checked(&self, outcome: &std::result::Result<(), String>) -> Result<()> {
+        outcome.clone().map_err(|message| Error::Index {
+            path: self.path.clone(),
+            message,
+        })
     }
 
     /// The kd-tree, checked on first use: its checksum, rkyv's structural validation and
@@ -420,25 +433,12 @@ impl Index {
         let bytes = &self.map[self.tree.clone()];
         let dim = self.meta.dim as usize;
         let checked = self.tree_checked.get_or_init(|| {
-            let crc = self
-                .sections
-                .iter()
-                .find(|s| s.kind == SectionKind::Tree)
-                .map(|s| s.crc);
-            if crc != Some(crc32fast::hash(bytes)) {
-                return Err("corrupt index: checksum mismatch in section kd-tree".into());
-            }
-            tree::TreeView::open(bytes, dim, self.len())
-                .map_err(|e| format!("corrupt index: section kd-tree is refused: {e}"))?;
-            Ok(())
+            self.check_section(SectionKind::Tree, bytes, || {
+                tree::TreeView::open(bytes, dim, self.len()).map(|_| ())
+            })
         });
-        match checked {
-            Ok(()) => Ok(tree::TreeView::validated(bytes, dim, self.len())),
-            Err(m) => Err(Error::Index {
-                path: self.path.clone(),
-                message: m.clone(),
-            }),
-        }
+        self.checked(checked)?;
+        Ok(tree::TreeView::validated(bytes, dim, self.len()))
     }
 }
 
