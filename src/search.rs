@@ -2,17 +2,25 @@
 //! exact k-NN and range queries, visiting items in order of their lower bound.
 //!
 //! A query is embedded (one distance per landmark), then `C` candidates are taken by their
-//! distance in landmark coordinates — L1, L2 or L∞ — and re-ranked with the bounded kernel.
-//! Candidates are visited nearest first; once `k` answers are held, a candidate whose L∞
-//! lower bound exceeds the current k-th distance is skipped without any distance computed,
-//! and the others are compared with the k-th distance as the kernel's bound.
+//! distance in landmark coordinates — L1, L2 or L∞ — and re-ranked by the true distance:
+//! Levenshtein queries 64 candidates at a time in vector lanes; other metrics nearest first,
+//! where once `k` answers are held a candidate whose L∞ lower bound exceeds the current
+//! k-th distance is skipped without any distance computed, and the others are compared
+//! with the k-th distance as the kernel's bound.
 //!
-//! Candidates come from one of two sources, both measured by `benches/end_to_end.rs`:
+//! Candidates come from one of three sources, measured by `benches/end_to_end.rs` and
+//! `benches/big.rs`:
 //!
-//! - **scan** (default): one pass over the compact u8 coordinates, scored with AVX2
-//!   ([`crate::scan`]), and the best `C` picked with a counting histogram filled in the same
-//!   pass instead of a heap (coordinates are small integers, so scores are too);
+//! - **cells** (default from [`CELLS_MIN_ITEMS`] items): the rows of the cells whose centres
+//!   are nearest the query's coordinates ([`crate::index::cells`]), until
+//!   [`SearchParams::visit`] rows are compared;
+//! - **scan** (default below that): one pass over every item's compact u8 coordinates,
+//!   scored with AVX2 ([`crate::scan`]);
 //! - **tree**: kiddo's exact `nearest_n` on the stored kd-tree over the f32 coordinates.
+//!
+//! The scan and the cells pick the best `C` with a counting histogram filled in the same
+//! pass instead of a heap (coordinates are small integers, so scores are too). Exact and
+//! range queries find the items within a bound with [`crate::bounds`].
 //!
 //! ```no_run
 //! use waymark::index::Index;
