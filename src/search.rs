@@ -771,11 +771,11 @@ impl<'a> Searcher<'a> {
             Request::Approximate(p) => self.search(query, &p, scratch),
             Request::Exact { k } => {
                 self.check(req)?;
-                self.exact(query, Some(k), None, scratch)
+                self.exact(query, Some(k), None)
             }
             Request::Within { radius, k } => {
                 self.check(req)?;
-                self.exact(query, k, Some(radius), scratch)
+                self.exact(query, k, Some(radius))
             }
         }
     }
@@ -810,10 +810,7 @@ impl<'a> Searcher<'a> {
         radius: Option<f64>,
     ) -> Vec<Result<Found>> {
         let Ok(bound) = self.require_bound() else {
-            return block
-                .iter()
-                .map(|q| self.exact(q, k, radius, &mut Scratch::default()))
-                .collect();
+            return block.iter().map(|q| self.exact(q, k, radius)).collect();
         };
         let prepared: Vec<Result<(AnyQuery, [u8; 64])>> =
             block.iter().map(|q| self.prepare_small(q)).collect();
@@ -851,14 +848,7 @@ impl<'a> Searcher<'a> {
 
     /// The exact search behind [`Searcher::search_exact`] and [`Searcher::search_within`]:
     /// the `k` nearest (all when `None`) among items within `radius` (any when `None`).
-    fn exact(
-        &self,
-        query: &str,
-        k: Option<usize>,
-        radius: Option<f64>,
-        s: &mut Scratch,
-    ) -> Result<Found> {
-        let _ = s;
+    fn exact(&self, query: &str, k: Option<usize>, radius: Option<f64>) -> Result<Found> {
         let bound = self.require_bound()?;
         let (q, small) = self.prepare_small(query)?;
         let mut runs = [self.start_exact(&q, &small, bound, k, radius)];
