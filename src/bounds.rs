@@ -7,13 +7,14 @@
 //! register holds one coordinate of 32 items: the bound of all 32 is a running
 //! `max(|column − q_j|)` over the columns, three instructions per column and no reduction
 //! across lanes. Most items exceed a small threshold after a few columns, so every eighth
-//! column the block is dropped as soon as all 32 exceed `t`: at 663,473 words and `t = 2`
-//! most blocks stop after the first eight of 65 columns (`benches/big.rs`).
+//! column the block is dropped as soon as all 32 exceed `t`.
 //!
-//! The first column of a Levenshtein index is each key's length in chars (saturated at
-//! 255): the length is the distance to the empty string, so the difference of lengths is
-//! one more lower bound, and the most selective one for words, which is why it comes
-//! first. Clamping to 255 is 1-Lipschitz, so clamped differences stay lower bounds.
+//! For a Levenshtein index whose coordinates are whole edits, the first 16 columns hold each
+//! key's char counts in 16 bins ([`CharBins`]), whose bound (the larger of the two one-sided
+//! count differences) is at least the difference of lengths. For words it is by far the
+//! most selective bound, which is why it comes first: at 663,473 words it cut the items
+//! measured per exact 10-NN query from 37,471 to 4,004 (`WAYMARK_BIG_PROFILE=exact cargo
+//! bench --bench big`).
 //!
 //! Hand-written: no crate offers a thresholded column-blocked L∞ kernel over u8 columns.
 //! The AVX2 form is chosen at run time; the portable form gives identical results, which
@@ -48,9 +49,134 @@ pub struct Threshold<'a> {
 /// Bytes of one block's share of one group.
 const CHUNK: usize = GROUP * BLOCK;
 
-/// The coordinates (and, for Levenshtein indexes, key lengths) of every item, transposed
-/// into blocks of [`BLOCK`] items: column `j` of block `b` is `BLOCK` bytes, the `j`-th
-/// value of items `b·BLOCK ..` (255 in lanes past the last item).
+/// Number of char-count columns ([`CharBins`]): two groups.
+pub const BINS: usize = 16;
+
+/// The chars of a set of strings folded into [`BINS`] bins, for the count bound of the
+/// Levenshtein distance: with `A` and `B` the numbers of chars of two strings in each bin,
+/// the distance is at least `max(Σ (A − B)⁺, Σ (B − A)⁺)`, because one edit (insertion,
+/// deletion or substitution) lowers each of the two sums by at most one. Any folding of
+/// chars into bins keeps the bound; the bins are chosen from the strings' own char
+/// frequencies (the most frequent chars get a bin each, the others fill the lightest
+/// bins), so that common chars are told apart. Every char outside ASCII shares one bin.
+///
+/// The count bound is never below the difference of lengths (the sums differ by exactly
+/// that), and counts saturate at 255, which keeps it a lower bound.
+///
+/// ```
+/// use waymark::bounds::CharBins;
+///
+/// let words: [&[u8]; 3] = [b"ferry", b"buoy", b"quay"];
+/// let bins = CharBins::fit(words.iter().copied());
+/// let (a, b) = (bins.counts(b"ferry"), bins.counts(b"buoy"));
+/// assert!(CharBins::gap(&a, &b) <= 4); // the Levenshtein distance of the two is 4
+/// assert_eq!(CharBins::gap(&a, &a), 0);
+/// ```
+#[derive(Clone, Debug)]
+pub struct CharBins {
+    ascii: [u8; 128],
+    other: u8,
+}
+
+impl CharBins {
+    /// Bins fitted to the char frequencies of `strings`.
+    pub fn fit<'s>(strings: impl Iterator<Item = &'s [u8]>) -> CharBins {
+        // Symbols 0..128: ASCII bytes; 128: every other char.
+        let mut freq = [0u64; 129];
+        for s in strings {
+            let ascii = s.iter().filter(|b| b.is_ascii()).count();
+            for &b in s.iter().filter(|b| b.is_ascii()) {
+                freq[usize::from(b)] += 1;
+            }
+            freq[128] += (LevenshteinQuery::item_len(s) - ascii) as u64;
+        }
+        let mut symbols: Vec<usize> = (0..129).collect();
+        symbols.sort_by_key(|&c| (std::cmp::Reverse(freq[c]), c));
+        let mut load = [0u64; BINS];
+        let mut bin_of = [0u8; 129];
+        for c in symbols {
+            let lightest = (0..BINS).min_by_key(|&b| (load[b], b)).unwrap_or(0);
+            load[lightest] += freq[c];
+            bin_of[c] = lightest as u8;
+        }
+        let mut ascii = [0u8; 128];
+        ascii.copy_from_slice(&bin_of[..128]);
+        CharBins {
+            ascii,
+            other: bin_of[128],
+        }
+    }
+
+    /// The number of chars of `s` (UTF-8, each invalid sequence one char) in each bin,
+    /// saturated at 255.
+    pub fn counts(&self, s: &[u8]) -> [u8; BINS] {
+        let mut c = [0u8; BINS];
+        let mut ascii = 0;
+        for &b in s {
+            if b.is_ascii() {
+                let bin = &mut c[usize::from(self.ascii[usize::from(b)])];
+                *bin = bin.saturating_add(1);
+                ascii += 1;
+            }
+        }
+        if ascii < s.len() {
+            // A byte below 0x80 is always a char of its own in lossy decoding, so the
+            // other chars are the length in chars less the ASCII bytes.
+            let others = LevenshteinQuery::item_len(s) - ascii;
+            let bin = &mut c[usize::from(self.other)];
+            *bin = bin.saturating_add(others.min(255) as u8);
+        }
+        c
+    }
+
+    /// The [`CharBins::counts`] of a prepared query's text.
+    pub fn query_counts(&self, q: &LevenshteinQuery) -> [u8; BINS] {
+        let (ascii, other) = q.char_tally();
+        let mut wide = [0u32; BINS];
+        for (b, &n) in ascii.iter().enumerate() {
+            wide[usize::from(self.ascii[b])] += n;
+        }
+        wide[usize::from(self.other)] += other;
+        wide.map(|n| n.min(255) as u8)
+    }
+
+    /// The count bound of two strings' [`CharBins::counts`].
+    pub fn gap(a: &[u8; BINS], b: &[u8; BINS]) -> u32 {
+        let (mut up, mut down) = (0u32, 0u32);
+        for (&x, &y) in a.iter().zip(b) {
+            up += u32::from(x.saturating_sub(y));
+            down += u32::from(y.saturating_sub(x));
+        }
+        up.max(down)
+    }
+}
+
+/// What [`Columns::build`] lays out: the stored coordinates, and for strings under
+/// Levenshtein whose coordinates are whole distances, char counts and signatures.
+#[derive(Clone, Debug)]
+pub struct Parts<'a> {
+    /// The coordinate rows, `stride` bytes each.
+    pub coords: &'a [u8],
+    /// Bytes per row.
+    pub stride: usize,
+    /// Coordinates used per row (the first `dim`).
+    pub dim: usize,
+    /// Each item's [`CharBins::counts`], in item order: the bound is then also at least
+    /// the count bound, in the coordinates' unit (edits).
+    pub counts: Option<&'a [[u8; BINS]]>,
+    /// Each item's char signature ([`LevenshteinQuery::signature`]), in item order: the
+    /// bound of a lane within the threshold is then raised to its signature gap to the
+    /// query's ([`Threshold::sig`]).
+    pub sigs: Option<Vec<u64>>,
+}
+
+/// The coordinates of every item, transposed into blocks of [`BLOCK`] items: column `j` of
+/// block `b` is `BLOCK` bytes, the `j`-th value of items `b·BLOCK ..` (255 in lanes past
+/// the last item).
+///
+/// With char counts ([`Parts::counts`]) the first [`BINS`] columns hold them and the
+/// coordinates follow: a block's bound is the largest of the count bound and the L∞
+/// difference of the coordinates.
 ///
 /// Columns are stored in groups of eight, group by group: the first group of every block,
 /// then the second group of every block, and so on (the last group padded with zero
@@ -60,41 +186,46 @@ const CHUNK: usize = GROUP * BLOCK;
 pub struct Columns {
     cols: usize,
     groups: usize,
+    /// Leading groups that hold char counts.
+    count_groups: usize,
     blocks: usize,
     n: usize,
     data: Vec<u8>,
-    /// Each item's char signature (Levenshtein indexes), in item order.
+    /// Each item's char signature, when given.
     sigs: Option<Vec<u64>>,
 }
 
 impl Columns {
-    /// Transposes `n` rows of `stride` bytes, keeping the first `dim` values of each, after
-    /// an optional first column `lens` (one value per item).
-    pub fn new(coords: &[u8], stride: usize, dim: usize, lens: Option<&[u8]>) -> Columns {
-        Columns::with_signatures(coords, stride, dim, lens, None)
+    /// Transposes `n` rows of `stride` bytes, keeping the first `dim` values of each.
+    pub fn new(coords: &[u8], stride: usize, dim: usize) -> Columns {
+        Columns::build(Parts {
+            coords,
+            stride,
+            dim,
+            counts: None,
+            sigs: None,
+        })
     }
 
-    /// As [`Columns::new`], with each item's char signature
-    /// ([`crate::metric::LevenshteinQuery::signature`]): an item's bound is then also at
-    /// least its signature gap to the query's ([`Threshold::sig`]), a lower bound of the
-    /// Levenshtein distance in edits. Only for whole-distance Levenshtein coordinates.
-    pub fn with_signatures(
-        coords: &[u8],
-        stride: usize,
-        dim: usize,
-        lens: Option<&[u8]>,
-        sigs: Option<&[u64]>,
-    ) -> Columns {
+    /// Lays out `parts` (see [`Parts`] for what each adds to the bound).
+    pub fn build(parts: Parts<'_>) -> Columns {
+        let Parts {
+            coords,
+            stride,
+            dim,
+            counts,
+            sigs,
+        } = parts;
         let n = coords.len() / stride.max(1);
-        let cols = dim + usize::from(lens.is_some());
+        let count_cols = if counts.is_some() { BINS } else { 0 };
+        let cols = count_cols + dim;
         let groups = cols.div_ceil(GROUP);
         let blocks = n.div_ceil(BLOCK);
         let mut data = vec![0u8; groups * blocks * CHUNK];
         let column = |j: usize, i: usize| -> u8 {
-            match (lens, j) {
-                (Some(l), 0) => l.get(i).copied().unwrap_or(255),
-                (Some(_), j) => coords[i * stride + j - 1],
-                (None, j) => coords[i * stride + j],
+            match counts {
+                Some(c) if j < BINS => c[i][j],
+                _ => coords[i * stride + j - count_cols],
             }
         };
         data.par_chunks_mut(CHUNK)
@@ -115,10 +246,11 @@ impl Columns {
         Columns {
             cols,
             groups,
+            count_groups: count_cols / GROUP,
             blocks,
             n,
             data,
-            sigs: sigs.map(|s| s.to_vec()),
+            sigs,
         }
     }
 
@@ -129,7 +261,8 @@ impl Columns {
         &self.data[at..at + CHUNK]
     }
 
-    /// Number of columns per block.
+    /// Number of columns per block: a query gives one value for each (its char counts
+    /// first, when the columns have them, then its coordinates).
     pub fn cols(&self) -> usize {
         self.cols
     }
@@ -143,8 +276,8 @@ impl Columns {
     }
 
     /// [`Columns::within`] for several queries at once: `found(query, item, bound)`, items
-    /// in order for each query. Blocks are taken [`TILE`] at a time and each tile is
-    /// compared with every query before the next is read, so the columns are read from
+    /// in item order for each query. Blocks are taken [`TILE`] at a time and each tile
+    /// is compared with every query before the next is read, so the columns are read from
     /// memory about once per call rather than once per query.
     pub fn within_many(&self, qs: &[Threshold<'_>], mut found: impl FnMut(usize, u32, u8)) {
         for t in qs {
@@ -187,12 +320,25 @@ impl Columns {
         let (q, hi) = (t.q, t.hi);
         for b in blocks {
             let mut acc = [0u8; BLOCK];
+            let (mut up, mut down) = ([0u8; BLOCK], [0u8; BLOCK]);
             for g in 0..self.groups {
                 let chunk = self.chunk(g, b);
                 for (c, &qj) in q[g * GROUP..].iter().take(GROUP).enumerate() {
                     let col = &chunk[c * BLOCK..(c + 1) * BLOCK];
-                    for (a, &v) in acc.iter_mut().zip(col) {
-                        *a = (*a).max(v.abs_diff(qj));
+                    if g < self.count_groups {
+                        for ((u, d), &v) in up.iter_mut().zip(down.iter_mut()).zip(col) {
+                            *u = u.saturating_add(v.saturating_sub(qj));
+                            *d = d.saturating_add(qj.saturating_sub(v));
+                        }
+                    } else {
+                        for (a, &v) in acc.iter_mut().zip(col) {
+                            *a = (*a).max(v.abs_diff(qj));
+                        }
+                    }
+                }
+                if g < self.count_groups {
+                    for ((a, &u), &d) in acc.iter_mut().zip(&up).zip(&down) {
+                        *a = u.max(d);
                     }
                 }
                 if acc.iter().all(|&a| a > hi) {
@@ -284,14 +430,26 @@ mod avx2 {
         let above = hi.checked_add(1).map(|h| _mm256_set1_epi8(h as i8));
         for b in range {
             let mut acc = _mm256_setzero_si256();
+            let (mut up, mut down) = (acc, acc);
             for (g, qg) in qs.iter().enumerate() {
                 let chunk = c.chunk(g, b);
-                for (j, qv) in qg.iter().enumerate() {
-                    let col = &chunk[j * BLOCK..(j + 1) * BLOCK];
-                    // SAFETY: `col` is exactly 32 bytes; the load is unaligned.
-                    let v = unsafe { _mm256_loadu_si256(col.as_ptr() as *const __m256i) };
-                    let d = _mm256_or_si256(_mm256_subs_epu8(v, *qv), _mm256_subs_epu8(*qv, v));
-                    acc = _mm256_max_epu8(acc, d);
+                if g < c.count_groups {
+                    for (j, qv) in qg.iter().enumerate() {
+                        let col = &chunk[j * BLOCK..(j + 1) * BLOCK];
+                        // SAFETY: `col` is exactly 32 bytes; the load is unaligned.
+                        let v = unsafe { _mm256_loadu_si256(col.as_ptr() as *const __m256i) };
+                        up = _mm256_adds_epu8(up, _mm256_subs_epu8(v, *qv));
+                        down = _mm256_adds_epu8(down, _mm256_subs_epu8(*qv, v));
+                    }
+                    acc = _mm256_max_epu8(up, down);
+                } else {
+                    for (j, qv) in qg.iter().enumerate() {
+                        let col = &chunk[j * BLOCK..(j + 1) * BLOCK];
+                        // SAFETY: `col` is exactly 32 bytes; the load is unaligned.
+                        let v = unsafe { _mm256_loadu_si256(col.as_ptr() as *const __m256i) };
+                        let d = _mm256_or_si256(_mm256_subs_epu8(v, *qv), _mm256_subs_epu8(*qv, v));
+                        acc = _mm256_max_epu8(acc, d);
+                    }
                 }
                 if let Some(above) = above {
                     // All lanes above `hi`: max(acc, hi + 1) == acc everywhere.
@@ -323,15 +481,23 @@ mod avx2 {
 mod tests {
     use super::*;
 
-    fn direct(coords: &[u8], stride: usize, dim: usize, lens: Option<&[u8]>, q: &[u8]) -> Vec<u8> {
+    /// Each item's bound, computed directly from its definition.
+    fn direct(
+        coords: &[u8],
+        stride: usize,
+        dim: usize,
+        counts: Option<&[[u8; BINS]]>,
+        q: &[u8],
+    ) -> Vec<u8> {
         let n = coords.len() / stride;
         (0..n)
             .map(|i| {
                 let mut m = 0u8;
                 let mut j = 0;
-                if let Some(l) = lens {
-                    m = l[i].abs_diff(q[0]);
-                    j = 1;
+                if let Some(c) = counts {
+                    let qc: [u8; BINS] = q[..BINS].try_into().unwrap();
+                    m = CharBins::gap(&c[i], &qc).min(255) as u8;
+                    j = BINS;
                 }
                 for c in 0..dim {
                     m = m.max(coords[i * stride + c].abs_diff(q[j + c]));
@@ -341,17 +507,40 @@ mod tests {
             .collect()
     }
 
+    fn lcg(seed: u64) -> impl FnMut() -> u8 {
+        let mut seed = seed;
+        move || {
+            seed = seed
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            (seed >> 33) as u8
+        }
+    }
+
     #[test]
     fn signatures_raise_bounds_to_their_gap() {
         let (n, stride, dim) = (300, 8, 5);
         let coords: Vec<u8> = (0..n * stride).map(|i| (i * 7 % 5) as u8).collect();
-        let lens: Vec<u8> = (0..n).map(|i| (i % 6) as u8).collect();
+        let counts: Vec<[u8; BINS]> = (0..n)
+            .map(|i| std::array::from_fn(|b| ((i + b) % 3) as u8))
+            .collect();
         let sigs: Vec<u64> = (0..n as u64)
             .map(|i| i.wrapping_mul(0x9E37_79B9_7F4A_7C15))
             .collect();
-        let plain = Columns::new(&coords, stride, dim, Some(&lens));
-        let raised = Columns::with_signatures(&coords, stride, dim, Some(&lens), Some(&sigs));
-        let q: Vec<u8> = vec![2, 1, 3, 0, 4, 2];
+        let parts = Parts {
+            coords: &coords,
+            stride,
+            dim,
+            counts: Some(&counts),
+            sigs: None,
+        };
+        let plain = Columns::build(parts.clone());
+        let raised = Columns::build(Parts {
+            sigs: Some(sigs.clone()),
+            ..parts
+        });
+        let mut q: Vec<u8> = vec![1; BINS];
+        q.extend([2, 1, 3, 0, 4]);
         let qsig = 0x0F0F_00FF_1234_5678u64;
         let mut want = Vec::new();
         plain.within(&q, None, 255, |i, b| {
@@ -380,31 +569,35 @@ mod tests {
 
     #[test]
     fn both_forms_find_exactly_the_items_within_the_threshold() {
-        let mut seed = 12345u64;
-        let mut next = || {
-            seed = seed
-                .wrapping_mul(6364136223846793005)
-                .wrapping_add(1442695040888963407);
-            (seed >> 33) as u8
-        };
-        for (n, stride, dim, with_lens) in [
+        let mut next = lcg(12345);
+        for (n, stride, dim, with_counts) in [
             (1, 8, 3, false),
             (33, 8, 8, true),
             (700, 64, 64, true),
             (97, 16, 11, false),
+            (300, 8, 2, true),
         ] {
             let coords: Vec<u8> = (0..n * stride).map(|_| next() % 9).collect();
-            let lens: Vec<u8> = (0..n).map(|_| next() % 12).collect();
-            let lens = with_lens.then_some(&lens[..]);
-            let cols = Columns::new(&coords, stride, dim, lens);
+            let counts: Vec<[u8; BINS]> = (0..n)
+                .map(|_| std::array::from_fn(|_| next() % 4))
+                .collect();
+            let counts = with_counts.then_some(&counts[..]);
+            let cols = Columns::build(Parts {
+                coords: &coords,
+                stride,
+                dim,
+                counts,
+                sigs: None,
+            });
             let q: Vec<u8> = (0..cols.cols()).map(|_| next() % 9).collect();
-            let want = direct(&coords, stride, dim, lens, &q);
+            let want = direct(&coords, stride, dim, counts, &q);
             for (lo, hi) in [
                 (None, 0u8),
                 (None, 3),
                 (Some(1), 4),
                 (None, 255),
                 (Some(2), 2),
+                (Some(3), 12),
             ] {
                 let mut a = Vec::new();
                 cols.within(&q, lo, hi, |i, b| a.push((i, b)));
@@ -449,5 +642,65 @@ mod tests {
                 assert_eq!(p, expect);
             }
         }
+    }
+
+    #[test]
+    fn count_bound_never_exceeds_the_distance_and_queries_count_alike() {
+        // Reference distances: the `strsim` crate's Levenshtein (a dev-dependency).
+        let words: Vec<String> = [
+            "harbour",
+            "harbor",
+            "arbour",
+            "quay",
+            "quays",
+            "kitteñ",
+            "kitten",
+            "ñañu",
+            "",
+            "aaaaaaaa",
+            "a",
+            "Anchorage",
+            "anchorage",
+            "ballast",
+            "bollard",
+            "ÿÿÿ",
+        ]
+        .iter()
+        .map(|w| w.to_string())
+        .collect();
+        let mut next = lcg(7);
+        let mut all = words.clone();
+        for _ in 0..300 {
+            let len = next() % 12;
+            all.push(
+                (0..len)
+                    .map(|_| ['a', 'b', 'e', 'r', 'ñ', 'Q', ' '][usize::from(next() % 7)])
+                    .collect(),
+            );
+        }
+        // A long run saturates its bin at 255.
+        all.push("e".repeat(300));
+        let bins = CharBins::fit(all.iter().map(|w| w.as_bytes()));
+        for a in &all {
+            let ca = bins.counts(a.as_bytes());
+            let q = LevenshteinQuery::new(a.as_bytes());
+            assert_eq!(bins.query_counts(&q), ca, "{a:?}");
+            for b in &all {
+                let cb = bins.counts(b.as_bytes());
+                let d = strsim::levenshtein(a, b) as u32;
+                let gap = CharBins::gap(&ca, &cb);
+                assert!(gap <= d, "{a:?} {b:?}: bound {gap} > distance {d}");
+                let len_gap = a
+                    .chars()
+                    .count()
+                    .min(255)
+                    .abs_diff(b.chars().count().min(255));
+                assert!(gap as usize >= len_gap, "{a:?} {b:?}");
+            }
+        }
+        // Invalid UTF-8 counts one char per invalid sequence, as the metric does.
+        let bad: &[u8] = b"ab\xffc\xe2\x82";
+        let q = LevenshteinQuery::new(bad);
+        assert_eq!(bins.query_counts(&q), bins.counts(bad));
     }
 }

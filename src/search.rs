@@ -271,11 +271,12 @@ pub struct Searcher<'a> {
     coarse: std::sync::OnceLock<Vec<u8>>,
     /// Coarse-stage candidates per final candidate; 0 turns the coarse stage off.
     coarse_factor: usize,
-    /// Length in chars of every key (saturated at 255) and its char signature
-    /// ([`LevenshteinQuery::signature`]), made on the first exact query.
-    lens: std::sync::OnceLock<(Vec<u8>, Vec<u64>)>,
-    /// The coordinates in column blocks for exact queries, made on the first one.
-    columns: std::sync::OnceLock<bounds::Columns>,
+    /// Every key's char signature ([`LevenshteinQuery::signature`]), made on the first
+    /// exact query of a Levenshtein index whose column blocks do not hold them.
+    sigs: std::sync::OnceLock<Vec<u64>>,
+    /// The coordinates in column blocks for exact queries, made on the first one, with the
+    /// char bins of their count columns when they have them.
+    columns: std::sync::OnceLock<(bounds::Columns, Option<bounds::CharBins>)>,
 }
 
 /// Coordinates per item in the coarse stage (the first landmarks, farthest-first order).
@@ -344,7 +345,7 @@ impl<'a> Searcher<'a> {
             bound: index.bound(),
             coarse: std::sync::OnceLock::new(),
             coarse_factor: DEFAULT_COARSE_FACTOR,
-            lens: std::sync::OnceLock::new(),
+            sigs: std::sync::OnceLock::new(),
             columns: std::sync::OnceLock::new(),
         }
     }
@@ -869,22 +870,12 @@ impl<'a> Searcher<'a> {
         Ok((q, small))
     }
 
-    /// Length in chars of every key (saturated at 255) and its char signature; computed
-    /// once per searcher (1.7 MB and 7 MB of reads at 663k words, 6 MB kept).
-    fn key_filters(&self) -> (&[u8], &[u64]) {
-        let (lens, sigs) = self.lens.get_or_init(|| {
-            (0..self.index.len())
-                .into_par_iter()
-                .map(|i| {
-                    let key = self.keys.get(i);
-                    (
-                        LevenshteinQuery::item_len(key).min(255) as u8,
-                        LevenshteinQuery::signature(key),
-                    )
-                })
-                .unzip()
-        });
-        (lens, sigs)
+    /// Every key's char signature (7 MB of reads at 663k words, 5 MB made).
+    fn signatures(&self) -> Vec<u64> {
+        (0..self.index.len())
+            .into_par_iter()
+            .map(|i| LevenshteinQuery::signature(self.keys.get(i)))
+            .collect()
     }
 
     /// Scores every stored row against each query row of `qs` in `space`, into
@@ -924,32 +915,37 @@ impl<'a> Searcher<'a> {
         }
     }
 
-    /// Whether the column blocks start with each key's length (Levenshtein indexes whose
-    /// stored coordinates are whole distances: the length is in the same unit).
-    fn length_column(&self) -> bool {
+    /// Whether the column blocks start with each key's char counts, and the bound takes
+    /// signatures (Levenshtein indexes whose stored coordinates are whole distances: the
+    /// count and signature bounds are in the same unit, edits).
+    fn char_filters(&self) -> bool {
         matches!(self.index.meta().metric_spec, MetricSpec::Levenshtein)
             && self.bound.is_some_and(|b| b.whole)
     }
 
     /// The stored coordinates in column blocks ([`bounds::Columns`]), made on the first
-    /// exact query (a copy of the coordinate section, plus one byte per item for the
-    /// length column).
-    fn columns(&self) -> &bounds::Columns {
+    /// exact query (a copy of the coordinate section, plus 16 bytes of char counts per
+    /// item for Levenshtein), with the char bins of the counts.
+    fn columns(&self) -> &(bounds::Columns, Option<bounds::CharBins>) {
         self.columns.get_or_init(|| {
-            let (lens, sigs) = match self.length_column() {
-                true => {
-                    let (l, s) = self.key_filters();
-                    (Some(l), Some(s))
-                }
-                false => (None, None),
-            };
-            bounds::Columns::with_signatures(
-                self.index.coords(),
-                self.index.stride(),
-                self.index.meta().dim as usize,
-                lens,
-                sigs,
-            )
+            let n = self.index.len();
+            let bins = self
+                .char_filters()
+                .then(|| bounds::CharBins::fit((0..n).map(|i| self.keys.get(i))));
+            let counts: Option<Vec<[u8; bounds::BINS]>> = bins.as_ref().map(|b| {
+                (0..n)
+                    .into_par_iter()
+                    .map(|i| b.counts(self.keys.get(i)))
+                    .collect()
+            });
+            let cols = bounds::Columns::build(bounds::Parts {
+                coords: self.index.coords(),
+                stride: self.index.stride(),
+                dim: self.index.meta().dim as usize,
+                counts: counts.as_deref(),
+                sigs: bins.as_ref().map(|_| self.signatures()),
+            });
+            (cols, bins)
         })
     }
 
@@ -964,13 +960,15 @@ impl<'a> Searcher<'a> {
         radius: Option<f64>,
     ) -> ExactRun<'q> {
         let cap = bound_cap(bound, radius) as u8;
-        let mut qv: Vec<u8> = Vec::with_capacity(65);
-        if self.length_column() {
-            qv.push(levenshtein(q).map_or(0, |l| l.len().min(255) as u8));
+        let mut qv: Vec<u8> = Vec::with_capacity(bounds::BINS + 64);
+        let (_, bins) = self.columns();
+        let lev = levenshtein(q);
+        if let (Some(b), Some(l)) = (bins, lev) {
+            qv.extend_from_slice(&b.query_counts(l));
         }
         qv.extend_from_slice(&small[..self.index.meta().dim as usize]);
-        let sig = match levenshtein(q) {
-            Some(l) if self.length_column() => l.signature_of_query(),
+        let sig = match lev {
+            Some(l) if bins.is_some() => l.signature_of_query(),
             _ => 0,
         };
         ExactRun {
@@ -1006,8 +1004,13 @@ impl<'a> Searcher<'a> {
     /// `hi` = [`FIRST_THRESHOLD`]; each later round reaches the bound that the k-th distance
     /// found so far allows (or two more when fewer than k are held).
     fn run_exact(&self, runs: &mut [ExactRun<'_>]) -> Vec<Found> {
-        let cols = self.columns();
-        let sigs = self.key_filters().1;
+        let (cols, _) = self.columns();
+        // Signatures checked item by item: Levenshtein indexes whose columns lack them.
+        let levenshtein_index = matches!(self.index.meta().metric_spec, MetricSpec::Levenshtein);
+        let sigs: &[u64] = match levenshtein_index && !self.char_filters() {
+            true => self.sigs.get_or_init(|| self.signatures()),
+            false => &[],
+        };
         loop {
             let active: Vec<usize> = (0..runs.len()).filter(|&j| !runs[j].done).collect();
             if active.is_empty() {
@@ -1064,7 +1067,7 @@ impl<'a> Searcher<'a> {
         // The columns fold the signature gap into the bound when they hold signatures;
         // otherwise it is applied here, item by item.
         let qsig = lev
-            .filter(|_| !self.length_column())
+            .filter(|_| !self.char_filters())
             .map(|l| l.signature_of_query());
         let kth_of = |best: &Vec<Neighbor>| {
             if best.len() == keep {

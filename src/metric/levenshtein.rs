@@ -254,6 +254,25 @@ impl LevenshteinQuery {
         m
     }
 
+    /// How many times each ASCII char occurs in the query, and how many chars outside
+    /// ASCII it has (each invalid UTF-8 sequence one).
+    ///
+    /// ```
+    /// use waymark::metric::LevenshteinQuery;
+    ///
+    /// let (ascii, other) = LevenshteinQuery::new("añaa".as_bytes()).char_tally();
+    /// assert_eq!((ascii[usize::from(b'a')], other), (3, 1));
+    /// ```
+    pub fn char_tally(&self) -> ([u32; 128], u32) {
+        let mut ascii = [0u32; 128];
+        for (c, n) in ascii.iter_mut().enumerate() {
+            let masks = &self.ascii[c * self.words..(c + 1) * self.words];
+            *n = masks.iter().map(|w| w.count_ones()).sum();
+        }
+        let other = self.other_masks.iter().map(|w| w.count_ones()).sum();
+        (ascii, other)
+    }
+
     /// The lower bound of the distance given by two [`LevenshteinQuery::signature`]s.
     #[inline]
     pub fn signature_gap(a: u64, b: u64) -> u32 {
