@@ -321,6 +321,13 @@ struct EvalArgs {
     /// Space candidates are ranked in (default: stored in the index).
     #[arg(long, value_enum)]
     space: Option<SpaceArg>,
+    /// Where candidates come from [default: as for `query`].
+    #[arg(long = "candidates-from", value_enum)]
+    candidates_from: Option<SourceArg>,
+    /// With cells: rows compared per query [default: 12 per candidate]; 0 compares every
+    /// row.
+    #[arg(long, value_name = "N")]
+    visit: Option<usize>,
     /// Report the distortion of the embedding on a sample of item pairs.
     #[arg(long)]
     distortion: bool,
@@ -880,6 +887,16 @@ fn build(a: BuildArgs) -> anyhow::Result<()> {
     Ok(())
 }
 
+/// The candidate source a `--candidates-from` value asks for, or `default`.
+fn source_of(arg: Option<SourceArg>, default: CandidateSource) -> CandidateSource {
+    match arg {
+        None => default,
+        Some(SourceArg::Cells) => CandidateSource::Cells,
+        Some(SourceArg::Scan) => CandidateSource::Scan,
+        Some(SourceArg::Tree) => CandidateSource::Tree,
+    }
+}
+
 fn open_index(path: &Path) -> anyhow::Result<Index> {
     Ok(Index::open(path)?)
 }
@@ -896,12 +913,7 @@ fn query(a: QueryArgs) -> anyhow::Result<()> {
     if let Some(s) = a.space {
         params.space = s.into();
     }
-    params.source = match a.candidates_from {
-        None => params.source,
-        Some(SourceArg::Cells) => CandidateSource::Cells,
-        Some(SourceArg::Scan) => CandidateSource::Scan,
-        Some(SourceArg::Tree) => CandidateSource::Tree,
-    };
+    params.source = source_of(a.candidates_from, params.source);
     let request = match (a.within, a.exact) {
         (Some(radius), _) => Request::Within { radius, k: a.k },
         (None, true) => Request::Exact { k: params.k },
@@ -1332,7 +1344,15 @@ fn eval(a: EvalArgs) -> anyhow::Result<()> {
         };
         let mut rows = Vec::new();
         for &c in &a.candidates {
-            rows.push(measure_recall(&index, &queries, &truth, a.k, c, space)?);
+            let mut params = SearchParams {
+                space,
+                ..SearchParams::from_index(&index, a.k).with_candidates(c)
+            };
+            if let Some(v) = a.visit {
+                params.visit = v;
+            }
+            params.source = source_of(a.candidates_from, params.source);
+            rows.push(measure_recall(&index, &queries, &truth, &params)?);
         }
         if a.json {
             json["queries"] = queries.len().into();
@@ -1342,14 +1362,26 @@ fn eval(a: EvalArgs) -> anyhow::Result<()> {
         } else {
             writeln!(
                 out,
-                "{}: {} items, {} coordinates by {}; {} queries, k = {}, candidates ranked in {}",
+                "{}: {} items, {} coordinates by {}; {} queries, k = {}, candidates ranked in {} {}",
                 a.index.display(),
                 index.len(),
                 index.meta().dim,
                 index.meta().embedding.name(),
                 queries.len(),
                 a.k,
-                space.name()
+                space.name(),
+                match (rows.first().map(|r| r.source), a.visit) {
+                    (Some(CandidateSource::Cells), None) => format!(
+                        "from cells ({} rows compared per candidate)",
+                        crate::search::VISIT_PER_CANDIDATE
+                    ),
+                    (Some(CandidateSource::Cells), Some(0)) => "from cells (every row)".into(),
+                    (Some(CandidateSource::Cells), Some(v)) => {
+                        format!("from cells ({v} rows compared per query)")
+                    }
+                    (Some(CandidateSource::Tree), _) => "from the kd-tree".into(),
+                    _ => "from a scan of every row".into(),
+                }
             )?;
             writeln!(out, "{truth_note}")?;
             writeln!(

@@ -56,20 +56,22 @@ use crate::metric::{
 pub const DEFAULT_DIM: usize = 64;
 /// Default number of candidates re-ranked per query on small indexes, chosen from the same
 /// bench; larger indexes get more ([`default_candidates`]).
-pub const DEFAULT_CANDIDATES: usize = 1000;
+pub const DEFAULT_CANDIDATES: usize = 1500;
 
 /// The default number of candidates stored in an index of `n` items: `n / 160`, at least
-/// [`DEFAULT_CANDIDATES`] and at most 4,000. `benches/big.rs` measured 4,000 as what keeps
-/// threshold recall@10 above 0.95 on 663,473 words (README), and 1,000 on 104,334.
+/// [`DEFAULT_CANDIDATES`] and at most 4,000. With candidates from cells, `benches/big.rs`
+/// measured 4,000 as what keeps threshold recall@10 above 0.95 on 663,473 words, and
+/// `benches/end_to_end.rs` 1,500 on 104,334 and on 52,167 (README).
 pub fn default_candidates(n: usize) -> usize {
     (n / 160).clamp(DEFAULT_CANDIDATES, 4000)
 }
 
-/// The smallest index whose default candidate source is its cells. Below it the scan of
-/// every row is cheap, and `waymark eval` on 104,334 words measured cells visiting 12 rows
-/// per candidate at threshold recall@10 0.88 with C = 1000, against 0.95 for the scan
-/// (README); on 663,473 words they reach 0.95 at a fifth of the scan's cost.
-pub const CELLS_MIN_ITEMS: usize = 250_000;
+/// The smallest index whose default candidate source is its cells. `benches/end_to_end.rs`
+/// measured cells with C = 1,500 at threshold recall@10 0.958 and 18× the full scan on
+/// 104,334 words, against 0.959 and 7× for the scan of every row with C = 1,000, and 0.971
+/// at 11× against 0.961 at 7× on 52,167 words (README). Below this size the scan of every
+/// row is cheap, and cells of a few dozen items group little.
+pub const CELLS_MIN_ITEMS: usize = 50_000;
 
 /// Rows compared per candidate when candidates come from cells
 /// ([`CandidateSource::Cells`]): cells are visited until `VISIT_PER_CANDIDATE · C` rows have
@@ -598,7 +600,6 @@ impl<'a> Searcher<'a> {
     /// measured. Same answers as [`Searcher::rerank`].
     fn rerank_lanes(&self, q: &LevenshteinQuery, k: usize, cands: &[(u32, u32)]) -> Found {
         let mut best: Vec<Neighbor> = Vec::with_capacity(k + 1);
-        let mut items: [&[u8]; LANE_GROUP] = [&[]; LANE_GROUP];
         let mut out = [0u32; LANE_GROUP];
         // Two-stage prefetch: a group's offsets two groups ahead, its bytes one group
         // ahead (reading an offset to prefetch the bytes needs the offset in cache).
@@ -619,10 +620,7 @@ impl<'a> Searcher<'a> {
                     self.keys.prefetch_offsets(i as usize);
                 }
             }
-            for (slot, &(_, i)) in items.iter_mut().zip(group.iter()) {
-                *slot = self.keys.get(i as usize);
-            }
-            q.dist_batch(&items[..group.len()], &mut out[..group.len()]);
+            self.lane_batch(q, group.iter().map(|&(_, i)| i), &mut out);
             for (&(_, i), &d) in group.iter().zip(&out) {
                 keep_best(
                     self.index,
@@ -641,6 +639,18 @@ impl<'a> Searcher<'a> {
             pruned: 0,
             certificate: None,
         }
+    }
+
+    /// The distances from `q` to `items` (at most [`LANE_GROUP`]), into the first slots of
+    /// `out`, with the vector-lane kernel.
+    fn lane_batch(&self, q: &LevenshteinQuery, items: impl Iterator<Item = u32>, out: &mut [u32]) {
+        let mut keys: [&[u8]; LANE_GROUP] = [&[]; LANE_GROUP];
+        let mut count = 0;
+        for (slot, i) in keys.iter_mut().zip(items) {
+            *slot = self.keys.get(i as usize);
+            count += 1;
+        }
+        q.dist_batch(&keys[..count], &mut out[..count]);
     }
 
     /// Re-ranks candidates (in the order given) by the true distance.
@@ -1220,14 +1230,10 @@ impl<'a> Searcher<'a> {
         if at.is_empty() {
             return;
         }
-        let mut items: [&[u8]; LANE_GROUP] = [&[]; LANE_GROUP];
-        for (slot, &i) in items.iter_mut().zip(at.iter()) {
-            *slot = self.keys.get(i as usize);
-        }
         let count = at.len().min(LANE_GROUP);
         out.clear();
         out.resize(count, 0);
-        q.dist_batch(&items[..count], out);
+        self.lane_batch(q, at.iter().copied(), out);
         cert.computed += count;
         for (&i, &d) in at.iter().zip(out.iter()) {
             let d = f64::from(d);

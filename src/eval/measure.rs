@@ -9,7 +9,7 @@ use super::recall::{plain_recall, threshold_recall};
 use super::truth::Truth;
 use crate::error::Result;
 use crate::index::Index;
-use crate::search::{Scratch, SearchParams, Searcher, Space};
+use crate::search::{CandidateSource, Scratch, SearchParams, Searcher, Space};
 
 /// What one setting of the search achieved on a list of queries.
 #[derive(Clone, Debug, PartialEq, Serialize)]
@@ -18,6 +18,10 @@ pub struct RecallRow {
     pub candidates: usize,
     /// Space candidates were ranked in.
     pub space: Space,
+    /// Where candidates came from.
+    pub source: CandidateSource,
+    /// With cells: rows compared per query (0: every row; see [`SearchParams::visit`]).
+    pub visit: usize,
     /// Neighbours per query.
     pub k: usize,
     /// Number of queries.
@@ -49,22 +53,17 @@ fn quantile(sorted: &[f64], q: f64) -> f64 {
     sorted[r - 1]
 }
 
-/// Runs every query with `candidates` candidates ranked in `space` (scan source) and compares
-/// the answers with `truth` (same queries, same order, computed for at least `k`).
+/// Runs every query with `params` (its `k`, candidates, space and source) and compares the
+/// answers with `truth` (same queries, same order, computed for at least `params.k`).
 pub fn measure_recall(
     index: &Index,
     queries: &[String],
     truth: &Truth,
-    k: usize,
-    candidates: usize,
-    space: Space,
+    params: &SearchParams,
 ) -> Result<RecallRow> {
     let searcher = Searcher::new(index);
-    let params = SearchParams {
-        k,
-        space,
-        ..SearchParams::from_index(index, k).with_candidates(candidates)
-    };
+    let params = *params;
+    let k = params.k;
     let t = Instant::now();
     let timed: Vec<(Result<crate::search::Found>, f64)> = queries
         .par_iter()
@@ -97,8 +96,10 @@ pub fn measure_recall(
     lat.sort_by(f64::total_cmp);
     let per = dists as f64 / nq;
     Ok(RecallRow {
-        candidates,
-        space,
+        candidates: params.candidates,
+        space: params.space,
+        source: params.source,
+        visit: params.visit,
         k,
         queries: queries.len(),
         recall: rec / nq,

@@ -33,7 +33,7 @@ use crate::error::{Error, Result};
 use crate::index::{build_index_from, BuildOptions, Index};
 use crate::ingest::{Corpus, Normalize};
 use crate::metric::{Graph, MetricSpec};
-use crate::search::Space;
+use crate::search::{SearchParams, Space};
 
 /// What to sweep over.
 #[derive(Clone, Debug)]
@@ -258,7 +258,11 @@ pub fn run_sweep(
             let tr = truth.as_ref().expect("set above");
             for &space in &opts.spaces {
                 for &c in &opts.candidates {
-                    let r = measure_recall(&index, queries, tr, opts.k, c, space)?;
+                    let params = SearchParams {
+                        space,
+                        ..SearchParams::from_index(&index, opts.k).with_candidates(c)
+                    };
+                    let r = measure_recall(&index, queries, tr, &params)?;
                     rows.push(SweepRow {
                         method: method.name(),
                         dim,
