@@ -8,7 +8,8 @@
 //! - `WAYMARK_BIG_WORDS` word list [/usr/share/dict/american-english-insane]
 //! - `WAYMARK_BIG_QUERIES` number of typo queries [1000]
 //! - `WAYMARK_BIG_CANDIDATES` extra candidate counts for the approximate path [2000]
-//! - `WAYMARK_BIG_VISIT` rows compared per candidate with cells, beside the default [8,32]
+//! - `WAYMARK_BIG_VISIT` rows compared per candidate with cells, beside the default, for
+//!   every candidate count [8,32]
 //! - `WAYMARK_BIG_SCAN` candidate counts measured with the whole-index scan [2000,4000]
 //! - `WAYMARK_BIG_DIM` embedding dimension of the index [the default]
 //! - `WAYMARK_BIG_COARSE` coarse-stage factors to measure beside the default path [none]
@@ -237,16 +238,14 @@ fn main() {
             qps,
             &found,
         ));
-        if c == default.candidates {
-            for &v in &visits {
-                let p = SearchParams { visit: v * c, ..p };
-                let (qps, found) = run_on(&plain, &Request::Approximate(p));
-                rows.push(summarise(
-                    format!("approx. C={c}, visit {}", p.visit),
-                    qps,
-                    &found,
-                ));
-            }
+        for &v in &visits {
+            let p = SearchParams { visit: v * c, ..p };
+            let (qps, found) = run_on(&plain, &Request::Approximate(p));
+            rows.push(summarise(
+                format!("approx. C={c}, visit {}", p.visit),
+                qps,
+                &found,
+            ));
         }
         for &f in &factors {
             let mut s = Searcher::new(&index);
