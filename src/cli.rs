@@ -880,7 +880,7 @@ fn build(a: BuildArgs) -> anyhow::Result<()> {
         }
         writeln!(
             out,
-            "time: read {:.2} s, embed {:.2} s, tree {:.2} s, write {:.2} s",
+            "time: read {:.2} s, embed {:.2} s, tree and cells {:.2} s, write {:.2} s",
             read_seconds, report.embed_seconds, report.tree_seconds, report.write_seconds
         )?;
     }

@@ -63,7 +63,7 @@ pub struct BuildReport {
     pub file_len: u64,
     /// Seconds spent choosing reference items and embedding.
     pub embed_seconds: f64,
-    /// Seconds spent building the kd-tree.
+    /// Seconds spent building the kd-tree and the cells.
     pub tree_seconds: f64,
     /// Seconds spent writing the file.
     pub write_seconds: f64,
