@@ -229,3 +229,63 @@ fn sweep_writes_one_row_per_configuration() {
         .collect();
     assert_eq!(left.len(), 5, "{left:?}");
 }
+
+#[test]
+fn eval_measures_the_candidate_source_and_visit_asked_for() {
+    let dir = tempfile::tempdir().unwrap();
+    let (names, queries) = small_demo(dir.path());
+    let index = dir.path().join("n.wmk");
+    waymark()
+        .args(["build", "-q"])
+        .arg(&names)
+        .arg("-o")
+        .arg(&index)
+        .assert()
+        .success();
+    let run = |extra: &[&str]| -> serde_json::Value {
+        let out = waymark()
+            .arg("eval")
+            .arg(&index)
+            .arg("--queries")
+            .arg(&queries)
+            .args(["-k", "5", "--candidates", "50,3000", "--json"])
+            .args(extra)
+            .output()
+            .unwrap();
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        serde_json::from_slice(&out.stdout).unwrap()
+    };
+    // 3,000 items: below the size where cells are the default, so the scan measures.
+    let plain = run(&[]);
+    assert_eq!(plain["recall"][0]["source"], "scan");
+    let cells = run(&["--candidates-from", "cells", "--visit", "0"]);
+    for row in cells["recall"].as_array().unwrap() {
+        assert_eq!(row["source"], "cells");
+        assert_eq!(row["visit"], 0);
+    }
+    // Every row compared and every item a candidate: exact answers.
+    assert_eq!(cells["recall"][1]["recall"], 1.0);
+    let few = run(&["--candidates-from", "cells", "--visit", "200"]);
+    assert_eq!(few["recall"][0]["visit"], 200);
+    assert_eq!(few["recall"][0]["distances_per_query"], 50.0 + 64.0);
+    let tree = run(&["--candidates-from", "tree"]);
+    assert_eq!(tree["recall"][0]["source"], "tree");
+    // The table names the source in its header.
+    let out = waymark()
+        .arg("eval")
+        .arg(&index)
+        .arg("--queries")
+        .arg(&queries)
+        .args(["--candidates", "50", "--candidates-from", "cells"])
+        .output()
+        .unwrap();
+    let text = String::from_utf8_lossy(&out.stdout);
+    assert!(
+        text.contains("from cells (12 rows compared per candidate)"),
+        "{text}"
+    );
+}
