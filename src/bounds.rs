@@ -84,9 +84,10 @@ impl CharBins {
         // Symbols 0..128: ASCII bytes; 128: every other char.
         let mut freq = [0u64; 129];
         for s in strings {
-            let ascii = s.iter().filter(|b| b.is_ascii()).count();
+            let mut ascii = 0;
             for &b in s.iter().filter(|b| b.is_ascii()) {
                 freq[usize::from(b)] += 1;
+                ascii += 1;
             }
             freq[128] += (LevenshteinQuery::item_len(s) - ascii) as u64;
         }

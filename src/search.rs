@@ -67,8 +67,8 @@ pub fn default_candidates(n: usize) -> usize {
 }
 
 /// The smallest index whose default candidate source is its cells. `benches/end_to_end.rs`
-/// measured cells with C = 1,500 at threshold recall@10 0.958 and 18× the full scan on
-/// 104,334 words, against 0.959 and 7× for the scan of every row with C = 1,000, and 0.971
+/// measured cells with C = 1,500 at threshold recall@10 0.958 and 16× the full scan on
+/// 104,334 words, against 0.959 and 6× for the scan of every row with C = 1,000, and 0.971
 /// at 11× against 0.961 at 7× on 52,167 words (README). Below this size the scan of every
 /// row is cheap, and cells of a few dozen items group little.
 pub const CELLS_MIN_ITEMS: usize = 50_000;
