@@ -197,17 +197,6 @@ pub struct Columns {
 }
 
 impl Columns {
-    /// Transposes `n` rows of `stride` bytes, keeping the first `dim` values of each.
-    pub fn new(coords: &[u8], stride: usize, dim: usize) -> Columns {
-        Columns::build(Parts {
-            coords,
-            stride,
-            dim,
-            counts: None,
-            sigs: None,
-        })
-    }
-
     /// Lays out `parts` (see [`Parts`] for what each adds to the bound).
     pub fn build(parts: Parts<'_>) -> Columns {
         let Parts {
