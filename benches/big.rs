@@ -12,7 +12,6 @@
 //!   every candidate count [8,32]
 //! - `WAYMARK_BIG_SCAN` candidate counts measured with the whole-index scan [2000,4000]
 //! - `WAYMARK_BIG_DIM` embedding dimension of the index [the default]
-//! - `WAYMARK_BIG_COARSE` coarse-stage factors to measure beside the default path [none]
 //! - `WAYMARK_BIG_PROFILE` `approx`, `exact` or `range`: run only that mode, three times,
 //!   without brute forces or checks (for a profiler) [unset]
 
@@ -146,9 +145,7 @@ fn main() {
         }
         return;
     }
-    let mut plain = Searcher::new(&index);
-    plain.set_coarse_factor(0);
-    let factors: Vec<usize> = env_list("WAYMARK_BIG_COARSE", "");
+    let plain = Searcher::new(&index);
 
     let t = Instant::now();
     let truth = scan_many(&index, &queries, k, Scan::Full);
@@ -243,16 +240,6 @@ fn main() {
             let (qps, found) = run_on(&plain, &Request::Approximate(p));
             rows.push(summarise(
                 format!("approx. C={c}, visit {}", p.visit),
-                qps,
-                &found,
-            ));
-        }
-        for &f in &factors {
-            let mut s = Searcher::new(&index);
-            s.set_coarse_factor(f);
-            let (qps, found) = run_on(&s, &Request::Approximate(p));
-            rows.push(summarise(
-                format!("approx. C={c}, coarse ×{f}"),
                 qps,
                 &found,
             ));

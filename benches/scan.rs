@@ -1,4 +1,4 @@
-//! Throughput of the candidate scan (`waymark::scan::score_rows`), in rows per second.
+//! Throughput of the candidate scan (`waymark::coords::scan::score_rows`), in rows per second.
 //!
 //! Rows are real landmark coordinates: each word of the system word list
 //! (/usr/share/dict/american-english, 104,334 words, or as many generated words when it is
@@ -15,8 +15,9 @@ use std::hint::black_box;
 use criterion::{criterion_group, criterion_main, BenchmarkId, Criterion, Throughput};
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
+use waymark::coords::scan::{score_rows, score_rows_portable, HIST_BINS};
+use waymark::cpu::has_avx2;
 use waymark::metric::LevenshteinQuery;
-use waymark::scan::{has_avx2, score_rows, score_rows_portable, HIST_BINS};
 use waymark::search::Space;
 
 const ROWS: usize = 104_334;

@@ -1191,6 +1191,7 @@ fn inspect(a: InspectArgs) -> anyhow::Result<()> {
             command.join(" "),
             *timeout_ms as f64 / 1000.0
         ),
+        MetricSpec::Custom { name, .. } => format!(" (`{name}`, written in Rust)"),
         MetricSpec::Levenshtein | MetricSpec::Damerau | MetricSpec::Graph => String::new(),
     };
     writeln!(out, "metric        {}{params}", m.metric)?;

@@ -7,16 +7,18 @@
 //! - [`embed`] maps every item to landmark coordinates, whose L∞ distance is a lower bound of
 //!   the true distance;
 //! - [`index`] stores items, ids, coordinates and a kd-tree in one checked, memory-mapped file;
-//! - [`bounds`] finds the items whose stored lower bound is within a threshold (exact and
-//!   range queries);
+//! - [`coords`] compares stored coordinate rows: the candidate scan, the selection of the
+//!   best scores, and the column blocks of exact and range queries;
 //! - [`search`] takes candidates by embedded distance and re-ranks them by the true distance;
 //! - [`eval`] measures recall against brute force;
 //! - [`resources`] refuses builds that would not fit in memory;
+//! - [`cpu`] says which vector instructions the kernels may use;
 //! - [`cli`] is the command line (the binary only calls [`cli::main`]).
 #![warn(missing_docs)]
 
-pub mod bounds;
 pub mod cli;
+pub mod coords;
+pub mod cpu;
 pub mod embed;
 pub mod error;
 pub mod eval;
@@ -24,21 +26,6 @@ pub mod index;
 pub mod ingest;
 pub mod metric;
 pub mod resources;
-pub mod scan;
 pub mod search;
 
 pub use error::{Error, Result};
-
-/// Hints the CPU to load the cache line at `p`; re-ranking visits items in an order the
-/// hardware cannot predict, and each item costs two dependent loads (offset, then bytes).
-#[inline(always)]
-pub(crate) fn prefetch(p: *const u8) {
-    #[cfg(target_arch = "x86_64")]
-    // SAFETY: a prefetch is only a hint: it never faults and reads nothing into the
-    // program's state, whatever the address; SSE is part of the x86_64 baseline.
-    unsafe {
-        std::arch::x86_64::_mm_prefetch::<{ std::arch::x86_64::_MM_HINT_T0 }>(p as *const i8);
-    }
-    #[cfg(not(target_arch = "x86_64"))]
-    let _ = p;
-}

@@ -1,7 +1,7 @@
 //! The library path: build → open → search, checked against brute force and outside data.
 
 use proptest::prelude::*;
-use waymark::embed::{choose_landmarks, embed_all, linf, LandmarkOptions};
+use waymark::embed::{choose_landmarks, embed_with, Embedding, LandmarkOptions};
 use waymark::eval::{best_scan, full_scan, plain_recall, threshold_recall, typo_queries};
 use waymark::index::{build_index, BuildOptions, IdRef, Index};
 use waymark::ingest::{
@@ -105,11 +105,12 @@ proptest! {
         dim in 1usize..8,
     ) {
         let lm = choose_landmarks(&Levenshtein, &items, &LandmarkOptions { dim, sample: 100, seed: 1 });
-        let coords = embed_all(&Levenshtein, &items, &lm, &|_| {});
+        let embedding = Embedding::Landmarks { landmarks: lm.iter().map(|&l| l as u64).collect() };
+        let coords = embed_with(&Levenshtein, &items, &embedding, &|_| {});
         let d = lm.len();
         for a in 0..items.len() {
             for b in 0..items.len() {
-                let lb = linf(&coords[a * d..a * d + d], &coords[b * d..b * d + d]);
+                let lb = Space::Linf.distance(&coords[a * d..a * d + d], &coords[b * d..b * d + d]);
                 let true_d = Levenshtein.distance(items[a].as_bytes(), items[b].as_bytes());
                 prop_assert!(lb <= true_d, "{} vs {}: bound {} > {}", items[a], items[b], lb, true_d);
             }
@@ -255,44 +256,6 @@ fn fewer_distinct_items_than_landmarks_gives_a_smaller_embedding() {
     assert_eq!(f.neighbors.len(), 4);
     let ids: Vec<u32> = f.neighbors.iter().map(|n| n.index).collect();
     assert_eq!(ids, [0, 1, 3, 2]);
-}
-
-/// The coarse stage (first landmarks, then all of them) still returns true distances, in
-/// answer order, and with a factor too large to apply it gives the plain scan's answer.
-#[test]
-fn the_coarse_stage_returns_true_distances_in_order() {
-    let dir = tempfile::tempdir().unwrap();
-    let items: Vec<String> = (0..2000)
-        .map(|i| format!("buoy {}", (i * 7919) % 10007))
-        .collect();
-    let idx = build(&corpus(&items), 16, &dir);
-    let p = SearchParams {
-        k: 5,
-        candidates: 20,
-        ..SearchParams::from_index(&idx, 5)
-    };
-    let plain = Searcher::new(&idx);
-    let mut coarse = Searcher::new(&idx);
-    coarse.set_coarse_factor(4);
-    for q in ["buoy 12", "bouy 7001", "buoy 99999"] {
-        let f = coarse.search(q, &p, &mut Default::default()).unwrap();
-        assert_eq!(f.neighbors.len(), 5);
-        for (a, b) in f.neighbors.iter().zip(f.neighbors.iter().skip(1)) {
-            assert!(a.distance <= b.distance);
-        }
-        for n in &f.neighbors {
-            let d = strsim::levenshtein(q, &items[n.index as usize]) as f64;
-            assert_eq!(n.distance, d, "{q}");
-        }
-    }
-    coarse.set_coarse_factor(1000);
-    let a = coarse
-        .search("buoy 12", &p, &mut Default::default())
-        .unwrap();
-    let b = plain
-        .search("buoy 12", &p, &mut Default::default())
-        .unwrap();
-    assert_eq!(a, b);
 }
 
 /// Invented harbour and street names from a fixed list of syllables, seeded: `n` strings of

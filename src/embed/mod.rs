@@ -116,49 +116,6 @@ pub fn choose_landmarks<M: Metric, T: AsRef<[u8]> + Sync>(
     chosen
 }
 
-/// Landmark coordinates of every item, row-major (`n × landmarks.len()`), in parallel.
-///
-/// Each landmark is prepared once and compared with every item, which is the cheap direction
-/// for a bit-parallel kernel (masks built once per landmark, not once per item).
-pub fn embed_all<M: Metric, T: AsRef<[u8]> + Sync>(
-    metric: &M,
-    items: &[T],
-    landmarks: &[usize],
-    progress: &(dyn Fn(usize) + Sync),
-) -> Vec<f64> {
-    let d = landmarks.len();
-    let n = items.len();
-    let mut out = vec![0.0; n * d];
-    if d == 0 {
-        return out;
-    }
-    let prepared: Vec<M::Prepared> = landmarks
-        .iter()
-        .map(|&l| metric.prepare(items[l].as_ref()))
-        .collect();
-    const CHUNK: usize = 4096;
-    out.par_chunks_mut(CHUNK * d)
-        .enumerate()
-        .for_each(|(c, rows)| {
-            let start = c * CHUNK;
-            for (r, row) in rows.chunks_exact_mut(d).enumerate() {
-                let item = items[start + r].as_ref();
-                for (o, p) in row.iter_mut().zip(&prepared) {
-                    *o = p.distance(item);
-                }
-            }
-            progress(rows.len() / d);
-        });
-    out
-}
-
-/// The L∞ distance of two coordinate vectors: a lower bound of the true distance.
-pub fn linf(a: &[f64], b: &[f64]) -> f64 {
-    a.iter()
-        .zip(b)
-        .fold(0.0, |m, (x, y)| f64::max(m, (x - y).abs()))
-}
-
 /// The embedding methods, as chosen on the command line (`--embedding`).
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Hash, Serialize, Deserialize)]
 #[serde(rename_all = "lowercase")]

@@ -3,7 +3,7 @@
 
 use crate::index::Index;
 use crate::metric::{MetricKind, PreparedQuery};
-use crate::search::{keep_best, prepare_any, Neighbor};
+use crate::search::order::{keep_best, Neighbor};
 
 /// Items per batch of [`PreparedQuery::distances`] (one request to an external program).
 const BATCH: usize = 4096;
@@ -24,7 +24,7 @@ pub fn brute_force(index: &Index, query: &str, k: usize) -> Vec<Neighbor> {
     if index.meta().metric == MetricKind::Levenshtein {
         return super::full_scan(index, query, k);
     }
-    let Ok(q) = prepare_any(index, query) else {
+    let Ok(q) = index.prepare_query(query) else {
         return Vec::new();
     };
     let keys = index.keys();

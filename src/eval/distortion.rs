@@ -12,9 +12,9 @@ use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
 use serde::Serialize;
 
+use crate::coords::Space;
 use crate::embed::{embed_one, Embedding};
 use crate::metric::{Metric, PreparedQuery};
-use crate::search::Space;
 
 /// The quantiles reported, as fractions.
 pub const QUANTILES: [f64; 7] = [0.01, 0.05, 0.25, 0.5, 0.75, 0.95, 0.99];
@@ -77,17 +77,6 @@ pub struct DistortionReport {
     pub spaces: Vec<SpaceDistortion>,
 }
 
-/// The embedded distance of two coordinate vectors in `space` (L2 as a true Euclidean
-/// distance, not squared).
-pub fn space_distance(space: Space, a: &[f64], b: &[f64]) -> f64 {
-    let diffs = a.iter().zip(b).map(|(x, y)| (x - y).abs());
-    match space {
-        Space::L1 => diffs.sum(),
-        Space::L2 => diffs.map(|d| d * d).sum::<f64>().sqrt(),
-        Space::Linf => diffs.fold(0.0, f64::max),
-    }
-}
-
 /// Measures the distortion of `embedding` over `items`: every pair when there are at most
 /// `max_pairs` of them, else every pair among a seeded random sample of `s` items with
 /// `s(s−1)/2 ≥ max_pairs`. Coordinates are recomputed from distances to the reference items,
@@ -139,7 +128,7 @@ pub fn measure_distortion<M: Metric, T: AsRef<[u8]> + Sync>(
                 .map(|b| {
                     let t = q.distance(items[chosen[b]].as_ref());
                     let e = [Space::L1, Space::L2, Space::Linf]
-                        .map(|s| space_distance(s, &coords[a], &coords[b]));
+                        .map(|s| s.distance(&coords[a], &coords[b]));
                     (t, e)
                 })
                 .collect()

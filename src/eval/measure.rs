@@ -7,9 +7,10 @@ use serde::Serialize;
 
 use super::recall::{plain_recall, threshold_recall};
 use super::truth::Truth;
+use crate::coords::Space;
 use crate::error::Result;
 use crate::index::Index;
-use crate::search::{CandidateSource, Scratch, SearchParams, Searcher, Space};
+use crate::search::{CandidateSource, Scratch, SearchParams, Searcher};
 
 /// What one setting of the search achieved on a list of queries.
 #[derive(Clone, Debug, PartialEq, Serialize)]

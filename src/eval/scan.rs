@@ -3,7 +3,8 @@
 use rayon::prelude::*;
 
 use crate::index::Index;
-use crate::search::{keep_best, prepare_query, Neighbor};
+use crate::metric::{Levenshtein, LevenshteinQuery, Metric};
+use crate::search::order::{keep_best, Neighbor};
 
 /// Exact k-NN with the unbounded kernel against every item (several items per kernel call).
 pub fn full_scan(index: &Index, query: &str, k: usize) -> Vec<Neighbor> {
@@ -137,4 +138,10 @@ pub fn scan_many(index: &Index, queries: &[String], k: usize, scan: Scan) -> Vec
             Scan::Best => best_scan_with(index, q, k, ascii),
         })
         .collect()
+}
+
+/// Prepares `query` for the Levenshtein kernel, normalised as the index's items were.
+fn prepare_query(index: &Index, query: &str) -> LevenshteinQuery {
+    let key = index.meta().normalize.apply(query);
+    Levenshtein.prepare(key.as_bytes())
 }

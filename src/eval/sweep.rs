@@ -28,12 +28,13 @@ use serde::Serialize;
 use super::measure::measure_recall;
 use super::plot::{line_chart, Chart, Series};
 use super::truth::{load_or_compute_truth, TruthSource};
+use crate::coords::Space;
 use crate::embed::{embed_items, EmbedOptions, Method, MAX_DIM};
 use crate::error::{Error, Result};
 use crate::index::{build_index_from, BuildOptions, Index};
 use crate::ingest::{Corpus, Normalize};
 use crate::metric::{Graph, MetricSpec};
-use crate::search::{SearchParams, Space};
+use crate::search::SearchParams;
 
 /// What to sweep over.
 #[derive(Clone, Debug)]

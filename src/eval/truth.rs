@@ -17,7 +17,7 @@ use sha2::{Digest, Sha256};
 use super::brute::brute_force;
 use crate::error::{Error, Result};
 use crate::index::{IdRef, Index};
-use crate::search::Neighbor;
+use crate::search::order::Neighbor;
 
 const FORMAT: &str = "waymark-truth";
 const VERSION: u32 = 1;

@@ -5,11 +5,11 @@ use std::time::Instant;
 
 use super::file::{ContainerWriter, SectionKind};
 use super::{cells, coord_stride, tree, IdKind, IndexMeta};
+use crate::coords::Space;
 use crate::embed::{embed_items, quantize, EmbedOptions, Embedded, Method, MAX_DIM};
 use crate::error::{Error, Result};
 use crate::ingest::{Corpus, Ids, Normalize};
 use crate::metric::{check_axioms, check_equal_lengths, AnyMetric, AxiomReport, Graph, MetricSpec};
-use crate::search::Space;
 
 /// Parameters of a build.
 #[derive(Clone, Debug)]
@@ -29,7 +29,7 @@ pub struct BuildOptions {
     /// Size of the reference-set pool (the reference-set method's cost per query).
     pub pool: usize,
     /// Default candidates per query stored in the index; 0 (the default) stores
-    /// [`crate::search::default_candidates`] of the number of items.
+    /// [`super::default_candidates`] of the number of items.
     pub candidates: usize,
     /// Default candidate space stored in the index.
     pub space: Space,
@@ -43,7 +43,7 @@ impl Default for BuildOptions {
             metric: MetricSpec::Levenshtein,
             graph: None,
             method: Method::Landmarks,
-            dim: crate::search::DEFAULT_DIM,
+            dim: super::DEFAULT_DIM,
             seed: 0,
             sample: 4096,
             pool: crate::embed::DEFAULT_POOL,
@@ -247,7 +247,7 @@ fn write_index(
         // Nodes in other components are at one large distance that says nothing about
         // nearness: the scale comes from the other coordinates and that one saturates.
         (Some(g), MetricSpec::Graph) => embedded.scale_below(g.disconnected_distance()),
-        _ => embedded.scale(kind.is_integral()),
+        _ => embedded.scale(spec.is_integral()),
     };
     let mut small = vec![0u8; n * stride];
     for (row, c) in small.chunks_exact_mut(stride).zip(coords.chunks_exact(dim)) {
@@ -283,7 +283,7 @@ fn write_index(
             Ids::Text(_) => IdKind::Text,
         },
         candidates: match opts.candidates {
-            0 => crate::search::default_candidates(n),
+            0 => super::default_candidates(n),
             c => c,
         }
         .min(u32::MAX as usize) as u32,

@@ -77,40 +77,6 @@ fn parts(k: usize, n: usize, stride: usize) -> Option<Parts> {
     })
 }
 
-/// L1 distance of two rows of `S` bytes (written so that the compiler uses `psadbw`).
-#[inline(always)]
-fn l1_fixed<const S: usize>(a: &[u8], b: &[u8]) -> u32 {
-    let (Ok(a), Ok(b)) = (<&[u8; S]>::try_from(a), <&[u8; S]>::try_from(b)) else {
-        return u32::MAX;
-    };
-    let mut s = 0u32;
-    for i in 0..S {
-        s += u32::from(a[i].abs_diff(b[i]));
-    }
-    s
-}
-
-/// The nearest centre (L1) of `row` among `centres` (`stride` bytes each).
-fn nearest_centre(row: &[u8], centres: &[u8], stride: usize) -> u32 {
-    #[inline(always)]
-    fn go<const S: usize>(row: &[u8], centres: &[u8]) -> u32 {
-        let mut best = (u32::MAX, 0u32);
-        for (c, centre) in centres.chunks_exact(S).enumerate() {
-            let d = l1_fixed::<S>(row, centre);
-            if d < best.0 {
-                best = (d, c as u32);
-            }
-        }
-        best.1
-    }
-    match stride {
-        8 => go::<8>(row, centres),
-        16 => go::<16>(row, centres),
-        32 => go::<32>(row, centres),
-        _ => go::<64>(row, centres),
-    }
-}
-
 /// Builds the cells section for `n` rows of `stride` bytes (`coords.len() == n · stride`).
 ///
 /// Deterministic for a given `seed` and input.
@@ -128,7 +94,7 @@ pub fn build(coords: &[u8], stride: usize, seed: u64) -> Vec<u8> {
     for _ in 0..ITERATIONS {
         let assign: Vec<u32> = sample
             .par_iter()
-            .map(|&i| nearest_centre(row(i), &centres, stride))
+            .map(|&i| crate::coords::nearest_l1(row(i), &centres, stride))
             .collect();
         let mut sums = vec![0u64; k * stride];
         let mut counts = vec![0u64; k];
@@ -153,7 +119,7 @@ pub fn build(coords: &[u8], stride: usize, seed: u64) -> Vec<u8> {
     }
     let assign: Vec<u32> = (0..n)
         .into_par_iter()
-        .map(|i| nearest_centre(row(i), &centres, stride))
+        .map(|i| crate::coords::nearest_l1(row(i), &centres, stride))
         .collect();
     let mut starts = vec![0u32; k + 1];
     for &c in &assign {
@@ -309,7 +275,7 @@ impl<'a> CellsView<'a> {
     #[inline]
     pub fn prefetch_member(&self, pos: usize) {
         if let Some(b) = self.members.get(pos * 4..) {
-            crate::prefetch(b.as_ptr());
+            crate::cpu::prefetch(b.as_ptr());
         }
     }
 
@@ -326,11 +292,7 @@ impl<'a> CellsView<'a> {
     pub fn visit_order(&self, q: &[u8; 64], first: usize, out: &mut Vec<(u32, u32)>) {
         out.clear();
         for (c, centre) in self.centres.chunks_exact(self.stride).enumerate() {
-            let mut d = 0u32;
-            for (&a, &b) in centre.iter().zip(q.iter()) {
-                let x = u32::from(a.abs_diff(b));
-                d += x * x;
-            }
+            let d = crate::coords::score(centre, q, crate::coords::Space::L2);
             out.push((d, c as u32));
         }
         if first < out.len() {

@@ -32,10 +32,27 @@ pub use build::{
 };
 use file::{Section, SectionKind};
 
+pub use crate::coords::coord_stride;
+
+use crate::coords::Space;
 use crate::error::{Error, Result};
 use crate::ingest::Normalize;
-use crate::metric::{AnyMetric, Graph, MetricKind, MetricSpec};
-use crate::search::Space;
+use crate::metric::{vector_bytes, AnyMetric, Graph, MetricKind, MetricSpec};
+
+/// Default embedding dimension of a build (`benches/end_to_end.rs` chose it; see the README).
+pub const DEFAULT_DIM: usize = 64;
+
+/// The smallest default number of candidates a build stores; larger indexes get more
+/// ([`default_candidates`]).
+pub const DEFAULT_CANDIDATES: usize = 1500;
+
+/// The default number of candidates stored in an index of `n` items: `n / 160`, at least
+/// [`DEFAULT_CANDIDATES`] and at most 4,000, the counts `benches/end_to_end.rs` and
+/// `benches/big.rs` found to keep threshold recall@10 above 0.95 on English words
+/// (figures in the README).
+pub fn default_candidates(n: usize) -> usize {
+    (n / 160).clamp(DEFAULT_CANDIDATES, 4000)
+}
 
 /// How the ids of an index are typed.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
@@ -261,7 +278,7 @@ impl Index {
             .contractive()
             .then(|| crate::embed::Bound {
                 scale: self.meta.scale,
-                whole: self.meta.metric.is_integral() && self.meta.scale == 1.0,
+                whole: self.meta.metric_spec.is_integral() && self.meta.scale == 1.0,
             })
     }
 
@@ -378,6 +395,48 @@ impl Index {
         })
     }
 
+    /// A query's key: the bytes the metric compares, made as the items' were. Text is
+    /// normalised as the index says; a vector query is parsed from its text form (numbers
+    /// separated by commas, tabs or spaces) and must have the index's dimension; a graph
+    /// query must name a node; a Hamming query must have the items' length.
+    pub fn query_key(&self, query: &str) -> Result<Vec<u8>> {
+        let meta = &self.meta;
+        Ok(match &meta.metric_spec {
+            MetricSpec::Vector { dim, .. } => {
+                let v = crate::ingest::parse_vector(query, *dim as usize).map_err(Error::Usage)?;
+                vector_bytes(&v)
+            }
+            MetricSpec::Graph => {
+                if let AnyMetric::Graph(g) = self.metric()? {
+                    if g.graph().node(query.as_bytes()).is_none() {
+                        return Err(Error::Usage(format!(
+                            "`{query}` is not a node of the graph"
+                        )));
+                    }
+                }
+                query.as_bytes().to_vec()
+            }
+            MetricSpec::Hamming { length } => {
+                let key = meta.normalize.apply(query);
+                let n = key.chars().count() as u64;
+                if n != *length {
+                    return Err(Error::Usage(format!(
+                        "the query has {n} characters; Hamming distance needs the items' length, {length}"
+                    )));
+                }
+                key.into_owned().into_bytes()
+            }
+            _ => meta.normalize.apply(query).into_owned().into_bytes(),
+        })
+    }
+
+    /// A query prepared for the index's metric from its text ([`Index::query_key`]).
+    pub fn prepare_query(&self, query: &str) -> Result<crate::metric::AnyQuery> {
+        use crate::metric::Metric;
+        let key = self.query_key(query)?;
+        Ok(self.metric()?.prepare(&key))
+    }
+
     /// Whether the file has cells (see [`Index::cells`]; not checked by this call).
     pub fn has_cells(&self) -> bool {
         self.cells.is_some()
@@ -454,7 +513,7 @@ impl<'a> StrTable<'a> {
     #[inline]
     pub fn prefetch_offsets(&self, i: usize) {
         if let Some(b) = self.offsets.get(i * 8..i * 8 + 16) {
-            crate::prefetch(b.as_ptr());
+            crate::cpu::prefetch(b.as_ptr());
         }
     }
 
@@ -464,7 +523,7 @@ impl<'a> StrTable<'a> {
         if let Some(b) = self.offsets.get(i * 8..i * 8 + 8) {
             let at = u64::from_le_bytes(b.try_into().expect("8 bytes")) as usize;
             if let Some(x) = self.bytes.get(at..) {
-                crate::prefetch(x.as_ptr());
+                crate::cpu::prefetch(x.as_ptr());
             }
         }
     }
@@ -482,12 +541,4 @@ impl<'a> StrTable<'a> {
             _ => &[],
         }
     }
-}
-
-/// Bytes per item of the u8 coordinate rows for an embedding of dimension `dim`.
-pub fn coord_stride(dim: usize) -> usize {
-    [8, 16, 32, 64]
-        .into_iter()
-        .find(|&s| s >= dim)
-        .unwrap_or(64)
 }

@@ -9,7 +9,7 @@ use std::num::NonZeroUsize;
 use kiddo::{Chebyshev, ImmutableKdTree, Manhattan, SquaredEuclidean};
 use rkyv::rancor::Error as RkyvError;
 
-use crate::search::Space;
+use crate::coords::Space;
 
 /// The dimensions a tree can be compiled for.
 pub const TREE_DIMS: [usize; 6] = [2, 4, 8, 16, 32, 64];

@@ -20,10 +20,10 @@ use std::time::Duration;
 use serde::{Deserialize, Serialize};
 
 use super::{
-    CostRules, CostTable, Damerau, DamerauQuery, ExternalMetric, ExternalQuery, Graph, GraphMetric,
-    GraphQuery, Hamming, HammingQuery, Jaccard, JaccardQuery, Levenshtein, LevenshteinQuery,
-    Metric, MetricError, MetricKind, Norm, PreparedQuery, Tokens, VectorMetric, VectorQuery,
-    WeightedEdit, WeightedQuery,
+    CostRules, CostTable, CustomMetric, CustomQuery, Damerau, DamerauQuery, ExternalMetric,
+    ExternalQuery, Graph, GraphMetric, GraphQuery, Hamming, HammingQuery, Jaccard, JaccardQuery,
+    Levenshtein, LevenshteinQuery, Metric, MetricError, MetricKind, Norm, PreparedQuery, Tokens,
+    VectorMetric, VectorQuery, WeightedEdit, WeightedQuery,
 };
 
 /// A metric as recorded in an index: its kind and its parameters.
@@ -66,6 +66,14 @@ pub enum MetricSpec {
         /// Time limit per batch, in milliseconds.
         timeout_ms: u64,
     },
+    /// A metric written in Rust against the library ([`CustomMetric`]): only its name is
+    /// recorded, and opening the index needs the same metric again.
+    Custom {
+        /// The metric's [`Metric::name`].
+        name: String,
+        /// Whether its distances are whole numbers ([`Metric::is_integral`]).
+        integral: bool,
+    },
 }
 
 impl MetricSpec {
@@ -85,6 +93,24 @@ impl MetricSpec {
             },
             MetricSpec::Graph => MetricKind::Graph,
             MetricSpec::External { .. } => MetricKind::External,
+            MetricSpec::Custom { .. } => MetricKind::Custom,
+        }
+    }
+
+    /// Whether distances are always whole numbers (lets coordinates be stored as whole
+    /// distances).
+    pub fn is_integral(&self) -> bool {
+        match self {
+            MetricSpec::Custom { integral, .. } => *integral,
+            other => other.kind().is_integral(),
+        }
+    }
+
+    /// The record of a metric of the library user's own.
+    pub fn custom(metric: &CustomMetric) -> MetricSpec {
+        MetricSpec::Custom {
+            name: metric.name().to_string(),
+            integral: metric.is_integral(),
         }
     }
 
@@ -95,7 +121,8 @@ impl MetricSpec {
     }
 
     /// The metric itself. A graph metric needs the graph (`None` is refused); an external
-    /// metric starts its program here.
+    /// metric starts its program here. A custom metric cannot be made from its record (the
+    /// code is not in the file): refused with the advice to supply it.
     pub fn open(&self, graph: Option<Graph>) -> Result<AnyMetric, MetricError> {
         Ok(match self {
             MetricSpec::Levenshtein => AnyMetric::Levenshtein(Levenshtein),
@@ -121,6 +148,13 @@ impl MetricSpec {
                 command,
                 Duration::from_millis(*timeout_ms),
             )?),
+            MetricSpec::Custom { name, .. } => {
+                return Err(MetricError::Options(format!(
+                    "the index was built with the custom metric `{name}`, written in Rust; \
+                     open it from a program that supplies that metric \
+                     (Index::open_with_metric)"
+                )))
+            }
         })
     }
 }
@@ -144,6 +178,8 @@ pub enum AnyMetric {
     Graph(GraphMetric),
     /// [`ExternalMetric`].
     External(ExternalMetric),
+    /// A metric of the library user's own ([`CustomMetric`]).
+    Custom(CustomMetric),
 }
 
 /// A query prepared by an [`AnyMetric`].
@@ -170,6 +206,8 @@ pub enum AnyQuery {
     Graph(GraphQuery),
     /// For [`ExternalMetric`].
     External(ExternalQuery),
+    /// For [`CustomMetric`].
+    Custom(CustomQuery),
 }
 
 macro_rules! each {
@@ -183,6 +221,7 @@ macro_rules! each {
             AnyQuery::Vector($name) => $body,
             AnyQuery::Graph($name) => $body,
             AnyQuery::External($name) => $body,
+            AnyQuery::Custom($name) => $body,
         }
     };
 }
@@ -196,28 +235,41 @@ impl AnyMetric {
             _ => Ok(()),
         }
     }
+}
 
-    /// Whether each call costs a round trip, so that distances should be asked for in
-    /// batches ([`PreparedQuery::distances`]) rather than one at a time.
-    pub fn prefers_batches(&self) -> bool {
-        matches!(self, AnyMetric::External(_))
-    }
+macro_rules! each_metric {
+    ($value:expr, $name:ident => $body:expr) => {
+        match $value {
+            AnyMetric::Levenshtein($name) => $body,
+            AnyMetric::Damerau($name) => $body,
+            AnyMetric::Hamming($name) => $body,
+            AnyMetric::WeightedEdit($name) => $body,
+            AnyMetric::Jaccard($name) => $body,
+            AnyMetric::Vector($name) => $body,
+            AnyMetric::Graph($name) => $body,
+            AnyMetric::External($name) => $body,
+            AnyMetric::Custom($name) => $body,
+        }
+    };
 }
 
 impl Metric for AnyMetric {
     type Prepared = AnyQuery;
 
     fn kind(&self) -> MetricKind {
-        match self {
-            AnyMetric::Levenshtein(m) => m.kind(),
-            AnyMetric::Damerau(m) => m.kind(),
-            AnyMetric::Hamming(m) => m.kind(),
-            AnyMetric::WeightedEdit(m) => m.kind(),
-            AnyMetric::Jaccard(m) => m.kind(),
-            AnyMetric::Vector(m) => m.kind(),
-            AnyMetric::Graph(m) => m.kind(),
-            AnyMetric::External(m) => m.kind(),
-        }
+        each_metric!(self, m => m.kind())
+    }
+
+    fn name(&self) -> &str {
+        each_metric!(self, m => m.name())
+    }
+
+    fn is_integral(&self) -> bool {
+        each_metric!(self, m => m.is_integral())
+    }
+
+    fn bounded_by_char_counts(&self) -> bool {
+        each_metric!(self, m => m.bounded_by_char_counts())
     }
 
     fn prepare(&self, query: &[u8]) -> AnyQuery {
@@ -230,15 +282,13 @@ impl Metric for AnyMetric {
             AnyMetric::Vector(m) => AnyQuery::Vector(m.prepare(query)),
             AnyMetric::Graph(m) => AnyQuery::Graph(m.prepare(query)),
             AnyMetric::External(m) => AnyQuery::External(m.prepare(query)),
+            AnyMetric::Custom(m) => AnyQuery::Custom(m.prepare(query)),
         }
     }
 
     fn distance(&self, a: &[u8], b: &[u8]) -> f64 {
-        match self {
-            // One Dijkstra, not a prepared query's full table.
-            AnyMetric::Graph(m) => m.distance(a, b),
-            _ => self.prepare(a).distance(b),
-        }
+        // The graph's own form runs one Dijkstra, not a prepared query's full table.
+        each_metric!(self, m => m.distance(a, b))
     }
 }
 
@@ -254,16 +304,11 @@ impl PreparedQuery for AnyQuery {
     }
 
     fn distances(&self, items: &[&[u8]], out: &mut [f64]) {
-        match self {
-            AnyQuery::Levenshtein(q) => {
-                assert_eq!(items.len(), out.len(), "one output slot per item");
-                let mut d = vec![0u32; items.len()];
-                q.dist_batch(items, &mut d);
-                for (o, d) in out.iter_mut().zip(d) {
-                    *o = f64::from(d);
-                }
-            }
-            _ => each!(self, q => q.distances(items, out)),
-        }
+        each!(self, q => q.distances(items, out))
+    }
+
+    #[inline]
+    fn group_size(&self) -> usize {
+        each!(self, q => q.group_size())
     }
 }

@@ -432,11 +432,6 @@ impl PreparedQuery for ExternalQuery {
             .map_or(f64::NAN, |d| d[0])
     }
 
-    fn distance_within(&self, item: &[u8], bound: f64) -> Option<f64> {
-        let d = self.distance(item);
-        (d <= bound).then_some(d)
-    }
-
     /// All items in batches of at most [`MAX_BATCH`]; NaN everywhere after a failure.
     fn distances(&self, items: &[&[u8]], out: &mut [f64]) {
         assert_eq!(items.len(), out.len(), "one output slot per item");
@@ -444,5 +439,10 @@ impl PreparedQuery for ExternalQuery {
             Ok(d) => out.copy_from_slice(&d),
             Err(_) => out.fill(f64::NAN),
         }
+    }
+
+    /// Every call is a round trip to the program: all items at once.
+    fn group_size(&self) -> usize {
+        usize::MAX
     }
 }

@@ -166,12 +166,9 @@ impl LevenshteinQuery {
             other_masks: other_masks.into_boxed_slice(),
             text: (words > 1).then(|| query.into()),
             #[cfg(target_arch = "x86_64")]
-            x86_fast: std::arch::is_x86_feature_detected!("popcnt")
-                && std::arch::is_x86_feature_detected!("bmi1"),
+            x86_fast: crate::cpu::has_popcnt_bmi1(),
             #[cfg(target_arch = "x86_64")]
-            x86_lanes: std::arch::is_x86_feature_detected!("avx2")
-                && std::arch::is_x86_feature_detected!("popcnt")
-                && std::arch::is_x86_feature_detected!("bmi1"),
+            x86_lanes: crate::cpu::has_avx2() && crate::cpu::has_popcnt_bmi1(),
         }
     }
 
@@ -299,32 +296,11 @@ impl LevenshteinQuery {
         saturate(d)
     }
 
-    /// The distances from the query to two items, computed together.
-    ///
-    /// Same results as two calls of [`LevenshteinQuery::dist`], but for queries of up to 64
-    /// chars the two items are interleaved, giving about 1.5 times the throughput on one core
-    /// (see `benches/kernel.rs`).
-    ///
-    /// ```
-    /// use waymark::metric::LevenshteinQuery;
-    ///
-    /// let q = LevenshteinQuery::new(b"book");
-    /// assert_eq!(q.dist2(b"back", b"books"), [2, 1]);
-    /// ```
-    #[inline]
-    pub fn dist2(&self, a: &[u8], b: &[u8]) -> [u32; 2] {
-        if self.words == 1 {
-            self.dist_one_word_pair(a, b).map(saturate)
-        } else {
-            [self.dist(a), self.dist(b)]
-        }
-    }
-
     /// Calls `f(position, distance)` for every item, in order; the fastest way to scan.
     ///
     /// Single-block queries go through [`LevenshteinQuery::dist_batch`] in groups of 64
     /// items (vector lanes with AVX2, else four independent dependency chains); longer
-    /// queries take items two at a time through [`LevenshteinQuery::dist2`].
+    /// queries take items one at a time through [`LevenshteinQuery::dist`].
     ///
     /// ```
     /// use waymark::metric::LevenshteinQuery;
@@ -387,15 +363,9 @@ impl LevenshteinQuery {
                 return;
             }
         }
-        while let Some(a) = items.next() {
-            let Some(b) = items.next() else {
-                f(position, self.dist(a.as_ref()));
-                return;
-            };
-            let [da, db] = self.dist2(a.as_ref(), b.as_ref());
-            f(position, da);
-            f(position + 1, db);
-            position += 2;
+        for a in items {
+            f(position, self.dist(a.as_ref()));
+            position += 1;
         }
     }
 
@@ -529,17 +499,6 @@ impl LevenshteinQuery {
         self.dist_one_word_impl(item)
     }
 
-    /// Two unbounded single-block distances, on the fastest kernel this CPU runs.
-    #[inline]
-    fn dist_one_word_pair(&self, a: &[u8], b: &[u8]) -> [usize; 2] {
-        #[cfg(target_arch = "x86_64")]
-        if self.x86_fast {
-            // SAFETY: `x86_fast` is set only when the CPU reports `popcnt` and `bmi1`.
-            return unsafe { x86::dist_one_word_pair(self, a, b) };
-        }
-        self.dist_one_word_pair_impl(a, b)
-    }
-
     /// Four single-block distances at once, on the fastest kernel this CPU runs.
     #[inline]
     fn dist_one_word_quad(&self, it: [&[u8]; 4]) -> [usize; 4] {
@@ -661,29 +620,6 @@ impl LevenshteinQuery {
         let mut col = Column::new();
         self.run_one_word(ascii, item, &mut 0, &mut col);
         self.finish_one_word(&col)
-    }
-
-    /// Unbounded single-block kernel over two items at once.
-    ///
-    /// Each column costs a chain of 9 dependent word operations, so one item at a time leaves
-    /// most of the processor's arithmetic units idle; two independent chains run side by side
-    /// in little more time.
-    #[inline(always)]
-    fn dist_one_word_pair_impl(&self, a: &[u8], b: &[u8]) -> [usize; 2] {
-        let ascii = self.ascii_one_word();
-        let (mut ca, mut cb) = (Column::new(), Column::new());
-        let (mut ia, mut ib) = (0, 0);
-        while let (Some(&x), Some(&y)) = (a.get(ia), b.get(ib)) {
-            let ea = self.eq_one_word(ascii, a, &mut ia, x);
-            let eb = self.eq_one_word(ascii, b, &mut ib, y);
-            step(&mut ca.pv, &mut ca.mv, ea);
-            step(&mut cb.pv, &mut cb.mv, eb);
-            ca.n += 1;
-            cb.n += 1;
-        }
-        self.run_one_word(ascii, a, &mut ia, &mut ca);
-        self.run_one_word(ascii, b, &mut ib, &mut cb);
-        [self.finish_one_word(&ca), self.finish_one_word(&cb)]
     }
 
     /// Four single-block distances at once: four independent dependency chains keep more of
@@ -929,11 +865,6 @@ mod x86 {
     #[target_feature(enable = "popcnt,bmi1")]
     pub(super) fn dist_one_word(q: &LevenshteinQuery, item: &[u8]) -> usize {
         q.dist_one_word_impl(item)
-    }
-
-    #[target_feature(enable = "popcnt,bmi1")]
-    pub(super) fn dist_one_word_pair(q: &LevenshteinQuery, a: &[u8], b: &[u8]) -> [usize; 2] {
-        q.dist_one_word_pair_impl(a, b)
     }
 
     #[target_feature(enable = "popcnt,bmi1")]
@@ -1309,6 +1240,12 @@ impl Metric for Levenshtein {
         MetricKind::Levenshtein
     }
 
+    /// Unit costs: one edit changes one char, so char counts and signatures bound the
+    /// distance ([`LevenshteinQuery::signature`]).
+    fn bounded_by_char_counts(&self) -> bool {
+        true
+    }
+
     fn prepare(&self, query: &[u8]) -> LevenshteinQuery {
         LevenshteinQuery::new(query)
     }
@@ -1340,6 +1277,29 @@ impl PreparedQuery for LevenshteinQuery {
         }
         // 0 ≤ bound < u32::MAX, so the cast is exact after `floor`.
         self.dist_within(item, bound.floor() as u32).map(f64::from)
+    }
+
+    /// With [`LevenshteinQuery::dist_batch`], 64 items at a time.
+    fn distances(&self, items: &[&[u8]], out: &mut [f64]) {
+        assert_eq!(items.len(), out.len(), "one output slot per item");
+        let mut d = [0u32; 64];
+        for (items, out) in items.chunks(64).zip(out.chunks_mut(64)) {
+            self.dist_batch(items, &mut d);
+            for (o, &d) in out.iter_mut().zip(&d) {
+                *o = f64::from(d);
+            }
+        }
+    }
+
+    /// 64 for queries of 1 to 64 chars, which the vector lanes measure
+    /// ([`LevenshteinQuery::dist_batch`]); longer queries go one item at a time with the
+    /// bounded kernel.
+    fn group_size(&self) -> usize {
+        if (1..=64).contains(&self.len()) {
+            64
+        } else {
+            1
+        }
     }
 }
 
@@ -1456,7 +1416,6 @@ mod tests {
             let want_c = dp(&a, &c) as u32;
             for q in [portable(a.as_bytes()), LevenshteinQuery::new(a.as_bytes())] {
                 proptest::prop_assert_eq!(q.dist(b.as_bytes()), want_b);
-                proptest::prop_assert_eq!(q.dist2(b.as_bytes(), c.as_bytes()), [want_b, want_c]);
                 proptest::prop_assert_eq!(
                     q.dist_within(b.as_bytes(), k),
                     (want_b <= k).then_some(want_b)

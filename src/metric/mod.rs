@@ -18,12 +18,14 @@
 //! | [`VectorMetric`] | little-endian `f32` vectors | [`Norm`] and the dimension |
 //! | [`GraphMetric`] | node names | an edge list ([`Graph`]) |
 //! | [`ExternalMetric`] | strings | a program speaking the `waymark-metric` protocol |
+//! | your own type implementing [`Metric`] | bytes | your code ([`CustomMetric`] holds it) |
 //!
 //! Constructors that read options or side files return [`MetricError`], which names the file
 //! and line. [`PreparedQuery::distances`] is the batched form.
 
 mod any;
 mod check;
+mod custom;
 mod damerau;
 mod error;
 mod external;
@@ -36,6 +38,7 @@ mod weighted;
 
 pub use any::{AnyMetric, AnyQuery, MetricSpec};
 pub use check::{check_axioms, Axiom, AxiomReport, Violation, TOLERANCE};
+pub use custom::{CustomMetric, CustomQuery};
 pub use damerau::{Damerau, DamerauQuery};
 pub use error::MetricError;
 pub use external::{ExternalMetric, ExternalQuery, MAX_BATCH, PROTOCOL, PROTOCOL_VERSION};
@@ -51,7 +54,11 @@ use serde::{Deserialize, Serialize};
 /// A distance function over items stored as bytes.
 ///
 /// Implementations must be symmetric, zero on equal items and obey the triangle inequality
-/// for the lower bounds used by search to be valid.
+/// for the lower bounds used by search to be valid ([`check_axioms`] tests a sample).
+///
+/// The built-in metrics implement it, and so can a type of your own: an index built with
+/// it ([`crate::index::build_index_with_metric`]) records its [`Metric::name`] and is
+/// opened again with the same metric ([`crate::index::Index::open_with_metric`]).
 ///
 /// ```
 /// use waymark::metric::{Levenshtein, Metric, PreparedQuery};
@@ -64,8 +71,33 @@ pub trait Metric: Send + Sync {
     /// The prepared form of a query, reused for many comparisons.
     type Prepared: PreparedQuery;
 
-    /// Which metric this is, as recorded in an index file.
-    fn kind(&self) -> MetricKind;
+    /// Which metric this is, as recorded in an index file ([`MetricKind::Custom`], the
+    /// default, for a metric of your own).
+    fn kind(&self) -> MetricKind {
+        MetricKind::Custom
+    }
+
+    /// The metric's name, recorded in the index: the built-in metrics' names are their
+    /// kinds'; a metric of your own names itself, and an index built with it opens only
+    /// with a metric of the same name.
+    fn name(&self) -> &str {
+        self.kind().name()
+    }
+
+    /// Whether every distance is a whole number (lets stored coordinates be whole distances,
+    /// which makes the lower bounds of exact queries tighter). The default asks the kind.
+    fn is_integral(&self) -> bool {
+        self.kind().is_integral()
+    }
+
+    /// Whether the distance of two strings is at least their char-count gap and their
+    /// char-signature gap (see [`LevenshteinQuery::signature`]): true for unit-cost edit
+    /// distances, where each insertion, deletion or substitution changes one char. Exact
+    /// and range queries then use these bounds besides the stored coordinates. Default:
+    /// `false`.
+    fn bounded_by_char_counts(&self) -> bool {
+        false
+    }
 
     /// Prepares `query` for repeated comparison against items.
     fn prepare(&self, query: &[u8]) -> Self::Prepared;
@@ -83,14 +115,19 @@ pub trait PreparedQuery: Send + Sync {
 
     /// The distance if it is at most `bound`, else `None`.
     ///
-    /// Implementations stop early once the distance must exceed `bound`, which is what makes
-    /// re-ranking with a running k-th best distance cheap.
-    fn distance_within(&self, item: &[u8], bound: f64) -> Option<f64>;
+    /// Implementations may stop early once the distance must exceed `bound`, which is what
+    /// makes re-ranking with a running k-th best distance cheap. The default computes the
+    /// distance and compares.
+    fn distance_within(&self, item: &[u8], bound: f64) -> Option<f64> {
+        let d = self.distance(item);
+        (d <= bound).then_some(d)
+    }
 
     /// The distances from the query to each of `items`, written to `out` (same length).
     ///
     /// The default calls [`PreparedQuery::distance`] per item; metrics with a per-call cost
-    /// (such as an external program) answer the whole batch at once.
+    /// (such as an external program) or a kernel that measures several items together
+    /// (Levenshtein's vector lanes) answer the whole batch at once.
     ///
     /// # Panics
     ///
@@ -100,6 +137,18 @@ pub trait PreparedQuery: Send + Sync {
         for (o, item) in out.iter_mut().zip(items) {
             *o = self.distance(item);
         }
+    }
+
+    /// How many items [`PreparedQuery::distances`] is best given at once.
+    ///
+    /// 1 (the default): items are measured one at a time with
+    /// [`PreparedQuery::distance_within`], so that search can skip a candidate by its
+    /// lower bound and stop a distance early. More: search hands candidates to
+    /// [`PreparedQuery::distances`] in groups of this size and skips none, because one
+    /// distance in a group costs less than a skip test (Levenshtein's vector lanes: 64) or
+    /// every call is a round trip (an external program: `usize::MAX`, all at once).
+    fn group_size(&self) -> usize {
+        1
     }
 }
 
@@ -130,6 +179,8 @@ pub enum MetricKind {
     Graph,
     /// Distances computed by an external program.
     External,
+    /// A metric written in Rust against the library ([`Metric`]), recorded by its name.
+    Custom,
 }
 
 impl MetricKind {
@@ -147,6 +198,7 @@ impl MetricKind {
             MetricKind::Angular => "angular",
             MetricKind::Graph => "graph",
             MetricKind::External => "external",
+            MetricKind::Custom => "custom",
         }
     }
 
@@ -161,7 +213,8 @@ impl MetricKind {
             | MetricKind::Linf
             | MetricKind::Angular
             | MetricKind::Graph
-            | MetricKind::External => false,
+            | MetricKind::External
+            | MetricKind::Custom => false,
         }
     }
 }

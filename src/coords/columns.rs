@@ -64,7 +64,7 @@ pub const BINS: usize = 16;
 /// that), and counts saturate at 255, which keeps it a lower bound.
 ///
 /// ```
-/// use waymark::bounds::CharBins;
+/// use waymark::coords::columns::CharBins;
 ///
 /// let words: [&[u8]; 3] = [b"ferry", b"buoy", b"quay"];
 /// let bins = CharBins::fit(words.iter().copied());
@@ -274,7 +274,7 @@ impl Columns {
             assert_eq!(t.q.len(), self.cols, "one query value per column");
         }
         #[cfg(target_arch = "x86_64")]
-        if crate::scan::has_avx2() && std::arch::is_x86_feature_detected!("popcnt") {
+        if crate::cpu::has_avx2_popcnt() {
             // SAFETY: the CPU has AVX2 and popcnt, the features the function needs.
             unsafe { avx2::within_many(self, qs, &mut found) };
             return;

@@ -22,19 +22,16 @@
 //!   one vector of eight scores, stored at once; the histogram is then counted from the
 //!   stored scores, one block of rows at a time.
 //!
-//! The AVX2 path is chosen at run time ([`has_avx2`]); the portable path (plain loops,
+//! The AVX2 path is chosen at run time ([`crate::cpu::has_avx2`]); the portable path (plain loops,
 //! correct on any CPU) is used otherwise, for the last `n % 8` rows, and on other
 //! architectures. Both give identical scores and histograms; the tests check both against a
 //! direct scalar reference.
 
-use crate::search::Space;
+use super::{Space, STRIDES};
 
 /// Number of histogram bins filled by [`score_rows`]; scores at or past the last bin are
 /// counted in it.
 pub const HIST_BINS: usize = 1 << 14;
-
-/// The strides (bytes per coordinate row) that [`score_rows`] accepts.
-pub const STRIDES: [usize; 4] = [8, 16, 32, 64];
 
 /// Scores every row of `coords` against the query row `q` and counts the scores.
 ///
@@ -62,7 +59,7 @@ pub fn score_rows(
     let hist = check_args(coords, stride, out, hist);
     #[cfg(target_arch = "x86_64")]
     {
-        if has_avx2() {
+        if crate::cpu::has_avx2() {
             // SAFETY: the CPU supports AVX2 (checked on the line above), which is the only
             // requirement of the `target_feature` functions called here.
             unsafe {
@@ -96,19 +93,6 @@ pub fn score_rows_portable(
 ) {
     let hist = check_args(coords, stride, out, hist);
     portable_dispatch(coords, stride, q, space, out, hist);
-}
-
-/// Whether [`score_rows`] takes its AVX2 path on this CPU.
-pub fn has_avx2() -> bool {
-    #[cfg(target_arch = "x86_64")]
-    {
-        // The macro caches the CPUID result; this is one relaxed atomic load.
-        std::arch::is_x86_feature_detected!("avx2")
-    }
-    #[cfg(not(target_arch = "x86_64"))]
-    {
-        false
-    }
 }
 
 /// Checks the arguments shared by both entry points; returns the histogram as an array so
@@ -166,28 +150,9 @@ fn portable<const S: usize>(
 ) {
     let q: &[u8; S] = q[..S].try_into().expect("S <= 64");
     match space {
-        Space::L1 => portable_with::<S>(coords, out, hist, |r| {
-            let mut s = 0u32;
-            for i in 0..S {
-                s += u32::from(r[i].abs_diff(q[i]));
-            }
-            s
-        }),
-        Space::L2 => portable_with::<S>(coords, out, hist, |r| {
-            let mut s = 0u32;
-            for i in 0..S {
-                let d = u32::from(r[i].abs_diff(q[i]));
-                s += d * d;
-            }
-            s
-        }),
-        Space::Linf => portable_with::<S>(coords, out, hist, |r| {
-            let mut m = 0u8;
-            for i in 0..S {
-                m = m.max(r[i].abs_diff(q[i]));
-            }
-            u32::from(m)
-        }),
+        Space::L1 => portable_with::<S>(coords, out, hist, |r| super::l1(r, q)),
+        Space::L2 => portable_with::<S>(coords, out, hist, |r| super::l2(r, q)),
+        Space::Linf => portable_with::<S>(coords, out, hist, |r| super::linf(r, q)),
     }
 }
 

@@ -1,0 +1,325 @@
+//! Queries against an index: approximate k-NN, exact k-NN and range queries.
+//!
+//! A query reads top to bottom through four files:
+//!
+//! 1. **prepare and embed** (this file): the query is normalised as the items were and
+//!    prepared for the index's metric ([`crate::index::Index::query_key`]), then measured
+//!    against the reference items to get its landmark coordinates, exact and quantised;
+//! 2. **candidates** ([`candidates`]): the `C` items nearest in landmark coordinates — L1,
+//!    L2 or L∞ — from the nearest cells' rows (the default from [`CELLS_MIN_ITEMS`] items),
+//!    a SIMD scan of every row, or the kd-tree; picked off a score histogram;
+//! 3. **re-rank** ([`rerank`]): the candidates measured with the true distance, in groups for
+//!    metrics that measure groups best (Levenshtein's vector lanes, an external program),
+//!    else one by one nearest first, skipping a candidate whose L∞ lower bound exceeds the
+//!    current k-th distance and bounding the kernel by it;
+//! 4. **exact and range** ([`exact`]): items visited in increasing lower bound, round by
+//!    round over the column blocks, until no item left can belong to the answer, with a
+//!    [`Certificate`] of completeness.
+//!
+//! Answers are ordered by (distance, id, item) ([`order`]).
+//!
+//! ```no_run
+//! use waymark::index::Index;
+//! use waymark::search::{SearchParams, Searcher};
+//!
+//! let index = Index::open("names.wmk".as_ref())?;
+//! let searcher = Searcher::new(&index);
+//! let params = SearchParams::from_index(&index, 5);
+//! let found = searcher.search("Orvane Qauy", &params, &mut Default::default())?;
+//! for n in &found.neighbors {
+//!     println!("{:?} {}", index.id(n.index as usize), n.distance);
+//! }
+//! // Exact answers, with the certificate of their completeness:
+//! let exact = searcher.search_exact("Orvane Qauy", 5, &mut Default::default())?;
+//! let all_within_2 = searcher.search_within("Orvane Qauy", 2.0, None, &mut Default::default())?;
+//! println!("{:?} {}", exact.certificate, all_within_2.neighbors.len());
+//! # Ok::<(), waymark::Error>(())
+//! ```
+
+mod candidates;
+mod exact;
+pub mod order;
+mod request;
+mod rerank;
+
+use std::sync::OnceLock;
+
+use rayon::prelude::*;
+
+pub use self::candidates::Scratch;
+pub use self::order::Neighbor;
+pub use self::request::{
+    CandidateSource, Certificate, Found, Request, SearchParams, CELLS_MIN_ITEMS,
+    VISIT_PER_CANDIDATE,
+};
+pub use crate::coords::Space;
+pub use crate::index::{default_candidates, DEFAULT_CANDIDATES, DEFAULT_DIM};
+
+use crate::coords::columns::{CharBins, Columns};
+use crate::embed::Bound;
+use crate::error::{Error, Result};
+use crate::index::{Index, StrTable};
+use crate::metric::{AnyQuery, Metric, PreparedQuery};
+
+/// Runs queries against one index.
+pub struct Searcher<'a> {
+    index: &'a Index,
+    /// Keys of the reference items a query is measured against.
+    refs: Vec<&'a [u8]>,
+    keys: StrTable<'a>,
+    /// Lower bounds from stored coordinates; `None` disables pruning and exact answers.
+    bound: Option<Bound>,
+    /// Every key's char signature, made on the first exact query of an index whose metric
+    /// is bounded by char counts but whose column blocks do not hold them.
+    sigs: OnceLock<Vec<u64>>,
+    /// The coordinates in column blocks for exact queries, made on the first one, with the
+    /// char bins of their count columns when they have them.
+    columns: OnceLock<(Columns, Option<CharBins>)>,
+}
+
+/// A query prepared for the index: its key (normalised bytes), its prepared form and its
+/// stored (quantised) coordinates.
+struct Prepared {
+    key: Vec<u8>,
+    q: AnyQuery,
+    small: [u8; 64],
+}
+
+impl<'a> Searcher<'a> {
+    /// Prepares a searcher (collects the reference items' keys).
+    pub fn new(index: &'a Index) -> Searcher<'a> {
+        let refs = index
+            .meta()
+            .embedding
+            .refs()
+            .iter()
+            .map(|&l| index.key(l as usize))
+            .collect();
+        Searcher {
+            index,
+            refs,
+            keys: index.keys(),
+            bound: index.bound(),
+            sigs: OnceLock::new(),
+            columns: OnceLock::new(),
+        }
+    }
+
+    /// A searcher that uses no lower bound, whatever the index's embedding: no candidate is
+    /// pruned and exact queries are refused, as for an index whose embedding is not
+    /// contractive. Answers of [`Searcher::search`] are the same or better, only slower.
+    pub fn without_bound(index: &'a Index) -> Searcher<'a> {
+        Searcher {
+            bound: None,
+            ..Searcher::new(index)
+        }
+    }
+
+    /// The index searched.
+    pub fn index(&self) -> &'a Index {
+        self.index
+    }
+
+    /// Prepares a query for the index's metric: text is normalised as the items were (and
+    /// for Levenshtein gets the kernel's masks), a vector row is parsed, a graph query must
+    /// name a node. A query the metric cannot take is refused with the reason.
+    pub fn prepare(&self, query: &str) -> Result<AnyQuery> {
+        self.index.prepare_query(query)
+    }
+
+    /// A query prepared and embedded: one distance per reference item.
+    fn prepare_embedded(&self, query: &str, exact: Option<&mut [f32; 64]>) -> Result<Prepared> {
+        let key = self.index.query_key(query)?;
+        let metric = self.index.metric()?;
+        let q = metric.prepare(&key);
+        let meta = self.index.meta();
+        let mut dists = vec![0.0; self.refs.len()];
+        q.distances(&self.refs, &mut dists);
+        metric.check()?;
+        let mut coords = [0f64; 64];
+        meta.embedding.coords(&dists, &mut coords);
+        let mut small = [0u8; 64];
+        let dim = meta.dim as usize;
+        for (s, &c) in small.iter_mut().zip(&coords[..dim]) {
+            *s = crate::embed::quantize(c, meta.scale);
+        }
+        if let Some(exact) = exact {
+            for (e, &c) in exact.iter_mut().zip(&coords[..dim]) {
+                *e = c as f32;
+            }
+        }
+        Ok(Prepared { key, q, small })
+    }
+
+    /// Finds approximate k nearest neighbours of `query`.
+    pub fn search(&self, query: &str, p: &SearchParams, scratch: &mut Scratch) -> Result<Found> {
+        self.check(&Request::Approximate(*p))?;
+        let mut exact = [0f32; 64];
+        let want_exact = p.source == CandidateSource::Tree;
+        let pq = self.prepare_embedded(query, want_exact.then_some(&mut exact))?;
+        let c = p.candidates.max(p.k).min(self.index.len());
+        match p.source {
+            CandidateSource::Scan => self.scan_candidates(&pq.small, c, p.space, scratch),
+            CandidateSource::Cells => {
+                self.cells_candidates(&pq.small, c, p.visit, p.space, scratch)?
+            }
+            CandidateSource::Tree => self.tree_candidates(&exact, c, p.space, scratch)?,
+        }
+        self.rerank(&pq, p.k, &scratch.picked)
+    }
+
+    /// Exact k nearest neighbours of `query`: the same answer as a brute force over every
+    /// item (same distances, ties ordered by id, then item number), with its [`Certificate`].
+    ///
+    /// Refused (a usage error) when the index's embedding gives no lower bound.
+    pub fn search_exact(&self, query: &str, k: usize, scratch: &mut Scratch) -> Result<Found> {
+        self.answer(query, &Request::Exact { k }, scratch)
+    }
+
+    /// Every item at true distance at most `radius` from `query`, exactly, in answer order;
+    /// with `k`, only the `k` nearest of them (as [`Searcher::search_exact`], within the
+    /// radius). Refused when the index's embedding gives no lower bound.
+    pub fn search_within(
+        &self,
+        query: &str,
+        radius: f64,
+        k: Option<usize>,
+        scratch: &mut Scratch,
+    ) -> Result<Found> {
+        self.answer(query, &Request::Within { radius, k }, scratch)
+    }
+
+    /// Checks that `req` can be answered on this index (parameters in range, a lower bound
+    /// for exact requests), without running a query.
+    pub fn check(&self, req: &Request) -> Result<()> {
+        let k = match *req {
+            Request::Approximate(p) => {
+                if p.k == 0 {
+                    return Err(Error::Usage("-k must be at least 1".into()));
+                }
+                if p.candidates == 0 {
+                    return Err(Error::Usage("--candidates must be at least 1".into()));
+                }
+                Some(p.k)
+            }
+            Request::Exact { k } => Some(k),
+            Request::Within { radius, k } => {
+                if !(radius >= 0.0 && radius.is_finite()) {
+                    return Err(Error::Usage(format!(
+                        "--within must be a finite distance of at least 0, not {radius}"
+                    )));
+                }
+                k
+            }
+        };
+        if k == Some(0) {
+            return Err(Error::Usage("-k must be at least 1".into()));
+        }
+        if !matches!(req, Request::Approximate(_)) {
+            self.require_bound()?;
+        }
+        Ok(())
+    }
+
+    /// Answers one request.
+    pub fn answer(&self, query: &str, req: &Request, scratch: &mut Scratch) -> Result<Found> {
+        match *req {
+            Request::Approximate(p) => self.search(query, &p, scratch),
+            Request::Exact { k } => {
+                self.check(req)?;
+                self.exact(query, Some(k), None)
+            }
+            Request::Within { radius, k } => {
+                self.check(req)?;
+                self.exact(query, k, Some(radius))
+            }
+        }
+    }
+
+    /// Runs many approximate queries in parallel; answers come back in input order.
+    ///
+    /// With the scan source, queries are taken in blocks whose coordinates are scored
+    /// together in one pass over the stored rows; answers are those of [`Searcher::search`].
+    pub fn search_many(&self, queries: &[String], p: &SearchParams) -> Vec<Result<Found>> {
+        // Cells touch a small part of the rows: each query goes on its own.
+        if p.source != CandidateSource::Scan || self.check(&Request::Approximate(*p)).is_err() {
+            return queries
+                .par_iter()
+                .map_init(Scratch::default, |s, q| self.search(q, p, s))
+                .collect();
+        }
+        let blocks: Vec<Vec<Result<Found>>> = queries
+            .par_chunks(candidates::QUERY_BLOCK)
+            .map_init(Vec::new, |s, block| self.search_block(block, p, s))
+            .collect();
+        blocks.into_iter().flatten().collect()
+    }
+
+    /// Answers many requests in parallel; answers come back in input order.
+    pub fn answer_many(&self, queries: &[String], req: &Request) -> Vec<Result<Found>> {
+        let (k, radius) = match *req {
+            Request::Approximate(p) => return self.search_many(queries, &p),
+            Request::Exact { k } => (Some(k), None),
+            Request::Within { radius, k } => (k, Some(radius)),
+        };
+        if self.check(req).is_err() {
+            // Every query gets the same error, as from one call each.
+            return queries
+                .par_iter()
+                .map_init(Scratch::default, |s, q| self.answer(q, req, s))
+                .collect();
+        }
+        let blocks: Vec<Vec<Result<Found>>> = queries
+            .par_chunks(candidates::QUERY_BLOCK)
+            .map(|block| self.exact_block(block, k, radius))
+            .collect();
+        blocks.into_iter().flatten().collect()
+    }
+
+    /// Approximate answers for a block of queries (scan source): candidates from one tiled
+    /// pass ([`Searcher::score_block`]), then as [`Searcher::search`].
+    fn search_block(
+        &self,
+        block: &[String],
+        p: &SearchParams,
+        s: &mut Vec<Scratch>,
+    ) -> Vec<Result<Found>> {
+        let Ok(prepared) = block
+            .iter()
+            .map(|q| self.prepare_embedded(q, None))
+            .collect::<Result<Vec<Prepared>>>()
+        else {
+            // A query the metric cannot take: one at a time, so each gets its own answer.
+            return block
+                .iter()
+                .map(|q| self.search(q, p, &mut Scratch::default()))
+                .collect();
+        };
+        let smalls: Vec<[u8; 64]> = prepared.iter().map(|p| p.small).collect();
+        if s.len() < block.len() {
+            s.resize_with(block.len(), Scratch::default);
+        }
+        self.score_block(&smalls, p.space, s);
+        let c = p.candidates.max(p.k).min(self.index.len());
+        prepared
+            .iter()
+            .zip(s.iter_mut())
+            .map(|(pq, sc)| {
+                sc.select(c);
+                self.rerank(pq, p.k, &sc.picked)
+            })
+            .collect()
+    }
+
+    fn require_bound(&self) -> Result<Bound> {
+        self.bound.ok_or_else(|| {
+            Error::Usage(format!(
+                "{}: exact answers need a lower bound of the true distance, and this index's \
+                 {} embedding gives none (its coordinates are not contractive); \
+                 leave out --exact and --within for approximate answers",
+                self.index.path().display(),
+                self.index.meta().embedding.name()
+            ))
+        })
+    }
+}

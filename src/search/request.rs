@@ -1,0 +1,132 @@
+//! What a query asks for ([`Request`], [`SearchParams`]) and what it gets back ([`Found`]).
+
+use serde::{Deserialize, Serialize};
+
+use super::order::Neighbor;
+use crate::coords::Space;
+use crate::index::Index;
+
+/// The smallest index whose default candidate source is its cells ([`CandidateSource::Cells`]).
+/// Below it the scan of every row is cheap, and cells of a few dozen items group little;
+/// `benches/end_to_end.rs` measures both sources (figures in the README).
+pub const CELLS_MIN_ITEMS: usize = 50_000;
+
+/// Rows compared per candidate when candidates come from cells
+/// ([`CandidateSource::Cells`]): cells are visited until `VISIT_PER_CANDIDATE · C` rows have
+/// been compared. Chosen with `benches/big.rs` (figures in the README).
+pub const VISIT_PER_CANDIDATE: usize = 12;
+
+/// Where candidates come from.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum CandidateSource {
+    /// A SIMD pass over the compact coordinates with histogram selection.
+    #[default]
+    Scan,
+    /// The same pass over the rows of the cells nearest the query only (the index's cells,
+    /// see [`crate::index::cells`]), until [`SearchParams::visit`] rows are compared; the
+    /// default for indexes of [`CELLS_MIN_ITEMS`] items or more.
+    Cells,
+    /// kiddo's `nearest_n` on the kd-tree.
+    Tree,
+}
+
+/// Parameters of a query.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct SearchParams {
+    /// Number of neighbours wanted.
+    pub k: usize,
+    /// Number of candidates re-ranked by the true distance.
+    pub candidates: usize,
+    /// The space candidates are ranked in.
+    pub space: Space,
+    /// Where candidates come from.
+    pub source: CandidateSource,
+    /// With [`CandidateSource::Cells`]: cells are visited nearest first until at least this
+    /// many rows have been compared (at least `candidates`; 0: every row). Ignored by the
+    /// other sources.
+    pub visit: usize,
+}
+
+impl SearchParams {
+    /// The index's stored defaults with `k` neighbours: its candidates and space, cells as
+    /// the source when the index has them and at least [`CELLS_MIN_ITEMS`] items (else the
+    /// scan), and
+    /// [`VISIT_PER_CANDIDATE`] rows compared per candidate.
+    pub fn from_index(index: &Index, k: usize) -> SearchParams {
+        let candidates = index.meta().candidates as usize;
+        SearchParams {
+            k,
+            candidates,
+            space: index.meta().space,
+            source: if index.has_cells() && index.len() >= CELLS_MIN_ITEMS {
+                CandidateSource::Cells
+            } else {
+                CandidateSource::Scan
+            },
+            visit: candidates.saturating_mul(VISIT_PER_CANDIDATE),
+        }
+    }
+
+    /// These parameters with `candidates` and the matching default `visit`.
+    pub fn with_candidates(self, candidates: usize) -> SearchParams {
+        SearchParams {
+            candidates,
+            visit: candidates.saturating_mul(VISIT_PER_CANDIDATE),
+            ..self
+        }
+    }
+}
+
+/// The answer to one query.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct Found {
+    /// Neighbours sorted by (distance, id).
+    pub neighbors: Vec<Neighbor>,
+    /// True-distance computations made (landmarks plus re-ranked candidates).
+    pub distances: usize,
+    /// Candidates skipped because their lower bound exceeded the k-th distance.
+    pub pruned: usize,
+    /// For exact answers ([`super::Searcher::search_exact`], [`super::Searcher::search_within`]): why no
+    /// other item can belong to the answer.
+    pub certificate: Option<Certificate>,
+}
+
+/// The evidence that an exact answer is complete.
+///
+/// Items are visited in increasing order of their lower bound: the stored L∞ bound, for
+/// Levenshtein k-NN queries raised to the gap of lengths or of char signatures when that is
+/// larger (see [`crate::metric::LevenshteinQuery::signature`]). Every item that was not examined has a
+/// lower bound of at least [`Certificate::bound`], which is at least the k-th distance
+/// returned (k-NN) or above the radius (range query); an item examined but not measured
+/// either had a bound equal to the k-th distance and an (id, index) that sorts after the
+/// k-th answer's, so it could at best tie and lose the tie, or (Levenshtein) a length or
+/// signature gap above the k-th distance or the radius.
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Certificate {
+    /// Items visited in bound order (each compared with the stopping rule).
+    pub examined: usize,
+    /// True distances computed on items with the bounded kernel (landmarks not included).
+    pub computed: usize,
+    /// The smallest lower bound among items not examined; `None` when every item was.
+    pub bound: Option<f64>,
+}
+
+/// What a query asks for.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub enum Request {
+    /// Approximate k-NN ([`super::Searcher::search`]).
+    Approximate(SearchParams),
+    /// Exact k-NN ([`super::Searcher::search_exact`]).
+    Exact {
+        /// Number of neighbours.
+        k: usize,
+    },
+    /// Every item within a distance, or the k nearest of them ([`super::Searcher::search_within`]).
+    Within {
+        /// The largest distance returned.
+        radius: f64,
+        /// At most this many answers (the nearest), or all.
+        k: Option<usize>,
+    },
+}

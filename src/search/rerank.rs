@@ -1,0 +1,145 @@
+//! Re-ranking: the candidates measured with the true distance, the best `k` kept.
+//!
+//! A query whose metric measures groups best ([`PreparedQuery::group_size`] above 1:
+//! Levenshtein's vector lanes, 64 items per call; an external program, every candidate in
+//! one round trip) gets its candidates in groups, and none is skipped: a distance in a lane
+//! costs less than the cache miss of fetching a candidate's coordinate row for its bound.
+//! Other metrics go one candidate at a time, nearest first: once `k` answers are held, a
+//! candidate whose L∞ lower bound exceeds the current k-th distance is skipped without a
+//! distance computed, and the others are measured with the k-th distance as the kernel's
+//! bound.
+//!
+//! Keys sit at scattered places in the file, two dependent loads each (offset, then bytes):
+//! both paths fetch offsets two steps ahead and bytes one step ahead.
+
+use super::order::{keep_best, Neighbor};
+use super::{Found, Prepared, Searcher};
+use crate::coords::{score, Space};
+use crate::error::Result;
+use crate::metric::{AnyQuery, PreparedQuery};
+
+/// How far ahead (in candidates) the one-by-one path fetches item bytes; offsets and
+/// coordinate rows are fetched twice as far ahead.
+const AHEAD: usize = 8;
+
+impl Searcher<'_> {
+    /// Re-ranks the candidates picked for a query; the reference distances are counted in,
+    /// and a metric program's failure is reported.
+    pub(super) fn rerank(&self, pq: &Prepared, k: usize, picked: &[(u32, u32)]) -> Result<Found> {
+        let metric = self.index.metric()?;
+        let group = pq.q.group_size();
+        let mut found = if group > 1 {
+            self.rerank_groups(&pq.q, k, picked, group)
+        } else {
+            self.rerank_each(&pq.q, &pq.small, k, picked)
+        };
+        metric.check()?;
+        found.distances += self.refs.len();
+        Ok(found)
+    }
+
+    /// Measures the candidates `group` at a time with [`PreparedQuery::distances`]; the
+    /// next group's keys are fetched while a group is measured.
+    fn rerank_groups(&self, q: &AnyQuery, k: usize, cands: &[(u32, u32)], group: usize) -> Found {
+        let mut best: Vec<Neighbor> = Vec::with_capacity(k + 1);
+        let size = group.min(cands.len()).max(1);
+        let mut keys: Vec<&[u8]> = Vec::with_capacity(size);
+        let mut out = vec![0f64; size];
+        let groups: Vec<&[(u32, u32)]> = cands.chunks(size).collect();
+        for g in groups.iter().take(2) {
+            for &(_, i) in *g {
+                self.keys.prefetch_offsets(i as usize);
+            }
+        }
+        for (at, g) in groups.iter().enumerate() {
+            if let Some(next) = groups.get(at + 1) {
+                for &(_, i) in *next {
+                    self.keys.prefetch_bytes(i as usize);
+                }
+            }
+            if let Some(later) = groups.get(at + 2) {
+                for &(_, i) in *later {
+                    self.keys.prefetch_offsets(i as usize);
+                }
+            }
+            keys.clear();
+            keys.extend(g.iter().map(|&(_, i)| self.keys.get(i as usize)));
+            let out = &mut out[..g.len()];
+            q.distances(&keys, out);
+            for (&(_, i), &distance) in g.iter().zip(out.iter()) {
+                keep_best(self.index, &mut best, k, Neighbor { index: i, distance });
+            }
+        }
+        Found {
+            neighbors: best,
+            distances: cands.len(),
+            pruned: 0,
+            certificate: None,
+        }
+    }
+
+    /// Measures the candidates one at a time, in the order given, skipping those whose
+    /// lower bound exceeds the k-th distance held.
+    fn rerank_each(&self, q: &AnyQuery, small: &[u8; 64], k: usize, cands: &[(u32, u32)]) -> Found {
+        let stride = self.index.stride();
+        let coords = self.index.coords();
+        let bound = self.bound;
+        let mut best: Vec<Neighbor> = Vec::with_capacity(k + 1);
+        let mut distances = 0;
+        let mut pruned = 0;
+        for &(_, i) in cands.iter().take(2 * AHEAD) {
+            self.keys.prefetch_offsets(i as usize);
+        }
+        for (j, &(_, i)) in cands.iter().enumerate() {
+            if let Some(&(_, f)) = cands.get(j + 2 * AHEAD) {
+                self.keys.prefetch_offsets(f as usize);
+                if let Some(r) = coords.get(f as usize * stride..) {
+                    crate::cpu::prefetch(r.as_ptr());
+                }
+            }
+            if let Some(&(_, f)) = cands.get(j + AHEAD) {
+                self.keys.prefetch_bytes(f as usize);
+            }
+            let iu = i as usize;
+            let full = best.len() == k;
+            let kth = if full {
+                best[k - 1].distance
+            } else {
+                f64::INFINITY
+            };
+            if let (true, Some(b)) = (full, bound) {
+                let row = coords.get(iu * stride..iu * stride + stride).unwrap_or(&[]);
+                let diff = score(row, small, Space::Linf).min(255) as u8;
+                if b.lower(diff) > kth {
+                    pruned += 1;
+                    continue;
+                }
+            }
+            distances += 1;
+            let item = self.keys.get(iu);
+            let d = if full {
+                match q.distance_within(item, kth) {
+                    Some(d) => d,
+                    None => continue,
+                }
+            } else {
+                q.distance(item)
+            };
+            keep_best(
+                self.index,
+                &mut best,
+                k,
+                Neighbor {
+                    index: i,
+                    distance: d,
+                },
+            );
+        }
+        Found {
+            neighbors: best,
+            distances,
+            pruned,
+            certificate: None,
+        }
+    }
+}
