@@ -1,14 +1,22 @@
-//! A metric of your own: implement `Metric` and `PreparedQuery`, then use it like the
-//! built-in ones. Here: buoy identifiers of the Vessmark archipelago, `AREA-NNNN`, where a
-//! different area costs 10 and the numbers count by their difference, capped at 9 (so any
-//! two buoys of one area are closer than buoys of two areas).
+//! A metric of your own, written in Rust: implement `Metric` and `PreparedQuery`, build an
+//! index with it, open the index with it again, and ask approximate, exact and range
+//! queries.
 //!
-//! It is a metric: the area part is the discrete metric times 10, the number part
-//! min(|a − b|, 9) (a capped metric is a metric), and a sum of metrics is a metric.
+//! Here: buoy identifiers of the Vessmark archipelago, `AREA-NNNN`, where a different area
+//! costs 10 and the numbers count by their difference, capped at 9 (so any two buoys of one
+//! area are closer than buoys of two areas). It is a metric: the area part is the discrete
+//! metric times 10, the number part min(|a − b|, 9) (a capped metric is a metric), and a sum
+//! of metrics is a metric.
 //!
-//! Run with `cargo run --example custom_metric`.
+//! Every answer is checked against a brute force over all buoys; the program exits with an
+//! error on the first difference. Run with `cargo run --release --example custom_metric`.
 
-use waymark::metric::{Metric, MetricKind, PreparedQuery};
+use std::io::Cursor;
+
+use waymark::index::{build_index_with_metric, BuildOptions, Index};
+use waymark::ingest::{read_corpus_from, IngestOptions};
+use waymark::metric::{CustomMetric, Metric, PreparedQuery};
+use waymark::search::{Found, SearchParams, Searcher};
 
 /// Distance between buoy identifiers such as `SKR-0417`.
 struct BuoyDistance;
@@ -51,20 +59,19 @@ impl PreparedQuery for BuoyQuery {
     fn distance(&self, item: &[u8]) -> f64 {
         between(&self.0, &parse(item))
     }
-
-    fn distance_within(&self, item: &[u8], bound: f64) -> Option<f64> {
-        let d = self.distance(item);
-        (d <= bound).then_some(d)
-    }
 }
 
 impl Metric for BuoyDistance {
     type Prepared = BuoyQuery;
 
-    /// Until custom metrics are recorded in an index, a custom metric borrows the kind of
-    /// the program-computed metrics.
-    fn kind(&self) -> MetricKind {
-        MetricKind::External
+    /// Recorded in the index; opening it needs a metric of the same name.
+    fn name(&self) -> &str {
+        "buoy"
+    }
+
+    /// Whole numbers: stored coordinates are exact and exact queries prune more.
+    fn is_integral(&self) -> bool {
+        true
     }
 
     fn prepare(&self, query: &[u8]) -> BuoyQuery {
@@ -72,32 +79,99 @@ impl Metric for BuoyDistance {
     }
 }
 
-/// The `k` nearest items by brute force, ordered by (distance, index).
-fn nearest<M: Metric>(metric: &M, items: &[&str], query: &str, k: usize) -> Vec<(f64, usize)> {
-    let q = metric.prepare(query.as_bytes());
-    let bytes: Vec<&[u8]> = items.iter().map(|s| s.as_bytes()).collect();
-    let mut d = vec![0.0; items.len()];
-    q.distances(&bytes, &mut d);
-    let mut order: Vec<(f64, usize)> = d.into_iter().zip(0..).collect();
-    order.sort_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)));
-    order.truncate(k);
-    order
+/// Invented buoys: three areas of the archipelago, numbers from a fixed stride.
+fn buoys() -> Vec<String> {
+    let areas = ["SKR", "ORV", "KTH"];
+    (0..3000u32)
+        .map(|i| format!("{}-{:04}", areas[(i % 3) as usize], (i * 7919) % 9973))
+        .collect()
 }
 
-fn main() {
-    // Invented buoys of the Vessmark archipelago: Skarholm (SKR), Orvane (ORV), Keth (KTH).
-    let buoys = [
-        "SKR-0410", "SKR-0417", "SKR-0433", "ORV-0417", "ORV-0012", "KTH-0418", "KTH-0420",
-        "SKR-0415", "ORV-0419", "KTH-0001",
-    ];
-    for query in ["SKR-0416", "KTH-0419", "ORV-0500"] {
-        println!("{query}:");
-        for (d, i) in nearest(&BuoyDistance, &buoys, query, 3) {
-            println!("  {:<9} {d}", buoys[i]);
-        }
+/// Every buoy as (distance, item number), by brute force, in answer order (distance, then
+/// item number: the ids are record numbers here).
+fn brute_force(items: &[String], query: &str) -> Vec<(f64, u32)> {
+    let q = parse(query.as_bytes());
+    let mut all: Vec<(f64, u32)> = items
+        .iter()
+        .enumerate()
+        .map(|(i, s)| (between(&q, &parse(s.as_bytes())), i as u32))
+        .collect();
+    all.sort_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)));
+    all
+}
+
+fn pairs(found: &Found) -> Vec<(f64, u32)> {
+    found
+        .neighbors
+        .iter()
+        .map(|n| (n.distance, n.index))
+        .collect()
+}
+
+fn main() -> Result<(), Box<dyn std::error::Error>> {
+    let items = buoys();
+    let text = items.join("\n");
+    let corpus = read_corpus_from(Cursor::new(text), "buoys", &IngestOptions::default())?;
+    let dir = tempfile::tempdir()?;
+    let path = dir.path().join("buoys.wmk");
+    let metric = CustomMetric::new(BuoyDistance);
+    let opts = BuildOptions {
+        dim: 8,
+        ..BuildOptions::default()
+    };
+    let report = build_index_with_metric(&corpus, "buoys", &opts, &metric, &path, &|_| {})?;
+    println!(
+        "built an index of {} buoys with the custom metric `{}` ({} bytes)",
+        report.meta.n,
+        metric.name(),
+        report.file_len
+    );
+
+    // Opening needs the metric again; a plain open says which one.
+    if let Err(e) = Index::open(&path).and_then(|i| i.metric().map(|_| ())) {
+        println!("opened without it: {e}");
     }
-    // The bounded form, as re-ranking uses it.
-    let q = BuoyDistance.prepare(b"SKR-0416");
-    assert_eq!(q.distance_within(b"SKR-0417", 1.0), Some(1.0));
-    assert_eq!(q.distance_within(b"ORV-0417", 5.0), None);
+    let index = Index::open_with_metric(&path, &metric)?;
+    let searcher = Searcher::new(&index);
+    let k = 5;
+    let mut checked = 0;
+    for query in ["SKR-0416", "KTH-0419", "ORV-5000", "ORV-12", "XYZ-0001"] {
+        let truth = brute_force(&items, query);
+        let kth = truth[k - 1].0;
+
+        let exact = searcher.search_exact(query, k, &mut Default::default())?;
+        if pairs(&exact) != truth[..k] {
+            return Err(format!("{query}: exact answer differs from brute force").into());
+        }
+        let within = searcher.search_within(query, 3.0, None, &mut Default::default())?;
+        let want: Vec<(f64, u32)> = truth.iter().copied().filter(|p| p.0 <= 3.0).collect();
+        if pairs(&within) != want {
+            return Err(format!("{query}: range answer differs from brute force").into());
+        }
+        // Approximate: every answer a true distance, none nearer than the true k-th missed
+        // (threshold recall), with all items as candidates the answer is exact.
+        let params = SearchParams::from_index(&index, k).with_candidates(items.len());
+        let approx = searcher.search(query, &params, &mut Default::default())?;
+        if pairs(&approx) != truth[..k] {
+            return Err(format!("{query}: approximate answer with every candidate differs").into());
+        }
+        let quick = searcher.search(
+            query,
+            &SearchParams::from_index(&index, k),
+            &mut Default::default(),
+        )?;
+        let hits = quick.neighbors.iter().filter(|n| n.distance <= kth).count();
+        println!(
+            "{query}: exact {:?}; {} within 3; approximate {hits}/{k} within the true 5th distance {kth}",
+            exact
+                .neighbors
+                .iter()
+                .map(|n| format!("{} {}", items[n.index as usize], n.distance))
+                .collect::<Vec<_>>(),
+            within.neighbors.len(),
+        );
+        checked += 1;
+    }
+    println!("{checked} queries: exact, range and all-candidate answers equal the brute force");
+    Ok(())
 }

@@ -9,7 +9,9 @@ use crate::coords::Space;
 use crate::embed::{embed_items, quantize, EmbedOptions, Embedded, Method, MAX_DIM};
 use crate::error::{Error, Result};
 use crate::ingest::{Corpus, Ids, Normalize};
-use crate::metric::{check_axioms, check_equal_lengths, AnyMetric, AxiomReport, Graph, MetricSpec};
+use crate::metric::{
+    check_axioms, check_equal_lengths, AnyMetric, AxiomReport, CustomMetric, Graph, MetricSpec,
+};
 
 /// Parameters of a build.
 #[derive(Clone, Debug)]
@@ -96,9 +98,38 @@ pub fn build_index(
     dest: &Path,
     progress: &(dyn Fn(usize) + Sync),
 ) -> Result<BuildReport> {
+    build(corpus, source, opts, None, dest, progress)
+}
+
+/// Builds an index of `corpus` at `dest` with a metric of your own (`opts.metric` is not
+/// used). The index records the metric's name; open it with [`super::Index::open_with_metric`]
+/// and the same metric. See `examples/custom_metric.rs`.
+pub fn build_index_with_metric(
+    corpus: &Corpus,
+    source: &str,
+    opts: &BuildOptions,
+    metric: &CustomMetric,
+    dest: &Path,
+    progress: &(dyn Fn(usize) + Sync),
+) -> Result<BuildReport> {
+    build(corpus, source, opts, Some(metric), dest, progress)
+}
+
+/// The build behind [`build_index`] and [`build_index_with_metric`].
+fn build(
+    corpus: &Corpus,
+    source: &str,
+    opts: &BuildOptions,
+    custom: Option<&CustomMetric>,
+    dest: &Path,
+    progress: &(dyn Fn(usize) + Sync),
+) -> Result<BuildReport> {
     check_options(corpus, source, opts)?;
     let keys = corpus.key_bytes();
-    let (spec, metric) = open_metric(&keys, source, opts)?;
+    let (spec, metric) = match custom {
+        Some(m) => (MetricSpec::custom(m), AnyMetric::Custom(m.clone())),
+        None => open_metric(&keys, source, opts)?,
+    };
     // Start the file first: an unwritable destination fails before the expensive part.
     let writer = ContainerWriter::create(dest)?;
     let t0 = Instant::now();

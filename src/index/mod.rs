@@ -28,7 +28,8 @@ use memmap2::Mmap;
 use serde::{Deserialize, Serialize};
 
 pub use build::{
-    build_index, build_index_from, open_metric, BuildOptions, BuildReport, AXIOM_SAMPLE,
+    build_index, build_index_from, build_index_with_metric, open_metric, BuildOptions, BuildReport,
+    AXIOM_SAMPLE,
 };
 use file::{Section, SectionKind};
 
@@ -268,6 +269,50 @@ impl Index {
             graph,
             metric: OnceLock::new(),
         })
+    }
+
+    /// Opens an index built with a metric of your own ([`build_index_with_metric`]),
+    /// supplying that metric again: the code of a metric is not in the file, only its name.
+    ///
+    /// Refused when the index records another metric, or the same name with another
+    /// answer to [`crate::metric::Metric::is_integral`].
+    pub fn open_with_metric(path: &Path, metric: &crate::metric::CustomMetric) -> Result<Index> {
+        use crate::metric::Metric;
+        let index = Index::open(path)?;
+        let bad = |message: String| Error::Index {
+            path: path.to_path_buf(),
+            message,
+        };
+        match &index.meta.metric_spec {
+            MetricSpec::Custom { name, integral } => {
+                if name != metric.name() {
+                    return Err(bad(format!(
+                        "built with the custom metric `{name}`, not `{}`",
+                        metric.name()
+                    )));
+                }
+                if *integral != metric.is_integral() {
+                    return Err(bad(format!(
+                        "the custom metric `{name}` was recorded with {} distances, \
+                         but the metric given has {}",
+                        if *integral { "whole" } else { "fractional" },
+                        if metric.is_integral() {
+                            "whole"
+                        } else {
+                            "fractional"
+                        },
+                    )));
+                }
+            }
+            other => {
+                return Err(bad(format!(
+                    "built with the {} metric, not a custom one; open it with Index::open",
+                    other.kind()
+                )))
+            }
+        }
+        let _ = index.metric.set(Ok(AnyMetric::Custom(metric.clone())));
+        Ok(index)
     }
 
     /// How to turn stored coordinate differences into lower bounds of the true distance, or
