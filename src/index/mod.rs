@@ -378,6 +378,11 @@ impl Index {
         })
     }
 
+    /// The bytes of the graph section (the edge list of a graph index), unchecked.
+    pub(crate) fn graph_section(&self) -> Option<&[u8]> {
+        self.graph.as_ref().map(|r| &self.map[r.clone()])
+    }
+
     /// Whether the file has cells (see [`Index::cells`]; not checked by this call).
     pub fn has_cells(&self) -> bool {
         self.cells.is_some()
