@@ -16,7 +16,7 @@ use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use sha2::{Digest, Sha256};
 
-use super::brute::brute_force;
+use super::brute::brute_force_k;
 use crate::error::{Error, Result};
 use crate::index::{IdRef, Index};
 use crate::search::Neighbor;
@@ -149,18 +149,25 @@ pub fn cache_path(queries_file: &Path, index_key: &str, k: usize) -> PathBuf {
     queries_file.with_file_name(format!("{name}.truth-{}-k{k}.json", &index_key[..16]))
 }
 
-/// Exact answers by brute force on all cores ([`brute_force`]); `progress` is called with the
-/// number of queries done since the last call.
+/// Exact answers by brute force on all cores ([`super::brute_force`]); `progress` is called
+/// with the number of queries done since the last call. For `k = 0` every answer is empty.
 pub fn compute_truth(
     index: &Index,
     queries: &[String],
     k: usize,
     progress: &(dyn Fn(usize) + Sync),
 ) -> Truth {
+    let Some(nz) = std::num::NonZeroUsize::new(k) else {
+        progress(queries.len());
+        return Truth {
+            k,
+            answers: vec![Vec::new(); queries.len()],
+        };
+    };
     let answers = queries
         .par_iter()
         .map(|q| {
-            let a = brute_force(index, q, k);
+            let a = brute_force_k(index, q, nz);
             progress(1);
             a
         })
