@@ -229,7 +229,12 @@ fn write_cache(path: &Path, c: &CacheFile) -> Result<()> {
         .parent()
         .filter(|p| !p.as_os_str().is_empty())
         .unwrap_or(Path::new("."));
-    let mut tmp = tempfile::NamedTempFile::new_in(dir).map_err(io)?;
+    // Created with the mode of any new file (not a temporary file's 0600), which the
+    // rename keeps; see `new_file_permissions`.
+    let mut tmp = tempfile::Builder::new()
+        .permissions(crate::index::file::new_file_permissions())
+        .tempfile_in(dir)
+        .map_err(io)?;
     serde_json::to_writer(&mut tmp, c).map_err(|e| io(std::io::Error::other(e)))?;
     tmp.persist(path).map_err(|e| io(e.error))?;
     Ok(())
