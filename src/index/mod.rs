@@ -443,7 +443,10 @@ impl Index {
             })
         });
         self.checked(checked)?;
-        Ok(tree::TreeView::validated(bytes, dim, self.len()))
+        // SAFETY: `tree_checked` holds `Ok` only once `TreeView::open` accepted these bytes
+        // with this `dim` and `len()`: `self.tree`, `meta` and the read-only mapping are fixed
+        // when the index is opened and never change, so they are the bytes it checked.
+        Ok(unsafe { tree::TreeView::validated(bytes, dim, self.len()) })
     }
 }
 

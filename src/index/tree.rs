@@ -397,8 +397,15 @@ impl<'a> TreeView<'a> {
         })
     }
 
-    /// A view of bytes that [`TreeView::open`] has already validated.
-    pub(crate) fn validated(bytes: &'a [u8], dim: usize, size: usize) -> TreeView<'a> {
+    /// A view of bytes that [`TreeView::open`] has already validated, without checking
+    /// them again.
+    ///
+    /// # Safety
+    ///
+    /// [`TreeView::open`] must have returned `Ok` for these exact bytes (same address and
+    /// length, unchanged since) with the same `dim` and `size`: the view's queries read the
+    /// archive with kiddo's unchecked accesses, which only that check makes sound.
+    pub(crate) unsafe fn validated(bytes: &'a [u8], dim: usize, size: usize) -> TreeView<'a> {
         TreeView {
             bytes,
             tree_dim: tree_dim(dim),
@@ -441,9 +448,10 @@ impl<'a> TreeView<'a> {
         space: Space,
         out: &mut Vec<(u32, f32)>,
     ) {
-        // SAFETY: every TreeView is made by `open`, or by `validated` after `open` succeeded,
-        // which ran rkyv's validating `access` and `check_k` (every field kiddo's queries
-        // trust) on these exact bytes with the same K; the bytes are immutable for 'a.
+        // SAFETY: every TreeView is made by `open`, or by `validated`, whose contract is that
+        // `open` succeeded before; `open` ran rkyv's validating `access` and `check_k` (every
+        // field kiddo's queries trust) on these exact bytes with the same K; the bytes are
+        // immutable for 'a.
         let t = unsafe { rkyv::access_unchecked::<Archived<K>>(self.bytes) };
         let mut q = [0f32; K];
         let d = self.dim.min(K).min(query.len());
