@@ -148,10 +148,10 @@ fn main() {
     let plain = Searcher::new(&index);
 
     let t = Instant::now();
-    let truth = scan_many(&index, &queries, k, Scan::Full);
+    let truth = scan_many(&index, &queries, k, Scan::Full).expect("k > 0");
     let full_qps = nq as f64 / t.elapsed().as_secs_f64();
     let t = Instant::now();
-    let best = scan_many(&index, &queries, k, Scan::Best);
+    let best = scan_many(&index, &queries, k, Scan::Best).expect("k > 0");
     let best_qps = nq as f64 / t.elapsed().as_secs_f64();
     assert_eq!(truth, best, "the two brute forces disagree");
     let truth_d: Vec<Vec<f64>> = truth

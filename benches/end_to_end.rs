@@ -103,10 +103,10 @@ fn main() {
     assert!(!first.neighbors.is_empty());
 
     let t = Instant::now();
-    let truth = scan_many(&index, &queries, k, Scan::Full);
+    let truth = scan_many(&index, &queries, k, Scan::Full).expect("k > 0");
     let full_s = t.elapsed().as_secs_f64();
     let t = Instant::now();
-    let best = scan_many(&index, &queries, k, Scan::Best);
+    let best = scan_many(&index, &queries, k, Scan::Best).expect("k > 0");
     let best_s = t.elapsed().as_secs_f64();
     for (a, b) in truth.iter().zip(&best) {
         assert_eq!(a, b, "the two brute forces disagree");

@@ -161,7 +161,7 @@ fn brute_force() {
     for round in 0..rounds {
         for (slot, scan) in [Scan::Full, Scan::Best].into_iter().enumerate() {
             let (t, cpu) = (std::time::Instant::now(), cpu_seconds());
-            let got = scan_many(&index, &queries, 10, scan);
+            let got = scan_many(&index, &queries, 10, scan).expect("k > 0");
             let s = t.elapsed().as_secs_f64();
             let cpu = cpu_seconds() - cpu;
             fastest[slot] = fastest[slot].min(s);

@@ -52,17 +52,17 @@ fn check(items: &[String], queries: &[String]) {
     let dir = tempfile::tempdir().unwrap();
     let index = build(items, &dir);
     for k in [1, 5, 10] {
-        let full_many = scan_many(&index, queries, k, Scan::Full);
-        let best_many = scan_many(&index, queries, k, Scan::Best);
+        let full_many = scan_many(&index, queries, k, Scan::Full).unwrap();
+        let best_many = scan_many(&index, queries, k, Scan::Best).unwrap();
         for (j, q) in queries.iter().enumerate() {
             let want = naive(&index, items, q, k);
             assert_eq!(
-                full_scan(&index, q, k),
+                full_scan(&index, q, k).unwrap(),
                 want,
                 "full scan, query {q:?}, k = {k}"
             );
             assert_eq!(
-                best_scan(&index, q, k),
+                best_scan(&index, q, k).unwrap(),
                 want,
                 "best scan, query {q:?}, k = {k}"
             );

@@ -133,9 +133,9 @@ proptest! {
             let p = SearchParams { k, candidates: items.len(), space, source, visit: 0 };
             for q in &queries {
                 let got = s.search(q, &p, &mut Default::default()).unwrap();
-                let want = full_scan(&idx, q, k);
+                let want = full_scan(&idx, q, k).unwrap();
                 prop_assert_eq!(&got.neighbors, &want);
-                prop_assert_eq!(&best_scan(&idx, q, k), &want);
+                prop_assert_eq!(&best_scan(&idx, q, k).unwrap(), &want);
             }
         }
     }
@@ -186,7 +186,11 @@ fn recall_on_the_debian_word_list_stays_above_the_floor() {
     }
     let mut recall = 0.0;
     for (q, f) in queries.iter().zip(found) {
-        let truth: Vec<f64> = full_scan(&idx, q, 10).iter().map(|n| n.distance).collect();
+        let truth: Vec<f64> = full_scan(&idx, q, 10)
+            .unwrap()
+            .iter()
+            .map(|n| n.distance)
+            .collect();
         let got: Vec<(u32, f64)> = f
             .unwrap()
             .neighbors

@@ -1,6 +1,9 @@
 //! Brute force under any metric: every item measured, for the ground truth of metrics that
 //! have no dedicated scan.
 
+use std::num::NonZeroUsize;
+
+use crate::error::Result;
 use crate::index::Index;
 use crate::metric::{MetricKind, PreparedQuery};
 use crate::search::order::{keep_best, Neighbor};
@@ -10,20 +13,27 @@ const BATCH: usize = 4096;
 
 /// Exact k nearest neighbours of `query` by measuring every item: [`super::full_scan`] for
 /// Levenshtein, batched distances of the index's metric otherwise. A query the metric cannot
-/// take (see [`crate::search::Searcher::prepare`]) has no neighbours.
+/// take (see [`crate::search::Searcher::prepare`]) has no neighbours. Refuses `k = 0` with
+/// [`crate::Error::Usage`].
 ///
 /// ```no_run
 /// use waymark::eval::brute_force;
 /// use waymark::index::Index;
 ///
 /// let index = Index::open("buoys.wmk".as_ref())?;
-/// let truth = brute_force(&index, "0.5,1.25,3,0.75", 5);
+/// let truth = brute_force(&index, "0.5,1.25,3,0.75", 5)?;
 /// # Ok::<(), waymark::Error>(())
 /// ```
-pub fn brute_force(index: &Index, query: &str, k: usize) -> Vec<Neighbor> {
+pub fn brute_force(index: &Index, query: &str, k: usize) -> Result<Vec<Neighbor>> {
+    Ok(brute_force_k(index, query, super::scan::at_least_one(k)?))
+}
+
+/// [`brute_force`] for a `k` known to be at least 1.
+pub(super) fn brute_force_k(index: &Index, query: &str, k: NonZeroUsize) -> Vec<Neighbor> {
     if index.meta().metric == MetricKind::Levenshtein {
-        return super::full_scan(index, query, k);
+        return super::scan::full_scan_k(index, query, k);
     }
+    let k = k.get();
     let Ok(q) = index.prepare_query(query) else {
         return Vec::new();
     };
@@ -51,4 +61,43 @@ pub fn brute_force(index: &Index, query: &str, k: usize) -> Vec<Neighbor> {
         }
     }
     best
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::index::{build_index, BuildOptions};
+    use crate::ingest::{read_corpus_from, IngestOptions};
+    use crate::metric::MetricSpec;
+
+    #[test]
+    fn brute_force_refuses_k_zero_under_every_metric() {
+        let corpus = read_corpus_from(
+            "Keth Landing\nKteh Landing\nHolbre Quay\n".as_bytes(),
+            "test",
+            &IngestOptions::default(),
+        )
+        .expect("corpus");
+        let dir = tempfile::tempdir().unwrap();
+        for (file, metric) in [
+            ("lev.wmk", MetricSpec::Levenshtein),
+            ("dam.wmk", MetricSpec::Damerau),
+        ] {
+            let dest = dir.path().join(file);
+            let opts = BuildOptions {
+                metric,
+                dim: 2,
+                ..BuildOptions::default()
+            };
+            build_index(&corpus, "test", &opts, &dest, &|_| {}).expect("build");
+            let index = Index::open(&dest).expect("open");
+            match brute_force(&index, "Keth Landing", 0) {
+                Err(crate::Error::Usage(m)) => assert!(m.contains("k must be at least 1"), "{m}"),
+                other => panic!("{file}: expected a usage error, got {other:?}"),
+            }
+            let two = brute_force(&index, "Keth Landing", 2).unwrap();
+            assert_eq!(two.len(), 2);
+            assert_eq!((two[0].index, two[0].distance), (0, 0.0));
+        }
+    }
 }

@@ -1,13 +1,46 @@
 //! Brute-force k-NN: the ground truth and the baseline every index is measured against.
 
+use std::num::NonZeroUsize;
+
 use rayon::prelude::*;
 
+use crate::error::{Error, Result};
 use crate::index::Index;
-use crate::metric::{Levenshtein, LevenshteinQuery, Metric};
+use crate::metric::{Levenshtein, LevenshteinQuery, Metric, MetricKind};
 use crate::search::order::{keep_best, Neighbor};
 
+/// `k` as a count of at least one neighbour, or the error that refuses `k = 0`.
+pub(super) fn at_least_one(k: usize) -> Result<NonZeroUsize> {
+    NonZeroUsize::new(k).ok_or_else(|| Error::Usage("k must be at least 1".into()))
+}
+
+/// Refuses what the Levenshtein scans cannot answer: `k = 0`, and an index of another metric
+/// (they compute Levenshtein distances whatever the index's metric; [`super::brute_force`]
+/// and [`scan_many`] measure with the index's own).
+fn levenshtein_k(index: &Index, k: usize, scan: &str) -> Result<NonZeroUsize> {
+    let metric = index.meta().metric;
+    if metric != MetricKind::Levenshtein {
+        return Err(Error::Usage(format!(
+            "{}: {scan} computes Levenshtein distances, but the index's metric is {metric}; \
+             use brute_force, which measures with the index's metric",
+            index.path().display()
+        )));
+    }
+    at_least_one(k)
+}
+
 /// Exact k-NN with the unbounded kernel against every item (several items per kernel call).
-pub fn full_scan(index: &Index, query: &str, k: usize) -> Vec<Neighbor> {
+///
+/// Refuses `k = 0` and an index whose metric is not Levenshtein (see
+/// [`super::brute_force`] for the others), with [`Error::Usage`].
+pub fn full_scan(index: &Index, query: &str, k: usize) -> Result<Vec<Neighbor>> {
+    let k = levenshtein_k(index, k, "full_scan")?;
+    Ok(full_scan_k(index, query, k))
+}
+
+/// [`full_scan`] of a Levenshtein index.
+pub(super) fn full_scan_k(index: &Index, query: &str, k: NonZeroUsize) -> Vec<Neighbor> {
+    let k = k.get();
     let q = prepare_query(index, query);
     let keys = index.keys();
     let mut best: Vec<Neighbor> = Vec::with_capacity(k + 1);
@@ -39,9 +72,11 @@ pub fn full_scan(index: &Index, query: &str, k: usize) -> Vec<Neighbor> {
 /// from the item offsets, in bytes: an item of `b` bytes has at most `b` chars, and at least
 /// `⌈b / 4⌉` (UTF-8 takes at most four bytes per char, and each invalid sequence is one char
 /// of at least one byte), or exactly `b` when every item is ASCII, which is checked once per
-/// scan. Answers are those of [`full_scan`]: the same items, distances and order.
-pub fn best_scan(index: &Index, query: &str, k: usize) -> Vec<Neighbor> {
-    best_scan_with(index, query, k, all_ascii(index))
+/// scan. Answers are those of [`full_scan`]: the same items, distances and order, and the
+/// same refusals (`k = 0`, another metric than Levenshtein).
+pub fn best_scan(index: &Index, query: &str, k: usize) -> Result<Vec<Neighbor>> {
+    let k = levenshtein_k(index, k, "best_scan")?;
+    Ok(best_scan_with(index, query, k, all_ascii(index)))
 }
 
 /// Whether every key of `index` is ASCII (then byte lengths are char lengths).
@@ -51,16 +86,14 @@ fn all_ascii(index: &Index) -> bool {
 }
 
 /// [`best_scan`], told whether every key is ASCII.
-fn best_scan_with(index: &Index, query: &str, k: usize, ascii: bool) -> Vec<Neighbor> {
+fn best_scan_with(index: &Index, query: &str, k: NonZeroUsize, ascii: bool) -> Vec<Neighbor> {
     /// Items per call of the batched kernel.
     const GROUP: usize = 64;
+    let k = k.get();
     let q = prepare_query(index, query);
     let m = q.len();
     let keys = index.keys();
     let mut best: Vec<Neighbor> = Vec::with_capacity(k + 1);
-    if k == 0 {
-        return best;
-    }
     let mut at = [0u32; GROUP];
     let mut items: [&[u8]; GROUP] = [&[]; GROUP];
     let mut queued = 0;
@@ -121,27 +154,111 @@ pub enum Scan {
     Best,
 }
 
-/// Runs a brute force for many queries on all cores, answers in input order.
-pub fn scan_many(index: &Index, queries: &[String], k: usize, scan: Scan) -> Vec<Vec<Neighbor>> {
-    if index.meta().metric != crate::metric::MetricKind::Levenshtein {
+/// Runs a brute force for many queries on all cores, answers in input order. An index of
+/// another metric than Levenshtein gets [`super::brute_force`] for either scan. Refuses
+/// `k = 0` with [`Error::Usage`].
+pub fn scan_many(
+    index: &Index,
+    queries: &[String],
+    k: usize,
+    scan: Scan,
+) -> Result<Vec<Vec<Neighbor>>> {
+    let k = at_least_one(k)?;
+    if index.meta().metric != MetricKind::Levenshtein {
         // No dedicated scans for the other metrics: both are the plain brute force.
-        return queries
+        return Ok(queries
             .par_iter()
-            .map(|q| super::brute_force(index, q, k))
-            .collect();
+            .map(|q| super::brute::brute_force_k(index, q, k))
+            .collect());
     }
     let ascii = scan == Scan::Best && all_ascii(index);
-    queries
+    Ok(queries
         .par_iter()
         .map(|q| match scan {
-            Scan::Full => full_scan(index, q, k),
+            Scan::Full => full_scan_k(index, q, k),
             Scan::Best => best_scan_with(index, q, k, ascii),
         })
-        .collect()
+        .collect())
 }
 
 /// Prepares `query` for the Levenshtein kernel, normalised as the index's items were.
 fn prepare_query(index: &Index, query: &str) -> LevenshteinQuery {
     let key = index.meta().normalize.apply(query);
     Levenshtein.prepare(key.as_bytes())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::index::{build_index, BuildOptions};
+    use crate::ingest::{read_corpus_from, IngestOptions};
+    use crate::metric::MetricSpec;
+
+    /// Five place names, two of them one swap of neighbours apart.
+    const NAMES: &str = "Keth Landing\nKteh Landing\nHolbre Quay\nStothisen\nVessa Pier\n";
+
+    fn index(dir: &std::path::Path, metric: MetricSpec) -> Index {
+        let corpus =
+            read_corpus_from(NAMES.as_bytes(), "test", &IngestOptions::default()).expect("corpus");
+        let dest = dir.join("names.wmk");
+        let opts = BuildOptions {
+            metric,
+            dim: 2,
+            ..BuildOptions::default()
+        };
+        build_index(&corpus, "test", &opts, &dest, &|_| {}).expect("build");
+        Index::open(&dest).expect("open")
+    }
+
+    fn is_usage<T: std::fmt::Debug>(r: Result<T>) -> String {
+        match r {
+            Err(Error::Usage(m)) => m,
+            other => panic!("expected a usage error, got {other:?}"),
+        }
+    }
+
+    #[test]
+    fn scans_refuse_k_zero() {
+        let dir = tempfile::tempdir().unwrap();
+        let lev = index(dir.path(), MetricSpec::Levenshtein);
+        let q = ["Keth Landing".to_string()];
+        for m in [
+            is_usage(full_scan(&lev, &q[0], 0)),
+            is_usage(best_scan(&lev, &q[0], 0)),
+            is_usage(scan_many(&lev, &q, 0, Scan::Full)),
+            is_usage(scan_many(&lev, &q, 0, Scan::Best)),
+        ] {
+            assert!(m.contains("k must be at least 1"), "{m}");
+        }
+        // k = 1 still answers: the query itself at distance 0.
+        let one = full_scan(&lev, &q[0], 1).unwrap();
+        assert_eq!((one[0].index, one[0].distance), (0, 0.0));
+        assert_eq!(best_scan(&lev, &q[0], 1).unwrap(), one);
+    }
+
+    #[test]
+    fn levenshtein_scans_refuse_other_metrics() {
+        let dir = tempfile::tempdir().unwrap();
+        let dam = index(dir.path(), MetricSpec::Damerau);
+        let q = "Keth Landing";
+        for m in [
+            is_usage(full_scan(&dam, q, 3)),
+            is_usage(best_scan(&dam, q, 3)),
+        ] {
+            assert!(m.contains("Levenshtein") && m.contains("damerau"), "{m}");
+        }
+        // scan_many measures with the index's metric: the unrestricted Damerau–Levenshtein
+        // distance of strsim (a general-purpose string library) for every answer.
+        let items: Vec<&str> = NAMES.lines().collect();
+        for scan in [Scan::Full, Scan::Best] {
+            let got = scan_many(&dam, &[q.to_string()], 3, scan).unwrap();
+            assert_eq!(got[0].len(), 3);
+            for n in &got[0] {
+                let want = strsim::damerau_levenshtein(q, items[n.index as usize]);
+                assert_eq!(n.distance, want as f64, "{scan:?}, item {}", n.index);
+            }
+            // "Kteh Landing" is one swap away (Levenshtein would say 2).
+            assert_eq!((got[0][1].index, got[0][1].distance), (1, 1.0));
+        }
+    }
 }

@@ -2,10 +2,12 @@
 //!
 //! The brute force costs a full pass over the items per query, so its answers are kept in a
 //! file beside the queries, `QUERIES.truth-<index key>-k<K>.json`. The cache is keyed by what
-//! the answers depend on: the index's content (metric, normalisation, every key and id — not
-//! the embedding, so indexes of one corpus built with different embeddings share a cache) and
-//! the queries themselves (SHA-256 of both). A cache file whose keys, counts or checksum do not
-//! match is not trusted: it is recomputed and replaced, and the reason is reported.
+//! the answers depend on: the index's content (the whole metric with its parameters — cost
+//! table, tokenisation, vector norm and dimension, external command —, the graph of a graph
+//! index, the normalisation, every key and id; not the embedding, so indexes of one corpus
+//! built with different embeddings share a cache) and the queries themselves (SHA-256 of
+//! both). A cache file whose keys, counts or checksum do not match is not trusted: it is
+//! recomputed and replaced, and the reason is reported.
 
 use std::path::{Path, PathBuf};
 use std::time::Instant;
@@ -14,13 +16,16 @@ use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use sha2::{Digest, Sha256};
 
-use super::brute::brute_force;
+use super::brute::brute_force_k;
 use crate::error::{Error, Result};
 use crate::index::{IdRef, Index};
 use crate::search::order::Neighbor;
 
 const FORMAT: &str = "waymark-truth";
 const VERSION: u32 = 1;
+/// Hashed first into every index key: a change of what the key covers changes this, so that
+/// caches written under an older key are simply not found (their file names differ).
+const KEY_VERSION: &str = "waymark-truth-key/2";
 
 /// Exact k nearest neighbours of every query.
 #[derive(Clone, Debug, PartialEq)]
@@ -63,12 +68,36 @@ fn hex(d: impl AsRef<[u8]>) -> String {
     d.as_ref().iter().map(|b| format!("{b:02x}")).collect()
 }
 
-/// The key of an index's content for ground truth: SHA-256 (hex) of its metric,
-/// normalisation, keys and ids.
+/// The key of an index's content for ground truth: SHA-256 (hex) of its metric with all its
+/// parameters, its graph (graph indexes), normalisation, keys and ids; not of its embedding.
+///
+/// The metric is hashed as the JSON of its [`crate::metric::MetricSpec`], which is canonical:
+/// serde writes fields in declaration order, the cost table's maps are sorted, and floats are
+/// written so that they read back to the same value. Every variable-length part is hashed
+/// after its length, so no two contents run together into one key.
 pub fn index_key(index: &Index) -> String {
     let mut h = Sha256::new();
     let m = index.meta();
-    h.update(format!("{}|{:?}|{}|", m.metric, m.normalize, m.n).as_bytes());
+    let mut part = |bytes: &[u8]| {
+        h.update((bytes.len() as u64).to_le_bytes());
+        h.update(bytes);
+    };
+    part(KEY_VERSION.as_bytes());
+    let spec = serde_json::to_vec(&m.metric_spec).expect("a metric spec serialises to JSON");
+    part(&spec);
+    part(
+        serde_json::to_vec(&m.normalize)
+            .expect("a normalisation serialises to JSON")
+            .as_slice(),
+    );
+    match index.graph_section() {
+        Some(g) => {
+            part(b"graph");
+            part(g);
+        }
+        None => part(b"no graph"),
+    }
+    h.update(m.n.to_le_bytes());
     let keys = index.keys();
     for i in 0..index.len() {
         let k = keys.get(i);
@@ -120,18 +149,25 @@ pub fn cache_path(queries_file: &Path, index_key: &str, k: usize) -> PathBuf {
     queries_file.with_file_name(format!("{name}.truth-{}-k{k}.json", &index_key[..16]))
 }
 
-/// Exact answers by brute force on all cores ([`brute_force`]); `progress` is called with the
-/// number of queries done since the last call.
+/// Exact answers by brute force on all cores ([`super::brute_force`]); `progress` is called
+/// with the number of queries done since the last call. For `k = 0` every answer is empty.
 pub fn compute_truth(
     index: &Index,
     queries: &[String],
     k: usize,
     progress: &(dyn Fn(usize) + Sync),
 ) -> Truth {
+    let Some(nz) = std::num::NonZeroUsize::new(k) else {
+        progress(queries.len());
+        return Truth {
+            k,
+            answers: vec![Vec::new(); queries.len()],
+        };
+    };
     let answers = queries
         .par_iter()
         .map(|q| {
-            let a = brute_force(index, q, k);
+            let a = brute_force_k(index, q, nz);
             progress(1);
             a
         })
@@ -193,7 +229,12 @@ fn write_cache(path: &Path, c: &CacheFile) -> Result<()> {
         .parent()
         .filter(|p| !p.as_os_str().is_empty())
         .unwrap_or(Path::new("."));
-    let mut tmp = tempfile::NamedTempFile::new_in(dir).map_err(io)?;
+    // Created with the mode of any new file (not a temporary file's 0600), which the
+    // rename keeps; see `new_file_permissions`.
+    let mut tmp = tempfile::Builder::new()
+        .permissions(crate::index::file::new_file_permissions())
+        .tempfile_in(dir)
+        .map_err(io)?;
     serde_json::to_writer(&mut tmp, c).map_err(|e| io(std::io::Error::other(e)))?;
     tmp.persist(path).map_err(|e| io(e.error))?;
     Ok(())
@@ -261,4 +302,180 @@ pub fn load_or_compute_truth(
         });
     }
     (truth, TruthSource::Computed { seconds, note })
+}
+
+#[cfg(test)]
+mod tests {
+    use std::path::Path;
+
+    use super::*;
+    use crate::index::{build_index, BuildOptions};
+    use crate::ingest::{read_corpus_from, Corpus, IngestOptions, Normalize};
+    use crate::metric::{CostTable, Graph, MetricSpec, Tokens};
+
+    fn demo(name: &str) -> String {
+        let path = Path::new(env!("CARGO_MANIFEST_DIR"))
+            .join("demo-data")
+            .join(name);
+        std::fs::read_to_string(path).expect("demo data")
+    }
+
+    /// The first `n` lines of a demo file as a corpus of text items.
+    fn corpus(name: &str, n: usize) -> Corpus {
+        corpus_with(name, n, Normalize::default())
+    }
+
+    fn corpus_with(name: &str, n: usize, normalize: Normalize) -> Corpus {
+        let text: String = demo(name)
+            .lines()
+            .take(n)
+            .map(|l| format!("{l}\n"))
+            .collect();
+        let opts = IngestOptions {
+            normalize,
+            ..IngestOptions::default()
+        };
+        read_corpus_from(text.as_bytes(), name, &opts).expect("corpus")
+    }
+
+    fn build(dir: &Path, file: &str, corpus: &Corpus, opts: &BuildOptions) -> Index {
+        let dest = dir.join(file);
+        build_index(corpus, "test", opts, &dest, &|_| {}).expect("build");
+        Index::open(&dest).expect("open")
+    }
+
+    fn weighted(costs: &str) -> BuildOptions {
+        let table = CostTable::parse(costs, "test.costs").expect("costs");
+        BuildOptions {
+            metric: MetricSpec::WeightedEdit {
+                costs: table.rules().clone(),
+            },
+            dim: 8,
+            sample: 200,
+            ..BuildOptions::default()
+        }
+    }
+
+    /// Unit costs: every edit costs 1 (so different from the demo file's 1.5 and 0.5).
+    const UNIT_COSTS: &str = "indel * 1\nsub * * 1\n";
+
+    /// Two weighted-edit indexes over the same items with different cost files: their
+    /// exact answers differ, so the second must not be served the first one's cache.
+    #[test]
+    fn another_cost_file_is_another_cache() {
+        let dir = tempfile::tempdir().unwrap();
+        let items = corpus("barcodes.txt", 300);
+        let a = build(
+            dir.path(),
+            "a.wmk",
+            &items,
+            &weighted(&demo("nucleotide-costs.txt")),
+        );
+        let b = build(dir.path(), "b.wmk", &items, &weighted(UNIT_COSTS));
+
+        let queries: Vec<String> = demo("barcode-reads.txt")
+            .lines()
+            .take(12)
+            .map(str::to_string)
+            .collect();
+        let qf = dir.path().join("reads.txt");
+        std::fs::write(&qf, queries.join("\n")).unwrap();
+        let (ta, sa) = load_or_compute_truth(&a, &queries, Some(&qf), 5, &|_| {});
+        assert!(matches!(sa, TruthSource::Computed { .. }), "{sa:?}");
+        let (tb, sb) = load_or_compute_truth(&b, &queries, Some(&qf), 5, &|_| {});
+        assert!(
+            matches!(sb, TruthSource::Computed { .. }),
+            "the second cost file was served the first one's answers: {sb:?}"
+        );
+        assert_eq!(tb, compute_truth(&b, &queries, 5, &|_| {}));
+        assert_ne!(ta, tb, "the two cost files should give different answers");
+        // Each index now finds its own cache.
+        let (ta2, sa2) = load_or_compute_truth(&a, &queries, Some(&qf), 5, &|_| {});
+        assert!(matches!(sa2, TruthSource::Cached(_)), "{sa2:?}");
+        assert_eq!(ta2, ta);
+        let (tb2, sb2) = load_or_compute_truth(&b, &queries, Some(&qf), 5, &|_| {});
+        assert!(matches!(sb2, TruthSource::Cached(_)), "{sb2:?}");
+        assert_eq!(tb2, tb);
+        assert_ne!(index_key(&a), index_key(&b));
+    }
+
+    /// The key follows the metric's parameters (tokenisation, graph weights) and the
+    /// normalisation, and not the embedding: an index rebuilt with another dimension and
+    /// seed over the same items and metric shares the cache.
+    #[test]
+    fn key_covers_the_metric_and_not_the_embedding() {
+        let dir = tempfile::tempdir().unwrap();
+        let tags = corpus("tags.txt", 200);
+        let jaccard = |tokens: Tokens, dim: usize, seed: u64| BuildOptions {
+            metric: MetricSpec::Jaccard { tokens },
+            dim,
+            seed,
+            sample: 100,
+            ..BuildOptions::default()
+        };
+        let words = build(
+            dir.path(),
+            "w.wmk",
+            &tags,
+            &jaccard(Tokens::Whitespace, 8, 1),
+        );
+        let words2 = build(
+            dir.path(),
+            "w2.wmk",
+            &tags,
+            &jaccard(Tokens::Whitespace, 12, 9),
+        );
+        let grams = build(
+            dir.path(),
+            "q.wmk",
+            &tags,
+            &jaccard(Tokens::QGrams(2), 8, 1),
+        );
+        assert_eq!(index_key(&words), index_key(&words2));
+        assert_ne!(index_key(&words), index_key(&grams));
+
+        let fold = Normalize {
+            fold_case: true,
+            trim: true,
+        };
+        let folded = BuildOptions {
+            normalize: fold,
+            ..jaccard(Tokens::Whitespace, 8, 1)
+        };
+        let folded = build(
+            dir.path(),
+            "f.wmk",
+            &corpus_with("tags.txt", 200, fold),
+            &folded,
+        );
+        assert_ne!(index_key(&words), index_key(&folded));
+
+        // The same stops with other leg times.
+        let edges = "A B 1\nB C 2\nC D 3\nD A 4\nA C 5\n";
+        let slower = "A B 1\nB C 2\nC D 3\nD A 4\nA C 6\n";
+        let graph = |text: &str, file: &str| {
+            let g = Graph::parse(text, "test graph").expect("graph");
+            let names: Vec<String> = (0..g.len() as u32)
+                .map(|v| String::from_utf8_lossy(g.name(v)).into_owned())
+                .collect();
+            let nodes = Corpus {
+                records: names.len(),
+                items: names.clone(),
+                keys: None,
+                ids: crate::ingest::Ids::Text(names),
+                blank_skipped: 0,
+            };
+            let opts = BuildOptions {
+                metric: MetricSpec::Graph,
+                graph: Some(g),
+                dim: 2,
+                ..BuildOptions::default()
+            };
+            build(dir.path(), file, &nodes, &opts)
+        };
+        let g1 = graph(edges, "g1.wmk");
+        let g2 = graph(slower, "g2.wmk");
+        assert_eq!(g1.len(), g2.len());
+        assert_ne!(index_key(&g1), index_key(&g2));
+    }
 }

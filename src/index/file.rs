@@ -289,6 +289,20 @@ fn file_id(m: &std::fs::Metadata) -> (u64, u64) {
     (m.dev(), m.ino())
 }
 
+/// The permissions to create a file with that is renamed into place later: 0666, which the
+/// kernel narrows by the process's umask (and a default ACL of the folder, if any) when it
+/// creates the file, so the finished file gets what any new file would — 0644 under umask
+/// 022 — rather than the 0600 of a temporary file, which the rename would keep.
+///
+/// Letting `open(2)` apply the umask is the only thread-safe way: reading the umask needs
+/// `umask(2)`, which sets it too, and another thread creating a file between the read and
+/// the restore would get the wrong mode. The partial file is readable under the same umask
+/// as the finished one, and holds nothing the finished file does not.
+pub(crate) fn new_file_permissions() -> std::fs::Permissions {
+    use std::os::unix::fs::PermissionsExt;
+    std::fs::Permissions::from_mode(0o666)
+}
+
 /// Creates the locked temporary file for a build of `dest_name` in `dir`.
 ///
 /// The lock is taken after the file appears, so another build's cleanup can lock and remove
@@ -303,6 +317,7 @@ fn create_partial(dir: &Path, dest_name: &str) -> Result<tempfile::NamedTempFile
             .prefix(&format!(".{dest_name}."))
             .suffix(PARTIAL_SUFFIX)
             .rand_bytes(PARTIAL_RAND)
+            .permissions(new_file_permissions())
             .tempfile_in(dir)
             .map_err(|e| io_err(dir, e))?;
         tmp.as_file().lock().map_err(|e| io_err(tmp.path(), e))?;

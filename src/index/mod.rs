@@ -482,6 +482,11 @@ impl Index {
         Ok(self.metric()?.prepare(&key))
     }
 
+    /// The bytes of the graph section (the edge list of a graph index), unchecked.
+    pub(crate) fn graph_section(&self) -> Option<&[u8]> {
+        self.graph.as_ref().map(|r| &self.map[r.clone()])
+    }
+
     /// Whether the file has cells (see [`Index::cells`]; not checked by this call).
     pub fn has_cells(&self) -> bool {
         self.cells.is_some()
@@ -542,7 +547,10 @@ impl Index {
             })
         });
         self.checked(checked)?;
-        Ok(tree::TreeView::validated(bytes, dim, self.len()))
+        // SAFETY: `tree_checked` holds `Ok` only once `TreeView::open` accepted these bytes
+        // with this `dim` and `len()`: `self.tree`, `meta` and the read-only mapping are fixed
+        // when the index is opened and never change, so they are the bytes it checked.
+        Ok(unsafe { tree::TreeView::validated(bytes, dim, self.len()) })
     }
 }
 

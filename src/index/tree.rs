@@ -82,7 +82,10 @@ pub struct TreeView<'a> {
 // the archived struct's field types in the same order: rkyv's derived archives are
 // `repr(C)`, so the copy lays out identically, which a compile-time check of size and
 // alignment and a cross-check of every field kiddo does expose (size, levels, leaf count
-// and every leaf's length, the stems' address) confirm on each file. With those fields,
+// and every leaf's length, the stems' address) confirm on each file. Cargo.toml pins kiddo
+// to the release the copy was made from, and a test reads trees kiddo builds through the
+// copy and compares every field's address and value, and every leaf's items and points,
+// with what kiddo's validated access reports. With those fields,
 // every one of the conditions above is checked, and more: the shape is the one kiddo builds
 // for n items (levels, leaf and stem counts, the resolution), leaves lie in order in the
 // arena, every item 0..n appears exactly once, coordinates are finite and zero past the
@@ -135,6 +138,15 @@ const fn same_shape<A, B>() -> bool {
     std::mem::size_of::<A>() == std::mem::size_of::<B>()
         && std::mem::align_of::<A>() == std::mem::align_of::<B>()
 }
+type ArchivedLeaves<const K: usize> =
+    <kiddo::leaf_strategies::VecOfArenas<f32, u32, K, BUCKET> as rkyv::Archive>::Archived;
+type ArchivedResolution = <kiddo::kd_tree::OwnedStemLeafResolution as rkyv::Archive>::Archived;
+const _: () = assert!(
+    same_shape::<ArchivedLeavesLayout, ArchivedLeaves<2>>()
+        && same_shape::<ArchivedLeavesLayout, ArchivedLeaves<64>>()
+        && same_shape::<ArchivedResolutionLayout, ArchivedResolution>(),
+    "kiddo's archived leaves or stem/leaf resolution no longer have the layout tree.rs checks"
+);
 const _: () = assert!(
     same_shape::<ArchivedLayout, Archived<2>>()
         && same_shape::<ArchivedLayout, Archived<4>>()
@@ -163,6 +175,35 @@ fn tile_len(remaining: usize) -> usize {
 /// Bytes of a leaf of `len` points in a tree of dimension `k`.
 fn leaf_bytes_len(len: usize, k: usize) -> Option<usize> {
     len.checked_mul(k.checked_mul(4)?.checked_add(4)?)
+}
+
+/// Calls `f` with the item and the point of every point of a leaf of `len` points whose
+/// bytes are `leaf` (exactly [`leaf_bytes_len`] of them), in kiddo's `LeafArena` order: tiles
+/// of [`TILES`] points, each `K` columns of native-endian f32 followed by its u32 items.
+fn for_each_point<const K: usize>(
+    leaf: &[u8],
+    len: usize,
+    mut f: impl FnMut(usize, &[f32; K]) -> Result<(), String>,
+) -> Result<(), String> {
+    let word = |o: usize| -> [u8; 4] { leaf[o..o + 4].try_into().expect("4 bytes") };
+    let mut point = [0f32; K];
+    let mut at = 0;
+    let mut remaining = len;
+    while remaining > 0 {
+        let w = tile_len(remaining);
+        for j in 0..w {
+            for (d, p) in point.iter_mut().enumerate() {
+                *p = f32::from_ne_bytes(word(at + (d * w + j) * 4));
+            }
+            f(
+                u32::from_ne_bytes(word(at + (K * w + j) * 4)) as usize,
+                &point,
+            )?;
+        }
+        at += w * (K * 4 + 4);
+        remaining -= w;
+    }
+    Ok(())
 }
 
 fn usize_of(v: &rkyv::primitive::ArchivedUsize) -> usize {
@@ -269,7 +310,6 @@ fn check_k<const K: usize>(bytes: &[u8], dim: usize, n: usize) -> Result<(), Str
     let mut seen = vec![0u64; n.div_ceil(64)];
     let mut end_of_last = 0usize;
     let mut longest = 0usize;
-    let mut point = [0f32; K];
     for (leaf, e) in extents.iter().enumerate() {
         let (offset, len) = (usize_of(&e.0), usize_of(&e.1));
         let bytes = leaf_bytes_len(len, K)
@@ -283,56 +323,45 @@ fn check_k<const K: usize>(bytes: &[u8], dim: usize, n: usize) -> Result<(), Str
         };
         end_of_last = end;
         longest = longest.max(len);
-        let mut at = offset;
-        let mut remaining = len;
-        while remaining > 0 {
-            let w = tile_len(remaining);
-            let word = |o: usize| -> [u8; 4] { arena[o..o + 4].try_into().expect("4 bytes") };
-            for j in 0..w {
-                for (d, p) in point.iter_mut().enumerate() {
-                    *p = f32::from_ne_bytes(word(at + (d * w + j) * 4));
-                }
-                let item = u32::from_ne_bytes(word(at + (K * w + j) * 4)) as usize;
-                if item >= n || seen[item / 64] & (1 << (item % 64)) != 0 {
-                    return Err(format!(
-                        "leaf {leaf}: item {item} is out of range or appears twice"
-                    ));
-                }
-                seen[item / 64] |= 1 << (item % 64);
-                for (d, &x) in point.iter().enumerate() {
-                    let ok = if d < dim {
-                        x.is_finite() && x.abs() <= MAX_COORD
-                    } else {
-                        x == 0.0
-                    };
-                    if !ok {
-                        return Err(format!("leaf {leaf}: item {item} has coordinate {d} = {x}"));
-                    }
-                }
-                // The path from the root: level v splits on coordinate v mod K at stem
-                // (leaves + leaf) >> (depth - v); bit depth - 1 - v of `leaf` says right.
-                for v in 0..depth {
-                    let stem = (leaves + leaf) >> (depth - v);
-                    let right = (leaf >> (depth - 1 - v)) & 1 == 1;
-                    let pivot = stems[stem];
-                    let x = point[v as usize % K];
-                    let ok = if pivot == f32::INFINITY {
-                        !right
-                    } else if right {
-                        x >= pivot
-                    } else {
-                        x <= pivot
-                    };
-                    if !ok {
-                        return Err(format!(
-                            "leaf {leaf}: item {item} lies on the wrong side of stem {stem}"
-                        ));
-                    }
+        for_each_point::<K>(&arena[offset..end], len, |item, point| {
+            if item >= n || seen[item / 64] & (1 << (item % 64)) != 0 {
+                return Err(format!(
+                    "leaf {leaf}: item {item} is out of range or appears twice"
+                ));
+            }
+            seen[item / 64] |= 1 << (item % 64);
+            for (d, &x) in point.iter().enumerate() {
+                let ok = if d < dim {
+                    x.is_finite() && x.abs() <= MAX_COORD
+                } else {
+                    x == 0.0
+                };
+                if !ok {
+                    return Err(format!("leaf {leaf}: item {item} has coordinate {d} = {x}"));
                 }
             }
-            at += w * (K * 4 + 4);
-            remaining -= w;
-        }
+            // The path from the root: level v splits on coordinate v mod K at stem
+            // (leaves + leaf) >> (depth - v); bit depth - 1 - v of `leaf` says right.
+            for v in 0..depth {
+                let stem = (leaves + leaf) >> (depth - v);
+                let right = (leaf >> (depth - 1 - v)) & 1 == 1;
+                let pivot = stems[stem];
+                let x = point[v as usize % K];
+                let ok = if pivot == f32::INFINITY {
+                    !right
+                } else if right {
+                    x >= pivot
+                } else {
+                    x <= pivot
+                };
+                if !ok {
+                    return Err(format!(
+                        "leaf {leaf}: item {item} lies on the wrong side of stem {stem}"
+                    ));
+                }
+            }
+            Ok(())
+        })?;
     }
     let points: usize = extents.iter().map(|e| usize_of(&e.1)).sum();
     if points != n {
@@ -368,8 +397,15 @@ impl<'a> TreeView<'a> {
         })
     }
 
-    /// A view of bytes that [`TreeView::open`] has already validated.
-    pub(crate) fn validated(bytes: &'a [u8], dim: usize, size: usize) -> TreeView<'a> {
+    /// A view of bytes that [`TreeView::open`] has already validated, without checking
+    /// them again.
+    ///
+    /// # Safety
+    ///
+    /// [`TreeView::open`] must have returned `Ok` for these exact bytes (same address and
+    /// length, unchanged since) with the same `dim` and `size`: the view's queries read the
+    /// archive with kiddo's unchecked accesses, which only that check makes sound.
+    pub(crate) unsafe fn validated(bytes: &'a [u8], dim: usize, size: usize) -> TreeView<'a> {
         TreeView {
             bytes,
             tree_dim: tree_dim(dim),
@@ -412,9 +448,10 @@ impl<'a> TreeView<'a> {
         space: Space,
         out: &mut Vec<(u32, f32)>,
     ) {
-        // SAFETY: every TreeView is made by `open`, or by `validated` after `open` succeeded,
-        // which ran rkyv's validating `access` and `check_k` (every field kiddo's queries
-        // trust) on these exact bytes with the same K; the bytes are immutable for 'a.
+        // SAFETY: every TreeView is made by `open`, or by `validated`, whose contract is that
+        // `open` succeeded before; `open` ran rkyv's validating `access` and `check_k` (every
+        // field kiddo's queries trust) on these exact bytes with the same K; the bytes are
+        // immutable for 'a.
         let t = unsafe { rkyv::access_unchecked::<Archived<K>>(self.bytes) };
         let mut q = [0f32; K];
         let d = self.dim.min(K).min(query.len());
@@ -434,7 +471,143 @@ impl<'a> TreeView<'a> {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use kiddo::kd_tree::{KdTreeAccessor, StemLeafResolution};
     use rand::{Rng, SeedableRng};
+
+    /// The kiddo release whose private archived layout `Layout` copies (see the comment
+    /// above it); a new release must be checked against the copy before the pin moves.
+    const KIDDO_VERSION: &str = "6.3.0";
+
+    /// A minor kiddo release may change its private layout, so the manifest allows exactly
+    /// the release the copy was made from, and the lock file holds it.
+    #[test]
+    fn kiddo_is_pinned_to_the_release_whose_layout_is_copied() {
+        let root = std::path::Path::new(env!("CARGO_MANIFEST_DIR"));
+        let manifest = std::fs::read_to_string(root.join("Cargo.toml")).unwrap();
+        let line = manifest
+            .lines()
+            .find(|l| l.starts_with("kiddo ") || l.starts_with("kiddo="))
+            .expect("kiddo is a dependency");
+        assert!(
+            line.contains(&format!("version = \"={KIDDO_VERSION}\"")),
+            "Cargo.toml must pin kiddo to ={KIDDO_VERSION}: {line}"
+        );
+        let lock = std::fs::read_to_string(root.join("Cargo.lock")).unwrap();
+        assert!(
+            lock.contains(&format!(
+                "name = \"kiddo\"\nversion = \"{KIDDO_VERSION}\"\n"
+            )),
+            "Cargo.lock does not hold kiddo {KIDDO_VERSION}"
+        );
+    }
+
+    fn addr<T: ?Sized>(r: &T) -> usize {
+        (r as *const T).cast::<u8>() as usize
+    }
+
+    /// Reads a tree kiddo built through the copied layout and compares every field with what
+    /// kiddo reports through rkyv's validated access: the fields it exposes lie at the same
+    /// addresses, counts and stems are equal, and every leaf holds, in order, the items and
+    /// points kiddo's own iterator yields — which are the points the tree was built from.
+    fn layout_reads_what_kiddo_reads<const K: usize>(coords: &[f32], dim: usize, n: usize) {
+        let bytes = build(coords, dim).expect("build");
+        let mut aligned = rkyv::util::AlignedVec::<128>::new();
+        aligned.extend_from_slice(&bytes);
+        let t = rkyv::access::<Archived<K>, rkyv::rancor::BoxedError>(&aligned).expect("kiddo");
+        let l = rkyv::access::<ArchivedLayout, rkyv::rancor::BoxedError>(&aligned).expect("copy");
+        let what = format!("K = {K}, dim = {dim}, n = {n}");
+
+        // Same places.
+        assert_eq!(addr(t), addr(l), "{what}: root");
+        assert_eq!(addr(t.leaves()), addr(&l.leaves), "{what}: leaves");
+        assert_eq!(
+            addr(t.stem_leaf_resolution()),
+            addr(&l.resolution),
+            "{what}: stem/leaf resolution"
+        );
+        let stems: &[f32] = KdTreeAccessor::stems(t);
+        let our_stems: Vec<f32> = l.stems.get().iter().map(|s| s.to_native()).collect();
+        assert_eq!(addr(stems), addr(l.stems.get()), "{what}: stems");
+
+        // Same values.
+        let bits = |v: &[f32]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+        assert_eq!(bits(stems), bits(&our_stems), "{what}: stems");
+        assert_eq!(KdTreeAccessor::size(t), n, "{what}");
+        assert_eq!(usize_of(&l.size), n, "{what}: size");
+        let leaves_size =
+            <_ as kiddo::LeafStrategy<f32, u32, kiddo::Eytzinger, K, BUCKET>>::size(t.leaves());
+        assert_eq!(
+            usize_of(&l.leaves.size),
+            leaves_size,
+            "{what}: leaves' size"
+        );
+        assert_eq!(
+            l.max_stem_level.to_native(),
+            KdTreeAccessor::max_stem_level(t),
+            "{what}: deepest stem level"
+        );
+        assert_eq!(
+            usize_of(&l.max_leaf_len),
+            KdTreeAccessor::max_leaf_len(t),
+            "{what}: longest leaf"
+        );
+        let extents = l.leaves.leaf_extents.as_slice();
+        assert_eq!(
+            extents.len(),
+            KdTreeAccessor::leaf_count(t),
+            "{what}: leaves"
+        );
+        for (i, e) in extents.iter().enumerate() {
+            assert_eq!(usize_of(&e.1), t.leaves().leaf_len(i), "{what}: leaf {i}");
+        }
+        assert!(t.stem_leaf_resolution().uses_arithmetic(), "{what}");
+        assert!(
+            matches!(l.resolution, ArchivedResolutionLayout::Arithmetic { .. }),
+            "{what}: resolution"
+        );
+
+        // Same leaves, point by point.
+        let arena: &[u8] = l.leaves.leaf_bytes.get();
+        let mut ours: Vec<(u32, Vec<u32>)> = Vec::with_capacity(n);
+        for e in extents {
+            let (offset, len) = (usize_of(&e.0), usize_of(&e.1));
+            let end = offset + leaf_bytes_len(len, K).unwrap();
+            for_each_point::<K>(&arena[offset..end], len, |item, p: &[f32; K]| {
+                ours.push((item as u32, bits(p)));
+                Ok(())
+            })
+            .unwrap();
+        }
+        let kiddo: Vec<(u32, Vec<u32>)> = t.iter().map(|(item, p)| (item, bits(&p))).collect();
+        assert_eq!(ours, kiddo, "{what}: leaf contents");
+        assert_eq!(ours.len(), n, "{what}");
+        for (item, p) in &ours {
+            let i = *item as usize;
+            let mut want = coords[i * dim..(i + 1) * dim].to_vec();
+            want.resize(K, 0.0);
+            assert_eq!(*p, bits(&want), "{what}: item {i}");
+        }
+    }
+
+    #[test]
+    fn copied_layout_reads_what_kiddo_reads() {
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(11);
+        for n in [1, 2, 31, 32, 33, 100, 1000, 4097] {
+            for dim in [1, 2, 3, 4, 7, 8, 13, 16, 17, 32, 40, 64] {
+                let coords: Vec<f32> = (0..n * dim)
+                    .map(|_| rng.gen_range(-1000..1000) as f32 * 0.25)
+                    .collect();
+                match tree_dim(dim) {
+                    2 => layout_reads_what_kiddo_reads::<2>(&coords, dim, n),
+                    4 => layout_reads_what_kiddo_reads::<4>(&coords, dim, n),
+                    8 => layout_reads_what_kiddo_reads::<8>(&coords, dim, n),
+                    16 => layout_reads_what_kiddo_reads::<16>(&coords, dim, n),
+                    32 => layout_reads_what_kiddo_reads::<32>(&coords, dim, n),
+                    _ => layout_reads_what_kiddo_reads::<64>(&coords, dim, n),
+                }
+            }
+        }
+    }
 
     /// Trees kiddo builds pass the check, whatever n, dimension and duplicates.
     #[test]
