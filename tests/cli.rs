@@ -548,7 +548,7 @@ fn grouped(n: usize) -> String {
     let digits = n.to_string();
     let mut out = String::new();
     for (i, c) in digits.chars().enumerate() {
-        if i > 0 && (digits.len() - i) % 3 == 0 {
+        if i > 0 && (digits.len() - i).is_multiple_of(3) {
             out.push(',');
         }
         out.push(c);
@@ -597,7 +597,10 @@ fn the_external_program_is_named_as_such_in_usage_lines() {
     // subcommand placeholder.
     for command in ["build", "sweep", "check-metric"] {
         let help = help_of(&[command]);
-        assert!(help.contains("[-- <PROGRAM>...]"), "{command} --help: {help}");
+        assert!(
+            help.contains("[-- <PROGRAM>...]"),
+            "{command} --help: {help}"
+        );
         assert!(!help.contains("COMMAND"), "{command} --help: {help}");
     }
 }

@@ -262,7 +262,17 @@ pub fn build_index_from(
         )));
     }
     let writer = ContainerWriter::create(dest)?;
-    write_index(corpus, source, opts, &spec, embedded, writer, dest, 0.0, &())
+    write_index(
+        corpus,
+        source,
+        opts,
+        &spec,
+        embedded,
+        writer,
+        dest,
+        0.0,
+        &(),
+    )
 }
 
 fn check_options(corpus: &Corpus, source: &str, opts: &BuildOptions) -> Result<()> {
@@ -402,9 +412,14 @@ mod tests {
     use super::*;
 
     fn names() -> Vec<String> {
-        ["Keth Landing", "Orvane Quay", "Mirrow Steps", "Orvane Strand"]
-            .map(String::from)
-            .to_vec()
+        [
+            "Keth Landing",
+            "Orvane Quay",
+            "Mirrow Steps",
+            "Orvane Strand",
+        ]
+        .map(String::from)
+        .to_vec()
     }
 
     #[test]
@@ -465,7 +480,11 @@ mod tests {
         build_index_with(&corpus, "names", &opts, &dir.path().join("n.wmk"), &record).unwrap();
         assert_eq!(
             *record.stages.lock().unwrap(),
-            [BuildStage::Embed, BuildStage::TreeAndCells, BuildStage::Write]
+            [
+                BuildStage::Embed,
+                BuildStage::TreeAndCells,
+                BuildStage::Write
+            ]
         );
         assert_eq!(record.items.load(Ordering::Relaxed), 4);
     }

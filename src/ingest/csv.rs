@@ -26,7 +26,11 @@ fn find_column(
     )))
 }
 
-pub(super) fn read_csv<R: Read>(reader: R, delimiter: u8, b: &mut Builder<'_>) -> Result<(), IngestError> {
+pub(super) fn read_csv<R: Read>(
+    reader: R,
+    delimiter: u8,
+    b: &mut Builder<'_>,
+) -> Result<(), IngestError> {
     let mut rdr = ::csv::ReaderBuilder::new()
         .delimiter(delimiter)
         .has_headers(true)

@@ -105,7 +105,11 @@ pub fn load_input(
         Ok(())
     };
     only("--costs", metric.costs.is_some(), MetricKind::WeightedEdit)?;
-    only("--separator", metric.separator.is_some(), MetricKind::Jaccard)?;
+    only(
+        "--separator",
+        metric.separator.is_some(),
+        MetricKind::Jaccard,
+    )?;
     only("--qgrams", metric.qgrams.is_some(), MetricKind::Jaccard)?;
     only(
         "a command after --",
@@ -272,7 +276,10 @@ mod tests {
         assert_eq!(input.corpus.items, ["0.5,1", "2,-3"]);
         assert_eq!(input.corpus.ids, Ids::Int(vec![0, 1]));
         let keys = input.corpus.keys.as_ref().unwrap();
-        assert_eq!(keys[1], [2.0f32.to_le_bytes(), (-3.0f32).to_le_bytes()].concat());
+        assert_eq!(
+            keys[1],
+            [2.0f32.to_le_bytes(), (-3.0f32).to_le_bytes()].concat()
+        );
         assert!(matches!(
             input.spec,
             MetricSpec::Vector {
@@ -294,7 +301,11 @@ mod tests {
     #[test]
     fn graph_nodes_are_the_items_and_their_own_ids() {
         let dir = tempfile::tempdir().unwrap();
-        let p = write(dir.path(), "ferries.txt", "Keth Orvane 3\nOrvane Mirrow 4\n");
+        let p = write(
+            dir.path(),
+            "ferries.txt",
+            "Keth Orvane 3\nOrvane Mirrow 4\n",
+        );
         let opts = MetricOptions {
             kind: MetricKind::Graph,
             ..MetricOptions::default()
@@ -316,11 +327,17 @@ mod tests {
             ..MetricOptions::default()
         };
         let e = load_input(&p, &IngestOptions::default(), &opts).unwrap_err();
-        assert!(e.to_string().contains("needs the program after `--`"), "{e}");
+        assert!(
+            e.to_string().contains("needs the program after `--`"),
+            "{e}"
+        );
         opts.command = vec!["python3".into(), "my_metric.py".into()];
         opts.timeout_secs = 0.0;
         let e = load_input(&p, &IngestOptions::default(), &opts).unwrap_err();
-        assert!(e.to_string().contains("--timeout must be a positive"), "{e}");
+        assert!(
+            e.to_string().contains("--timeout must be a positive"),
+            "{e}"
+        );
         opts.timeout_secs = 1.5;
         let input = load_input(&p, &IngestOptions::default(), &opts).unwrap();
         assert!(matches!(

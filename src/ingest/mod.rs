@@ -96,7 +96,9 @@ impl clap::ValueEnum for InputFormat {
             InputFormat::Csv { delimiter: b',' } => {
                 ("csv", "Comma-separated values with a header row")
             }
-            InputFormat::Csv { delimiter: b'\t' } => ("tsv", "Tab-separated values with a header row"),
+            InputFormat::Csv { delimiter: b'\t' } => {
+                ("tsv", "Tab-separated values with a header row")
+            }
             InputFormat::Csv { .. } => return None,
             InputFormat::JsonLines => ("jsonl", "One JSON object per line"),
         };
@@ -396,4 +398,3 @@ impl<'a> Builder<'a> {
         Ok(Corpus::new(self.items, keys, ids)?.with_blank_skipped(self.blank))
     }
 }
-
