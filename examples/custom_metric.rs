@@ -119,7 +119,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         dim: 8,
         ..BuildOptions::default()
     };
-    let report = build_index_with_metric(&corpus, "buoys", &opts, &metric, &path, &|_| {})?;
+    let report = build_index_with_metric(&corpus, "buoys", &opts, &metric, &path, &())?;
     println!(
         "built an index of {} buoys with the custom metric `{}` ({} bytes)",
         report.meta.n,

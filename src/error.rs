@@ -5,8 +5,6 @@
 
 use std::path::PathBuf;
 
-pub use crate::ingest::IngestError;
-
 /// Result alias used across the library.
 pub type Result<T, E = Error> = std::result::Result<T, E>;
 
@@ -38,5 +36,54 @@ pub enum Error {
         path: PathBuf,
         /// The underlying error.
         source: std::io::Error,
+    },
+}
+
+/// What went wrong reading an input, and where (re-exported as `waymark::ingest::IngestError`).
+#[derive(Debug, thiserror::Error)]
+pub enum IngestError {
+    /// The file could not be opened or read.
+    #[error("{source_name}: {error}")]
+    Io {
+        /// The file.
+        source_name: String,
+        /// The OS error.
+        error: std::io::Error,
+    },
+    /// A record is malformed.
+    #[error("{source_name}:{line}: {message}")]
+    Record {
+        /// The file.
+        source_name: String,
+        /// 1-based line number.
+        line: u64,
+        /// What is wrong.
+        message: String,
+    },
+    /// The options do not fit the input (e.g. a column that is not in the header).
+    #[error("{source_name}: {message}")]
+    Options {
+        /// The file.
+        source_name: String,
+        /// What is wrong.
+        message: String,
+    },
+    /// Nothing to index.
+    #[error("no items in {source_name} ({blank} blank records skipped)")]
+    Empty {
+        /// The file.
+        source_name: String,
+        /// Records skipped.
+        blank: usize,
+    },
+    /// A corpus was put together with ids or keys that are not one per item.
+    #[error("a corpus of {items} items was given {len} {what}: it needs one per item")]
+    Mismatch {
+        /// What there is not one of per item: `"ids"` or `"keys"`.
+        what: &'static str,
+        /// How many were given.
+        len: usize,
+        /// The number of items.
+        items: usize,
     },
 }

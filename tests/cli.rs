@@ -526,3 +526,81 @@ fn a_closed_pipe_is_not_an_error() {
     assert_eq!(String::from_utf8_lossy(&out.stdout).trim(), "0");
     assert_eq!(std::fs::read_to_string(d.path("err.txt")).unwrap(), "");
 }
+
+/// `waymark ARGS --help` with every run of white space made one space, so that clap's line
+/// wrapping does not matter.
+fn help_of(args: &[&str]) -> String {
+    let out = Command::cargo_bin("waymark")
+        .expect("binary")
+        .args(args)
+        .arg("--help")
+        .assert()
+        .success()
+        .get_output()
+        .stdout
+        .clone();
+    let text = String::from_utf8(out).expect("utf-8");
+    text.split_whitespace().collect::<Vec<_>>().join(" ")
+}
+
+/// `n` with a comma between groups of three digits, as help texts print counts.
+fn grouped(n: usize) -> String {
+    let digits = n.to_string();
+    let mut out = String::new();
+    for (i, c) in digits.chars().enumerate() {
+        if i > 0 && (digits.len() - i).is_multiple_of(3) {
+            out.push(',');
+        }
+        out.push(c);
+    }
+    out
+}
+
+#[test]
+fn help_texts_quote_the_library_defaults() {
+    let cells = format!(
+        "cells for indexes of {} items or more, else scan",
+        grouped(waymark::search::CELLS_MIN_ITEMS)
+    );
+    for command in ["query", "eval"] {
+        let help = help_of(&[command]);
+        assert!(help.contains(&cells), "{command} --help: {help}");
+    }
+    let stored = format!(
+        "the number of items / 160, at least {} and at most {}",
+        waymark::search::DEFAULT_CANDIDATES,
+        waymark::search::default_candidates(usize::MAX)
+    );
+    let help = help_of(&["build"]);
+    assert!(help.contains(&stored), "build --help: {help}");
+}
+
+#[test]
+fn top_level_help_says_what_waymark_is() {
+    let about = env!("CARGO_PKG_DESCRIPTION");
+    for words in [
+        "not vectors",
+        "graph nodes",
+        "landmark",
+        "re-ranked by the true distance",
+    ] {
+        assert!(about.contains(words), "{about}");
+    }
+    assert!(!about.contains("kd-tree"), "{about}");
+    let about = about.split_whitespace().collect::<Vec<_>>().join(" ");
+    assert!(help_of(&[]).contains(&about));
+}
+
+#[test]
+fn the_external_program_is_named_as_such_in_usage_lines() {
+    // The positional after `--` is the external metric's program; named COMMAND it read as a
+    // subcommand placeholder.
+    for command in ["build", "sweep", "check-metric"] {
+        let help = help_of(&[command]);
+        assert!(
+            help.contains("[-- <PROGRAM>...]"),
+            "{command} --help: {help}"
+        );
+        assert!(!help.contains("COMMAND"), "{command} --help: {help}");
+    }
+}

@@ -91,7 +91,7 @@ proptest! {
         let path = dir.path().join("c.wmk");
         let metric = CustomMetric::new(Strsim);
         let opts = BuildOptions { dim: 4, seed: 3, ..BuildOptions::default() };
-        build_index_with_metric(&corpus(&items), "test", &opts, &metric, &path, &|_| {}).unwrap();
+        build_index_with_metric(&corpus(&items), "test", &opts, &metric, &path, &()).unwrap();
         let index = Index::open_with_metric(&path, &metric).unwrap();
         let s = Searcher::new(&index);
         for q in &queries {
@@ -126,7 +126,7 @@ fn a_custom_index_opens_only_with_its_metric() {
         &BuildOptions::default(),
         &metric,
         &path,
-        &|_| {},
+        &(),
     )
     .unwrap();
 

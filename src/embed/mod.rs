@@ -118,14 +118,26 @@ pub fn choose_landmarks<M: Metric, T: AsRef<[u8]> + Sync>(
 
 /// The embedding methods, as chosen on the command line (`--embedding`).
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[cfg_attr(feature = "cli", derive(clap::ValueEnum))]
 #[serde(rename_all = "lowercase")]
 pub enum Method {
     /// Distances to farthest-first landmark items.
     #[default]
     Landmarks,
     /// Distances to random reference sets of sizes 1, 2, 4, … drawn from a pool.
+    #[cfg_attr(
+        feature = "cli",
+        value(
+            name = "refsets",
+            help = "Distances to random sets of sizes 1, 2, 4, … drawn from a pool (Bourgain)"
+        )
+    )]
     RefSets,
     /// FastMap projections onto pivot lines (L2, not contractive).
+    #[cfg_attr(
+        feature = "cli",
+        value(name = "fastmap", help = "FastMap projections onto pivot lines")
+    )]
     FastMap,
 }
 

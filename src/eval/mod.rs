@@ -22,6 +22,7 @@
 mod brute;
 pub mod distortion;
 mod measure;
+#[cfg(feature = "charts")]
 pub mod plot;
 mod recall;
 mod scan;

@@ -26,6 +26,7 @@ use std::time::Instant;
 use serde::Serialize;
 
 use super::measure::measure_recall;
+#[cfg(feature = "charts")]
 use super::plot::{line_chart, Chart, Series};
 use super::truth::{load_or_compute_truth, TruthSource};
 use crate::coords::Space;
@@ -82,6 +83,30 @@ impl Default for SweepOptions {
 }
 
 impl SweepOptions {
+    /// Checks the options (a value for each list, dimensions in range, counts of at least 1),
+    /// so that a caller can refuse them before reading an input; [`run_sweep`] checks them too.
+    pub fn check(&self) -> Result<()> {
+        let usage = |m: &str| Err(Error::Usage(m.to_string()));
+        if self.methods.is_empty() || self.dims.is_empty() || self.spaces.is_empty() {
+            return usage("--embeddings, --dims and --spaces each need at least one value");
+        }
+        if self.candidates.is_empty() || self.candidates.contains(&0) {
+            return usage("--candidates needs values of at least 1");
+        }
+        if self.k == 0 {
+            return usage("-k must be at least 1");
+        }
+        if let Some(&d) = self.dims.iter().find(|&&d| d == 0 || d > MAX_DIM) {
+            return Err(Error::Usage(format!(
+                "--dims: every dimension must be between 1 and {MAX_DIM}, not {d}"
+            )));
+        }
+        if self.pool == 0 {
+            return usage("--pool must be at least 1");
+        }
+        Ok(())
+    }
+
     /// Number of result rows the sweep makes.
     pub fn configurations(&self) -> usize {
         self.methods.len() * self.dims.len() * self.spaces.len() * self.candidates.len()
@@ -167,20 +192,7 @@ pub fn run_sweep(
 ) -> Result<SweepReport> {
     let started = Instant::now();
     let usage = |m: &str| Err(Error::Usage(m.to_string()));
-    if opts.methods.is_empty() || opts.dims.is_empty() || opts.spaces.is_empty() {
-        return usage("--embeddings, --dims and --spaces each need at least one value");
-    }
-    if opts.candidates.is_empty() || opts.candidates.contains(&0) {
-        return usage("--candidates needs values of at least 1");
-    }
-    if opts.k == 0 {
-        return usage("-k must be at least 1");
-    }
-    if let Some(&d) = opts.dims.iter().find(|&&d| d == 0 || d > MAX_DIM) {
-        return Err(Error::Usage(format!(
-            "--dims: every dimension must be between 1 and {MAX_DIM}, not {d}"
-        )));
-    }
+    opts.check()?;
     if queries.is_empty() {
         return usage("the queries file holds no queries");
     }
@@ -301,7 +313,8 @@ pub fn run_sweep(
     })
 }
 
-/// Writes `sweep.csv`, `sweep.json` and the SVG charts into `dir`; returns the paths written.
+/// Writes `sweep.csv`, `sweep.json` and, with the `charts` feature, the SVG charts into
+/// `dir`; returns the paths written (without the feature: the CSV and JSON files only).
 ///
 /// Charts: `recall_vs_dim_c<C>.svg` (recall@k against dimension, a line per method and space,
 /// one chart per candidate count) and `recall_vs_qps.svg` (recall@k against queries per
@@ -331,7 +344,14 @@ pub fn write_outputs(report: &SweepReport, dir: &Path) -> Result<Vec<PathBuf>> {
     let json = serde_json::to_vec_pretty(report).expect("report serialises");
     std::fs::write(&json_path, json).map_err(io(&json_path))?;
     written.push(json_path);
+    #[cfg(feature = "charts")]
+    write_charts(report, dir, &mut written)?;
+    Ok(written)
+}
 
+/// Draws the charts of [`write_outputs`] into `dir`, adding their paths to `written`.
+#[cfg(feature = "charts")]
+fn write_charts(report: &SweepReport, dir: &Path, written: &mut Vec<PathBuf>) -> Result<()> {
     let mut cands: Vec<usize> = report.rows.iter().map(|r| r.candidates).collect();
     cands.sort_unstable();
     cands.dedup();
@@ -414,5 +434,5 @@ pub fn write_outputs(report: &SweepReport, dir: &Path) -> Result<Vec<PathBuf>> {
         &series,
     )?;
     written.push(path);
-    Ok(written)
+    Ok(())
 }

@@ -56,6 +56,59 @@ impl Default for BuildOptions {
     }
 }
 
+impl BuildOptions {
+    /// Checks the parameters that do not depend on the items (the dimension, the pool), so
+    /// that a caller can refuse them before reading an input; [`build_index`] checks them too.
+    pub fn check(&self) -> Result<()> {
+        if self.dim == 0 || self.dim > MAX_DIM {
+            return Err(Error::Usage(format!(
+                "--dim must be between 1 and {MAX_DIM}, not {}",
+                self.dim
+            )));
+        }
+        if self.method == Method::RefSets && self.pool == 0 {
+            return Err(Error::Usage("--pool must be at least 1".into()));
+        }
+        Ok(())
+    }
+}
+
+/// The stages of a build after reading, in order, as reported to [`BuildProgress::stage`].
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum BuildStage {
+    /// Choosing the reference items and embedding every item (reported item by item through
+    /// [`BuildProgress::embedded`]).
+    Embed,
+    /// Building the kd-tree and the cells (one step, no finer progress).
+    TreeAndCells,
+    /// Writing the file.
+    Write,
+}
+
+/// What a build reports while it runs; every method does nothing unless overridden.
+pub trait BuildProgress: Sync {
+    /// A stage begins.
+    fn stage(&self, stage: BuildStage) {
+        let _ = stage;
+    }
+    /// `items` more items have been embedded (called from several threads).
+    fn embedded(&self, items: usize) {
+        let _ = items;
+    }
+}
+
+/// Reports no progress.
+impl BuildProgress for () {}
+
+/// Reports embedded items only, to a closure (the progress argument of [`build_index`]).
+struct ItemsOnly<'a>(&'a (dyn Fn(usize) + Sync));
+
+impl BuildProgress for ItemsOnly<'_> {
+    fn embedded(&self, items: usize) {
+        (self.0)(items)
+    }
+}
+
 /// What a build did, for the command's summary.
 #[derive(Clone, Debug)]
 pub struct BuildReport {
@@ -90,7 +143,8 @@ fn string_sections(strings: impl ExactSizeIterator<Item = impl AsRef<[u8]>>) -> 
 
 /// Builds an index of `corpus` at `dest`, atomically replacing any file there.
 ///
-/// `progress` is called with the number of items embedded since the last call.
+/// `progress` is called with the number of items embedded since the last call; see
+/// [`build_index_with`] for the stages too.
 pub fn build_index(
     corpus: &Corpus,
     source: &str,
@@ -98,31 +152,43 @@ pub fn build_index(
     dest: &Path,
     progress: &(dyn Fn(usize) + Sync),
 ) -> Result<BuildReport> {
+    build(corpus, source, opts, None, dest, &ItemsOnly(progress))
+}
+
+/// [`build_index`], reporting each stage and the items embedded to `progress`.
+pub fn build_index_with(
+    corpus: &Corpus,
+    source: &str,
+    opts: &BuildOptions,
+    dest: &Path,
+    progress: &dyn BuildProgress,
+) -> Result<BuildReport> {
     build(corpus, source, opts, None, dest, progress)
 }
 
 /// Builds an index of `corpus` at `dest` with a metric of your own (`opts.metric` is not
-/// used). The index records the metric's name; open it with [`super::Index::open_with_metric`]
-/// and the same metric. See `examples/custom_metric.rs`.
+/// used), reporting to `progress` as [`build_index_with`]. The index records the metric's
+/// name; open it with [`super::Index::open_with_metric`] and the same metric. See
+/// `examples/custom_metric.rs`.
 pub fn build_index_with_metric(
     corpus: &Corpus,
     source: &str,
     opts: &BuildOptions,
     metric: &CustomMetric,
     dest: &Path,
-    progress: &(dyn Fn(usize) + Sync),
+    progress: &dyn BuildProgress,
 ) -> Result<BuildReport> {
     build(corpus, source, opts, Some(metric), dest, progress)
 }
 
-/// The build behind [`build_index`] and [`build_index_with_metric`].
+/// The build behind [`build_index_with`] and [`build_index_with_metric`].
 fn build(
     corpus: &Corpus,
     source: &str,
     opts: &BuildOptions,
     custom: Option<&CustomMetric>,
     dest: &Path,
-    progress: &(dyn Fn(usize) + Sync),
+    progress: &dyn BuildProgress,
 ) -> Result<BuildReport> {
     check_options(corpus, source, opts)?;
     let keys = corpus.key_bytes();
@@ -133,6 +199,7 @@ fn build(
     // Start the file first: an unwritable destination fails before the expensive part.
     let writer = ContainerWriter::create(dest)?;
     let t0 = Instant::now();
+    progress.stage(BuildStage::Embed);
     let embedded = embed_items(
         &metric,
         &keys,
@@ -143,7 +210,7 @@ fn build(
             pool: opts.pool,
             seed: opts.seed,
         },
-        progress,
+        &|n| progress.embedded(n),
     );
     let axioms = check_axioms(&metric, &keys, AXIOM_SAMPLE, opts.seed);
     metric.check()?;
@@ -157,6 +224,7 @@ fn build(
         writer,
         dest,
         embed_seconds,
+        progress,
     )?;
     report.axioms = Some(axioms);
     Ok(report)
@@ -226,19 +294,24 @@ pub fn build_index_from(
         )));
     }
     let writer = ContainerWriter::create(dest)?;
-    write_index(corpus, source, opts, &spec, embedded, writer, dest, 0.0)
+    write_index(
+        corpus,
+        source,
+        opts,
+        &spec,
+        embedded,
+        writer,
+        dest,
+        0.0,
+        &(),
+    )
 }
 
 fn check_options(corpus: &Corpus, source: &str, opts: &BuildOptions) -> Result<()> {
-    if opts.dim == 0 || opts.dim > MAX_DIM {
-        return Err(Error::Usage(format!(
-            "--dim must be between 1 and {MAX_DIM}, not {}",
-            opts.dim
-        )));
-    }
-    if opts.method == Method::RefSets && opts.pool == 0 {
-        return Err(Error::Usage("--pool must be at least 1".into()));
-    }
+    opts.check()?;
+    corpus
+        .check()
+        .map_err(|e| Error::Usage(format!("{source}: {e}")))?;
     let n = corpus.items.len();
     if n == 0 {
         return Err(Error::Usage(format!("{source}: no items to index")));
@@ -262,6 +335,7 @@ fn write_index(
     mut writer: ContainerWriter,
     dest: &Path,
     embed_seconds: f64,
+    progress: &dyn BuildProgress,
 ) -> Result<BuildReport> {
     let n = corpus.items.len();
     let kind = spec.kind();
@@ -286,6 +360,7 @@ fn write_index(
             *b = quantize(x, scale);
         }
     }
+    progress.stage(BuildStage::TreeAndCells);
     let t1 = Instant::now();
     let f32s: Vec<f32> = coords.iter().map(|&x| x as f32).collect();
     let tree_bytes = tree::build(&f32s, dim).map_err(|e| Error::Index {
@@ -296,6 +371,7 @@ fn write_index(
     let cells_bytes = cells::build(&small, stride, opts.seed);
     let tree_seconds = t1.elapsed().as_secs_f64();
 
+    progress.stage(BuildStage::Write);
     let t2 = Instant::now();
     let meta = IndexMeta {
         n: n as u64,
@@ -361,4 +437,87 @@ fn write_index(
         write_seconds: t2.elapsed().as_secs_f64(),
         axioms: None,
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn names() -> Vec<String> {
+        [
+            "Keth Landing",
+            "Orvane Quay",
+            "Mirrow Steps",
+            "Orvane Strand",
+        ]
+        .map(String::from)
+        .to_vec()
+    }
+
+    #[test]
+    fn a_corpus_without_one_id_and_one_key_per_item_is_refused_and_nothing_is_written() {
+        let dir = tempfile::tempdir().unwrap();
+        let dest = dir.path().join("names.wmk");
+        let opts = BuildOptions {
+            dim: 2,
+            ..BuildOptions::default()
+        };
+        let few_ids = Corpus {
+            items: names(),
+            keys: None,
+            ids: Ids::Int(vec![0, 1, 2]),
+            blank_skipped: 0,
+            records: 4,
+        };
+        let e = build_index(&few_ids, "names", &opts, &dest, &|_| {}).unwrap_err();
+        assert!(matches!(e, Error::Usage(_)), "{e:?}");
+        assert_eq!(
+            e.to_string(),
+            "names: a corpus of 4 items was given 3 ids: it needs one per item"
+        );
+        let few_keys = Corpus {
+            keys: Some(vec![b"keth landing".to_vec()]),
+            ids: Ids::Int(vec![0, 1, 2, 3]),
+            ..few_ids
+        };
+        let e = build_index(&few_keys, "names", &opts, &dest, &|_| {}).unwrap_err();
+        assert!(e.to_string().contains("was given 1 keys"), "{e}");
+        assert!(!dest.exists());
+    }
+
+    #[test]
+    fn stages_are_reported_in_order_and_every_item_is_embedded_once() {
+        use std::sync::atomic::{AtomicUsize, Ordering};
+        use std::sync::Mutex;
+        #[derive(Default)]
+        struct Record {
+            stages: Mutex<Vec<BuildStage>>,
+            items: AtomicUsize,
+        }
+        impl BuildProgress for Record {
+            fn stage(&self, stage: BuildStage) {
+                self.stages.lock().unwrap().push(stage);
+            }
+            fn embedded(&self, items: usize) {
+                self.items.fetch_add(items, Ordering::Relaxed);
+            }
+        }
+        let dir = tempfile::tempdir().unwrap();
+        let corpus = Corpus::new(names(), None, Ids::Int(vec![0, 1, 2, 3])).unwrap();
+        let record = Record::default();
+        let opts = BuildOptions {
+            dim: 2,
+            ..BuildOptions::default()
+        };
+        build_index_with(&corpus, "names", &opts, &dir.path().join("n.wmk"), &record).unwrap();
+        assert_eq!(
+            *record.stages.lock().unwrap(),
+            [
+                BuildStage::Embed,
+                BuildStage::TreeAndCells,
+                BuildStage::Write
+            ]
+        );
+        assert_eq!(record.items.load(Ordering::Relaxed), 4);
+    }
 }

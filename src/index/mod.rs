@@ -28,8 +28,8 @@ use memmap2::Mmap;
 use serde::{Deserialize, Serialize};
 
 pub use build::{
-    build_index, build_index_from, build_index_with_metric, open_metric, BuildOptions, BuildReport,
-    AXIOM_SAMPLE,
+    build_index, build_index_from, build_index_with, build_index_with_metric, open_metric,
+    BuildOptions, BuildProgress, BuildReport, BuildStage, AXIOM_SAMPLE,
 };
 use file::{Section, SectionKind};
 

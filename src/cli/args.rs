@@ -1,0 +1,488 @@
+//! Every clap definition of the command line. The input options of `build`, `sweep` and
+//! `check-metric` are declared once ([`InputArgs`], [`MetricArgs`], [`IdArgs`]) and flattened
+//! into each; help texts that quote a library default are built from its constant.
+
+use std::path::PathBuf;
+
+use clap::{Parser, Subcommand, ValueEnum};
+
+use crate::embed::Method;
+use crate::ingest::{
+    load_input, IngestOptions, InputFormat, LoadedInput, MetricOptions, Normalize,
+    DEFAULT_TIMEOUT_SECS,
+};
+use crate::metric::MetricKind;
+use crate::search::{CandidateSource, Space};
+
+/// The command line.
+#[derive(Debug, Parser)]
+#[command(name = "waymark", version, about, long_about = None)]
+pub struct Args {
+    #[command(subcommand)]
+    pub(super) command: Command,
+}
+
+#[derive(Debug, Subcommand)]
+pub(super) enum Command {
+    /// Build an index from a file of items.
+    Build(BuildArgs),
+    /// Find the nearest items for queries read from stdin or a file (JSON Lines out).
+    Query(QueryArgs),
+    /// Show what an index holds; --verify checks every checksum.
+    Inspect(InspectArgs),
+    /// Measure an index: recall against brute force, cost and speed; distortion of its embedding.
+    Eval(EvalArgs),
+    /// Build and measure indexes over embedding methods, dimensions and spaces; write CSV, JSON and SVG charts.
+    Sweep(SweepArgs),
+    /// Check on a sample of the input that the distance is a metric (zero on equal items,
+    /// symmetric, triangle inequality); exit code 4 when it is not.
+    CheckMetric(CheckMetricArgs),
+}
+
+/// `n` with a comma between groups of three digits (`50,000`), as help texts print counts.
+pub fn grouped(n: usize) -> String {
+    let digits = n.to_string();
+    let mut out = String::with_capacity(digits.len() + digits.len() / 3);
+    for (i, c) in digits.chars().enumerate() {
+        if i > 0 && (digits.len() - i).is_multiple_of(3) {
+            out.push(',');
+        }
+        out.push(c);
+    }
+    out
+}
+
+/// Help of `--candidates-from` (query and eval), with the library's threshold for cells.
+fn candidates_from_help() -> String {
+    format!(
+        "Where candidates come from [default: cells for indexes of {} items or more, else scan]",
+        grouped(crate::search::CELLS_MIN_ITEMS)
+    )
+}
+
+/// Help of `build --candidates`, with the library's bounds of the stored default.
+fn build_candidates_help() -> String {
+    format!(
+        "Default number of candidates re-ranked per query, stored in the index [default: the \
+         number of items / 160, at least {} and at most {}]",
+        crate::search::DEFAULT_CANDIDATES,
+        crate::search::default_candidates(usize::MAX)
+    )
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub(super) enum SpaceArg {
+    L1,
+    L2,
+    Linf,
+}
+
+impl From<SpaceArg> for Space {
+    fn from(s: SpaceArg) -> Space {
+        match s {
+            SpaceArg::L1 => Space::L1,
+            SpaceArg::L2 => Space::L2,
+            SpaceArg::Linf => Space::Linf,
+        }
+    }
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub(super) enum SourceArg {
+    /// The rows of the cells nearest the query (the default for large indexes).
+    Cells,
+    /// A SIMD pass over every item's compact coordinates.
+    Scan,
+    /// The kd-tree's exact nearest-n search on the coordinates.
+    Tree,
+}
+
+impl From<SourceArg> for CandidateSource {
+    fn from(s: SourceArg) -> CandidateSource {
+        match s {
+            SourceArg::Cells => CandidateSource::Cells,
+            SourceArg::Scan => CandidateSource::Scan,
+            SourceArg::Tree => CandidateSource::Tree,
+        }
+    }
+}
+
+/// The metric names of the command line (`weighted` is the library's `weighted-edit`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub(super) enum MetricArg {
+    /// Edit distance: insertions, deletions, substitutions of characters (text; the default).
+    Levenshtein,
+    /// Edit distance that also counts swapping two adjacent characters as one edit (unrestricted).
+    Damerau,
+    /// Number of positions where two strings of one length differ (barcodes).
+    Hamming,
+    /// Edit distance with costs per character from --costs FILE.
+    Weighted,
+    /// 1 − |A∩B|/|A∪B| of token sets (--separator) or character q-grams (--qgrams).
+    Jaccard,
+    /// Sum of absolute differences of numeric vectors (CSV/TSV rows or .npy).
+    L1,
+    /// Euclidean distance of numeric vectors.
+    L2,
+    /// Largest absolute difference of numeric vectors.
+    Linf,
+    /// Angle between numeric vectors, divided by π.
+    Angular,
+    /// Shortest-path length in a weighted graph; the input is an edge list `a b weight`.
+    Graph,
+    /// Distances from your own program (after `--`), over the waymark-metric protocol.
+    External,
+}
+
+impl From<MetricArg> for MetricKind {
+    fn from(m: MetricArg) -> MetricKind {
+        match m {
+            MetricArg::Levenshtein => MetricKind::Levenshtein,
+            MetricArg::Damerau => MetricKind::Damerau,
+            MetricArg::Hamming => MetricKind::Hamming,
+            MetricArg::Weighted => MetricKind::WeightedEdit,
+            MetricArg::Jaccard => MetricKind::Jaccard,
+            MetricArg::L1 => MetricKind::L1,
+            MetricArg::L2 => MetricKind::L2,
+            MetricArg::Linf => MetricKind::Linf,
+            MetricArg::Angular => MetricKind::Angular,
+            MetricArg::Graph => MetricKind::Graph,
+            MetricArg::External => MetricKind::External,
+        }
+    }
+}
+
+/// How items are compared.
+#[derive(Debug, Clone, clap::Args)]
+pub(super) struct MetricArgs {
+    /// The distance items are compared by.
+    #[arg(long, value_enum, default_value = "levenshtein")]
+    metric: MetricArg,
+    /// weighted: the cost file (insert/delete and substitution costs per character).
+    #[arg(long, value_name = "FILE")]
+    costs: Option<PathBuf>,
+    /// jaccard: tokens are the pieces between this separator [default: white space].
+    #[arg(long, value_name = "SEP")]
+    separator: Option<String>,
+    /// jaccard: sets of Q consecutive characters instead of tokens.
+    #[arg(long, value_name = "Q", conflicts_with = "separator")]
+    qgrams: Option<usize>,
+    /// Vector input: the first line names the columns (skipped).
+    #[arg(long)]
+    header: bool,
+    /// external: time limit for each batch of distances, in seconds.
+    #[arg(long, value_name = "SECS", default_value_t = DEFAULT_TIMEOUT_SECS)]
+    timeout: f64,
+    /// external: the program and its arguments, after `--` (a build records it in the index;
+    /// every process querying the index starts it).
+    #[arg(last = true, value_name = "PROGRAM")]
+    command: Vec<String>,
+}
+
+impl MetricArgs {
+    /// The library's form of these options.
+    fn options(&self) -> MetricOptions {
+        MetricOptions {
+            kind: self.metric.into(),
+            costs: self.costs.clone(),
+            separator: self.separator.clone(),
+            qgrams: self.qgrams,
+            header: self.header,
+            command: self.command.clone(),
+            timeout_secs: self.timeout,
+        }
+    }
+}
+
+/// The input file of `build`, `sweep` and `check-metric`, and how to read and compare it.
+#[derive(Debug, Clone, clap::Args)]
+pub(super) struct InputArgs {
+    /// Input file: text (one item per line), .csv/.tsv (with --field) or .jsonl (with --field);
+    /// for vector metrics one vector per line (or .npy); for graph an edge list.
+    pub input: PathBuf,
+    #[command(flatten)]
+    metric: MetricArgs,
+    /// Input format; by default from the file extension (.csv, .tsv, .jsonl, else text).
+    #[arg(long = "input-format", value_enum, value_name = "FORMAT")]
+    input_format: Option<InputFormat>,
+    /// The column (header name or 0-based number) or JSON field holding the items.
+    #[arg(long, value_name = "NAME")]
+    field: Option<String>,
+    /// Compare items ignoring case (a build stores this in the index and applies it to every
+    /// query).
+    #[arg(long = "fold-case")]
+    fold_case: bool,
+    /// Compare items without leading and trailing white space (stored and applied like
+    /// --fold-case).
+    #[arg(long)]
+    trim: bool,
+}
+
+/// Where the ids are (`build` and `sweep`).
+#[derive(Debug, Clone, clap::Args)]
+pub(super) struct IdArgs {
+    /// The column or JSON field holding the ids (default: 0-based record number).
+    #[arg(long = "id-field", value_name = "NAME")]
+    id_field: Option<String>,
+}
+
+impl InputArgs {
+    /// The normalisation asked for.
+    pub fn normalize(&self) -> Normalize {
+        Normalize {
+            fold_case: self.fold_case,
+            trim: self.trim,
+        }
+    }
+
+    /// The input's path as errors and summaries name it.
+    pub fn source(&self) -> String {
+        self.input.display().to_string()
+    }
+
+    /// Reads the input as its metric wants it (ids from `ids`, else record numbers).
+    pub fn load(&self, ids: Option<&IdArgs>) -> crate::Result<LoadedInput> {
+        let ingest = IngestOptions {
+            format: self.input_format,
+            field: self.field.clone(),
+            id_field: ids.and_then(|i| i.id_field.clone()),
+            normalize: self.normalize(),
+        };
+        load_input(&self.input, &ingest, &self.metric.options())
+    }
+}
+
+#[derive(Debug, clap::Args)]
+pub(super) struct BuildArgs {
+    #[command(flatten)]
+    pub input: InputArgs,
+    #[command(flatten)]
+    pub ids: IdArgs,
+    /// Where to write the index (replaced atomically).
+    #[arg(short = 'o', long = "output", value_name = "INDEX")]
+    pub output: PathBuf,
+    /// Embedding dimension: the number of coordinates (1 to 64).
+    #[arg(long = "dim", value_name = "D", default_value_t = crate::search::DEFAULT_DIM)]
+    pub dim: usize,
+    /// How items become coordinates: distances to landmarks, to random reference sets, or
+    /// FastMap projections (not contractive: no pruning).
+    #[arg(long, value_enum, default_value = "landmarks")]
+    pub embedding: Method,
+    /// Size of the reference-set pool: a query costs one distance per pool item (refsets).
+    #[arg(long, value_name = "P", default_value_t = crate::embed::DEFAULT_POOL)]
+    pub pool: usize,
+    /// Seed of the embedding's random choices; the same seed and input give the same index.
+    #[arg(long, value_name = "S", default_value_t = 0)]
+    pub seed: u64,
+    #[arg(long, value_name = "C", value_parser = clap::value_parser!(u64).range(1..),
+          help = build_candidates_help())]
+    pub candidates: Option<u64>,
+    /// Default space candidates are ranked in, stored in the index.
+    #[arg(long, value_enum, default_value = "l1")]
+    pub space: SpaceArg,
+    /// Number of items landmarks and FastMap pivots are chosen from.
+    #[arg(long = "landmark-sample", value_name = "N", default_value_t = 4096)]
+    pub landmark_sample: usize,
+    /// Print nothing on success.
+    #[arg(short, long)]
+    pub quiet: bool,
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub(super) enum OutFormat {
+    /// One JSON object per query.
+    Json,
+    /// One tab-separated line per neighbour: query, rank, id, item, distance.
+    Tsv,
+}
+
+#[derive(Debug, clap::Args)]
+pub(super) struct QueryArgs {
+    /// The index file.
+    pub index: PathBuf,
+    /// Number of neighbours per query [default: 10; with --within: every item within R].
+    #[arg(short = 'k', value_name = "K")]
+    pub k: Option<usize>,
+    /// Exact k nearest neighbours, each answer with its certificate (needs an index whose
+    /// embedding gives a lower bound of the true distance).
+    #[arg(long, conflicts_with_all = ["candidates", "space", "candidates_from"])]
+    pub exact: bool,
+    /// Every item at true distance at most R, exactly (with -k: the k nearest of them).
+    #[arg(long, value_name = "R", allow_negative_numbers = true, conflicts_with_all = ["candidates", "space", "candidates_from"])]
+    pub within: Option<f64>,
+    /// Candidates re-ranked by the true distance (default: stored in the index).
+    #[arg(long, value_name = "C")]
+    pub candidates: Option<usize>,
+    /// Space candidates are ranked in (default: stored in the index).
+    #[arg(long, value_enum)]
+    pub space: Option<SpaceArg>,
+    #[arg(long = "candidates-from", value_enum, help = candidates_from_help())]
+    pub candidates_from: Option<SourceArg>,
+    /// With cells: compare the rows of the nearest cells until N rows are compared
+    /// [default: 12 per candidate]; 0 compares every row.
+    #[arg(long, value_name = "N", conflicts_with_all = ["exact", "within"])]
+    pub visit: Option<usize>,
+    /// Read queries from this file instead of stdin, one per line.
+    #[arg(long, value_name = "FILE")]
+    pub queries: Option<PathBuf>,
+    /// Output format.
+    #[arg(long, value_enum, default_value = "json")]
+    pub format: OutFormat,
+    /// Add per-query cost figures (distances computed, candidates pruned) to JSON output.
+    #[arg(long)]
+    pub stats: bool,
+    /// Print a one-line summary on stderr when done (queries, q/s, distances per query).
+    #[arg(long)]
+    pub summary: bool,
+}
+
+#[derive(Debug, clap::Args)]
+pub(super) struct InspectArgs {
+    /// The index file.
+    pub index: PathBuf,
+    /// Read the whole file and check every section's checksum.
+    #[arg(long)]
+    pub verify: bool,
+    /// Print as one JSON object.
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[derive(Debug, clap::Args)]
+pub(super) struct EvalArgs {
+    /// The index file.
+    pub index: PathBuf,
+    /// Queries, one per line: measure recall@k against brute force (answers cached beside it).
+    #[arg(long, value_name = "FILE")]
+    pub queries: Option<PathBuf>,
+    /// Number of neighbours per query.
+    #[arg(short = 'k', value_name = "K", default_value_t = 10)]
+    pub k: usize,
+    /// Candidate counts to measure, comma-separated.
+    #[arg(
+        long,
+        value_name = "C,...",
+        value_delimiter = ',',
+        default_value = "250,500,1000,2000"
+    )]
+    pub candidates: Vec<usize>,
+    /// Space candidates are ranked in (default: stored in the index).
+    #[arg(long, value_enum)]
+    pub space: Option<SpaceArg>,
+    #[arg(long = "candidates-from", value_enum, help = candidates_from_help())]
+    pub candidates_from: Option<SourceArg>,
+    /// With cells: rows compared per query [default: 12 per candidate]; 0 compares every
+    /// row.
+    #[arg(long, value_name = "N")]
+    pub visit: Option<usize>,
+    /// Report the distortion of the embedding on a sample of item pairs.
+    #[arg(long)]
+    pub distortion: bool,
+    /// Pairs measured for --distortion (all pairs when the index has no more).
+    #[arg(long, value_name = "N", default_value_t = 100_000)]
+    pub pairs: usize,
+    /// Recompute the exact answers even if a valid cache exists (and replace it).
+    #[arg(long = "no-cache")]
+    pub no_cache: bool,
+    /// Print one JSON object instead of tables.
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[derive(Debug, clap::Args)]
+pub(super) struct SweepArgs {
+    #[command(flatten)]
+    pub input: InputArgs,
+    #[command(flatten)]
+    pub ids: IdArgs,
+    /// Queries, one per line (exact answers cached beside it).
+    #[arg(long, value_name = "FILE")]
+    pub queries: PathBuf,
+    /// Folder for sweep.csv, sweep.json and the SVG charts (created if missing).
+    #[arg(long = "out", value_name = "DIR")]
+    pub out: PathBuf,
+    /// Number of neighbours per query.
+    #[arg(short = 'k', value_name = "K", default_value_t = 10)]
+    pub k: usize,
+    /// Dimensions, comma-separated (1 to 64).
+    #[arg(
+        long,
+        value_name = "D,...",
+        value_delimiter = ',',
+        default_value = "2,4,8,16,32"
+    )]
+    pub dims: Vec<usize>,
+    /// Embedding methods, comma-separated.
+    #[arg(
+        long,
+        value_enum,
+        value_name = "METHOD,...",
+        value_delimiter = ',',
+        default_value = "landmarks,refsets,fastmap"
+    )]
+    pub embeddings: Vec<Method>,
+    /// Spaces candidates are ranked in, comma-separated.
+    #[arg(
+        long,
+        value_enum,
+        value_name = "SPACE,...",
+        value_delimiter = ',',
+        default_value = "l1,l2,linf"
+    )]
+    pub spaces: Vec<SpaceArg>,
+    /// Candidate counts, comma-separated.
+    #[arg(
+        long,
+        value_name = "C,...",
+        value_delimiter = ',',
+        default_value = "1000"
+    )]
+    pub candidates: Vec<usize>,
+    /// Seed of the embeddings.
+    #[arg(long, value_name = "S", default_value_t = 0)]
+    pub seed: u64,
+    /// Size of the reference-set pool.
+    #[arg(long, value_name = "P", default_value_t = crate::embed::DEFAULT_POOL)]
+    pub pool: usize,
+    /// Number of items landmarks and FastMap pivots are chosen from.
+    #[arg(long = "landmark-sample", value_name = "N", default_value_t = 4096)]
+    pub landmark_sample: usize,
+    /// Print nothing but errors.
+    #[arg(short, long)]
+    pub quiet: bool,
+}
+
+#[derive(Debug, clap::Args)]
+pub(super) struct CheckMetricArgs {
+    #[command(flatten)]
+    pub input: InputArgs,
+    /// Items sampled: all their ordered pairs and triples are checked.
+    #[arg(long, value_name = "M", default_value_t = 200)]
+    pub sample: usize,
+    /// Seed of the sample.
+    #[arg(long, value_name = "S", default_value_t = 0)]
+    pub seed: u64,
+    /// Print one JSON object.
+    #[arg(long)]
+    pub json: bool,
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use clap::CommandFactory;
+
+    #[test]
+    fn the_definitions_are_consistent() {
+        Args::command().debug_assert();
+    }
+
+    #[test]
+    fn counts_are_grouped_by_thousands() {
+        assert_eq!(grouped(0), "0");
+        assert_eq!(grouped(999), "999");
+        assert_eq!(grouped(1000), "1,000");
+        assert_eq!(grouped(50_000), "50,000");
+        assert_eq!(grouped(1_234_567), "1,234,567");
+    }
+}

@@ -1,0 +1,100 @@
+//! `waymark build`: read the input under its metric, embed, write the index.
+
+use std::io::Write;
+use std::time::Instant;
+
+use super::args::BuildArgs;
+use super::check_metric::describe_violations;
+use super::output::BuildBars;
+use crate::index::{build_index_with, BuildOptions};
+use crate::ingest::LoadedInput;
+
+pub(super) fn build(a: BuildArgs) -> anyhow::Result<()> {
+    let t0 = Instant::now();
+    let options = BuildOptions {
+        method: a.embedding,
+        dim: a.dim,
+        seed: a.seed,
+        sample: a.landmark_sample,
+        pool: a.pool,
+        candidates: a.candidates.map_or(0, |c| c as usize),
+        space: a.space.into(),
+        normalize: a.input.normalize(),
+        ..BuildOptions::default()
+    };
+    // Refuse impossible options before reading a large input.
+    options.check()?;
+    let source = a.input.source();
+    if let Ok(m) = std::fs::metadata(&a.input.input) {
+        crate::resources::check_input(&source, m.len())?;
+    }
+    let LoadedInput {
+        corpus,
+        spec,
+        graph,
+    } = a.input.load(Some(&a.ids))?;
+    let read_seconds = t0.elapsed().as_secs_f64();
+    let n = corpus.items.len();
+    let text_bytes: usize = corpus.items.iter().map(String::len).sum::<usize>()
+        + corpus
+            .keys
+            .as_ref()
+            .map_or(0, |k| k.iter().map(Vec::len).sum());
+    crate::resources::check_build(&source, n, text_bytes, a.dim)?;
+    let bars = BuildBars::new(n, !a.quiet);
+    let report = build_index_with(
+        &corpus,
+        &source,
+        &BuildOptions {
+            metric: spec,
+            graph,
+            ..options
+        },
+        &a.output,
+        &bars,
+    );
+    bars.finish();
+    let report = report?;
+    if let Some(r) = report.axioms.as_ref().filter(|r| !r.is_metric()) {
+        eprintln!(
+            "waymark: warning: the {} distance breaks the metric rules on a sample of {} items \
+             (run `waymark check-metric` for more); exact answers and pruning are not sound",
+            report.meta.metric, r.sample
+        );
+        for l in describe_violations(r, &corpus).iter().take(3) {
+            eprintln!("waymark: warning:   {l}");
+        }
+    }
+    if !a.quiet {
+        let m = &report.meta;
+        let mut out = std::io::stdout().lock();
+        writeln!(
+            out,
+            "indexed {} items from {} into {} ({}, {} coordinates by {}, {:.1} MB) in {:.2} s",
+            m.n,
+            source,
+            a.output.display(),
+            m.metric,
+            m.dim,
+            m.embedding.name(),
+            report.file_len as f64 / 1e6,
+            t0.elapsed().as_secs_f64()
+        )?;
+        if m.blank_skipped > 0 {
+            writeln!(out, "skipped {} blank records", m.blank_skipped)?;
+        }
+        if (m.dim as usize) < a.dim {
+            writeln!(
+                out,
+                "note: only {} coordinates could be made (asked for {}): the input has too few distinct items",
+                m.dim, a.dim
+            )?;
+        }
+        writeln!(
+            out,
+            "time: read {:.2} s, embed {:.2} s, tree and cells {:.2} s, write {:.2} s",
+            read_seconds, report.embed_seconds, report.tree_seconds, report.write_seconds
+        )?;
+    }
+    Ok(())
+}

@@ -1,0 +1,241 @@
+//! `waymark eval`: recall, cost and speed of an index against brute force, and the
+//! distortion of its embedding.
+
+use std::io::Write;
+
+use super::args::EvalArgs;
+use super::output::counting_bar;
+use super::query::{at_query_line, read_query_file};
+use crate::error::Error;
+use crate::eval::{load_or_compute_truth, measure_distortion, measure_recall, TruthSource};
+use crate::index::Index;
+use crate::search::{CandidateSource, Request, SearchParams, Searcher, Space};
+
+pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
+    if a.queries.is_none() && !a.distortion {
+        return Err(Error::Usage(
+            "nothing to measure: give --queries FILE (recall) and/or --distortion".into(),
+        )
+        .into());
+    }
+    let index = Index::open(&a.index)?;
+    let space: Space = a.space.map_or(index.meta().space, Into::into);
+    // One setting per candidate count, checked (k, candidates) before any answer is computed.
+    let settings: Vec<SearchParams> = a
+        .candidates
+        .iter()
+        .map(|&c| {
+            let mut params = SearchParams {
+                space,
+                ..SearchParams::from_index(&index, a.k).with_candidates(c)
+            };
+            if let Some(v) = a.visit {
+                params.visit = v;
+            }
+            params.source = a.candidates_from.map_or(params.source, Into::into);
+            params
+        })
+        .collect();
+    let searcher = Searcher::new(&index);
+    for &params in &settings {
+        searcher.check(&Request::Approximate(params))?;
+    }
+    let mut json = serde_json::json!({
+        "index": a.index.display().to_string(),
+        "items": index.len(),
+        "embedding": index.meta().embedding.name(),
+        "dim": index.meta().dim,
+        "refs": index.meta().embedding.refs().len(),
+        "contractive": index.meta().embedding.contractive(),
+    });
+    let mut out = std::io::stdout().lock();
+    if let Some(qpath) = &a.queries {
+        let queries = read_query_file(qpath)?;
+        // Every query must suit the metric before any is measured.
+        for (i, q) in queries.iter().enumerate() {
+            searcher
+                .prepare(q)
+                .map_err(|e| at_query_line(e, &qpath.display().to_string(), i + 1))?;
+        }
+        if a.no_cache {
+            let key = crate::eval::truth::index_key(&index);
+            let _ = std::fs::remove_file(crate::eval::truth::cache_path(qpath, &key, a.k));
+        }
+        let bar = counting_bar(queries.len() as u64, "exact answers", !a.json);
+        let (truth, source) =
+            load_or_compute_truth(&index, &queries, Some(qpath), a.k, &|n| bar.inc(n as u64));
+        bar.finish_and_clear();
+        // An external metric reports a failure of its program here (its distances are NaN).
+        index.metric()?.check()?;
+        let (truth_note, truth_json) = match &source {
+            TruthSource::Cached(p) => (
+                format!("exact answers read from {}", p.display()),
+                serde_json::json!({"cached": true, "path": p.display().to_string()}),
+            ),
+            TruthSource::Computed { seconds, note } => {
+                if let Some(n) = note {
+                    eprintln!("waymark: note: {n}");
+                }
+                let qps = queries.len() as f64 / seconds.max(1e-9);
+                (
+                    format!(
+                        "exact answers by full scan: {seconds:.2} s ({qps:.0} queries/s, {:.1} M pairs/s)",
+                        qps * index.len() as f64 / 1e6
+                    ),
+                    serde_json::json!({"cached": false, "seconds": seconds, "queries_per_second": qps}),
+                )
+            }
+        };
+        let mut rows = Vec::new();
+        for params in &settings {
+            rows.push(measure_recall(&index, &queries, &truth, params)?);
+        }
+        if a.json {
+            json["queries"] = queries.len().into();
+            json["k"] = a.k.into();
+            json["ground_truth"] = truth_json;
+            json["recall"] = serde_json::to_value(&rows)?;
+        } else {
+            writeln!(
+                out,
+                "{}: {} items, {} coordinates by {}; {} queries, k = {}, candidates ranked in {} {}",
+                a.index.display(),
+                index.len(),
+                index.meta().dim,
+                index.meta().embedding.name(),
+                queries.len(),
+                a.k,
+                space.name(),
+                match (rows.first().map(|r| r.source), a.visit) {
+                    (Some(CandidateSource::Cells), None) => format!(
+                        "from cells ({} rows compared per candidate)",
+                        crate::search::VISIT_PER_CANDIDATE
+                    ),
+                    (Some(CandidateSource::Cells), Some(0)) => "from cells (every row)".into(),
+                    (Some(CandidateSource::Cells), Some(v)) => {
+                        format!("from cells ({v} rows compared per query)")
+                    }
+                    (Some(CandidateSource::Tree), _) => "from the kd-tree".into(),
+                    _ => "from a scan of every row".into(),
+                }
+            )?;
+            writeln!(out, "{truth_note}")?;
+            writeln!(
+                out,
+                "{:>10} {:>9} {:>9} {:>11} {:>8} {:>9} {:>8} {:>8} {:>8}",
+                "candidates",
+                "recall@k",
+                "plain@k",
+                "distances",
+                "% items",
+                "queries/s",
+                "p50 ms",
+                "p95 ms",
+                "p99 ms"
+            )?;
+            for r in &rows {
+                writeln!(
+                    out,
+                    "{:>10} {:>9.4} {:>9.4} {:>11.1} {:>7.2}% {:>9.0} {:>8.3} {:>8.3} {:>8.3}",
+                    r.candidates,
+                    r.recall,
+                    r.plain_recall,
+                    r.distances_per_query,
+                    100.0 * r.share_of_items,
+                    r.qps,
+                    r.p50_ms,
+                    r.p95_ms,
+                    r.p99_ms
+                )?;
+            }
+        }
+    }
+    if a.distortion {
+        let keys = index.keys();
+        let items: Vec<&[u8]> = (0..index.len()).map(|i| keys.get(i)).collect();
+        let metric = index.metric()?;
+        let r = measure_distortion(
+            metric,
+            &items,
+            &index.meta().embedding,
+            a.pairs,
+            index.meta().seed,
+        );
+        if a.json {
+            json["distortion"] = serde_json::to_value(&r)?;
+        } else {
+            writeln!(
+                out,
+                "distortion of the {} coordinates ({}): ratio embedded / true distance over {} pairs{} ({} pairs at distance 0 skipped)",
+                r.method,
+                r.dim,
+                r.pairs,
+                if r.all_pairs {
+                    " (all pairs)".to_string()
+                } else {
+                    format!(" among {} random items", r.items)
+                },
+                r.zero_pairs
+            )?;
+            writeln!(
+                out,
+                "{:>5} {:>8} {:>8} {:>8} {:>8} {:>8} {:>8} {:>8} {:>10} {:>10} {:>10} {:>10}",
+                "space",
+                "min",
+                "p01",
+                "p50",
+                "p99",
+                "max",
+                "mean",
+                "",
+                "distortion",
+                "p99/p01",
+                "contracted",
+                "expanded"
+            )?;
+            for s in &r.spaces {
+                let q = |x: f64| s.quantiles.iter().find(|p| p.0 == x).map_or(0.0, |p| p.1);
+                writeln!(
+                    out,
+                    "{:>5} {:>8.3} {:>8.3} {:>8.3} {:>8.3} {:>8.3} {:>8.3} {:>10.3} {:>10.3} {:>9.1}% {:>9.1}%",
+                    s.space.name(),
+                    s.min,
+                    q(0.01),
+                    q(0.5),
+                    q(0.99),
+                    s.max,
+                    s.mean,
+                    s.distortion,
+                    s.distortion_98,
+                    100.0 * s.contracted,
+                    100.0 * s.expanded
+                )?;
+            }
+            for s in &r.spaces {
+                let top = s
+                    .histogram
+                    .iter()
+                    .map(|b| b.count)
+                    .max()
+                    .unwrap_or(1)
+                    .max(1);
+                writeln!(out, "histogram of the ratio in {}:", s.space.name())?;
+                for b in &s.histogram {
+                    writeln!(
+                        out,
+                        "  {:>8.3} – {:<8.3} {:>8} {}",
+                        b.lo,
+                        b.hi,
+                        b.count,
+                        "#".repeat((40 * b.count).div_ceil(top))
+                    )?;
+                }
+            }
+        }
+    }
+    if a.json {
+        serde_json::to_writer_pretty(&mut out, &json)?;
+        writeln!(out)?;
+    }
+    Ok(())
+}

@@ -1,0 +1,126 @@
+//! `waymark inspect`: what an index holds, as text or JSON; `--verify` checks every checksum.
+
+use std::io::Write;
+use std::time::Instant;
+
+use super::args::InspectArgs;
+use crate::index::Index;
+use crate::metric::MetricSpec;
+
+pub(super) fn inspect(a: InspectArgs) -> anyhow::Result<()> {
+    let index = Index::open(&a.index)?;
+    let t = Instant::now();
+    let verified = if a.verify {
+        index.verify()?;
+        Some(t.elapsed().as_secs_f64())
+    } else {
+        None
+    };
+    let m = index.meta();
+    let landmarks: Vec<String> = m
+        .embedding
+        .refs()
+        .iter()
+        .map(|&l| String::from_utf8_lossy(index.item(l as usize)).into_owned())
+        .collect();
+    let sections: Vec<(&str, usize)> = index.sections().collect();
+    let mut out = std::io::stdout().lock();
+    if a.json {
+        let obj = serde_json::json!({
+            "path": a.index.display().to_string(),
+            "format_version": crate::index::file::FORMAT_VERSION,
+            "file_bytes": index.file_len(),
+            "meta": m,
+            "landmark_items": landmarks,
+            "sections": sections.iter().map(|(k, l)| serde_json::json!({"name": k, "bytes": l})).collect::<Vec<_>>(),
+            "verified": verified.is_some(),
+        });
+        serde_json::to_writer_pretty(&mut out, &obj)?;
+        writeln!(out)?;
+        return Ok(());
+    }
+    writeln!(out, "index         {}", a.index.display())?;
+    writeln!(
+        out,
+        "format        waymark index, version {}",
+        crate::index::file::FORMAT_VERSION
+    )?;
+    writeln!(out, "written by    {}", m.written_by)?;
+    writeln!(
+        out,
+        "items         {} (from {}: {} records, {} blank skipped)",
+        m.n, m.source, m.records, m.blank_skipped
+    )?;
+    writeln!(out, "ids           {:?}", m.ids)?;
+    let params = match &m.metric_spec {
+        MetricSpec::Hamming { length } => format!(" ({length} characters per item)"),
+        MetricSpec::WeightedEdit { costs } => format!(
+            " ({} indel and {} substitution rules; other symbols: indel {}, substitution {})",
+            costs.indel.len(),
+            costs.sub.len(),
+            costs.default_indel,
+            costs.default_sub
+        ),
+        MetricSpec::Jaccard { tokens } => match tokens {
+            crate::metric::Tokens::Whitespace => " (token sets split on white space)".into(),
+            crate::metric::Tokens::Separator(sep) => format!(" (token sets split on {sep:?})"),
+            crate::metric::Tokens::QGrams(q) => format!(" (sets of {q}-grams)"),
+        },
+        MetricSpec::Vector { dim, .. } => format!(" ({dim} components per vector)"),
+        MetricSpec::External {
+            command,
+            timeout_ms,
+        } => format!(
+            " (program `{}`, {} s per batch)",
+            command.join(" "),
+            *timeout_ms as f64 / 1000.0
+        ),
+        MetricSpec::Custom { name, .. } => format!(" (`{name}`, written in Rust)"),
+        MetricSpec::Levenshtein | MetricSpec::Damerau | MetricSpec::Graph => String::new(),
+    };
+    writeln!(out, "metric        {}{params}", m.metric)?;
+    writeln!(
+        out,
+        "normalise     fold-case {}, trim {}",
+        m.normalize.fold_case, m.normalize.trim
+    )?;
+    let how = match &m.embedding {
+        crate::embed::Embedding::Landmarks { .. } => {
+            format!("farthest-first from a sample of {}", m.sample)
+        }
+        crate::embed::Embedding::RefSets { pool, .. } => {
+            format!("distances to sets drawn from a pool of {}", pool.len())
+        }
+        crate::embed::Embedding::FastMap { .. } => {
+            format!("pivots from a sample of {}; not contractive", m.sample)
+        }
+    };
+    writeln!(
+        out,
+        "embedding     {}, {} coordinates, {how} (seed {})",
+        m.embedding.name(),
+        m.dim,
+        m.seed
+    )?;
+    writeln!(out, "references    {}", landmarks.join(" | "))?;
+    writeln!(
+        out,
+        "coordinates   u8, {} bytes per item; kd-tree of dimension {} (f32)",
+        m.stride, m.tree_dim
+    )?;
+    writeln!(
+        out,
+        "query default {} candidates ranked in {}",
+        m.candidates,
+        m.space.name()
+    )?;
+    writeln!(out, "file size     {} bytes", index.file_len())?;
+    for (name, len) in &sections {
+        writeln!(out, "  section     {name:<14} {len:>12} bytes")?;
+    }
+    match verified {
+        Some(s) => writeln!(out, "verified      every checksum matches ({s:.3} s)")?,
+        None => writeln!(out, "verified      not checked (use --verify)")?,
+    }
+    Ok(())
+}

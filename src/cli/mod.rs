@@ -1,0 +1,97 @@
+//! The command line: `args.rs` holds every clap definition, one file per command runs it
+//! (`build.rs`, `query.rs`, `inspect.rs`, `eval.rs`, `sweep.rs`, `check_metric.rs`),
+//! `output.rs` writes answers and progress; this file runs a command and maps its error to
+//! the exit code.
+//!
+//! Exit codes: 0 success; 1 an unexpected failure (e.g. writing the output failed);
+//! 2 bad usage or bad input (unknown option, invalid value, unreadable or malformed input
+//! file); 3 the index file was refused (not an index, another format version, corrupt or
+//! truncated); 4 `check-metric` found that the distance is not a metric. A closed output pipe
+//! (`waymark query … | head`) ends the command with 0.
+
+mod args;
+mod build;
+mod check_metric;
+mod eval;
+mod inspect;
+mod output;
+mod query;
+mod sweep;
+
+use std::process::ExitCode;
+
+use clap::Parser;
+
+pub use args::Args;
+use args::Command;
+
+use crate::error::Error;
+
+/// Runs the command line and returns the process exit code.
+pub fn main() -> ExitCode {
+    let args = match Args::try_parse() {
+        Ok(a) => a,
+        Err(e) => {
+            let code = if e.use_stderr() { 2 } else { 0 };
+            let _ = e.print();
+            return ExitCode::from(code);
+        }
+    };
+    match run(args) {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(e) => {
+            if is_broken_pipe(&e) {
+                return ExitCode::SUCCESS;
+            }
+            let mut msg = format!("waymark: error: {e}");
+            for cause in e.chain().skip(1) {
+                // Library errors already print their source; do not repeat it.
+                let text = cause.to_string();
+                if !msg.contains(&text) {
+                    msg.push_str(&format!(": {text}"));
+                }
+            }
+            eprintln!("{msg}");
+            ExitCode::from(exit_code(&e))
+        }
+    }
+}
+
+/// Runs one command.
+fn run(args: Args) -> anyhow::Result<()> {
+    match args.command {
+        Command::Build(a) => build::build(a),
+        Command::Query(a) => query::query(a),
+        Command::Inspect(a) => inspect::inspect(a),
+        Command::Eval(a) => eval::eval(a),
+        Command::Sweep(a) => sweep::sweep(a),
+        Command::CheckMetric(a) => check_metric::check_metric(a),
+    }
+}
+
+fn is_broken_pipe(e: &anyhow::Error) -> bool {
+    e.chain().any(|c| {
+        c.downcast_ref::<std::io::Error>()
+            .is_some_and(|io| io.kind() == std::io::ErrorKind::BrokenPipe)
+            || c.downcast_ref::<serde_json::Error>()
+                .is_some_and(|j| j.io_error_kind() == Some(std::io::ErrorKind::BrokenPipe))
+    })
+}
+
+fn exit_code(e: &anyhow::Error) -> u8 {
+    for c in e.chain() {
+        if c.downcast_ref::<check_metric::NotAMetric>().is_some() {
+            return 4;
+        }
+        if let Some(err) = c.downcast_ref::<Error>() {
+            return match err {
+                Error::Index { .. } => 3,
+                Error::Ingest(_) | Error::Usage(_) | Error::Io { .. } | Error::Metric(_) => 2,
+            };
+        }
+        if c.downcast_ref::<crate::ingest::IngestError>().is_some() {
+            return 2;
+        }
+    }
+    1
+}

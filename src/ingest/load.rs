@@ -1,0 +1,358 @@
+//! Reading an input as its metric wants it: text records (with the ingest options), vectors,
+//! or an edge list whose nodes are the items; and checking that the options given fit the
+//! metric. `build`, `sweep` and `check-metric` read their input through [`load_input`].
+//!
+//! Error messages name the command line's options (`--costs`, `--metric weighted`), which is
+//! how the command reports them.
+
+use std::path::{Path, PathBuf};
+
+use super::{read_corpus, vectors, Corpus, Ids, IngestOptions};
+use crate::error::{Error, Result};
+use crate::metric::{CostTable, Graph, Jaccard, MetricKind, MetricSpec, Norm, Tokens};
+
+/// The default time limit of an external metric for each batch of distances, in seconds.
+pub const DEFAULT_TIMEOUT_SECS: f64 = 30.0;
+
+/// The metric an input is read for, and the options of the metrics that take any. An option
+/// given to a metric that does not take it is refused by [`load_input`].
+///
+/// ```
+/// use waymark::ingest::MetricOptions;
+/// use waymark::metric::MetricKind;
+///
+/// let jaccard_on_commas = MetricOptions {
+///     kind: MetricKind::Jaccard,
+///     separator: Some(",".into()),
+///     ..MetricOptions::default()
+/// };
+/// assert_eq!(MetricOptions::default().kind, MetricKind::Levenshtein);
+/// # let _ = jaccard_on_commas;
+/// ```
+#[derive(Clone, Debug, PartialEq)]
+pub struct MetricOptions {
+    /// The metric (default: Levenshtein).
+    pub kind: MetricKind,
+    /// Weighted edit distance: the cost file (required).
+    pub costs: Option<PathBuf>,
+    /// Jaccard: tokens are the pieces between this separator (default: white space).
+    pub separator: Option<String>,
+    /// Jaccard: sets of `q` consecutive characters instead of tokens (takes precedence over
+    /// `separator`).
+    pub qgrams: Option<usize>,
+    /// Vector metrics: the first line of the input names the columns (skipped).
+    pub header: bool,
+    /// External metric: the program and its arguments (required).
+    pub command: Vec<String>,
+    /// External metric: the time limit for each batch of distances, in seconds (positive).
+    pub timeout_secs: f64,
+}
+
+impl Default for MetricOptions {
+    fn default() -> Self {
+        MetricOptions {
+            kind: MetricKind::Levenshtein,
+            costs: None,
+            separator: None,
+            qgrams: None,
+            header: false,
+            command: Vec::new(),
+            timeout_secs: DEFAULT_TIMEOUT_SECS,
+        }
+    }
+}
+
+/// An input read under its metric: what a build needs besides its embedding options.
+#[derive(Clone, Debug)]
+pub struct LoadedInput {
+    /// The items: text records; vectors (the rows as text, the `f32` bytes as keys, record
+    /// numbers as ids); or the nodes of a graph (their names as items and ids).
+    pub corpus: Corpus,
+    /// The metric with its parameters (the cost table, the tokens, the vector dimension, the
+    /// program).
+    pub spec: MetricSpec,
+    /// The graph of the graph metric.
+    pub graph: Option<Graph>,
+}
+
+/// The metric's name as the command line's `--metric` spells it.
+fn option_name(kind: MetricKind) -> &'static str {
+    match kind {
+        MetricKind::WeightedEdit => "weighted",
+        k => k.name(),
+    }
+}
+
+/// Reads the input at `path` as `metric` wants it: text records (with the `ingest` options),
+/// one vector per line or a `.npy` file (vector metrics), or an edge list whose nodes are the
+/// items (graph metric). Refuses options that do not fit the metric (an option of another
+/// metric, text options for a vector or graph input, a missing cost file or program), a cost
+/// file or edge list that is not valid, and any input error of the readers.
+pub fn load_input(
+    path: &Path,
+    ingest: &IngestOptions,
+    metric: &MetricOptions,
+) -> Result<LoadedInput> {
+    let usage = |msg: String| Error::Usage(msg);
+    let name = option_name(metric.kind);
+    let only = |flag: &str, set: bool, for_metric: MetricKind| -> Result<()> {
+        if set && metric.kind != for_metric {
+            let for_metric = option_name(for_metric);
+            return Err(usage(format!(
+                "{flag} is an option of --metric {for_metric}, not of --metric {name}"
+            )));
+        }
+        Ok(())
+    };
+    only("--costs", metric.costs.is_some(), MetricKind::WeightedEdit)?;
+    only(
+        "--separator",
+        metric.separator.is_some(),
+        MetricKind::Jaccard,
+    )?;
+    only("--qgrams", metric.qgrams.is_some(), MetricKind::Jaccard)?;
+    only(
+        "a command after --",
+        !metric.command.is_empty(),
+        MetricKind::External,
+    )?;
+    let vector = match metric.kind {
+        MetricKind::L1 => Some(Norm::L1),
+        MetricKind::L2 => Some(Norm::L2),
+        MetricKind::Linf => Some(Norm::Linf),
+        MetricKind::Angular => Some(Norm::Angular),
+        _ => None,
+    };
+    if metric.header && vector.is_none() {
+        return Err(usage(format!(
+            "--header is for vector inputs (--metric l1, l2, linf or angular), not --metric {name}"
+        )));
+    }
+    let text_options_given = ingest.field.is_some()
+        || ingest.id_field.is_some()
+        || ingest.format.is_some()
+        || !ingest.normalize.is_identity();
+    if (vector.is_some() || metric.kind == MetricKind::Graph) && text_options_given {
+        return Err(usage(format!(
+            "--field, --id-field, --input-format, --fold-case and --trim are for text inputs; \
+             --metric {name} reads {}",
+            if vector.is_some() {
+                "one vector per line (or a .npy file)"
+            } else {
+                "an edge list"
+            }
+        )));
+    }
+    let source = path.display().to_string();
+    if let Some(norm) = vector {
+        let v = vectors::read_vectors(
+            path,
+            &vectors::VectorOptions {
+                format: None,
+                header: metric.header,
+            },
+        )?;
+        let n = v.items.len();
+        let dim = u32::try_from(v.dim).map_err(|_| usage(format!("{source}: too many columns")))?;
+        let corpus = Corpus::new(v.rows, Some(v.items), Ids::Int((0..n as i64).collect()))?;
+        return Ok(LoadedInput {
+            corpus,
+            spec: MetricSpec::Vector { norm, dim },
+            graph: None,
+        });
+    }
+    if metric.kind == MetricKind::Graph {
+        let g = Graph::from_path(path)?;
+        let names: Vec<String> = (0..g.len() as u32)
+            .map(|v| String::from_utf8_lossy(g.name(v)).into_owned())
+            .collect();
+        let corpus = Corpus::new(names.clone(), None, Ids::Text(names))?;
+        return Ok(LoadedInput {
+            corpus,
+            spec: MetricSpec::Graph,
+            graph: Some(g),
+        });
+    }
+    let spec = match metric.kind {
+        MetricKind::Levenshtein => MetricSpec::Levenshtein,
+        MetricKind::Damerau => MetricSpec::Damerau,
+        MetricKind::Hamming => MetricSpec::Hamming { length: 0 },
+        MetricKind::WeightedEdit => {
+            let file = metric
+                .costs
+                .as_ref()
+                .ok_or_else(|| usage("--metric weighted needs --costs FILE".into()))?;
+            let table = CostTable::from_path(file)?;
+            MetricSpec::WeightedEdit {
+                costs: table.rules().clone(),
+            }
+        }
+        MetricKind::Jaccard => {
+            let tokens = match (&metric.qgrams, &metric.separator) {
+                (Some(q), _) => Tokens::QGrams(*q),
+                (None, Some(s)) => Tokens::Separator(s.clone()),
+                (None, None) => Tokens::Whitespace,
+            };
+            Jaccard::new(tokens.clone())?;
+            MetricSpec::Jaccard { tokens }
+        }
+        MetricKind::External => {
+            if metric.command.is_empty() {
+                return Err(usage(
+                    "--metric external needs the program after `--`, e.g. \
+                     `-- python3 my_metric.py`"
+                        .into(),
+                ));
+            }
+            let t = metric.timeout_secs;
+            if !(t.is_finite() && t > 0.0) {
+                return Err(usage(format!(
+                    "--timeout must be a positive number of seconds, not {t}"
+                )));
+            }
+            MetricSpec::External {
+                command: metric.command.clone(),
+                timeout_ms: (t * 1000.0).ceil() as u64,
+            }
+        }
+        MetricKind::Custom => {
+            return Err(usage(
+                "a custom metric is written in Rust and supplied by the program that builds \
+                 with it (index::build_index_with_metric); read its items with read_corpus"
+                    .into(),
+            ))
+        }
+        MetricKind::L1
+        | MetricKind::L2
+        | MetricKind::Linf
+        | MetricKind::Angular
+        | MetricKind::Graph => unreachable!("vector and graph inputs are read above"),
+    };
+    let corpus = read_corpus(path, ingest)?;
+    Ok(LoadedInput {
+        corpus,
+        spec,
+        graph: None,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn write(dir: &Path, name: &str, text: &str) -> PathBuf {
+        let p = dir.join(name);
+        std::fs::write(&p, text).unwrap();
+        p
+    }
+
+    #[test]
+    fn an_option_of_another_metric_is_refused_with_both_names() {
+        let dir = tempfile::tempdir().unwrap();
+        let p = write(dir.path(), "names.txt", "Keth Landing\n");
+        let opts = MetricOptions {
+            costs: Some("costs.txt".into()),
+            ..MetricOptions::default()
+        };
+        let e = load_input(&p, &IngestOptions::default(), &opts).unwrap_err();
+        assert_eq!(
+            e.to_string(),
+            "--costs is an option of --metric weighted, not of --metric levenshtein"
+        );
+        let opts = MetricOptions {
+            kind: MetricKind::WeightedEdit,
+            separator: Some(",".into()),
+            ..MetricOptions::default()
+        };
+        let e = load_input(&p, &IngestOptions::default(), &opts).unwrap_err();
+        assert_eq!(
+            e.to_string(),
+            "--separator is an option of --metric jaccard, not of --metric weighted"
+        );
+    }
+
+    #[test]
+    fn vectors_become_items_with_their_bytes_as_keys_and_record_numbers_as_ids() {
+        let dir = tempfile::tempdir().unwrap();
+        let p = write(dir.path(), "buoys.csv", "0.5,1\n2,-3\n");
+        let opts = MetricOptions {
+            kind: MetricKind::L2,
+            ..MetricOptions::default()
+        };
+        let input = load_input(&p, &IngestOptions::default(), &opts).unwrap();
+        assert_eq!(input.corpus.items, ["0.5,1", "2,-3"]);
+        assert_eq!(input.corpus.ids, Ids::Int(vec![0, 1]));
+        let keys = input.corpus.keys.as_ref().unwrap();
+        assert_eq!(
+            keys[1],
+            [2.0f32.to_le_bytes(), (-3.0f32).to_le_bytes()].concat()
+        );
+        assert!(matches!(
+            input.spec,
+            MetricSpec::Vector {
+                norm: Norm::L2,
+                dim: 2
+            }
+        ));
+        let folded = IngestOptions {
+            normalize: crate::ingest::Normalize {
+                fold_case: true,
+                trim: false,
+            },
+            ..IngestOptions::default()
+        };
+        let e = load_input(&p, &folded, &opts).unwrap_err();
+        assert!(e.to_string().contains("are for text inputs"), "{e}");
+    }
+
+    #[test]
+    fn graph_nodes_are_the_items_and_their_own_ids() {
+        let dir = tempfile::tempdir().unwrap();
+        let p = write(
+            dir.path(),
+            "ferries.txt",
+            "Keth Orvane 3\nOrvane Mirrow 4\n",
+        );
+        let opts = MetricOptions {
+            kind: MetricKind::Graph,
+            ..MetricOptions::default()
+        };
+        let input = load_input(&p, &IngestOptions::default(), &opts).unwrap();
+        let mut nodes = input.corpus.items.clone();
+        nodes.sort();
+        assert_eq!(nodes, ["Keth", "Mirrow", "Orvane"]);
+        assert_eq!(input.corpus.ids, Ids::Text(input.corpus.items.clone()));
+        assert!(input.graph.is_some());
+    }
+
+    #[test]
+    fn external_needs_its_program_and_a_positive_timeout() {
+        let dir = tempfile::tempdir().unwrap();
+        let p = write(dir.path(), "names.txt", "Keth Landing\n");
+        let mut opts = MetricOptions {
+            kind: MetricKind::External,
+            ..MetricOptions::default()
+        };
+        let e = load_input(&p, &IngestOptions::default(), &opts).unwrap_err();
+        assert!(
+            e.to_string().contains("needs the program after `--`"),
+            "{e}"
+        );
+        opts.command = vec!["python3".into(), "my_metric.py".into()];
+        opts.timeout_secs = 0.0;
+        let e = load_input(&p, &IngestOptions::default(), &opts).unwrap_err();
+        assert!(
+            e.to_string().contains("--timeout must be a positive"),
+            "{e}"
+        );
+        opts.timeout_secs = 1.5;
+        let input = load_input(&p, &IngestOptions::default(), &opts).unwrap();
+        assert!(matches!(
+            input.spec,
+            MetricSpec::External {
+                timeout_ms: 1500,
+                ..
+            }
+        ));
+    }
+}

@@ -1,0 +1,400 @@
+//! Reading items and their ids: text lines, a CSV/TSV column, or a JSON Lines field; and
+//! [`load_input`], which reads an input as its metric wants it.
+//!
+//! One file per reader: `text.rs`, `csv.rs` (CSV and TSV), `jsonl.rs`, [`vectors`] (CSV/TSV
+//! rows of numbers or `.npy`), and `load.rs` ([`load_input`]: text records, vectors, or an edge
+//! list whose nodes are the items, with the metric's options checked against the input).
+//!
+//! - **Text**: one item per line, UTF-8 (invalid UTF-8 and NUL bytes are errors naming the
+//!   line), a leading byte-order mark is dropped, CRLF is tolerated.
+//! - **CSV/TSV** (the `csv` crate, RFC 4180 quoting): a header row is required; `field`
+//!   names the item column by header name or 0-based number.
+//! - **JSON Lines** (`serde_json`): one object per line; `field` names a string field.
+//!
+//! Records whose item is empty (blank lines, empty cells) are skipped and counted. The
+//! default id of an item is its 0-based **record number** in the input — the line of a text
+//! or JSON Lines file, the data row of a CSV file — counting skipped records, so that an id
+//! always points back into the input. Duplicates are kept, each with its own id.
+//!
+//! ```
+//! use waymark::ingest::{read_corpus_from, Ids, IngestOptions, InputFormat};
+//!
+//! let opts = IngestOptions { format: Some(InputFormat::Text), ..Default::default() };
+//! let c = read_corpus_from("Orvane Quay\r\n\nKeth Landing\n".as_bytes(), "names.txt", &opts)?;
+//! assert_eq!(c.items, ["Orvane Quay", "Keth Landing"]);
+//! assert_eq!(c.blank_skipped, 1);
+//! assert!(matches!(c.ids, Ids::Int(ref v) if v == &[0, 2]));
+//! # Ok::<(), waymark::ingest::IngestError>(())
+//! ```
+
+use std::borrow::Cow;
+use std::io::Read;
+use std::path::Path;
+
+use serde::{Deserialize, Serialize};
+
+mod csv;
+mod jsonl;
+mod load;
+mod text;
+pub mod vectors;
+
+pub use crate::error::IngestError;
+pub use load::{load_input, LoadedInput, MetricOptions, DEFAULT_TIMEOUT_SECS};
+pub use vectors::parse_vector;
+
+/// The UTF-8 byte-order mark, dropped at the start of an input.
+const BOM: &[u8] = b"\xEF\xBB\xBF";
+
+/// The layout of an input file.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum InputFormat {
+    /// One item per line.
+    Text,
+    /// Delimited values with a header row (`,` for CSV, `\t` for TSV).
+    Csv {
+        /// The field delimiter.
+        delimiter: u8,
+    },
+    /// One JSON object per line.
+    JsonLines,
+}
+
+impl InputFormat {
+    /// The format implied by a file name: `.csv`, `.tsv`/`.tab`, `.jsonl`/`.ndjson`, else text.
+    pub fn from_path(path: &Path) -> InputFormat {
+        let ext = path
+            .extension()
+            .map(|e| e.to_string_lossy().to_ascii_lowercase());
+        match ext.as_deref() {
+            Some("csv") => InputFormat::Csv { delimiter: b',' },
+            Some("tsv") | Some("tab") => InputFormat::Csv { delimiter: b'\t' },
+            Some("jsonl") | Some("ndjson") => InputFormat::JsonLines,
+            _ => InputFormat::Text,
+        }
+    }
+}
+
+/// The command line's `--input-format` values: `text`, `csv`, `tsv` and `jsonl` (a CSV input
+/// with another delimiter has no name there). Written by hand because `Csv` carries its
+/// delimiter.
+#[cfg(feature = "cli")]
+impl clap::ValueEnum for InputFormat {
+    fn value_variants<'a>() -> &'a [Self] {
+        &[
+            InputFormat::Text,
+            InputFormat::Csv { delimiter: b',' },
+            InputFormat::Csv { delimiter: b'\t' },
+            InputFormat::JsonLines,
+        ]
+    }
+
+    fn to_possible_value(&self) -> Option<clap::builder::PossibleValue> {
+        use clap::builder::PossibleValue;
+        let (name, help) = match self {
+            InputFormat::Text => ("text", "One item per line"),
+            InputFormat::Csv { delimiter: b',' } => {
+                ("csv", "Comma-separated values with a header row")
+            }
+            InputFormat::Csv { delimiter: b'\t' } => {
+                ("tsv", "Tab-separated values with a header row")
+            }
+            InputFormat::Csv { .. } => return None,
+            InputFormat::JsonLines => ("jsonl", "One JSON object per line"),
+        };
+        Some(PossibleValue::new(name).help(help))
+    }
+}
+
+/// How to read an input.
+#[derive(Clone, Debug, Default, PartialEq, Eq)]
+pub struct IngestOptions {
+    /// The layout; `None` means from the file extension.
+    pub format: Option<InputFormat>,
+    /// CSV/TSV column (header name or 0-based number) or JSON field holding the items.
+    pub field: Option<String>,
+    /// Column or field holding the ids; default: the 0-based record number.
+    pub id_field: Option<String>,
+    /// Normalisation that makes the comparison keys.
+    pub normalize: Normalize,
+}
+
+/// Changes applied to items before comparing them; stored in the index and applied to
+/// every query, so that queries are compared exactly like the items were.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
+pub struct Normalize {
+    /// Compare in lower case (`str::to_lowercase`, Unicode's default lower-casing: `Å` → `å`).
+    /// This is lower-casing, not full case folding: `ß` stays `ß`.
+    pub fold_case: bool,
+    /// Ignore leading and trailing white space (Unicode `White_Space`); an item that is only
+    /// white space then counts as blank and is skipped.
+    pub trim: bool,
+}
+
+impl Normalize {
+    /// The comparison form of `s`.
+    pub fn apply<'a>(&self, s: &'a str) -> Cow<'a, str> {
+        let s = if self.trim { s.trim() } else { s };
+        // A character changes under lower-casing iff its lower case is not itself; this also
+        // catches title-case letters such as U+01C5, which `char::is_uppercase` does not.
+        if self.fold_case && s.chars().any(|c| !c.to_lowercase().eq([c])) {
+            Cow::Owned(s.to_lowercase())
+        } else {
+            Cow::Borrowed(s)
+        }
+    }
+
+    /// Whether this normalisation changes nothing.
+    pub fn is_identity(&self) -> bool {
+        !self.fold_case && !self.trim
+    }
+}
+
+/// Ids, typed as in the input.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub enum Ids {
+    /// Record numbers, or integer ids of a JSON Lines input.
+    Int(Vec<i64>),
+    /// CSV/TSV ids, or string ids of a JSON Lines input.
+    Text(Vec<String>),
+}
+
+impl Ids {
+    /// Number of ids.
+    pub fn len(&self) -> usize {
+        match self {
+            Ids::Int(v) => v.len(),
+            Ids::Text(v) => v.len(),
+        }
+    }
+
+    /// Whether there are none.
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+}
+
+/// The items read from an input.
+///
+/// Make one with [`Corpus::new`] (or a reader such as [`read_corpus`]), which checks that
+/// there is one id, and one key if any, per item; [`crate::index::build_index`] refuses a
+/// corpus whose lengths disagree.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct Corpus {
+    /// Items as given (without line endings).
+    pub items: Vec<String>,
+    /// Comparison forms as the metric reads them: the items after normalisation (UTF-8),
+    /// or encoded vectors; `None` when they are the items' own bytes.
+    pub keys: Option<Vec<Vec<u8>>>,
+    /// One id per item.
+    pub ids: Ids,
+    /// Records skipped because their item was empty.
+    pub blank_skipped: usize,
+    /// Records read, including skipped ones.
+    pub records: usize,
+}
+
+impl Corpus {
+    /// A corpus of `items`, with their comparison `keys` (`None`: the items' own bytes) and
+    /// one id per item; no record skipped. Refuses ids or keys that are not one per item.
+    ///
+    /// ```
+    /// use waymark::ingest::{Corpus, Ids};
+    ///
+    /// let items = vec!["Keth Landing".to_string(), "Mirrow Steps".to_string()];
+    /// let c = Corpus::new(items.clone(), None, Ids::Int(vec![7, 9]))?;
+    /// assert_eq!((c.items.len(), c.records), (2, 2));
+    /// assert!(Corpus::new(items, None, Ids::Int(vec![7])).is_err());
+    /// # Ok::<(), waymark::ingest::IngestError>(())
+    /// ```
+    pub fn new(
+        items: Vec<String>,
+        keys: Option<Vec<Vec<u8>>>,
+        ids: Ids,
+    ) -> Result<Corpus, IngestError> {
+        let corpus = Corpus {
+            records: items.len(),
+            items,
+            keys,
+            ids,
+            blank_skipped: 0,
+        };
+        corpus.check()?;
+        Ok(corpus)
+    }
+
+    /// This corpus, read from an input where `blank` more records were skipped.
+    pub fn with_blank_skipped(mut self, blank: usize) -> Corpus {
+        self.blank_skipped = blank;
+        self.records = self.items.len() + blank;
+        self
+    }
+
+    /// Checks that there is one id, and one key if there are keys, per item.
+    pub fn check(&self) -> Result<(), IngestError> {
+        let items = self.items.len();
+        let mismatch = |what: &'static str, len: usize| IngestError::Mismatch { what, len, items };
+        if self.ids.len() != items {
+            return Err(mismatch("ids", self.ids.len()));
+        }
+        match &self.keys {
+            Some(k) if k.len() != items => Err(mismatch("keys", k.len())),
+            _ => Ok(()),
+        }
+    }
+
+    /// The bytes each item is compared by: its key, or the item itself.
+    pub fn key_bytes(&self) -> Vec<&[u8]> {
+        match &self.keys {
+            Some(k) => k.iter().map(Vec::as_slice).collect(),
+            None => self.items.iter().map(String::as_bytes).collect(),
+        }
+    }
+}
+
+/// Reads a corpus from a file.
+pub fn read_corpus(path: &Path, opts: &IngestOptions) -> Result<Corpus, IngestError> {
+    let name = path.display().to_string();
+    let file = std::fs::File::open(path).map_err(|error| IngestError::Io {
+        source_name: name.clone(),
+        error,
+    })?;
+    let mut opts = opts.clone();
+    if opts.format.is_none() {
+        opts.format = Some(InputFormat::from_path(path));
+    }
+    read_corpus_from(file, &name, &opts)
+}
+
+/// Reads a corpus from any reader; `source_name` is used in errors.
+pub fn read_corpus_from<R: Read>(
+    reader: R,
+    source_name: &str,
+    opts: &IngestOptions,
+) -> Result<Corpus, IngestError> {
+    let mut b = Builder::new(source_name, opts);
+    match opts.format.unwrap_or(InputFormat::Text) {
+        InputFormat::Text => {
+            if opts.field.is_some() || opts.id_field.is_some() {
+                return Err(b.options_error(
+                    "--field and --id-field need a CSV, TSV or JSON Lines input".into(),
+                ));
+            }
+            text::read_text(reader, &mut b)?
+        }
+        InputFormat::Csv { delimiter } => csv::read_csv(reader, delimiter, &mut b)?,
+        InputFormat::JsonLines => jsonl::read_jsonl(reader, &mut b)?,
+    }
+    b.finish()
+}
+
+/// Collects items, keys and ids while checking them.
+struct Builder<'a> {
+    name: &'a str,
+    opts: &'a IngestOptions,
+    items: Vec<String>,
+    keys: Vec<Vec<u8>>,
+    keys_differ: bool,
+    int_ids: Vec<i64>,
+    text_ids: Vec<String>,
+    blank: usize,
+    records: usize,
+}
+
+/// An id as read from one record.
+enum IdValue {
+    Int(i64),
+    Text(String),
+}
+
+impl<'a> Builder<'a> {
+    fn new(name: &'a str, opts: &'a IngestOptions) -> Builder<'a> {
+        Builder {
+            name,
+            opts,
+            items: Vec::new(),
+            keys: Vec::new(),
+            keys_differ: false,
+            int_ids: Vec::new(),
+            text_ids: Vec::new(),
+            blank: 0,
+            records: 0,
+        }
+    }
+
+    fn record_error(&self, line: u64, message: String) -> IngestError {
+        IngestError::Record {
+            source_name: self.name.to_string(),
+            line,
+            message,
+        }
+    }
+
+    fn options_error(&self, message: String) -> IngestError {
+        IngestError::Options {
+            source_name: self.name.to_string(),
+            message,
+        }
+    }
+
+    /// Adds one record's item; `id` is `None` for the default record-number id.
+    fn push(&mut self, item: String, id: Option<IdValue>, line: u64) -> Result<(), IngestError> {
+        let record = self.records as i64;
+        self.records += 1;
+        if item.contains('\0') {
+            return Err(self.record_error(line, "the item contains a NUL byte".into()));
+        }
+        let key = self.opts.normalize.apply(&item);
+        if key.is_empty() {
+            self.blank += 1;
+            return Ok(());
+        }
+        match id.unwrap_or(IdValue::Int(record)) {
+            IdValue::Int(v) => {
+                if !self.text_ids.is_empty() {
+                    return Err(self.record_error(
+                        line,
+                        "this id is a number but earlier ids are strings; ids must all be of one type".into(),
+                    ));
+                }
+                self.int_ids.push(v);
+            }
+            IdValue::Text(s) => {
+                if !self.int_ids.is_empty() {
+                    return Err(self.record_error(
+                        line,
+                        "this id is a string but earlier ids are numbers; ids must all be of one type".into(),
+                    ));
+                }
+                self.text_ids.push(s);
+            }
+        }
+        if !self.keys_differ && key.as_ref() != item.as_str() {
+            // The first item whose key differs: earlier items are their own keys.
+            self.keys_differ = true;
+            self.keys = self.items.iter().map(|s| s.as_bytes().to_vec()).collect();
+        }
+        if self.keys_differ {
+            self.keys.push(key.into_owned().into_bytes());
+        }
+        self.items.push(item);
+        Ok(())
+    }
+
+    fn finish(self) -> Result<Corpus, IngestError> {
+        if self.items.is_empty() {
+            return Err(IngestError::Empty {
+                source_name: self.name.to_string(),
+                blank: self.blank,
+            });
+        }
+        let keys = self.keys_differ.then_some(self.keys);
+        let ids = if self.text_ids.is_empty() {
+            Ids::Int(self.int_ids)
+        } else {
+            Ids::Text(self.text_ids)
+        };
+        debug_assert_eq!(self.records, self.items.len() + self.blank);
+        Ok(Corpus::new(self.items, keys, ids)?.with_blank_skipped(self.blank))
+    }
+}
