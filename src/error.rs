@@ -9,24 +9,79 @@ use std::path::PathBuf;
 pub type Result<T, E = Error> = std::result::Result<T, E>;
 
 /// Any error of the library.
+///
+/// The messages speak of the library's own names (`k`, `candidates`, `dim`); the command
+/// line maps them to its flags.
 #[derive(Debug, thiserror::Error)]
 pub enum Error {
     /// Reading the input items failed.
     #[error(transparent)]
     Ingest(#[from] IngestError),
-    /// An index file could not be written or read.
-    #[error("{path}: {message}")]
-    Index {
+    /// The index file is damaged: a checksum, a size or a field does not hold.
+    #[error("{path}: corrupt index: {reason}")]
+    CorruptIndex {
         /// The index file.
         path: PathBuf,
-        /// What is wrong with it.
-        message: String,
+        /// What does not hold.
+        reason: String,
+    },
+    /// The file is not an index this version reads, cannot be used as asked (another format
+    /// version, a custom metric not supplied or not the one it was built with), or could
+    /// not be written.
+    #[error("{path}: {reason}")]
+    IndexRefused {
+        /// The index file.
+        path: PathBuf,
+        /// Why.
+        reason: String,
+    },
+    /// A parameter is out of its range.
+    #[error("{name} {reason}")]
+    InvalidParameter {
+        /// Which parameter.
+        name: Param,
+        /// What its value must be, and the value given.
+        reason: String,
+    },
+    /// A query the index's metric cannot take (not a node of the graph, a vector of the
+    /// wrong dimension, a string of the wrong length for Hamming distance).
+    #[error("{0}")]
+    InvalidQuery(String),
+    /// Exact and range answers were asked of an index whose embedding gives no lower bound
+    /// of the true distance.
+    #[error(
+        "{path}: exact answers need a lower bound of the true distance, and this index's \
+         {embedding} embedding gives none (its coordinates are not contractive); ask for \
+         approximate answers"
+    )]
+    NoLowerBound {
+        /// The index file.
+        path: PathBuf,
+        /// The embedding's name.
+        embedding: String,
+    },
+    /// The work would not fit in the memory available.
+    #[error(
+        "{what} needs about {:.1} GB of memory and {:.1} GB is available; build a smaller \
+         input (split it), use a lower dimension, or free memory (the budget can be set with \
+         WAYMARK_MEMORY_BUDGET=bytes)",
+        *.need as f64 / 1e9,
+        *.have as f64 / 1e9
+    )]
+    TooLarge {
+        /// What was refused.
+        what: String,
+        /// Bytes it needs, estimated.
+        need: u64,
+        /// Bytes available.
+        have: u64,
     },
     /// A metric could not be set up or failed (bad cost file or edge list, an external
     /// program that exited or hung, an item the metric cannot take).
     #[error(transparent)]
     Metric(#[from] crate::metric::MetricError),
-    /// The parameters given are impossible (e.g. `k = 0`).
+    /// The input does not fit what was asked of it (no items, items the metric cannot
+    /// take, options that do not fit the input).
     #[error("{0}")]
     Usage(String),
     /// An I/O error with the path it concerns.
@@ -37,6 +92,72 @@ pub enum Error {
         /// The underlying error.
         source: std::io::Error,
     },
+}
+
+impl Error {
+    /// A [`Error::CorruptIndex`] of `path`.
+    pub fn corrupt(path: &std::path::Path, reason: impl Into<String>) -> Error {
+        Error::CorruptIndex {
+            path: path.to_path_buf(),
+            reason: reason.into(),
+        }
+    }
+
+    /// An [`Error::IndexRefused`] of `path`.
+    pub fn refused(path: &std::path::Path, reason: impl Into<String>) -> Error {
+        Error::IndexRefused {
+            path: path.to_path_buf(),
+            reason: reason.into(),
+        }
+    }
+
+    /// An [`Error::InvalidParameter`].
+    pub fn parameter(name: Param, reason: impl Into<String>) -> Error {
+        Error::InvalidParameter {
+            name,
+            reason: reason.into(),
+        }
+    }
+}
+
+/// The parameters the library checks, named as in its API.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Param {
+    /// Neighbours per query (`k`).
+    K,
+    /// Candidates re-ranked per query ([`crate::search::SearchParams::candidates`]).
+    Candidates,
+    /// The radius of a range query.
+    Radius,
+    /// The embedding dimension of a build ([`crate::index::BuildOptions::dim`]).
+    Dim,
+    /// The reference-set pool of a build ([`crate::index::BuildOptions::pool`]).
+    Pool,
+    /// The dimensions of a sweep.
+    Dims,
+    /// The methods, dimensions and spaces of a sweep (each needs one value at least).
+    SweepAxes,
+}
+
+impl Param {
+    /// The name used in messages.
+    pub fn name(self) -> &'static str {
+        match self {
+            Param::K => "k",
+            Param::Candidates => "candidates",
+            Param::Radius => "radius",
+            Param::Dim => "dim",
+            Param::Pool => "pool",
+            Param::Dims => "dims",
+            Param::SweepAxes => "the sweep's methods, dimensions and spaces",
+        }
+    }
+}
+
+impl std::fmt::Display for Param {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.name())
+    }
 }
 
 /// What went wrong reading an input, and where (re-exported as `waymark::ingest::IngestError`).

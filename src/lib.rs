@@ -35,7 +35,7 @@ pub mod metric;
 pub mod resources;
 pub mod search;
 
-pub use error::{Error, Result};
+pub use error::{Error, Param, Result};
 
 // The README's Rust examples, compiled and run as doctests.
 #[cfg(doctest)]

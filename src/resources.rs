@@ -49,13 +49,11 @@ pub fn budget() -> Option<u64> {
 }
 
 fn refuse(what: &str, need: u64, have: u64) -> Error {
-    Error::Usage(format!(
-        "{what} needs about {:.1} GB of memory and {:.1} GB is available; \
-         build a smaller input (split it), use a lower --dim, or free memory \
-         (the budget can be set with WAYMARK_MEMORY_BUDGET=bytes)",
-        need as f64 / 1e9,
-        have as f64 / 1e9
-    ))
+    Error::TooLarge {
+        what: what.to_string(),
+        need,
+        have,
+    }
 }
 
 /// Refuses to read an input file of `file_bytes` bytes when even its text would not fit

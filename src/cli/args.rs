@@ -467,6 +467,20 @@ pub(super) struct CheckMetricArgs {
     pub json: bool,
 }
 
+/// The flag that sets a library parameter, for error messages.
+pub(super) fn flag(p: crate::error::Param) -> &'static str {
+    use crate::error::Param;
+    match p {
+        Param::K => "-k",
+        Param::Candidates => "--candidates",
+        Param::Radius => "--within",
+        Param::Dim => "--dim",
+        Param::Pool => "--pool",
+        Param::Dims => "--dims",
+        Param::SweepAxes => "--embeddings, --dims and --spaces",
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

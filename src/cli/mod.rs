@@ -43,10 +43,12 @@ pub fn main() -> ExitCode {
             if is_broken_pipe(&e) {
                 return ExitCode::SUCCESS;
             }
-            let mut msg = format!("waymark: error: {e}");
-            for cause in e.chain().skip(1) {
+            let mut chain = e.chain();
+            let first = chain.next().map(describe).unwrap_or_default();
+            let mut msg = format!("waymark: error: {first}");
+            for cause in chain {
                 // Library errors already print their source; do not repeat it.
-                let text = cause.to_string();
+                let text = describe(cause);
                 if !msg.contains(&text) {
                     msg.push_str(&format!(": {text}"));
                 }
@@ -78,6 +80,30 @@ fn is_broken_pipe(e: &anyhow::Error) -> bool {
     })
 }
 
+/// An error as the command line says it: the library's parameters by their flags.
+fn describe(e: &(dyn std::error::Error + 'static)) -> String {
+    let Some(err) = e.downcast_ref::<Error>() else {
+        return e.to_string();
+    };
+    match err {
+        Error::InvalidParameter { name, reason } => format!("{} {reason}", args::flag(*name)),
+        Error::NoLowerBound { path, embedding } => format!(
+            "{}: exact answers need a lower bound of the true distance, and this index's \
+             {embedding} embedding gives none (its coordinates are not contractive); \
+             leave out --exact and --within for approximate answers",
+            path.display()
+        ),
+        Error::TooLarge { what, need, have } => format!(
+            "{what} needs about {:.1} GB of memory and {:.1} GB is available; \
+             build a smaller input (split it), use a lower --dim, or free memory \
+             (the budget can be set with WAYMARK_MEMORY_BUDGET=bytes)",
+            *need as f64 / 1e9,
+            *have as f64 / 1e9
+        ),
+        other => other.to_string(),
+    }
+}
+
 fn exit_code(e: &anyhow::Error) -> u8 {
     for c in e.chain() {
         if c.downcast_ref::<check_metric::NotAMetric>().is_some() {
@@ -85,8 +111,15 @@ fn exit_code(e: &anyhow::Error) -> u8 {
         }
         if let Some(err) = c.downcast_ref::<Error>() {
             return match err {
-                Error::Index { .. } => 3,
-                Error::Ingest(_) | Error::Usage(_) | Error::Io { .. } | Error::Metric(_) => 2,
+                Error::CorruptIndex { .. } | Error::IndexRefused { .. } => 3,
+                Error::Ingest(_)
+                | Error::Usage(_)
+                | Error::InvalidParameter { .. }
+                | Error::InvalidQuery(_)
+                | Error::NoLowerBound { .. }
+                | Error::TooLarge { .. }
+                | Error::Io { .. }
+                | Error::Metric(_) => 2,
             };
         }
         if c.downcast_ref::<crate::ingest::IngestError>().is_some() {

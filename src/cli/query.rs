@@ -92,7 +92,7 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
 /// metric program); errors of the index itself stay as they are.
 pub(super) fn at_query_line(e: Error, name: &str, line: usize) -> Error {
     match e {
-        Error::Usage(m) => Error::Usage(format!("{name}:{line}: {m}")),
+        Error::Usage(m) | Error::InvalidQuery(m) => Error::Usage(format!("{name}:{line}: {m}")),
         Error::Metric(m) => Error::Usage(format!("{name}:{line}: {m}")),
         other => other,
     }

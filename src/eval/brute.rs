@@ -92,7 +92,9 @@ mod tests {
             build_index(&corpus, "test", &opts, &dest, &|_| {}).expect("build");
             let index = Index::open(&dest).expect("open");
             match brute_force(&index, "Keth Landing", 0) {
-                Err(crate::Error::Usage(m)) => assert!(m.contains("k must be at least 1"), "{m}"),
+                Err(e @ crate::Error::InvalidParameter { .. }) => {
+                    assert_eq!(e.to_string(), "k must be at least 1")
+                }
                 other => panic!("{file}: expected a usage error, got {other:?}"),
             }
             let two = brute_force(&index, "Keth Landing", 2).unwrap();

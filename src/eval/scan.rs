@@ -11,7 +11,8 @@ use crate::search::order::{keep_best, Neighbor};
 
 /// `k` as a count of at least one neighbour, or the error that refuses `k = 0`.
 pub(super) fn at_least_one(k: usize) -> Result<NonZeroUsize> {
-    NonZeroUsize::new(k).ok_or_else(|| Error::Usage("k must be at least 1".into()))
+    NonZeroUsize::new(k)
+        .ok_or_else(|| Error::parameter(crate::error::Param::K, "must be at least 1"))
 }
 
 /// Refuses what the Levenshtein scans cannot answer: `k = 0`, and an index of another metric
@@ -212,7 +213,7 @@ mod tests {
 
     fn is_usage<T: std::fmt::Debug>(r: Result<T>) -> String {
         match r {
-            Err(Error::Usage(m)) => m,
+            Err(e @ (Error::Usage(_) | Error::InvalidParameter { .. })) => e.to_string(),
             other => panic!("expected a usage error, got {other:?}"),
         }
     }

@@ -31,7 +31,7 @@ use super::plot::{line_chart, Chart, Series};
 use super::truth::{load_or_compute_truth, TruthSource};
 use crate::coords::Space;
 use crate::embed::{embed_items, EmbedOptions, Method, MAX_DIM};
-use crate::error::{Error, Result};
+use crate::error::{Error, Param, Result};
 use crate::index::{build_index_from, BuildOptions, Index};
 use crate::ingest::{Corpus, Normalize};
 use crate::metric::{Graph, MetricSpec};
@@ -86,23 +86,24 @@ impl SweepOptions {
     /// Checks the options (a value for each list, dimensions in range, counts of at least 1),
     /// so that a caller can refuse them before reading an input; [`run_sweep`] checks them too.
     pub fn check(&self) -> Result<()> {
-        let usage = |m: &str| Err(Error::Usage(m.to_string()));
+        let bad = |name, reason: &str| Err(Error::parameter(name, reason));
         if self.methods.is_empty() || self.dims.is_empty() || self.spaces.is_empty() {
-            return usage("--embeddings, --dims and --spaces each need at least one value");
+            return bad(Param::SweepAxes, "each need at least one value");
         }
         if self.candidates.is_empty() || self.candidates.contains(&0) {
-            return usage("--candidates needs values of at least 1");
+            return bad(Param::Candidates, "needs values of at least 1");
         }
         if self.k == 0 {
-            return usage("-k must be at least 1");
+            return bad(Param::K, "must be at least 1");
         }
         if let Some(&d) = self.dims.iter().find(|&&d| d == 0 || d > MAX_DIM) {
-            return Err(Error::Usage(format!(
-                "--dims: every dimension must be between 1 and {MAX_DIM}, not {d}"
-            )));
+            return Err(Error::parameter(
+                Param::Dims,
+                format!("must each be between 1 and {MAX_DIM}, not {d}"),
+            ));
         }
         if self.pool == 0 {
-            return usage("--pool must be at least 1");
+            return bad(Param::Pool, "must be at least 1");
         }
         Ok(())
     }

@@ -7,7 +7,7 @@ use super::file::{ContainerWriter, SectionKind};
 use super::{cells, coord_stride, tree, IdKind, IndexMeta};
 use crate::coords::Space;
 use crate::embed::{embed_items, quantize, EmbedOptions, Embedded, Method, MAX_DIM};
-use crate::error::{Error, Result};
+use crate::error::{Error, Param, Result};
 use crate::ingest::{Corpus, Ids, Normalize};
 use crate::metric::{
     check_axioms, check_equal_lengths, AnyMetric, AxiomReport, CustomMetric, Graph, MetricSpec,
@@ -61,13 +61,13 @@ impl BuildOptions {
     /// that a caller can refuse them before reading an input; [`build_index`] checks them too.
     pub fn check(&self) -> Result<()> {
         if self.dim == 0 || self.dim > MAX_DIM {
-            return Err(Error::Usage(format!(
-                "--dim must be between 1 and {MAX_DIM}, not {}",
-                self.dim
-            )));
+            return Err(Error::parameter(
+                Param::Dim,
+                format!("must be between 1 and {MAX_DIM}, not {}", self.dim),
+            ));
         }
         if self.method == Method::RefSets && self.pool == 0 {
-            return Err(Error::Usage("--pool must be at least 1".into()));
+            return Err(Error::parameter(Param::Pool, "must be at least 1"));
         }
         Ok(())
     }
@@ -363,10 +363,8 @@ fn write_index(
     progress.stage(BuildStage::TreeAndCells);
     let t1 = Instant::now();
     let f32s: Vec<f32> = coords.iter().map(|&x| x as f32).collect();
-    let tree_bytes = tree::build(&f32s, dim).map_err(|e| Error::Index {
-        path: dest.to_path_buf(),
-        message: format!("building the kd-tree failed: {e}"),
-    })?;
+    let tree_bytes = tree::build(&f32s, dim)
+        .map_err(|e| Error::refused(dest, format!("building the kd-tree failed: {e}")))?;
     drop(f32s);
     let cells_bytes = cells::build(&small, stride, opts.seed);
     let tree_seconds = t1.elapsed().as_secs_f64();

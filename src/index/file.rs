@@ -391,10 +391,8 @@ fn remove_stale_partials(dir: &Path, dest_name: &str, own: &Path) {
 /// twice, and the checksum of the small sections. Large sections are checked by
 /// [`verify_sections`] (`waymark inspect --verify`).
 pub fn read_table(path: &Path, bytes: &[u8]) -> Result<Vec<Section>> {
-    let bad = |message: String| Error::Index {
-        path: path.to_path_buf(),
-        message,
-    };
+    let bad = |reason: String| Error::refused(path, reason);
+    let corrupt = |reason: String| Error::corrupt(path, reason);
     if bytes.len() < 8 || &bytes[0..8] != MAGIC {
         return Err(bad(
             "not a waymark index (the file does not start with the waymark magic number)".into(),
@@ -418,7 +416,7 @@ pub fn read_table(path: &Path, bytes: &[u8]) -> Result<Vec<Section>> {
     header.copy_from_slice(&bytes[..HEADER_LEN]);
     header[28..32].fill(0);
     if crc32fast::hash(&header) != u32_at(28) {
-        return Err(bad("corrupt index: header checksum mismatch".into()));
+        return Err(corrupt("header checksum mismatch".into()));
     }
     let recorded = u64_at(16);
     if recorded != bytes.len() as u64 {
@@ -429,17 +427,17 @@ pub fn read_table(path: &Path, bytes: &[u8]) -> Result<Vec<Section>> {
     }
     let table = &bytes[HEADER_LEN..HEADER_LEN + TABLE_LEN];
     if crc32fast::hash(table) != u32_at(24) {
-        return Err(bad("corrupt index: section table checksum mismatch".into()));
+        return Err(corrupt("section table checksum mismatch".into()));
     }
     let count = u32_at(12) as usize;
     if count > MAX_SECTIONS {
-        return Err(bad(format!("corrupt index: {count} sections recorded")));
+        return Err(corrupt(format!("{count} sections recorded")));
     }
     let mut sections: Vec<Section> = Vec::with_capacity(count);
     for e in table.chunks_exact(ENTRY_LEN).take(count) {
         let raw = u32::from_le_bytes(e[0..4].try_into().expect("4 bytes"));
         let kind = SectionKind::from_u32(raw)
-            .ok_or_else(|| bad(format!("corrupt index: unknown section kind {raw}")))?;
+            .ok_or_else(|| corrupt(format!("unknown section kind {raw}")))?;
         let off = u64::from_le_bytes(e[8..16].try_into().expect("8 bytes"));
         let len = u64::from_le_bytes(e[16..24].try_into().expect("8 bytes"));
         let crc = u32::from_le_bytes(e[24..28].try_into().expect("4 bytes"));
@@ -447,32 +445,23 @@ pub fn read_table(path: &Path, bytes: &[u8]) -> Result<Vec<Section>> {
             .checked_add(len)
             .filter(|&end| end <= bytes.len() as u64);
         let Some(end) = end else {
-            return Err(bad(format!(
-                "corrupt index: section {} lies outside the file",
+            return Err(corrupt(format!(
+                "section {} lies outside the file",
                 kind.name()
             )));
         };
         if off < (HEADER_LEN + TABLE_LEN) as u64 || off % ALIGN as u64 != 0 {
-            return Err(bad(format!(
-                "corrupt index: section {} is misplaced",
-                kind.name()
-            )));
+            return Err(corrupt(format!("section {} is misplaced", kind.name())));
         }
         if sections.iter().any(|s| s.kind == kind) {
-            return Err(bad(format!(
-                "corrupt index: section {} appears twice",
-                kind.name()
-            )));
+            return Err(corrupt(format!("section {} appears twice", kind.name())));
         }
         let range = off as usize..end as usize;
         if sections
             .iter()
             .any(|s| s.range.start < range.end && range.start < s.range.end)
         {
-            return Err(bad(format!(
-                "corrupt index: section {} overlaps another",
-                kind.name()
-            )));
+            return Err(corrupt(format!("section {} overlaps another", kind.name())));
         }
         let s = Section { kind, range, crc };
         if kind.checked_at_open() {
@@ -485,13 +474,10 @@ pub fn read_table(path: &Path, bytes: &[u8]) -> Result<Vec<Section>> {
 
 fn check_crc(path: &Path, bytes: &[u8], s: &Section) -> Result<()> {
     if crc32fast::hash(&bytes[s.range.clone()]) != s.crc {
-        return Err(Error::Index {
-            path: path.to_path_buf(),
-            message: format!(
-                "corrupt index: checksum mismatch in section {}",
-                s.kind.name()
-            ),
-        });
+        return Err(Error::corrupt(
+            path,
+            format!("checksum mismatch in section {}", s.kind.name()),
+        ));
     }
     Ok(())
 }
@@ -520,13 +506,13 @@ pub fn verify_sections(path: &Path, bytes: &[u8], sections: &[Section]) -> Resul
             .get(g.clone())
             .and_then(|b| b.iter().position(|&x| x != 0))
         {
-            return Err(Error::Index {
-                path: path.to_path_buf(),
-                message: format!(
-                    "corrupt index: non-zero byte at offset {} outside every section",
+            return Err(Error::corrupt(
+                path,
+                format!(
+                    "non-zero byte at offset {} outside every section",
                     g.start + off
                 ),
-            });
+            ));
         }
     }
     Ok(())

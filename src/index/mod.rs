@@ -132,7 +132,7 @@ pub struct Index {
     cells: Option<Range<usize>>,
     cells_checked: OnceLock<std::result::Result<(), String>>,
     graph: Option<Range<usize>>,
-    metric: OnceLock<std::result::Result<AnyMetric, String>>,
+    metric: OnceLock<Result<AnyMetric>>,
 }
 
 /// A string table: offsets and bytes sections.
@@ -159,10 +159,7 @@ impl Index {
             source,
         })?;
         let sections = file::read_table(path, &map)?;
-        let bad = |message: String| Error::Index {
-            path: path.to_path_buf(),
-            message,
-        };
+        let corrupt = |reason: String| Error::corrupt(path, reason);
         let find = |k: SectionKind| {
             sections
                 .iter()
@@ -170,16 +167,16 @@ impl Index {
                 .map(|s| s.range.clone())
         };
         let need = |k: SectionKind| {
-            find(k).ok_or_else(|| bad(format!("corrupt index: missing section {}", k.name())))
+            find(k).ok_or_else(|| corrupt(format!("missing section {}", k.name())))
         };
         let meta_bytes = &map[need(SectionKind::Meta)?];
         let meta: IndexMeta = serde_json::from_slice(meta_bytes)
-            .map_err(|e| bad(format!("corrupt index: metadata does not parse: {e}")))?;
-        let n = usize::try_from(meta.n).map_err(|_| bad("corrupt index: n too large".into()))?;
+            .map_err(|e| corrupt(format!("metadata does not parse: {e}")))?;
+        let n = usize::try_from(meta.n).map_err(|_| corrupt("n too large".into()))?;
         let expect_len = |k: SectionKind, r: &Range<usize>, want: Option<usize>| match want {
             Some(w) if r.len() == w => Ok(()),
-            _ => Err(bad(format!(
-                "corrupt index: section {} has {} bytes, expected {}",
+            _ => Err(corrupt(format!(
+                "section {} has {} bytes, expected {}",
                 k.name(),
                 r.len(),
                 want.map_or("a size that fits in memory".to_string(), |w| w.to_string())
@@ -210,27 +207,27 @@ impl Index {
         };
         let dim = meta.dim as usize;
         if dim == 0 || dim > crate::embed::MAX_DIM || meta.embedding.dim() != dim {
-            return Err(bad(format!(
-                "corrupt index: dimension {dim} with {} coordinates in its embedding",
+            return Err(corrupt(format!(
+                "dimension {dim} with {} coordinates in its embedding",
                 meta.embedding.dim()
             )));
         }
         if !(meta.scale.is_finite() && meta.scale > 0.0) {
-            return Err(bad(format!(
-                "corrupt index: coordinate scale {} is not a positive number",
+            return Err(corrupt(format!(
+                "coordinate scale {} is not a positive number",
                 meta.scale
             )));
         }
         if meta.stride as usize != coord_stride(dim)
             || meta.tree_dim as usize != tree::tree_dim(dim)
         {
-            return Err(bad(
-                "corrupt index: coordinate layout does not match its dimension".into(),
+            return Err(corrupt(
+                "coordinate layout does not match its dimension".into(),
             ));
         }
         meta.embedding
             .check(meta.n)
-            .map_err(|m| bad(format!("corrupt index: embedding: {m}")))?;
+            .map_err(|m| corrupt(format!("embedding: {m}")))?;
         let coords = need(SectionKind::Coords)?;
         expect_len(
             SectionKind::Coords,
@@ -239,8 +236,8 @@ impl Index {
         )?;
         let tree = need(SectionKind::Tree)?;
         if meta.metric_spec.kind() != meta.metric {
-            return Err(bad(format!(
-                "corrupt index: metric {} with parameters of {}",
+            return Err(corrupt(format!(
+                "metric {} with parameters of {}",
                 meta.metric,
                 meta.metric_spec.kind()
             )));
@@ -248,8 +245,8 @@ impl Index {
         let graph = find(SectionKind::Graph);
         let cells = find(SectionKind::Cells);
         if (meta.metric == MetricKind::Graph) != graph.is_some() {
-            return Err(bad(
-                "corrupt index: a graph section belongs to graph-metric indexes only".into(),
+            return Err(corrupt(
+                "a graph section belongs to graph-metric indexes only".into(),
             ));
         }
         Ok(Index {
@@ -279,10 +276,7 @@ impl Index {
     pub fn open_with_metric(path: &Path, metric: &crate::metric::CustomMetric) -> Result<Index> {
         use crate::metric::Metric;
         let index = Index::open(path)?;
-        let bad = |message: String| Error::Index {
-            path: path.to_path_buf(),
-            message,
-        };
+        let bad = |reason: String| Error::refused(path, reason);
         match &index.meta.metric_spec {
             MetricSpec::Custom { name, integral } => {
                 if name != metric.name() {
@@ -423,20 +417,24 @@ impl Index {
         let m = self.metric.get_or_init(|| {
             let graph = match &self.graph {
                 Some(r) => {
-                    let text = std::str::from_utf8(&self.map[r.clone()])
-                        .map_err(|_| "corrupt index: the graph section is not UTF-8".to_string())?;
+                    let text = std::str::from_utf8(&self.map[r.clone()]).map_err(|_| {
+                        Error::corrupt(&self.path, "the graph section is not UTF-8")
+                    })?;
                     Some(
                         Graph::parse(text, "graph section")
-                            .map_err(|e| format!("corrupt index: {e}"))?,
+                            .map_err(|e| Error::corrupt(&self.path, e.to_string()))?,
                     )
                 }
                 None => None,
             };
-            self.meta.metric_spec.open(graph).map_err(|e| e.to_string())
+            self.meta
+                .metric_spec
+                .open(graph)
+                .map_err(|e| Error::refused(&self.path, e.to_string()))
         });
-        m.as_ref().map_err(|message| Error::Index {
-            path: self.path.clone(),
-            message: message.clone(),
+        m.as_ref().map_err(|e| match e {
+            Error::CorruptIndex { path, reason } => Error::corrupt(path, reason.clone()),
+            other => Error::refused(&self.path, other.to_string()),
         })
     }
 
@@ -448,13 +446,14 @@ impl Index {
         let meta = &self.meta;
         Ok(match &meta.metric_spec {
             MetricSpec::Vector { dim, .. } => {
-                let v = crate::ingest::parse_vector(query, *dim as usize).map_err(Error::Usage)?;
+                let v = crate::ingest::parse_vector(query, *dim as usize)
+                    .map_err(Error::InvalidQuery)?;
                 vector_bytes(&v)
             }
             MetricSpec::Graph => {
                 if let AnyMetric::Graph(g) = self.metric()? {
                     if g.graph().node(query.as_bytes()).is_none() {
-                        return Err(Error::Usage(format!(
+                        return Err(Error::InvalidQuery(format!(
                             "`{query}` is not a node of the graph"
                         )));
                     }
@@ -465,7 +464,7 @@ impl Index {
                 let key = meta.normalize.apply(query);
                 let n = key.chars().count() as u64;
                 if n != *length {
-                    return Err(Error::Usage(format!(
+                    return Err(Error::InvalidQuery(format!(
                         "the query has {n} characters; Hamming distance needs the items' length, {length}"
                     )));
                 }
@@ -520,20 +519,16 @@ impl Index {
     ) -> std::result::Result<(), String> {
         let crc = self.sections.iter().find(|s| s.kind == kind).map(|s| s.crc);
         if crc != Some(crc32fast::hash(bytes)) {
-            return Err(format!(
-                "corrupt index: checksum mismatch in section {}",
-                kind.name()
-            ));
+            return Err(format!("checksum mismatch in section {}", kind.name()));
         }
-        fields().map_err(|e| format!("corrupt index: section {} is refused: {e}", kind.name()))
+        fields().map_err(|e| format!("section {} is refused: {e}", kind.name()))
     }
 
     /// The outcome of a first-use check as this index's error.
     fn checked(&self, outcome: &std::result::Result<(), String>) -> Result<()> {
-        outcome.clone().map_err(|message| Error::Index {
-            path: self.path.clone(),
-            message,
-        })
+        outcome
+            .clone()
+            .map_err(|reason| Error::corrupt(&self.path, reason))
     }
 
     /// The kd-tree, checked on first use: its checksum, rkyv's structural validation and

@@ -57,7 +57,7 @@ pub use crate::index::{default_candidates, DEFAULT_CANDIDATES, DEFAULT_DIM};
 
 use crate::coords::columns::{CharBins, Columns};
 use crate::embed::Bound;
-use crate::error::{Error, Result};
+use crate::error::{Error, Param, Result};
 use crate::index::{Index, StrTable};
 use crate::metric::{AnyQuery, Metric, PreparedQuery};
 
@@ -195,25 +195,26 @@ impl<'a> Searcher<'a> {
         let k = match *req {
             Request::Approximate(p) => {
                 if p.k == 0 {
-                    return Err(Error::Usage("-k must be at least 1".into()));
+                    return Err(Error::parameter(Param::K, "must be at least 1"));
                 }
                 if p.candidates == 0 {
-                    return Err(Error::Usage("--candidates must be at least 1".into()));
+                    return Err(Error::parameter(Param::Candidates, "must be at least 1"));
                 }
                 Some(p.k)
             }
             Request::Exact { k } => Some(k),
             Request::Within { radius, k } => {
                 if !(radius >= 0.0 && radius.is_finite()) {
-                    return Err(Error::Usage(format!(
-                        "--within must be a finite distance of at least 0, not {radius}"
-                    )));
+                    return Err(Error::parameter(
+                        Param::Radius,
+                        format!("must be a finite distance of at least 0, not {radius}"),
+                    ));
                 }
                 k
             }
         };
         if k == Some(0) {
-            return Err(Error::Usage("-k must be at least 1".into()));
+            return Err(Error::parameter(Param::K, "must be at least 1"));
         }
         if !matches!(req, Request::Approximate(_)) {
             self.require_bound()?;
@@ -312,14 +313,9 @@ impl<'a> Searcher<'a> {
     }
 
     fn require_bound(&self) -> Result<Bound> {
-        self.bound.ok_or_else(|| {
-            Error::Usage(format!(
-                "{}: exact answers need a lower bound of the true distance, and this index's \
-                 {} embedding gives none (its coordinates are not contractive); \
-                 leave out --exact and --within for approximate answers",
-                self.index.path().display(),
-                self.index.meta().embedding.name()
-            ))
+        self.bound.ok_or_else(|| Error::NoLowerBound {
+            path: self.index.path().to_path_buf(),
+            embedding: self.index.meta().embedding.name().to_string(),
         })
     }
 }
