@@ -3,6 +3,8 @@
 //! Shared plumbing (temp folders, running the `waymark` binary, the word list, the bundled
 //! data, the index file's section table) is in `util`.
 
+mod util;
+
 mod cli;
 mod embed;
 mod eval;
