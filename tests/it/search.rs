@@ -146,7 +146,7 @@ fn threshold_recall_counts_ties_and_duplicates_once() {
 }
 
 /// Open data: Debian's `wamerican` word list (/usr/share/dict/american-english, installed by
-/// .ci/run). With the default settings, threshold recall@10 on typo queries must stay above
+/// scripts/test-data.sh). With the default settings, threshold recall@10 on typo queries must stay above
 /// a floor; the bench measured about 0.97 at these settings (README).
 #[test]
 fn recall_on_the_debian_word_list_stays_above_the_floor() {
