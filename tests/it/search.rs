@@ -5,36 +5,26 @@ use waymark::embed::{choose_landmarks, embed_with, Embedding, LandmarkOptions};
 use waymark::eval::{best_scan, full_scan, plain_recall, threshold_recall, typo_queries};
 use waymark::index::{build_index, BuildOptions, IdRef, Index};
 use waymark::ingest::{
-    read_corpus, read_corpus_from, Corpus, Ids, IngestOptions, InputFormat, Normalize,
+    read_corpus, read_corpus_from, Corpus, IngestOptions, InputFormat, Normalize,
 };
 use waymark::metric::{Levenshtein, Metric};
 use waymark::search::{CandidateSource, Found, SearchParams, Searcher, Space};
 
-fn corpus(items: &[String]) -> Corpus {
-    Corpus {
-        items: items.to_vec(),
-        keys: None,
-        ids: Ids::Int((0..items.len() as i64).collect()),
-        blank_skipped: 0,
-        records: items.len(),
-    }
-}
+use crate::util::{
+    build_in, corpus, entry, fix_table_checksums, section, u32_at, word_list_path, ENTRY, HEADER,
+};
 
 fn build(c: &Corpus, dim: usize, dir: &tempfile::TempDir) -> Index {
-    let path = dir.path().join("t.wmk");
-    build_index(
+    build_in(
+        dir.path(),
+        "t.wmk",
         c,
-        "test",
         &BuildOptions {
             dim,
             seed: 11,
             ..BuildOptions::default()
         },
-        &path,
-        &|_| {},
     )
-    .expect("build");
-    Index::open(&path).expect("open")
 }
 
 #[test]
@@ -157,15 +147,11 @@ fn threshold_recall_counts_ties_and_duplicates_once() {
 }
 
 /// Open data: Debian's `wamerican` word list (/usr/share/dict/american-english, installed by
-/// .ci/run). With the default settings, threshold recall@10 on typo queries must stay above
+/// scripts/test-data.sh). With the default settings, threshold recall@10 on typo queries must stay above
 /// a floor; the bench measured about 0.97 at these settings (README).
 #[test]
 fn recall_on_the_debian_word_list_stays_above_the_floor() {
-    let path = std::path::Path::new("/usr/share/dict/american-english");
-    if !path.exists() {
-        panic!("install Debian's wamerican (apt-get install -y wamerican) to run this test");
-    }
-    let c = read_corpus(path, &IngestOptions::default()).unwrap();
+    let c = read_corpus(word_list_path(), &IngestOptions::default()).unwrap();
     assert!(
         c.items.len() > 100_000,
         "the wamerican list has 104,334 words"
@@ -421,35 +407,20 @@ fn cells_answer_like_the_scan_and_count_their_work_on_3000_names() {
     }
 }
 
-/// The file layout of DEVELOPERS.md ("The index file"): a 64-byte header, then 16 table
-/// entries of 32 bytes (kind, flags, offset, length, CRC-32, zero).
-const HEADER: usize = 64;
-const ENTRY: usize = 32;
-const ENTRIES: usize = 16;
-
 /// A file as an older writer would have made it: the section of `kind` removed from the
 /// table (later entries moved up, the count lowered), its bytes zeroed, the table's and the
 /// header's checksums recomputed.
 fn without_section(bytes: &[u8], kind: u32) -> Vec<u8> {
     let mut b = bytes.to_vec();
-    let u32_at = |b: &[u8], at: usize| u32::from_le_bytes(b[at..at + 4].try_into().unwrap());
-    let u64_at = |b: &[u8], at: usize| u64::from_le_bytes(b[at..at + 8].try_into().unwrap());
     let count = u32_at(&b, 12) as usize;
-    let e = (0..count)
-        .find(|&e| u32_at(&b, HEADER + e * ENTRY) == kind)
-        .unwrap_or_else(|| panic!("no section {kind}"));
-    let at = HEADER + e * ENTRY;
-    let (off, len) = (u64_at(&b, at + 8) as usize, u64_at(&b, at + 16) as usize);
-    b[off..off + len].fill(0);
+    let at = entry(&b, kind);
+    let bytes_of_kind = section(&b, kind);
+    b[bytes_of_kind].fill(0);
     let table_end = HEADER + count * ENTRY;
     b.copy_within(at + ENTRY..table_end, at);
     b[table_end - ENTRY..table_end].fill(0);
     b[12..16].copy_from_slice(&(count as u32 - 1).to_le_bytes());
-    let table = crc32fast::hash(&b[HEADER..HEADER + ENTRIES * ENTRY]);
-    b[24..28].copy_from_slice(&table.to_le_bytes());
-    b[28..32].fill(0);
-    let header = crc32fast::hash(&b[..HEADER]);
-    b[28..32].copy_from_slice(&header.to_le_bytes());
+    fix_table_checksums(&mut b);
     b
 }
 

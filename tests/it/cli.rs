@@ -1,47 +1,8 @@
 //! The command line, as the README uses it: build, query, inspect, exit codes, bad input.
 
-use std::path::{Path, PathBuf};
-
-use assert_cmd::Command;
 use serde::Deserialize;
 
-/// A temp folder with helpers to write files and run the binary in it.
-struct Dir {
-    dir: tempfile::TempDir,
-}
-
-impl Dir {
-    fn new() -> Dir {
-        Dir {
-            dir: tempfile::tempdir().expect("temp dir"),
-        }
-    }
-    fn path(&self, name: &str) -> PathBuf {
-        self.dir.path().join(name)
-    }
-    fn write(&self, name: &str, bytes: &[u8]) -> PathBuf {
-        let p = self.path(name);
-        std::fs::write(&p, bytes).expect("write");
-        p
-    }
-    fn cmd(&self) -> Command {
-        let mut c = Command::cargo_bin("waymark").expect("binary");
-        c.current_dir(self.dir.path());
-        c
-    }
-    fn build(&self, input: &Path, extra: &[&str]) -> PathBuf {
-        let out = self.path("idx.wmk");
-        self.cmd()
-            .arg("build")
-            .arg(input)
-            .arg("-o")
-            .arg(&out)
-            .args(extra)
-            .assert()
-            .success();
-        out
-    }
-}
+use crate::util::{json_lines, waymark_path, Dir};
 
 /// The documented JSON Lines schema of `waymark query`.
 #[derive(Debug, Deserialize)]
@@ -64,11 +25,7 @@ struct Hit {
 }
 
 fn answers(stdout: &[u8]) -> Vec<Answer> {
-    String::from_utf8(stdout.to_vec())
-        .expect("utf-8")
-        .lines()
-        .map(|l| serde_json::from_str(l).expect("one JSON object per line"))
-        .collect()
+    json_lines(stdout)
 }
 
 const NAMES: &str = "Orvane Quay\nTessamir Row\nLower Kaldrith\nUpper Kaldrith\nOrvane Strand\n\nKeth Landing\nMirrow Steps\nTessamir Reach\n";
@@ -77,7 +34,7 @@ const NAMES: &str = "Orvane Quay\nTessamir Row\nLower Kaldrith\nUpper Kaldrith\n
 fn build_then_query_finds_the_nearest_names_in_input_order() {
     let d = Dir::new();
     let input = d.write("names.txt", NAMES.as_bytes());
-    let idx = d.build(&input, &["--dim", "4", "--seed", "3"]);
+    let idx = d.build(&input, "idx.wmk", &["--dim", "4", "--seed", "3"]);
     let out = d
         .cmd()
         .args(["query"])
@@ -111,7 +68,7 @@ fn build_then_query_finds_the_nearest_names_in_input_order() {
 fn ids_point_back_at_records_and_skip_nothing() {
     let d = Dir::new();
     let input = d.write("names.txt", NAMES.as_bytes());
-    let idx = d.build(&input, &["--dim", "3"]);
+    let idx = d.build(&input, "idx.wmk", &["--dim", "3"]);
     let out = d
         .cmd()
         .arg("query")
@@ -132,7 +89,7 @@ fn ids_point_back_at_records_and_skip_nothing() {
 fn fold_case_is_stored_and_applied_to_queries() {
     let d = Dir::new();
     let input = d.write("names.txt", NAMES.as_bytes());
-    let idx = d.build(&input, &["--dim", "4", "--fold-case"]);
+    let idx = d.build(&input, "idx.wmk", &["--dim", "4", "--fold-case"]);
     let out = d
         .cmd()
         .arg("query")
@@ -159,6 +116,7 @@ fn csv_text_ids_are_strings_and_tsv_output_has_one_line_per_neighbour() {
     );
     let idx = d.build(
         &input,
+        "idx.wmk",
         &["--field", "name", "--id-field", "code", "--dim", "2"],
     );
     let out = d
@@ -199,7 +157,7 @@ fn csv_text_ids_are_strings_and_tsv_output_has_one_line_per_neighbour() {
 fn queries_from_a_file_and_k_larger_than_n() {
     let d = Dir::new();
     let input = d.write("names.txt", NAMES.as_bytes());
-    let idx = d.build(&input, &["--dim", "2"]);
+    let idx = d.build(&input, "idx.wmk", &["--dim", "2"]);
     let q = d.write("q.txt", b"Mirrow Steps\r\n");
     let out = d
         .cmd()
@@ -225,7 +183,7 @@ fn queries_from_a_file_and_k_larger_than_n() {
 fn inspect_reports_what_the_index_holds_and_verifies() {
     let d = Dir::new();
     let input = d.write("names.txt", NAMES.as_bytes());
-    let idx = d.build(&input, &["--dim", "3", "--seed", "9"]);
+    let idx = d.build(&input, "idx.wmk", &["--dim", "3", "--seed", "9"]);
     let out = d
         .cmd()
         .arg("inspect")
@@ -275,7 +233,7 @@ fn same_seed_same_file() {
 fn candidates_from_the_tree_give_answers_too() {
     let d = Dir::new();
     let input = d.write("names.txt", NAMES.as_bytes());
-    let idx = d.build(&input, &["--dim", "4"]);
+    let idx = d.build(&input, "idx.wmk", &["--dim", "4"]);
     let out = d
         .cmd()
         .arg("query")
@@ -294,7 +252,7 @@ fn candidates_from_the_tree_give_answers_too() {
 fn candidates_from_cells_and_visit_are_accepted() {
     let d = Dir::new();
     let input = d.write("names.txt", NAMES.as_bytes());
-    let idx = d.build(&input, &["--dim", "4"]);
+    let idx = d.build(&input, "idx.wmk", &["--dim", "4"]);
     for extra in [
         &["--candidates-from", "cells"][..],
         &["--candidates-from", "cells", "--visit", "3"],
@@ -350,7 +308,7 @@ fn bad_usage_exits_2() {
         .code(2)
         .stderr(predicates::str::contains("--candidates"));
     assert!(!d.path("x.wmk").exists());
-    let idx = d.build(&input, &["--dim", "2"]);
+    let idx = d.build(&input, "idx.wmk", &["--dim", "2"]);
     for exact in ["--exact", "--within=2"] {
         d.cmd()
             .arg("query")
@@ -414,7 +372,7 @@ fn missing_empty_and_invalid_inputs_exit_2_and_write_nothing() {
 fn a_failed_rebuild_leaves_the_old_index() {
     let d = Dir::new();
     let input = d.write("names.txt", NAMES.as_bytes());
-    let idx = d.build(&input, &["--dim", "2"]);
+    let idx = d.build(&input, "idx.wmk", &["--dim", "2"]);
     let before = std::fs::read(&idx).unwrap();
     let bad = d.write("bad.txt", b"\xff\n");
     d.cmd()
@@ -431,7 +389,7 @@ fn a_failed_rebuild_leaves_the_old_index() {
 fn invalid_utf8_query_names_its_line() {
     let d = Dir::new();
     let input = d.write("names.txt", NAMES.as_bytes());
-    let idx = d.build(&input, &["--dim", "2"]);
+    let idx = d.build(&input, "idx.wmk", &["--dim", "2"]);
     d.cmd()
         .arg("query")
         .arg(&idx)
@@ -445,7 +403,7 @@ fn invalid_utf8_query_names_its_line() {
 fn refused_index_files_exit_3_with_the_reason() {
     let d = Dir::new();
     let input = d.write("names.txt", NAMES.as_bytes());
-    let idx = d.build(&input, &["--dim", "2"]);
+    let idx = d.build(&input, "idx.wmk", &["--dim", "2"]);
     let good = std::fs::read(&idx).unwrap();
 
     let not = d.write("not.wmk", b"hello, this is not an index");
@@ -509,14 +467,14 @@ fn a_closed_pipe_is_not_an_error() {
     // Many queries, stdout closed after the first line: the exit code stays 0.
     let d = Dir::new();
     let input = d.write("names.txt", NAMES.as_bytes());
-    let idx = d.build(&input, &["--dim", "2"]);
+    let idx = d.build(&input, "idx.wmk", &["--dim", "2"]);
     let queries = "Orvane\n".repeat(20000);
     let q = d.write("q.txt", queries.as_bytes());
     let out = std::process::Command::new("bash")
         .arg("-c")
         .arg(format!(
             "{} query {} --queries {} 2>err.txt | head -n 1 >/dev/null; echo \"${{PIPESTATUS[0]}}\"",
-            assert_cmd::cargo::cargo_bin("waymark").display(),
+            waymark_path().display(),
             idx.display(),
             q.display()
         ))
@@ -530,8 +488,7 @@ fn a_closed_pipe_is_not_an_error() {
 /// `waymark ARGS --help` with every run of white space made one space, so that clap's line
 /// wrapping does not matter.
 fn help_of(args: &[&str]) -> String {
-    let out = Command::cargo_bin("waymark")
-        .expect("binary")
+    let out = crate::util::waymark()
         .args(args)
         .arg("--help")
         .assert()

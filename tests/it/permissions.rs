@@ -1,5 +1,5 @@
-//! Regression tests kept together for now: files written under a umask get the mode a new
-//! file would.
+//! Files waymark writes (indexes, the ground-truth cache) get the mode a new
+//! file would under the process umask.
 
 use std::os::unix::fs::PermissionsExt;
 use std::path::Path;

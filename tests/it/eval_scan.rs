@@ -3,25 +3,17 @@
 //! the same answers: the same items, distances and order.
 
 use waymark::eval::{best_scan, full_scan, scan_many, typo_queries, Scan};
-use waymark::index::{build_index, BuildOptions, IdRef, Index};
-use waymark::ingest::{Corpus, Ids};
+use waymark::index::{BuildOptions, IdRef, Index};
 use waymark::search::Neighbor;
 
+use crate::util::{build_in, corpus, word_list};
+
 fn build(items: &[String], dir: &tempfile::TempDir) -> Index {
-    let corpus = Corpus {
-        items: items.to_vec(),
-        keys: None,
-        ids: Ids::Int((0..items.len() as i64).collect()),
-        blank_skipped: 0,
-        records: items.len(),
-    };
-    let path = dir.path().join("scan.wmk");
     let opts = BuildOptions {
         dim: 4,
         ..BuildOptions::default()
     };
-    build_index(&corpus, "test", &opts, &path, &|_| {}).expect("build");
-    Index::open(&path).expect("open")
+    build_in(dir.path(), "scan.wmk", &corpus(items), &opts)
 }
 
 /// Naive k-NN: strsim (general-purpose crate, plain dynamic program) against every item,
@@ -75,11 +67,8 @@ fn check(items: &[String], queries: &[String]) {
 #[test]
 fn scans_agree_on_a_word_list_sample() {
     // Debian's wamerican list (package wamerican, 104,334 words): every 40th word, with
-    // typo queries drawn from the sample. Skipped without the list.
-    let Ok(text) = std::fs::read_to_string("/usr/share/dict/american-english") else {
-        eprintln!("word list missing: apt-get install wamerican");
-        return;
-    };
+    // typo queries drawn from the sample.
+    let text = word_list();
     let items: Vec<String> = text.lines().step_by(40).map(str::to_string).collect();
     let mut queries = typo_queries(&items, 30, 5);
     queries.extend(["".to_string(), "q".to_string(), "x".repeat(70)]);

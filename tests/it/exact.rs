@@ -1,40 +1,24 @@
 //! Exact k-NN and range queries: the same answers as brute force, with a certificate.
 
-use assert_cmd::Command;
 use proptest::prelude::*;
 use waymark::eval::full_scan;
-use waymark::index::{build_index, BuildOptions, IdRef, Index};
-use waymark::ingest::{read_corpus, Corpus, Ids, IngestOptions};
+use waymark::index::{BuildOptions, IdRef, Index};
+use waymark::ingest::{read_corpus, Corpus, IngestOptions};
 use waymark::search::{Found, Neighbor, Searcher};
 
-fn corpus(items: &[String], ids: Option<Vec<String>>) -> Corpus {
-    Corpus {
-        items: items.to_vec(),
-        keys: None,
-        ids: match ids {
-            Some(t) => Ids::Text(t),
-            None => Ids::Int((0..items.len() as i64).collect()),
-        },
-        blank_skipped: 0,
-        records: items.len(),
-    }
-}
+use crate::util::{build_in, corpus, corpus_with_ids, word_list_path, Dir};
 
 fn build(c: &Corpus, dim: usize, dir: &tempfile::TempDir) -> Index {
-    let path = dir.path().join("t.wmk");
-    build_index(
+    build_in(
+        dir.path(),
+        "t.wmk",
         c,
-        "test",
         &BuildOptions {
             dim,
             seed: 5,
             ..BuildOptions::default()
         },
-        &path,
-        &|_| {},
     )
-    .expect("build");
-    Index::open(&path).expect("open")
 }
 
 /// Every item within `r` of `q`, by strsim's Levenshtein (a reference crate; counts chars),
@@ -103,7 +87,11 @@ proptest! {
         let ids = text_ids.then(|| {
             (0..items.len()).map(|i| format!("{:03}", (i * 37) % 101)).collect()
         });
-        let idx = build(&corpus(&items, ids), dim, &dir);
+        let c = match ids {
+            Some(ids) => corpus_with_ids(&items, ids),
+            None => corpus(&items),
+        };
+        let idx = build(&c, dim, &dir);
         let s = Searcher::new(&idx);
         for q in &queries {
             let got = s.search_exact(q, k, &mut Default::default()).unwrap();
@@ -123,7 +111,7 @@ proptest! {
         dim in 1usize..9,
     ) {
         let dir = tempfile::tempdir().unwrap();
-        let idx = build(&corpus(&items, None), dim, &dir);
+        let idx = build(&corpus(&items), dim, &dir);
         let s = Searcher::new(&idx);
         for q in &queries {
             let want = within_by_strsim(&idx, q, r);
@@ -145,14 +133,10 @@ proptest! {
 /// strsim's brute force.
 #[test]
 fn exact_and_range_on_a_word_list_sample() {
-    let path = std::path::Path::new("/usr/share/dict/american-english");
-    if !path.exists() {
-        panic!("install Debian's wamerican (apt-get install -y wamerican) to run this test");
-    }
-    let all = read_corpus(path, &IngestOptions::default()).unwrap();
+    let all = read_corpus(word_list_path(), &IngestOptions::default()).unwrap();
     let items: Vec<String> = all.items.iter().step_by(13).cloned().collect();
     let dir = tempfile::tempdir().unwrap();
-    let idx = build(&corpus(&items, None), 32, &dir);
+    let idx = build(&corpus(&items), 32, &dir);
     let s = Searcher::new(&idx);
     let queries = waymark::eval::typo_queries(&items, 40, 3);
     let mut scratch = Default::default();
@@ -187,7 +171,7 @@ fn exact_and_range_on_a_word_list_sample() {
 fn without_a_lower_bound_exact_queries_are_refused() {
     let dir = tempfile::tempdir().unwrap();
     let items: Vec<String> = (0..50).map(|i| format!("buoy {i}")).collect();
-    let idx = build(&corpus(&items, None), 4, &dir);
+    let idx = build(&corpus(&items), 4, &dir);
     let s = Searcher::without_bound(&idx);
     let err = s
         .search_exact("buoy 7", 3, &mut Default::default())
@@ -209,21 +193,16 @@ fn without_a_lower_bound_exact_queries_are_refused() {
 
 const FERRIES: &str = "Orvane Quay\nTessamir Row\nLower Kaldrith\nUpper Kaldrith\nOrvane Strand\nKeth Landing\nMirrow Steps\nTessamir Reach\nKeth Lantern\n";
 
-fn cli(dir: &tempfile::TempDir) -> Command {
-    let mut c = Command::cargo_bin("waymark").expect("binary");
-    c.current_dir(dir.path());
-    c
-}
-
 #[test]
 fn cli_exact_and_range_answers_carry_a_certificate() {
-    let dir = tempfile::tempdir().unwrap();
-    std::fs::write(dir.path().join("ferries.txt"), FERRIES).unwrap();
-    cli(&dir)
+    let d = Dir::new();
+    d.write("ferries.txt", FERRIES.as_bytes());
+    d.cmd()
         .args(["build", "ferries.txt", "-o", "f.wmk", "--dim", "4", "-q"])
         .assert()
         .success();
-    let out = cli(&dir)
+    let out = d
+        .cmd()
         .args(["query", "f.wmk", "-k", "2", "--exact"])
         .write_stdin("Keth Landin\n")
         .assert()
@@ -240,7 +219,8 @@ fn cli_exact_and_range_answers_carry_a_certificate() {
     assert!(cert["computed"].as_u64().unwrap() <= cert["examined"].as_u64().unwrap());
     // Range: every item within 2 edits of the query, and nothing else (worked by hand:
     // "Keth Landing" is 1 edit away, "Keth Lantern" 3: d→t, i→e, insert r).
-    let out = cli(&dir)
+    let out = d
+        .cmd()
         .args(["query", "f.wmk", "--within", "2", "--format", "tsv"])
         .write_stdin("Keth Landin\n")
         .assert()
@@ -264,9 +244,9 @@ fn cli_exact_and_range_answers_carry_a_certificate() {
 
 #[test]
 fn cli_bad_exact_usage_exits_2() {
-    let dir = tempfile::tempdir().unwrap();
-    std::fs::write(dir.path().join("ferries.txt"), FERRIES).unwrap();
-    cli(&dir)
+    let d = Dir::new();
+    d.write("ferries.txt", FERRIES.as_bytes());
+    d.cmd()
         .args(["build", "ferries.txt", "-o", "f.wmk", "--dim", "4", "-q"])
         .assert()
         .success();
@@ -278,7 +258,7 @@ fn cli_bad_exact_usage_exits_2() {
         &["--exact", "--candidates", "50"],
         &["--within", "2", "--space", "l2"],
     ] {
-        cli(&dir)
+        d.cmd()
             .args(["query", "f.wmk"])
             .args(args)
             .write_stdin("Keth\n")

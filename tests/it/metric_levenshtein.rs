@@ -8,6 +8,8 @@
 use proptest::prelude::*;
 use waymark::metric::{Levenshtein, LevenshteinQuery, Metric, MetricKind, PreparedQuery};
 
+use crate::util::word_list;
+
 /// Reference distance: `strsim` (general-purpose crate, full dynamic program over chars).
 fn reference(a: &str, b: &str) -> u32 {
     strsim::levenshtein(a, b) as u32
@@ -363,11 +365,8 @@ fn batch_of_empty_items_and_empty_query() {
 #[test]
 fn batch_on_the_word_list_matches_strsim() {
     // Debian's wamerican list (package wamerican, 104,334 words): a sample of 2,000 words
-    // against typo queries of several lengths, checked with strsim. Skipped without the list.
-    let Ok(text) = std::fs::read_to_string("/usr/share/dict/american-english") else {
-        eprintln!("word list missing: apt-get install wamerican");
-        return;
-    };
+    // against typo queries of several lengths, checked with strsim.
+    let text = word_list();
     let words: Vec<&str> = text.lines().step_by(52).collect();
     let slices: Vec<&[u8]> = words.iter().map(|w| w.as_bytes()).collect();
     let mut out = vec![0; words.len()];

@@ -4,6 +4,8 @@ use waymark::ingest::{
     read_corpus, read_corpus_from, Corpus, Ids, IngestError, IngestOptions, InputFormat, Normalize,
 };
 
+use crate::util::{word_list, word_list_path};
+
 fn opts(format: InputFormat, field: Option<&str>, id: Option<&str>) -> IngestOptions {
     IngestOptions {
         format: Some(format),
@@ -174,12 +176,8 @@ fn a_missing_file_names_the_path() {
 /// non-empty lines found independently by the standard library.
 #[test]
 fn the_debian_word_list_reads_completely() {
-    let path = std::path::Path::new("/usr/share/dict/american-english");
-    if !path.exists() {
-        panic!("install Debian's wamerican (apt-get install -y wamerican) to run this test");
-    }
-    let c = read_corpus(path, &IngestOptions::default()).unwrap();
-    let text = std::fs::read_to_string(path).unwrap();
+    let c = read_corpus(word_list_path(), &IngestOptions::default()).unwrap();
+    let text = word_list();
     assert_eq!(
         c.items.len(),
         text.lines().filter(|l| !l.is_empty()).count()

@@ -4,6 +4,8 @@
 use proptest::prelude::*;
 use waymark::metric::{Damerau, Metric, MetricKind, PreparedQuery};
 
+use crate::util::word_list;
+
 /// A small alphabet so that transpositions and repeated symbols are common.
 const ALPHABET: &[char] = &['a', 'b', 'c', 'd', 'a', 'b', 'é', 'ø', '中', '😀'];
 
@@ -62,11 +64,8 @@ fn check_values() {
 
 #[test]
 fn debian_words_against_strsim() {
-    // Open data: Debian's wamerican list (apt-get install wamerican); a sample of pairs.
-    let Ok(text) = std::fs::read_to_string("/usr/share/dict/american-english") else {
-        eprintln!("skipped: /usr/share/dict/american-english missing (apt-get install wamerican)");
-        return;
-    };
+    // Open data: Debian's wamerican list (scripts/test-data.sh installs it); a sample of pairs.
+    let text = word_list();
     let words: Vec<&str> = text.lines().collect();
     assert_eq!(words.len(), 104_334, "wamerican's word count");
     for (i, w) in words.iter().step_by(997).enumerate() {

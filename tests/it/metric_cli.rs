@@ -6,42 +6,17 @@
 use std::collections::{BTreeSet, HashMap};
 use std::path::{Path, PathBuf};
 
-use assert_cmd::Command;
 use predicates::prelude::*;
 use serde::Deserialize;
 
-fn demo(name: &str) -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR"))
-        .join("demo-data")
-        .join(name)
-}
-
-fn lines(name: &str) -> Vec<String> {
-    std::fs::read_to_string(demo(name))
-        .expect("demo data")
-        .lines()
-        .map(str::to_string)
-        .collect()
-}
-
-fn waymark() -> Command {
-    Command::cargo_bin("waymark").expect("binary")
-}
+use crate::util::{demo, demo_lines, json_lines, repo_file, waymark, Dir};
 
 /// Builds `input` with `args` into a temp folder; returns the folder and the index path.
-fn build(input: &Path, args: &[&str]) -> (tempfile::TempDir, PathBuf) {
-    let dir = tempfile::tempdir().expect("temp dir");
-    let out = dir.path().join("idx.wmk");
-    waymark()
-        .arg("build")
-        .arg(input)
-        .arg("-o")
-        .arg(&out)
-        .arg("-q")
-        .args(args)
-        .assert()
-        .success();
-    (dir, out)
+fn build(input: &Path, args: &[&str]) -> (Dir, PathBuf) {
+    let d = Dir::new();
+    // `-q` before `args`: they may end with `-- PROGRAM ARGS`.
+    let out = d.build(input, "idx.wmk", &[&["-q"], args].concat());
+    (d, out)
 }
 
 #[derive(Deserialize)]
@@ -68,11 +43,7 @@ fn query(index: &Path, queries: &[String], args: &[&str]) -> Vec<Answer> {
         .get_output()
         .stdout
         .clone();
-    let answers: Vec<Answer> = String::from_utf8(out)
-        .expect("utf-8")
-        .lines()
-        .map(|l| serde_json::from_str(l).expect("JSON line"))
-        .collect();
+    let answers: Vec<Answer> = json_lines(&out);
     assert_eq!(answers.len(), queries.len());
     answers
 }
@@ -103,11 +74,11 @@ fn distances(a: &Answer) -> Vec<f64> {
 fn damerau_exact_answers_match_strsim() {
     // Reference: strsim::damerau_levenshtein, the unrestricted form (strsim's docs).
     let dir = tempfile::tempdir().unwrap();
-    let names: Vec<String> = lines("names.txt").into_iter().take(3000).collect();
+    let names: Vec<String> = demo_lines("names.txt").into_iter().take(3000).collect();
     let input = dir.path().join("names.txt");
     std::fs::write(&input, names.join("\n")).unwrap();
     let (_d, index) = build(&input, &["--metric", "damerau", "--dim", "32"]);
-    let queries: Vec<String> = lines("lookups.txt").into_iter().take(40).collect();
+    let queries: Vec<String> = demo_lines("lookups.txt").into_iter().take(40).collect();
     for a in query(&index, &queries, &["-k", "5", "--exact"]) {
         let want = k_smallest(&names, 5, |s| {
             strsim::damerau_levenshtein(&a.query, s) as f64
@@ -119,12 +90,15 @@ fn damerau_exact_answers_match_strsim() {
 #[test]
 fn hamming_exact_answers_match_strsim_on_barcodes() {
     // Reference: strsim::hamming.
-    let codes = lines("barcodes.txt");
+    let codes = demo_lines("barcodes.txt");
     let (_d, index) = build(
         &demo("barcodes.txt"),
         &["--metric", "hamming", "--dim", "16"],
     );
-    let reads: Vec<String> = lines("barcode-reads.txt").into_iter().take(60).collect();
+    let reads: Vec<String> = demo_lines("barcode-reads.txt")
+        .into_iter()
+        .take(60)
+        .collect();
     for a in query(&index, &reads, &["-k", "3", "--exact"]) {
         let want = k_smallest(&codes, 3, |s| {
             strsim::hamming(&a.query, s).expect("equal lengths") as f64
@@ -194,7 +168,7 @@ fn nucleotide_distance(a: &str, b: &str) -> f64 {
 
 #[test]
 fn weighted_exact_answers_match_the_dynamic_program() {
-    let codes = lines("barcodes.txt");
+    let codes = demo_lines("barcodes.txt");
     let costs = demo("nucleotide-costs.txt");
     let (_d, index) = build(
         &demo("barcodes.txt"),
@@ -207,7 +181,10 @@ fn weighted_exact_answers_match_the_dynamic_program() {
             "16",
         ],
     );
-    let reads: Vec<String> = lines("barcode-reads.txt").into_iter().take(30).collect();
+    let reads: Vec<String> = demo_lines("barcode-reads.txt")
+        .into_iter()
+        .take(30)
+        .collect();
     for a in query(&index, &reads, &["-k", "4", "--exact"]) {
         let want = k_smallest(&codes, 4, |s| nucleotide_distance(&a.query, s));
         assert_close(&distances(&a), &want, &a.query);
@@ -266,9 +243,9 @@ fn jaccard(a: &str, b: &str) -> f64 {
 
 #[test]
 fn jaccard_exact_answers_match_a_set_brute_force() {
-    let entries = lines("tags.txt");
+    let entries = demo_lines("tags.txt");
     let (_d, index) = build(&demo("tags.txt"), &["--metric", "jaccard", "--dim", "16"]);
-    let queries: Vec<String> = lines("tag-queries.txt").into_iter().take(40).collect();
+    let queries: Vec<String> = demo_lines("tag-queries.txt").into_iter().take(40).collect();
     for a in query(&index, &queries, &["-k", "5", "--exact"]) {
         let want = k_smallest(&entries, 5, |s| jaccard(&a.query, s));
         assert_close(&distances(&a), &want, &a.query);
@@ -277,7 +254,7 @@ fn jaccard_exact_answers_match_a_set_brute_force() {
 
 /// The buoy readings as the index stores them: f32, then compared in f64.
 fn buoy_rows(name: &str, header: bool) -> Vec<(String, Vec<f64>)> {
-    lines(name)
+    demo_lines(name)
         .into_iter()
         .skip(usize::from(header))
         .map(|l| {
@@ -386,7 +363,7 @@ fn graph_exact_answers_match_petgraph_dijkstra() {
     // Reference: petgraph's Dijkstra on the same edge list, parsed here.
     let mut g = petgraph::graph::UnGraph::<(), f64>::new_undirected();
     let mut node: HashMap<String, petgraph::graph::NodeIndex> = HashMap::new();
-    for l in lines("ferries.txt") {
+    for l in demo_lines("ferries.txt") {
         if l.starts_with('#') || l.trim().is_empty() {
             continue;
         }
@@ -396,7 +373,10 @@ fn graph_exact_answers_match_petgraph_dijkstra() {
         g.add_edge(a, b, f[2].parse().unwrap());
     }
     let (_d, index) = build(&demo("ferries.txt"), &["--metric", "graph", "--dim", "16"]);
-    let stops: Vec<String> = lines("ferry-queries.txt").into_iter().take(30).collect();
+    let stops: Vec<String> = demo_lines("ferry-queries.txt")
+        .into_iter()
+        .take(30)
+        .collect();
     for a in query(&index, &stops, &["-k", "6", "--exact"]) {
         let d = petgraph::algo::dijkstra(&g, node[&a.query], None, |e| *e.weight());
         let mut all: Vec<f64> = d.values().copied().collect();
@@ -434,10 +414,10 @@ fn graph_input_refuses_negative_weights_with_the_line() {
 fn external_program_answers_like_strsim_levenshtein() {
     // Reference: strsim::levenshtein; examples/metric_server.py computes Levenshtein.
     let dir = tempfile::tempdir().unwrap();
-    let names: Vec<String> = lines("names.txt").into_iter().take(200).collect();
+    let names: Vec<String> = demo_lines("names.txt").into_iter().take(200).collect();
     let input = dir.path().join("names.txt");
     std::fs::write(&input, names.join("\n")).unwrap();
-    let server = Path::new(env!("CARGO_MANIFEST_DIR")).join("examples/metric_server.py");
+    let server = repo_file("examples/metric_server.py");
     let (_d, index) = build(
         &input,
         &[
@@ -450,7 +430,7 @@ fn external_program_answers_like_strsim_levenshtein() {
             server.to_str().unwrap(),
         ],
     );
-    let queries: Vec<String> = lines("lookups.txt").into_iter().take(10).collect();
+    let queries: Vec<String> = demo_lines("lookups.txt").into_iter().take(10).collect();
     // Every item is a candidate: the answers are exact.
     for a in query(&index, &queries, &["-k", "3", "--candidates", "200"]) {
         let want = k_smallest(&names, 3, |s| strsim::levenshtein(&a.query, s) as f64);
@@ -540,7 +520,7 @@ fn check_metric_catches_a_planted_triangle_violation() {
 #[test]
 fn eval_and_sweep_work_on_other_metrics() {
     let (dir, index) = build(&demo("tags.txt"), &["--metric", "jaccard", "--dim", "16"]);
-    let q = dir.path().join("q.txt");
+    let q = dir.path("q.txt");
     std::fs::copy(demo("tag-queries.txt"), &q).unwrap();
     let out = waymark()
         .arg("eval")
@@ -556,7 +536,7 @@ fn eval_and_sweep_work_on_other_metrics() {
     let v: serde_json::Value = serde_json::from_slice(&out).unwrap();
     // Every item a candidate: recall is exactly 1.
     assert_eq!(v["recall"][0]["recall"], 1.0, "{v}");
-    let bq = dir.path().join("buoy-queries.csv");
+    let bq = dir.path("buoy-queries.csv");
     std::fs::copy(demo("buoy-queries.csv"), &bq).unwrap();
     waymark()
         .arg("sweep")
@@ -582,10 +562,10 @@ fn eval_and_sweep_work_on_other_metrics() {
         ])
         .arg(&bq)
         .arg("--out")
-        .arg(dir.path().join("sweep"))
+        .arg(dir.path("sweep"))
         .assert()
         .success();
-    let csv = std::fs::read_to_string(dir.path().join("sweep/sweep.csv")).unwrap();
+    let csv = std::fs::read_to_string(dir.path("sweep/sweep.csv")).unwrap();
     assert_eq!(csv.lines().count(), 3, "{csv}");
 }
 

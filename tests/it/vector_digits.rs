@@ -1,11 +1,11 @@
 //! Vector k-NN on an open dataset: scikit-learn's bundled handwritten digits (1,797 images of
 //! 8×8 pixels, values 0–16; `sklearn.datasets.load_digits`, shipped inside the scikit-learn
-//! package on PyPI). The ground truth comes from NumPy, outside the project; .ci/run installs
-//! scikit-learn with pip.
+//! package on PyPI). The ground truth comes from NumPy, outside the project;
+//! scripts/test-data.sh installs scikit-learn (and NumPy with it) with pip when it is missing.
 
 use std::path::Path;
 
-use assert_cmd::Command;
+use crate::util::{json_lines, waymark};
 
 /// Writes items.csv (first 1,597 images), queries.csv (the other 200) and truth.json (per
 /// query the 10 smallest L2 distances by NumPy) into `dir`.
@@ -33,8 +33,8 @@ fn export(dir: &Path) {
         .expect("python3 runs");
     assert!(
         out.status.success(),
-        "exporting the digits needs NumPy and scikit-learn (`pip install scikit-learn`; \
-         .ci/run installs it): {}",
+        "exporting the digits needs NumPy and scikit-learn (scripts/test-data.sh installs \
+         them with pip): {}",
         String::from_utf8_lossy(&out.stderr)
     );
 }
@@ -44,8 +44,7 @@ fn digits_exact_answers_match_numpy_and_recall_meets_the_target_at_d16() {
     let dir = tempfile::tempdir().unwrap();
     export(dir.path());
     let index = dir.path().join("digits.wmk");
-    Command::cargo_bin("waymark")
-        .unwrap()
+    waymark()
         .arg("build")
         .arg(dir.path().join("items.csv"))
         .arg("-o")
@@ -55,8 +54,7 @@ fn digits_exact_answers_match_numpy_and_recall_meets_the_target_at_d16() {
         .success();
     let truth: Vec<Vec<f64>> =
         serde_json::from_slice(&std::fs::read(dir.path().join("truth.json")).unwrap()).unwrap();
-    let out = Command::cargo_bin("waymark")
-        .unwrap()
+    let out = waymark()
         .arg("query")
         .arg(&index)
         .args(["-k", "10", "--exact", "--queries"])
@@ -66,11 +64,7 @@ fn digits_exact_answers_match_numpy_and_recall_meets_the_target_at_d16() {
         .get_output()
         .stdout
         .clone();
-    let answers: Vec<serde_json::Value> = String::from_utf8(out)
-        .unwrap()
-        .lines()
-        .map(|l| serde_json::from_str(l).unwrap())
-        .collect();
+    let answers: Vec<serde_json::Value> = json_lines(&out);
     assert_eq!(answers.len(), truth.len());
     for (a, t) in answers.iter().zip(&truth) {
         let got: Vec<f64> = a["neighbors"]
@@ -86,8 +80,7 @@ fn digits_exact_answers_match_numpy_and_recall_meets_the_target_at_d16() {
     }
     // Approximate answers: threshold recall@10 ≥ 0.95 (the target for strings) at d = 16,
     // re-ranking 100 candidates (6.3% of the items).
-    let out = Command::cargo_bin("waymark")
-        .unwrap()
+    let out = waymark()
         .arg("eval")
         .arg(&index)
         .arg("--queries")

@@ -6,10 +6,15 @@ use std::time::Duration;
 
 use waymark::metric::{ExternalMetric, Metric, MetricError, PreparedQuery};
 
+use crate::util::repo_file;
+
 fn server(args: &[&str]) -> Vec<String> {
     let mut v = vec![
         "python3".to_string(),
-        concat!(env!("CARGO_MANIFEST_DIR"), "/examples/metric_server.py").to_string(),
+        repo_file("examples/metric_server.py")
+            .to_str()
+            .expect("a UTF-8 path")
+            .to_string(),
     ];
     v.extend(args.iter().map(|s| s.to_string()));
     v

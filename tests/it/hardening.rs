@@ -4,11 +4,10 @@
 //! Each test named `bad_input_*` is one row of the table in DEVELOPERS.md ("Bad input").
 
 use std::io::Read;
-use std::path::{Path, PathBuf};
+use std::path::Path;
 use std::process::Stdio;
 use std::time::{Duration, Instant};
 
-use assert_cmd::Command;
 use predicates::prelude::*;
 use predicates::str::contains;
 use rand::{Rng, SeedableRng};
@@ -16,62 +15,12 @@ use rand_chacha::ChaCha8Rng;
 use waymark::index::Index;
 use waymark::search::{CandidateSource, SearchParams, Searcher};
 
-struct Dir {
-    dir: tempfile::TempDir,
-}
-
-impl Dir {
-    fn new() -> Dir {
-        Dir {
-            dir: tempfile::tempdir().expect("temp dir"),
-        }
-    }
-    fn path(&self, name: &str) -> PathBuf {
-        self.dir.path().join(name)
-    }
-    fn write(&self, name: &str, bytes: &[u8]) -> PathBuf {
-        let p = self.path(name);
-        std::fs::write(&p, bytes).expect("write");
-        p
-    }
-    fn cmd(&self) -> Command {
-        let mut c = Command::cargo_bin("waymark").expect("binary");
-        c.current_dir(self.dir.path());
-        c
-    }
-    fn build(&self, input: &Path, out: &str, extra: &[&str]) -> PathBuf {
-        let out = self.path(out);
-        self.cmd()
-            .arg("build")
-            .arg(input)
-            .arg("-o")
-            .arg(&out)
-            .args(extra)
-            .arg("-q")
-            .assert()
-            .success();
-        out
-    }
-    /// Names in the folder other than the ones given: leftovers of a failed build.
-    fn others(&self, keep: &[&str]) -> Vec<String> {
-        std::fs::read_dir(self.dir.path())
-            .expect("list")
-            .filter_map(|e| e.ok())
-            .map(|e| e.file_name().to_string_lossy().into_owned())
-            .filter(|n| !keep.contains(&n.as_str()))
-            .collect()
-    }
-}
+use crate::util::{
+    entry, first_words, fix_checksums, section, u32_at, waymark_path, Dir, ENTRIES, ENTRY, HEADER,
+};
 
 fn stdout_of(out: &std::process::Output) -> String {
     String::from_utf8(out.stdout.clone()).expect("utf-8 output")
-}
-
-/// The first `n` words of Debian's wamerican list (/usr/share/dict/american-english).
-fn words(n: usize) -> Vec<String> {
-    let text = std::fs::read_to_string("/usr/share/dict/american-english")
-        .expect("Debian's wamerican word list (apt-get install wamerican; .ci/run does)");
-    text.lines().take(n).map(str::to_string).collect()
 }
 
 // ---------------------------------------------------------------------------------------
@@ -95,7 +44,7 @@ fn bad_input_empty_input_is_refused_and_writes_nothing() {
 fn bad_input_a_single_item_is_its_own_nearest_neighbour() {
     let d = Dir::new();
     let one = d.write("one.txt", b"Skerry Light\n");
-    let idx = d.build(&one, "one.wmk", &[]);
+    let idx = d.build(&one, "one.wmk", &["-q"]);
     let out = d
         .cmd()
         .arg("query")
@@ -141,7 +90,7 @@ fn bad_input_a_one_megabyte_line_is_indexed_and_found() {
     input.push_str(&long);
     input.push('\n');
     let path = d.write("long.txt", input.as_bytes());
-    let idx = d.build(&path, "long.wmk", &["--dim", "3"]);
+    let idx = d.build(&path, "long.wmk", &["--dim", "3", "-q"]);
     let mut query = long.clone();
     query.replace_range(10..11, "T");
     query.push('\n');
@@ -201,7 +150,7 @@ fn bad_input_mixed_line_endings_and_a_bom_do_not_reach_the_items() {
         "mixed.txt",
         b"\xef\xbb\xbfSkerry Light\r\nSalt Store\nNorth Mole\r\n",
     );
-    let idx = d.build(&path, "m.wmk", &["--dim", "2"]);
+    let idx = d.build(&path, "m.wmk", &["--dim", "2", "-q"]);
     let out = d
         .cmd()
         .arg("query")
@@ -223,7 +172,7 @@ fn bad_input_mixed_line_endings_and_a_bom_do_not_reach_the_items() {
 fn bad_input_k_larger_than_n_returns_every_item() {
     let d = Dir::new();
     let path = d.write("few.txt", b"Ness\nNeap\nNook\n");
-    let idx = d.build(&path, "few.wmk", &["--dim", "2"]);
+    let idx = d.build(&path, "few.wmk", &["--dim", "2", "-q"]);
     let out = d
         .cmd()
         .arg("query")
@@ -291,7 +240,7 @@ fn bad_input_unknown_option_or_value_is_a_usage_error() {
 fn bad_input_an_empty_query_is_answered_as_the_empty_string() {
     let d = Dir::new();
     let path = d.write("few.txt", b"Ness\nNeap\nHo\n");
-    let idx = d.build(&path, "few.wmk", &["--dim", "2"]);
+    let idx = d.build(&path, "few.wmk", &["--dim", "2", "-q"]);
     let out = d
         .cmd()
         .arg("query")
@@ -309,7 +258,7 @@ fn bad_input_an_empty_query_is_answered_as_the_empty_string() {
 fn bad_input_a_query_longer_than_every_item() {
     let d = Dir::new();
     let path = d.write("few.txt", b"Ness\nNeap\nHo\n");
-    let idx = d.build(&path, "few.wmk", &["--dim", "2"]);
+    let idx = d.build(&path, "few.wmk", &["--dim", "2", "-q"]);
     let query = format!("Ness{}\n", "x".repeat(10_000));
     let out = d
         .cmd()
@@ -389,11 +338,11 @@ fn bad_input_a_full_disk_fails_cleanly_and_keeps_the_old_index() {
     // full disk does; the shell's `ulimit -f` counts 512-byte blocks here (common practice).
     let d = Dir::new();
     let small = d.write("small.txt", b"Ness\nNeap\n");
-    let idx = d.build(&small, "x.wmk", &["--dim", "2"]);
+    let idx = d.build(&small, "x.wmk", &["--dim", "2", "-q"]);
     let before = std::fs::read(&idx).unwrap();
-    let big: String = words(20_000).join("\n");
+    let big: String = first_words(20_000).join("\n");
     let big = d.write("big.txt", big.as_bytes());
-    let bin = assert_cmd::cargo::cargo_bin("waymark");
+    let bin = waymark_path();
     let out = std::process::Command::new("sh")
         .current_dir(d.dir.path())
         .arg("-c")
@@ -420,46 +369,6 @@ fn bad_input_a_full_disk_fails_cleanly_and_keeps_the_old_index() {
 
 // ---------------------------------------------------------------------------------------
 // Damaged and crafted index files.
-
-const HEADER: usize = 64;
-const ENTRY: usize = 32;
-const ENTRIES: usize = 16;
-
-/// Recomputes every checksum of a (mutated) index, as someone crafting a file would: the
-/// sections' CRC-32s in the table, the table's and the header's (layout in DEVELOPERS.md).
-fn fix_checksums(bytes: &mut [u8]) {
-    if bytes.len() < HEADER + ENTRIES * ENTRY {
-        return;
-    }
-    let count = u32::from_le_bytes(bytes[12..16].try_into().unwrap()) as usize;
-    for e in 0..count.min(ENTRIES) {
-        let at = HEADER + e * ENTRY;
-        let off = u64::from_le_bytes(bytes[at + 8..at + 16].try_into().unwrap()) as usize;
-        let len = u64::from_le_bytes(bytes[at + 16..at + 24].try_into().unwrap()) as usize;
-        if let Some(s) = off.checked_add(len).and_then(|end| bytes.get(off..end)) {
-            let crc = crc32fast::hash(s);
-            bytes[at + 24..at + 28].copy_from_slice(&crc.to_le_bytes());
-        }
-    }
-    let table = crc32fast::hash(&bytes[HEADER..HEADER + ENTRIES * ENTRY]);
-    bytes[24..28].copy_from_slice(&table.to_le_bytes());
-    bytes[28..32].copy_from_slice(&[0; 4]);
-    let header = crc32fast::hash(&bytes[..HEADER]);
-    bytes[28..32].copy_from_slice(&header.to_le_bytes());
-}
-
-/// Byte range of the section of `kind` (1 = meta, 10 = kd-tree; see DEVELOPERS.md).
-fn section(bytes: &[u8], kind: u32) -> std::ops::Range<usize> {
-    for e in 0..ENTRIES {
-        let at = HEADER + e * ENTRY;
-        if u32::from_le_bytes(bytes[at..at + 4].try_into().unwrap()) == kind {
-            let off = u64::from_le_bytes(bytes[at + 8..at + 16].try_into().unwrap()) as usize;
-            let len = u64::from_le_bytes(bytes[at + 16..at + 24].try_into().unwrap()) as usize;
-            return off..off + len;
-        }
-    }
-    panic!("no section {kind}");
-}
 
 /// Opens a (possibly damaged) file and runs queries on it; Err means it was refused.
 ///
@@ -503,9 +412,9 @@ fn open_and_query(path: &Path, tree: bool) -> Result<usize, String> {
 #[test]
 fn ten_thousand_damaged_or_crafted_files_are_refused_or_answered_without_a_panic() {
     let d = Dir::new();
-    let list = words(300).join("\n");
+    let list = first_words(300).join("\n");
     let input = d.write("words.txt", list.as_bytes());
-    let idx = d.build(&input, "w.wmk", &["--dim", "8", "--seed", "5"]);
+    let idx = d.build(&input, "w.wmk", &["--dim", "8", "--seed", "5", "-q"]);
     let good = std::fs::read(&idx).unwrap();
     let meta = section(&good, 1);
     let probe = d.path("probe.wmk");
@@ -598,10 +507,6 @@ struct TreeMap {
     arena: usize,
 }
 
-fn u32_at(b: &[u8], at: usize) -> u32 {
-    u32::from_le_bytes(b[at..at + 4].try_into().unwrap())
-}
-
 fn put_u32(b: &mut [u8], at: usize, v: u32) {
     b[at..at + 4].copy_from_slice(&v.to_le_bytes());
 }
@@ -679,10 +584,10 @@ fn assert_refused(d: &Dir, section: &str, source: &str, what: &str, message: &st
 #[test]
 fn bad_input_crafted_kd_tree_sections_are_refused_by_query_and_verify() {
     let d = Dir::new();
-    let list = words(3_000).join("\n");
+    let list = first_words(3_000).join("\n");
     let input = d.write("words.txt", list.as_bytes());
     // 6 coordinates in a tree compiled for 8: two padding coordinates that must stay zero.
-    let idx = d.build(&input, "w.wmk", &["--dim", "6", "--seed", "3"]);
+    let idx = d.build(&input, "w.wmk", &["--dim", "6", "--seed", "3", "-q"]);
     let good = std::fs::read(&idx).unwrap();
     let sec = section(&good, 10);
     let tree = good[sec.clone()].to_vec();
@@ -842,14 +747,6 @@ fn bad_input_crafted_kd_tree_sections_are_refused_by_query_and_verify() {
         .stdout(contains("\"neighbors\""));
 }
 
-/// Offset of the section-table entry of `kind` (its length is at +16, its CRC at +24).
-fn entry(bytes: &[u8], kind: u32) -> usize {
-    (0..ENTRIES)
-        .map(|e| HEADER + e * ENTRY)
-        .find(|&at| u32_at(bytes, at) == kind)
-        .unwrap_or_else(|| panic!("no section {kind}"))
-}
-
 /// Byte positions inside a cells section, from the layout at the top of `index/cells.rs`:
 /// a 64-byte head (K, stride, zeros), then centres, starts, members and rows, each on a
 /// 64-byte boundary of the section.
@@ -880,9 +777,9 @@ fn map_cells(cells: &[u8], n: usize, stride: usize) -> CellsMap {
 #[test]
 fn bad_input_crafted_cells_sections_are_refused_by_query_and_verify() {
     let d = Dir::new();
-    let list = words(400).join("\n");
+    let list = first_words(400).join("\n");
     let input = d.write("words.txt", list.as_bytes());
-    let idx = d.build(&input, "w.wmk", &["--dim", "8", "--seed", "4"]);
+    let idx = d.build(&input, "w.wmk", &["--dim", "8", "--seed", "4", "-q"]);
     let (n, stride) = {
         let ix = Index::open(&idx).unwrap();
         (ix.len(), ix.stride())
@@ -1085,12 +982,12 @@ fn query_tsv(d: &Dir, idx: &Path, queries: &str) -> String {
 #[test]
 fn a_build_killed_midway_leaves_the_old_index_intact() {
     let d = Dir::new();
-    let small = d.write("small.txt", words(2_000).join("\n").as_bytes());
-    let idx = d.build(&small, "x.wmk", &["--dim", "8"]);
+    let small = d.write("small.txt", first_words(2_000).join("\n").as_bytes());
+    let idx = d.build(&small, "x.wmk", &["--dim", "8", "-q"]);
     let before = std::fs::read(&idx).unwrap();
     let answers = query_tsv(&d, &idx, "abandon\nZurich\n");
-    let big = d.write("big.txt", words(200_000).join("\n").as_bytes());
-    let bin = assert_cmd::cargo::cargo_bin("waymark");
+    let big = d.write("big.txt", first_words(200_000).join("\n").as_bytes());
+    let bin = waymark_path();
     let mut killed_during_write = false;
     // Kill at several moments; at least one of them must catch the temp file on disk.
     for delay_ms in [5u64, 40, 120, 250] {
@@ -1130,7 +1027,7 @@ fn a_build_killed_midway_leaves_the_old_index_intact() {
         "no kill landed while the temp file existed"
     );
     // A build that runs to the end removes what the killed ones left.
-    d.build(&small, "x.wmk", &["--dim", "8"]);
+    d.build(&small, "x.wmk", &["--dim", "8", "-q"]);
     assert_eq!(
         d.others(&["small.txt", "big.txt", "x.wmk"]),
         Vec::<String>::new()
@@ -1140,8 +1037,8 @@ fn a_build_killed_midway_leaves_the_old_index_intact() {
 #[test]
 fn a_build_removes_temp_files_of_dead_builds_of_its_destination_only() {
     let d = Dir::new();
-    let input = d.write("a.txt", words(500).join("\n").as_bytes());
-    d.build(&input, "x.wmk", &["--dim", "4"]);
+    let input = d.write("a.txt", first_words(500).join("\n").as_bytes());
+    d.build(&input, "x.wmk", &["--dim", "4", "-q"]);
     // Left by a killed writer: no process holds its lock.
     let dead = [
         ".x.wmk.Ab3xQ9.waymark-partial",
@@ -1164,7 +1061,7 @@ fn a_build_removes_temp_files_of_dead_builds_of_its_destination_only() {
     let lock = std::fs::File::open(&live).unwrap();
     lock.lock().unwrap();
 
-    d.build(&input, "x.wmk", &["--dim", "4"]);
+    d.build(&input, "x.wmk", &["--dim", "4", "-q"]);
     for name in dead {
         assert!(!d.path(name).exists(), "{name} removed");
     }
@@ -1180,7 +1077,7 @@ fn a_build_removes_temp_files_of_dead_builds_of_its_destination_only() {
     );
     // Once its writer is gone, the next build removes it too.
     drop(lock);
-    d.build(&input, "x.wmk", &["--dim", "4"]);
+    d.build(&input, "x.wmk", &["--dim", "4", "-q"]);
     assert!(!live.exists());
     d.cmd()
         .args(["query", "x.wmk"])
@@ -1192,13 +1089,13 @@ fn a_build_removes_temp_files_of_dead_builds_of_its_destination_only() {
 #[test]
 fn readers_see_the_old_or_the_new_index_whole_while_it_is_replaced() {
     let d = Dir::new();
-    let all = words(6_000);
+    let all = first_words(6_000);
     let a = d.write("a.txt", all[..3_000].join("\n").as_bytes());
     let b = d.write("b.txt", all[3_000..].join("\n").as_bytes());
-    let idx = d.build(&a, "x.wmk", &["--dim", "8"]);
+    let idx = d.build(&a, "x.wmk", &["--dim", "8", "-q"]);
     let queries = "abandon\nZurich\nmeadow\n";
     let from_a = query_tsv(&d, &idx, queries);
-    let ib = d.build(&b, "b.wmk", &["--dim", "8"]);
+    let ib = d.build(&b, "b.wmk", &["--dim", "8", "-q"]);
     let from_b = query_tsv(&d, &ib, queries);
     assert_ne!(from_a, from_b);
 
@@ -1217,7 +1114,7 @@ fn readers_see_the_old_or_the_new_index_whole_while_it_is_replaced() {
     let held_before = held_answer(&held);
 
     let stop = std::sync::atomic::AtomicBool::new(false);
-    let bin = assert_cmd::cargo::cargo_bin("waymark");
+    let bin = waymark_path();
     let seen = std::sync::Mutex::new((0usize, 0usize));
     std::thread::scope(|s| {
         for _ in 0..3 {
@@ -1286,7 +1183,7 @@ fn readers_see_the_old_or_the_new_index_whole_while_it_is_replaced() {
 #[test]
 fn bad_input_an_input_too_large_for_memory_is_refused_up_front() {
     let d = Dir::new();
-    let path = d.write("w.txt", words(5_000).join("\n").as_bytes());
+    let path = d.write("w.txt", first_words(5_000).join("\n").as_bytes());
     // The file's text alone is over the budget: refused before reading.
     d.cmd()
         .arg("build")

@@ -1,10 +1,11 @@
 //! Evaluation as the README runs it: recall by hand-worked cases, the ground-truth cache, and
 //! the sweep's output files.
 
-use std::path::Path;
+use std::path::{Path, PathBuf};
 
-use assert_cmd::Command;
 use waymark::eval::{plain_recall, threshold_recall};
+
+use crate::util::{demo_lines, waymark};
 
 #[test]
 fn threshold_recall_by_hand_with_ties_and_duplicates() {
@@ -36,28 +37,18 @@ fn threshold_recall_by_hand_with_ties_and_duplicates() {
     assert_eq!(plain_recall(&[1, 2, 3], &[1, 1, 2]), 2.0 / 3.0);
 }
 
-fn waymark() -> Command {
-    Command::cargo_bin("waymark").expect("binary")
-}
-
 /// The first 3,000 demo names and 60 look-ups, copied into `dir`.
-fn small_demo(dir: &Path) -> (std::path::PathBuf, std::path::PathBuf) {
-    let root = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-data");
-    let names: String = std::fs::read_to_string(root.join("names.txt"))
-        .unwrap()
-        .lines()
-        .take(3000)
-        .map(|l| format!("{l}\n"))
-        .collect();
-    let look: String = std::fs::read_to_string(root.join("lookups.txt"))
-        .unwrap()
-        .lines()
-        .take(60)
-        .map(|l| format!("{l}\n"))
-        .collect();
+fn small_demo(dir: &Path) -> (PathBuf, PathBuf) {
+    let first = |name: &str, n: usize| -> String {
+        demo_lines(name)
+            .into_iter()
+            .take(n)
+            .map(|l| format!("{l}\n"))
+            .collect()
+    };
     let (n, q) = (dir.join("names.txt"), dir.join("lookups.txt"));
-    std::fs::write(&n, names).unwrap();
-    std::fs::write(&q, look).unwrap();
+    std::fs::write(&n, first("names.txt", 3000)).unwrap();
+    std::fs::write(&q, first("lookups.txt", 60)).unwrap();
     (n, q)
 }
 

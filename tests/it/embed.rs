@@ -5,9 +5,10 @@ use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use waymark::embed::{embed_items, embed_one, quantize, EmbedOptions, Embedding, Method, MAX_DIM};
 use waymark::eval::measure_distortion;
-use waymark::index::{build_index, BuildOptions, Index};
-use waymark::ingest::{Corpus, Ids};
+use waymark::index::BuildOptions;
 use waymark::metric::{Levenshtein, Metric, MetricKind, PreparedQuery};
+
+use crate::util::{build_in, corpus};
 
 /// A finite metric given by its distance matrix; item `i` is stored as its index (4 bytes).
 struct Matrix {
@@ -203,30 +204,20 @@ fn words() -> Vec<String> {
 fn stored_coordinates_are_reproduced_from_reference_distances() {
     // The index stores quantised coordinates; a query equal to an item must get the same.
     let items = words();
-    let corpus = Corpus {
-        items: items.clone(),
-        keys: None,
-        ids: Ids::Int((0..items.len() as i64).collect()),
-        blank_skipped: 0,
-        records: items.len(),
-    };
+    let corpus = corpus(&items);
     let dir = tempfile::tempdir().unwrap();
     for method in Method::ALL {
-        let path = dir.path().join(format!("{method}.wmk"));
-        build_index(
+        let index = build_in(
+            dir.path(),
+            &format!("{method}.wmk"),
             &corpus,
-            "test",
             &BuildOptions {
                 method,
                 dim: 12,
                 pool: 16,
                 ..BuildOptions::default()
             },
-            &path,
-            &|_| {},
-        )
-        .unwrap();
-        let index = Index::open(&path).unwrap();
+        );
         let meta = index.meta();
         assert_eq!(meta.embedding.method(), method);
         assert_eq!(index.bound().is_some(), method != Method::FastMap);
