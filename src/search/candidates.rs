@@ -44,9 +44,9 @@ pub struct Scratch {
 }
 
 impl Scratch {
-    /// Empties the scores and the histogram for `n` rows.
+    /// Makes room for the scores of `n` rows (a pass writes every one, so they are not
+    /// cleared) and empties the histogram.
     fn reset(&mut self, n: usize) {
-        self.scores.clear();
         self.scores.resize(n, 0);
         self.hist.clear();
         self.hist.resize(HIST_BINS, 0);
