@@ -1,9 +1,9 @@
 //! JSON Lines input (`serde_json`): one object per line, the items in a string field, the
 //! ids optionally in an integer or string field.
 
-use std::io::{BufRead, BufReader, Read};
+use std::io::Read;
 
-use super::{Builder, IdValue, IngestError, BOM};
+use super::{for_each_line, Builder, IdValue, IngestError};
 
 fn json_type(v: &serde_json::Value) -> &'static str {
     match v {
@@ -21,29 +21,12 @@ pub(super) fn read_jsonl<R: Read>(reader: R, b: &mut Builder<'_>) -> Result<(), 
         return Err(b.options_error("say which JSON field holds the items with --field".into()));
     };
     let id_field = b.opts.id_field.clone();
-    let mut r = BufReader::with_capacity(1 << 16, reader);
-    let mut buf = Vec::new();
-    let mut line = 0u64;
-    loop {
-        buf.clear();
-        let got = r
-            .read_until(b'\n', &mut buf)
-            .map_err(|error| IngestError::Io {
-                source_name: b.name.to_string(),
-                error,
-            })?;
-        if got == 0 {
-            break;
-        }
-        line += 1;
-        let mut bytes = &buf[..];
-        if line == 1 && bytes.starts_with(BOM) {
-            bytes = &bytes[BOM.len()..];
-        }
+    let name = b.name;
+    for_each_line(reader, name, |line, bytes, _| {
         if bytes.iter().all(|c| c.is_ascii_whitespace()) {
             b.records += 1;
             b.blank += 1;
-            continue;
+            return Ok(());
         }
         let v: serde_json::Value = serde_json::from_slice(bytes).map_err(|e| {
             // serde_json counts lines within the one line it was given; report the file's
@@ -98,7 +81,6 @@ pub(super) fn read_jsonl<R: Read>(reader: R, b: &mut Builder<'_>) -> Result<(), 
                 None => return Err(b.record_error(line, format!("id field \"{f}\" is missing"))),
             },
         };
-        b.push(item, id, line)?;
-    }
-    Ok(())
+        b.push(item, id, line)
+    })
 }

@@ -46,6 +46,45 @@ pub use vectors::parse_vector;
 /// The UTF-8 byte-order mark, dropped at the start of an input.
 const BOM: &[u8] = b"\xEF\xBB\xBF";
 
+/// Calls `f(line number, bytes, BOM length)` for every line of `reader` (1-based), without
+/// its line ending (`\n` or `\r\n`) and, on the first line, without a UTF-8 byte-order
+/// mark (whose length is passed so that byte positions can be those of the file).
+fn for_each_line<R: Read>(
+    reader: R,
+    source_name: &str,
+    mut f: impl FnMut(u64, &[u8], usize) -> Result<(), IngestError>,
+) -> Result<(), IngestError> {
+    use std::io::{BufRead, BufReader};
+    let mut r = BufReader::with_capacity(1 << 16, reader);
+    let mut buf = Vec::with_capacity(256);
+    let mut line = 0u64;
+    loop {
+        buf.clear();
+        let got = r
+            .read_until(b'\n', &mut buf)
+            .map_err(|error| IngestError::Io {
+                source_name: source_name.to_string(),
+                error,
+            })?;
+        if got == 0 {
+            return Ok(());
+        }
+        line += 1;
+        if buf.last() == Some(&b'\n') {
+            buf.pop();
+        }
+        if buf.last() == Some(&b'\r') {
+            buf.pop();
+        }
+        let bom = if line == 1 && buf.starts_with(BOM) {
+            BOM.len()
+        } else {
+            0
+        };
+        f(line, &buf[bom..], bom)?;
+    }
+}
+
 /// The layout of an input file.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub enum InputFormat {
