@@ -12,6 +12,7 @@ mod eval_scan;
 mod exact;
 mod hardening;
 mod ingest;
+mod layout;
 mod library;
 mod metric_cli;
 mod metric_damerau;
