@@ -1056,10 +1056,31 @@ fn a_build_removes_temp_files_of_dead_builds_of_its_destination_only() {
         d.write(name, &[0u8; 4096]);
     }
     std::fs::create_dir(d.path(".x.wmk.Dir123.waymark-partial")).unwrap();
-    // A live writer: this process holds the lock, as a concurrent build would.
+    // A live writer: another process holds the lock, as a concurrent build would. (Held in
+    // this process, the lock could outlive `drop` in a child that another test forks at that
+    // moment, until the child's exec closes it.)
     let live = d.write(".x.wmk.LiVe42.waymark-partial", &[0u8; 4096]);
-    let lock = std::fs::File::open(&live).unwrap();
-    lock.lock().unwrap();
+    let mut holder = std::process::Command::new("python3")
+        .args([
+            "-c",
+            "import fcntl, sys\n\
+             f = open(sys.argv[1])\n\
+             fcntl.flock(f, fcntl.LOCK_EX)\n\
+             print('locked', flush=True)\n\
+             sys.stdin.read()",
+        ])
+        .arg(&live)
+        .stdin(std::process::Stdio::piped())
+        .stdout(std::process::Stdio::piped())
+        .spawn()
+        .expect("python3 runs (scripts/test-data.sh needs it too)");
+    let mut said = String::new();
+    std::io::BufRead::read_line(
+        &mut std::io::BufReader::new(holder.stdout.take().unwrap()),
+        &mut said,
+    )
+    .unwrap();
+    assert_eq!(said.trim(), "locked");
 
     d.build(&input, "x.wmk", &["--dim", "4", "-q"]);
     for name in dead {
@@ -1076,7 +1097,8 @@ fn a_build_removes_temp_files_of_dead_builds_of_its_destination_only() {
         "and untouched"
     );
     // Once its writer is gone, the next build removes it too.
-    drop(lock);
+    drop(holder.stdin.take());
+    assert!(holder.wait().unwrap().success());
     d.build(&input, "x.wmk", &["--dim", "4", "-q"]);
     assert!(!live.exists());
     d.cmd()
