@@ -143,36 +143,6 @@ pub fn load_input(
             }
         )));
     }
-    let source = path.display().to_string();
-    if let Some(norm) = vector {
-        let v = vectors::read_vectors(
-            path,
-            &vectors::VectorOptions {
-                format: None,
-                header: metric.header,
-            },
-        )?;
-        let n = v.items.len();
-        let dim = u32::try_from(v.dim).map_err(|_| usage(format!("{source}: too many columns")))?;
-        let corpus = Corpus::new(v.rows, Some(v.items), Ids::Int((0..n as i64).collect()))?;
-        return Ok(LoadedInput {
-            corpus,
-            spec: MetricSpec::Vector { norm, dim },
-            graph: None,
-        });
-    }
-    if metric.kind == MetricKind::Graph {
-        let g = Graph::from_path(path)?;
-        let names: Vec<String> = (0..g.len() as u32)
-            .map(|v| String::from_utf8_lossy(g.name(v)).into_owned())
-            .collect();
-        let corpus = Corpus::new(names.clone(), None, Ids::Text(names))?;
-        return Ok(LoadedInput {
-            corpus,
-            spec: MetricSpec::Graph,
-            graph: Some(g),
-        });
-    }
     let spec = match metric.kind {
         MetricKind::Levenshtein => MetricSpec::Levenshtein,
         MetricKind::Damerau => MetricSpec::Damerau,
@@ -222,17 +192,51 @@ pub fn load_input(
                     .into(),
             ))
         }
-        MetricKind::L1
-        | MetricKind::L2
-        | MetricKind::Linf
-        | MetricKind::Angular
-        | MetricKind::Graph => unreachable!("vector and graph inputs are read above"),
+        MetricKind::L1 => return load_vectors(path, Norm::L1, metric.header),
+        MetricKind::L2 => return load_vectors(path, Norm::L2, metric.header),
+        MetricKind::Linf => return load_vectors(path, Norm::Linf, metric.header),
+        MetricKind::Angular => return load_vectors(path, Norm::Angular, metric.header),
+        MetricKind::Graph => return load_graph(path),
     };
     let corpus = read_corpus(path, ingest)?;
     Ok(LoadedInput {
         corpus,
         spec,
         graph: None,
+    })
+}
+
+/// Reads one vector per line (or a `.npy` file) as the items of a vector metric.
+fn load_vectors(path: &Path, norm: Norm, header: bool) -> Result<LoadedInput> {
+    let v = vectors::read_vectors(
+        path,
+        &vectors::VectorOptions {
+            format: None,
+            header,
+        },
+    )?;
+    let n = v.items.len();
+    let dim = u32::try_from(v.dim)
+        .map_err(|_| Error::Usage(format!("{}: too many columns", path.display())))?;
+    let corpus = Corpus::new(v.rows, Some(v.items), Ids::Int((0..n as i64).collect()))?;
+    Ok(LoadedInput {
+        corpus,
+        spec: MetricSpec::Vector { norm, dim },
+        graph: None,
+    })
+}
+
+/// Reads an edge list; its nodes are the items (and their ids).
+fn load_graph(path: &Path) -> Result<LoadedInput> {
+    let g = Graph::from_path(path)?;
+    let names: Vec<String> = (0..g.len() as u32)
+        .map(|v| String::from_utf8_lossy(g.name(v)).into_owned())
+        .collect();
+    let corpus = Corpus::new(names.clone(), None, Ids::Text(names))?;
+    Ok(LoadedInput {
+        corpus,
+        spec: MetricSpec::Graph,
+        graph: Some(g),
     })
 }
 
