@@ -25,10 +25,12 @@ pub fn distance_json(d: f64) -> serde_json::Value {
     }
 }
 
-/// Writes one query's answer as a JSON object on one line.
+/// Writes one query's answer as a JSON object on one line; `line` is the query's 1-based
+/// line in its input.
 pub fn write_json(
     out: &mut impl Write,
     index: &Index,
+    line: usize,
     query: &str,
     found: &Found,
     stats: bool,
@@ -44,7 +46,7 @@ pub fn write_json(
             })
         })
         .collect();
-    let mut obj = serde_json::json!({ "query": query, "neighbors": neighbors });
+    let mut obj = serde_json::json!({ "line": line, "query": query, "neighbors": neighbors });
     if stats {
         obj["distances"] = found.distances.into();
         obj["pruned"] = found.pruned.into();
@@ -58,6 +60,37 @@ pub fn write_json(
     }
     serde_json::to_writer(&mut *out, &obj)?;
     out.write_all(b"\n")?;
+    Ok(())
+}
+
+/// Writes a query that could not be answered as a JSON object on one line:
+/// `{"line": N, "query": "...", "error": "..."}`.
+pub fn write_json_error(
+    out: &mut impl Write,
+    line: usize,
+    query: &str,
+    error: &str,
+) -> anyhow::Result<()> {
+    let obj = serde_json::json!({ "line": line, "query": query, "error": error });
+    serde_json::to_writer(&mut *out, &obj)?;
+    out.write_all(b"\n")?;
+    Ok(())
+}
+
+/// Writes a query that could not be answered as one TSV line: query, the word `error` where
+/// an answer has its rank, the query's line, the message.
+pub fn write_tsv_error(
+    out: &mut impl Write,
+    line: usize,
+    query: &str,
+    error: &str,
+) -> anyhow::Result<()> {
+    writeln!(
+        out,
+        "{}\terror\t{line}\t{}",
+        tsv_field(query),
+        tsv_field(error)
+    )?;
     Ok(())
 }
 

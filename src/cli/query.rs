@@ -1,17 +1,29 @@
 //! `waymark query`: answer queries from stdin or a file, in blocks, in input order; and the
 //! reading of queries files shared with `eval` and `sweep`.
+//!
+//! Queries are answered in blocks of up to [`BLOCK`] lines (answered in parallel). When the
+//! input can wait on its writer (a pipe or a terminal, not a regular file), a block is also
+//! answered as soon as no whole line is left in the read buffer, before the next read, which
+//! may block: a script that writes one line and waits gets its answer, and a full pipe still
+//! gives blocks as large as its reads.
 
-use std::io::{BufRead, BufWriter, Write};
+use std::io::{BufRead, BufReader, BufWriter, Read, Write};
 use std::path::Path;
 use std::time::Instant;
 
 use anyhow::Context;
 
 use super::args::{OutFormat, QueryArgs};
-use super::output::{write_json, write_tsv};
+use super::output::{write_json, write_json_error, write_tsv, write_tsv_error};
 use crate::error::Error;
 use crate::index::Index;
 use crate::search::{Request, SearchParams, Searcher};
+
+/// Largest number of queries answered together.
+const BLOCK: usize = 1024;
+
+/// Size of the read buffer (a pipe gives at most its own size, 64 KiB on Linux, per read).
+const READ_BUFFER: usize = 256 * 1024;
 
 pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
     let index = Index::open(&a.index)?;
@@ -33,59 +45,97 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
     };
     let searcher = Searcher::new(&index);
     searcher.check(&request)?;
-    let (reader, name): (Box<dyn BufRead>, String) = match &a.queries {
-        Some(p) => (
-            Box::new(std::io::BufReader::new(std::fs::File::open(p).map_err(
-                |source| Error::Io {
-                    path: p.clone(),
-                    source,
-                },
-            )?)),
-            p.display().to_string(),
-        ),
-        None => (Box::new(std::io::stdin().lock()), "<stdin>".to_string()),
+    let mut lines = match &a.queries {
+        Some(p) => QueryLines::open(p)?,
+        None => QueryLines::stdin(),
     };
     let stdout = std::io::stdout();
     let mut out = BufWriter::new(stdout.lock());
-    let mut lines = QueryLines {
-        reader,
-        line: 0,
-        name,
-    };
-    const BLOCK: usize = 1024;
     let t0 = Instant::now();
-    let (mut answered, mut distances, mut exact_hits) = (0usize, 0usize, 0usize);
-    loop {
-        let block = lines.next_block(BLOCK)?;
-        if block.is_empty() {
-            break;
+    let (mut answered, mut distances, mut exact_hits, mut refused) = (0usize, 0, 0, 0);
+    let mut end = false;
+    while !end {
+        // Lines of this block: the good ones' texts go to the searcher together.
+        let mut entries: Vec<Entry> = Vec::new();
+        let mut texts: Vec<String> = Vec::new();
+        while entries.len() < BLOCK {
+            if lines.may_wait && !entries.is_empty() && !lines.line_waiting() {
+                break;
+            }
+            let Some((line, bytes)) = lines.next_raw()? else {
+                end = true;
+                break;
+            };
+            match decode(bytes) {
+                Ok(text) => {
+                    texts.push(text);
+                    entries.push(Entry::Good(line));
+                }
+                Err((text, e)) => entries.push(Entry::Bad(line, text, e)),
+            }
         }
-        let answers = searcher.answer_many(&block, &request);
-        let first_line = lines.line + 1 - block.len();
-        for (j, (q, ans)) in block.iter().zip(answers).enumerate() {
-            let found = ans.map_err(|e| at_query_line(e, &lines.name, first_line + j))?;
-            answered += 1;
-            distances += found.distances;
-            exact_hits += usize::from(found.neighbors.first().is_some_and(|n| n.distance == 0.0));
-            match a.format {
-                OutFormat::Json => write_json(&mut out, &index, q, &found, a.stats)?,
-                OutFormat::Tsv => write_tsv(&mut out, &index, q, &found)?,
+        let mut answers = searcher.answer_many(&texts, &request).into_iter();
+        let mut texts = texts.into_iter();
+        for entry in entries {
+            let (line, query, result) = match entry {
+                Entry::Good(line) => {
+                    let query = texts.next().expect("one text per good line");
+                    let result = answers.next().expect("one answer per query");
+                    (line, query, result)
+                }
+                Entry::Bad(line, text, e) => (line, text, Err(e)),
+            };
+            match result {
+                Ok(found) => {
+                    answered += 1;
+                    distances += found.distances;
+                    exact_hits +=
+                        usize::from(found.neighbors.first().is_some_and(|n| n.distance == 0.0));
+                    match a.format {
+                        OutFormat::Json => {
+                            write_json(&mut out, &index, line, &query, &found, a.stats)?
+                        }
+                        OutFormat::Tsv => write_tsv(&mut out, &index, &query, &found)?,
+                    }
+                }
+                Err(Error::InvalidQuery(m) | Error::Usage(m)) if a.keep_going => {
+                    refused += 1;
+                    match a.format {
+                        OutFormat::Json => write_json_error(&mut out, line, &query, &m)?,
+                        OutFormat::Tsv => write_tsv_error(&mut out, line, &query, &m)?,
+                    }
+                }
+                Err(e) => {
+                    out.flush().context("writing the answers")?;
+                    return Err(at_query_line(e, &lines.name, line).into());
+                }
             }
         }
         out.flush().context("writing the answers")?;
     }
-    out.flush().context("writing the answers")?;
     if a.summary {
         let secs = t0.elapsed().as_secs_f64();
         let per = distances as f64 / answered.max(1) as f64;
+        let refused = if a.keep_going {
+            format!("; {refused} refused")
+        } else {
+            String::new()
+        };
         eprintln!(
-            "answered {answered} queries in {secs:.3} s ({:.0} queries/s); {per:.0} distances per query ({:.2}% of {} items); {exact_hits} found an exact match",
+            "answered {answered} queries in {secs:.3} s ({:.0} queries/s); {per:.0} distances per query ({:.2}% of {} items); {exact_hits} found an exact match{refused}",
             answered as f64 / secs.max(1e-9),
             100.0 * per / index.len() as f64,
             index.len()
         );
     }
     Ok(())
+}
+
+/// One line of a block: a query handed to the searcher, or one refused as read (its line,
+/// its text with invalid bytes replaced, the error).
+enum Entry {
+    Good(usize),
+    Bad(usize, String, Error),
 }
 
 /// Names the query line in a query's error (a query the metric cannot take, a failing
@@ -98,65 +148,108 @@ pub(super) fn at_query_line(e: Error, name: &str, line: usize) -> Error {
     }
 }
 
-/// Queries read line by line, UTF-8 checked, the line counted for errors.
+/// Queries read line by line, the line counted for errors.
 struct QueryLines {
-    reader: Box<dyn BufRead>,
+    reader: BufReader<Box<dyn Read>>,
     line: usize,
     name: String,
+    /// A read may wait on a writer (a pipe or a terminal), so a block is answered before it.
+    may_wait: bool,
 }
 
 impl QueryLines {
-    fn next_block(&mut self, max: usize) -> anyhow::Result<Vec<String>> {
-        let mut block = Vec::new();
-        let mut buf = Vec::new();
-        while block.len() < max {
-            buf.clear();
-            let got = self
-                .reader
-                .read_until(b'\n', &mut buf)
-                .with_context(|| format!("reading queries from {}", self.name))?;
-            if got == 0 {
-                break;
-            }
-            self.line += 1;
-            if buf.last() == Some(&b'\n') {
-                buf.pop();
-            }
-            if buf.last() == Some(&b'\r') {
-                buf.pop();
-            }
-            let s = String::from_utf8(std::mem::take(&mut buf)).map_err(|e| {
-                Error::Usage(format!(
-                    "{}:{}: the query is not valid UTF-8 (byte {})",
-                    self.name,
-                    self.line,
-                    e.utf8_error().valid_up_to() + 1
-                ))
-            })?;
-            block.push(s);
+    /// A queries file; a folder or a missing file is a usage error.
+    fn open(path: &Path) -> Result<QueryLines, Error> {
+        let io = |source| Error::Io {
+            path: path.to_path_buf(),
+            source,
+        };
+        let file = std::fs::File::open(path).map_err(io)?;
+        let meta = file.metadata().map_err(io)?;
+        if meta.is_dir() {
+            return Err(Error::Usage(format!(
+                "{}: is a folder; --queries takes a file with one query per line",
+                path.display()
+            )));
         }
-        Ok(block)
+        Ok(QueryLines {
+            reader: BufReader::with_capacity(READ_BUFFER, Box::new(file)),
+            line: 0,
+            name: path.display().to_string(),
+            may_wait: !meta.is_file(),
+        })
     }
+
+    /// Standard input. Its own buffer stays empty: reads as large as ours bypass it.
+    fn stdin() -> QueryLines {
+        QueryLines {
+            reader: BufReader::with_capacity(READ_BUFFER, Box::new(std::io::stdin())),
+            line: 0,
+            name: "<stdin>".to_string(),
+            may_wait: !stdin_is_file(),
+        }
+    }
+
+    /// Whether a whole line is already in the buffer (reading it cannot wait).
+    fn line_waiting(&self) -> bool {
+        self.reader.buffer().contains(&b'\n')
+    }
+
+    /// The next line's number and bytes, without its line ending; `None` at the end.
+    fn next_raw(&mut self) -> anyhow::Result<Option<(usize, Vec<u8>)>> {
+        let mut buf = Vec::new();
+        let got = self
+            .reader
+            .read_until(b'\n', &mut buf)
+            .with_context(|| format!("reading queries from {}", self.name))?;
+        if got == 0 {
+            return Ok(None);
+        }
+        self.line += 1;
+        if buf.last() == Some(&b'\n') {
+            buf.pop();
+        }
+        if buf.last() == Some(&b'\r') {
+            buf.pop();
+        }
+        Ok(Some((self.line, buf)))
+    }
+}
+
+/// A line as text, or its text with invalid bytes replaced and the error.
+fn decode(bytes: Vec<u8>) -> Result<String, (String, Error)> {
+    String::from_utf8(bytes).map_err(|e| {
+        let at = e.utf8_error().valid_up_to() + 1;
+        let text = String::from_utf8_lossy(e.as_bytes()).into_owned();
+        let error = Error::InvalidQuery(format!("the query is not valid UTF-8 (byte {at})"));
+        (text, error)
+    })
+}
+
+/// Whether standard input is a regular file (redirected from one), whose reads never wait.
+#[cfg(unix)]
+fn stdin_is_file() -> bool {
+    use std::os::fd::AsFd;
+    std::io::stdin()
+        .as_fd()
+        .try_clone_to_owned()
+        .map(std::fs::File::from)
+        .and_then(|f| f.metadata())
+        .is_ok_and(|m| m.is_file())
+}
+
+#[cfg(not(unix))]
+fn stdin_is_file() -> bool {
+    false
 }
 
 /// Every line of a queries file (UTF-8 checked, the line named on error).
 pub(super) fn read_query_file(path: &Path) -> anyhow::Result<Vec<String>> {
-    let file = std::fs::File::open(path).map_err(|source| Error::Io {
-        path: path.to_path_buf(),
-        source,
-    })?;
-    let mut lines = QueryLines {
-        reader: Box::new(std::io::BufReader::new(file)),
-        line: 0,
-        name: path.display().to_string(),
-    };
+    let mut lines = QueryLines::open(path)?;
     let mut all = Vec::new();
-    loop {
-        let block = lines.next_block(4096)?;
-        if block.is_empty() {
-            break;
-        }
-        all.extend(block);
+    while let Some((line, bytes)) = lines.next_raw()? {
+        let text = decode(bytes).map_err(|(_, e)| at_query_line(e, &lines.name, line))?;
+        all.push(text);
     }
     if all.is_empty() {
         return Err(Error::Usage(format!("{}: no queries in the file", path.display())).into());

@@ -8,6 +8,7 @@ use crate::util::{json_lines, waymark_path, Dir};
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
 struct Answer {
+    line: usize,
     query: String,
     neighbors: Vec<Hit>,
     #[serde(default)]
@@ -559,5 +560,268 @@ fn the_external_program_is_named_as_such_in_usage_lines() {
             "{command} --help: {help}"
         );
         assert!(!help.contains("COMMAND"), "{command} --help: {help}");
+    }
+}
+
+/// What `--keep-going` writes for a query it cannot answer.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct Refused {
+    line: usize,
+    query: String,
+    error: String,
+}
+
+/// One output line of `--keep-going`: an answer or a refused query.
+#[derive(Debug, Deserialize)]
+#[serde(untagged)]
+enum Reply {
+    Answer(Answer),
+    Refused(Refused),
+}
+
+#[test]
+fn a_piped_query_is_answered_before_the_next_line_is_written() {
+    use std::io::{BufRead, Write};
+    use std::sync::mpsc;
+    use std::time::Duration;
+    let d = Dir::new();
+    let input = d.write("names.txt", NAMES.as_bytes());
+    let idx = d.build(&input, "idx.wmk", &["--dim", "4"]);
+    let mut child = std::process::Command::new(waymark_path())
+        .arg("query")
+        .arg(&idx)
+        .args(["-k", "2"])
+        .stdin(std::process::Stdio::piped())
+        .stdout(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    let stdout = child.stdout.take().unwrap();
+    let (tx, rx) = mpsc::channel();
+    let reader = std::thread::spawn(move || {
+        for line in std::io::BufReader::new(stdout).lines() {
+            if tx.send(line.unwrap()).is_err() {
+                break;
+            }
+        }
+    });
+    let mut stdin = child.stdin.take().unwrap();
+    // Each answer must come while stdin is still open and the next line not yet written;
+    // the timeout only guards against a hang.
+    // Unit-cost Levenshtein, by hand: a swap of neighbours costs 2, a missing char 1.
+    for (n, (query, nearest, distance)) in [
+        ("Orvane Qauy", "Orvane Quay", 2),
+        ("Keth Landin", "Keth Landing", 1),
+    ]
+    .into_iter()
+    .enumerate()
+    {
+        // The second line arrives in two pieces: nothing is answered before its end.
+        let (head, tail) = query.split_at(if n == 1 { 4 } else { 0 });
+        if !head.is_empty() {
+            stdin.write_all(head.as_bytes()).unwrap();
+            stdin.flush().unwrap();
+            assert!(rx.recv_timeout(Duration::from_millis(300)).is_err());
+        }
+        stdin.write_all(format!("{tail}\n").as_bytes()).unwrap();
+        stdin.flush().unwrap();
+        let got = rx
+            .recv_timeout(Duration::from_secs(10))
+            .unwrap_or_else(|e| panic!("no answer to line {} while stdin is open: {e}", n + 1));
+        let a: Answer = serde_json::from_str(&got).unwrap();
+        assert_eq!((a.line, a.query.as_str()), (n + 1, query));
+        assert_eq!(a.neighbors[0].item, nearest);
+        assert_eq!(a.neighbors[0].distance, distance);
+    }
+    drop(stdin);
+    let status = child.wait().unwrap();
+    reader.join().unwrap();
+    assert!(status.success());
+    assert!(
+        rx.try_iter().next().is_none(),
+        "no output after the two answers"
+    );
+}
+
+#[test]
+fn answers_carry_their_line_blank_lines_included() {
+    // A blank line is a query (the empty string), answered like any other.
+    let d = Dir::new();
+    let input = d.write("names.txt", NAMES.as_bytes());
+    let idx = d.build(&input, "idx.wmk", &["--dim", "2"]);
+    let q = d.write("q.txt", b"Orvane Qauy\r\n\r\nTesamir Row\n\nKeth Landing");
+    for from_file in [true, false] {
+        let mut cmd = d.cmd();
+        cmd.arg("query").arg(&idx).args(["-k", "1"]);
+        if from_file {
+            cmd.arg("--queries").arg(&q);
+        } else {
+            cmd.write_stdin(std::fs::read(&q).unwrap());
+        }
+        let out = cmd.assert().success().get_output().stdout.clone();
+        let a = answers(&out);
+        let got: Vec<(usize, &str)> = a.iter().map(|x| (x.line, x.query.as_str())).collect();
+        assert_eq!(
+            got,
+            [
+                (1, "Orvane Qauy"),
+                (2, ""),
+                (3, "Tesamir Row"),
+                (4, ""),
+                (5, "Keth Landing")
+            ]
+        );
+        // The empty query's nearest item is the shortest one, at its length in chars
+        // ("Orvane Quay", 11; counted by hand).
+        assert_eq!(a[1].neighbors[0].distance, 11);
+        assert_eq!(a[4].neighbors[0].distance, 0);
+    }
+}
+
+/// Eight-base codes for a Hamming index; its answers are checked against `strsim::hamming`.
+const CODES: &str = "ACGTACGT\nACGTACGA\nTTGTACGT\nGGGGCCCC\n";
+
+#[test]
+fn keep_going_reports_unanswerable_queries_in_place_and_goes_on() {
+    let d = Dir::new();
+    let input = d.write("codes.txt", CODES.as_bytes());
+    let idx = d.build(
+        &input,
+        "idx.wmk",
+        &["--metric", "hamming", "--dim", "2", "-q"],
+    );
+    let queries = "ACGTACGG\nACGT\nGGGGCCCA\n";
+    // Without the option: the first answer, then exit 2 naming the line.
+    let out = d
+        .cmd()
+        .arg("query")
+        .arg(&idx)
+        .args(["-k", "1"])
+        .write_stdin(queries)
+        .assert()
+        .code(2)
+        .stderr(predicates::str::contains(
+            "<stdin>:2: the query has 4 characters",
+        ))
+        .get_output()
+        .stdout
+        .clone();
+    assert_eq!(answers(&out).len(), 1);
+    let out = d
+        .cmd()
+        .arg("query")
+        .arg(&idx)
+        .args(["-k", "1", "--keep-going"])
+        .write_stdin(queries)
+        .assert()
+        .success()
+        .get_output()
+        .stdout
+        .clone();
+    let replies: Vec<Reply> = json_lines(&out);
+    assert_eq!(replies.len(), 3);
+    let items: Vec<&str> = CODES.lines().collect();
+    match &replies[0] {
+        Reply::Answer(a) => {
+            assert_eq!((a.line, a.query.as_str()), (1, "ACGTACGG"));
+            let best = items
+                .iter()
+                .map(|i| strsim::hamming(i, "ACGTACGG").unwrap() as u64)
+                .min()
+                .unwrap();
+            assert_eq!(a.neighbors[0].distance, best);
+        }
+        other => panic!("line 1 should be answered: {other:?}"),
+    }
+    match &replies[1] {
+        Reply::Refused(r) => {
+            assert_eq!((r.line, r.query.as_str()), (2, "ACGT"));
+            assert!(
+                r.error.contains("the query has 4 characters"),
+                "{}",
+                r.error
+            );
+        }
+        other => panic!("line 2 should be refused: {other:?}"),
+    }
+    match &replies[2] {
+        Reply::Answer(a) => {
+            assert_eq!((a.line, a.query.as_str()), (3, "GGGGCCCA"));
+            assert_eq!(a.neighbors[0].item, "GGGGCCCC");
+            assert_eq!(
+                a.neighbors[0].distance,
+                strsim::hamming("GGGGCCCC", "GGGGCCCA").unwrap() as u64
+            );
+        }
+        other => panic!("line 3 should be answered: {other:?}"),
+    }
+    // TSV: the refused query's line has `error` where answers have their rank.
+    let out = d
+        .cmd()
+        .arg("query")
+        .arg(&idx)
+        .args(["-k", "1", "--keep-going", "--format", "tsv"])
+        .write_stdin(queries)
+        .assert()
+        .success()
+        .get_output()
+        .stdout
+        .clone();
+    let text = String::from_utf8(out).unwrap();
+    let rows: Vec<Vec<&str>> = text.lines().map(|l| l.split('\t').collect()).collect();
+    assert_eq!(rows.len(), 3);
+    assert_eq!(rows[0][..2], ["ACGTACGG", "1"]);
+    assert_eq!(rows[1][..3], ["ACGT", "error", "2"]);
+    assert!(rows[1][3].contains("4 characters"), "{}", rows[1][3]);
+    assert_eq!(rows[2][..4], ["GGGGCCCA", "1", "3", "GGGGCCCC"]);
+}
+
+#[test]
+fn keep_going_reports_invalid_utf8_with_the_bytes_replaced() {
+    let d = Dir::new();
+    let input = d.write("names.txt", NAMES.as_bytes());
+    let idx = d.build(&input, "idx.wmk", &["--dim", "2"]);
+    let out = d
+        .cmd()
+        .arg("query")
+        .arg(&idx)
+        .args(["-k", "1", "--keep-going", "--exact"])
+        .write_stdin(b"Keth Landing\nK\xfeth\nMirrow Steps\n".to_vec())
+        .assert()
+        .success()
+        .get_output()
+        .stdout
+        .clone();
+    let text = String::from_utf8(out).unwrap();
+    let lines: Vec<serde_json::Value> = text
+        .lines()
+        .map(|l| serde_json::from_str(l).unwrap())
+        .collect();
+    assert_eq!(lines.len(), 3);
+    assert_eq!(lines[0]["line"], 1);
+    assert_eq!(lines[0]["neighbors"][0]["item"], "Keth Landing");
+    assert_eq!(
+        lines[1],
+        serde_json::json!({"line": 2, "query": "K\u{fffd}th", "error": "the query is not valid UTF-8 (byte 2)"})
+    );
+    assert_eq!(lines[2]["line"], 3);
+    assert_eq!(lines[2]["neighbors"][0]["item"], "Mirrow Steps");
+}
+
+#[test]
+fn a_folder_as_queries_file_is_a_usage_error() {
+    let d = Dir::new();
+    let input = d.write("names.txt", NAMES.as_bytes());
+    let idx = d.build(&input, "idx.wmk", &["--dim", "2"]);
+    std::fs::create_dir(d.path("qdir")).unwrap();
+    for cmd in ["query", "eval"] {
+        d.cmd()
+            .arg(cmd)
+            .arg(&idx)
+            .arg("--queries")
+            .arg(d.path("qdir"))
+            .assert()
+            .code(2)
+            .stderr(predicates::str::contains("qdir: is a folder"));
     }
 }

@@ -581,3 +581,60 @@ fn unknown_metric_is_a_usage_error() {
             "invalid value 'cosine-ish' for '--metric <METRIC>'",
         ));
 }
+
+#[test]
+fn keep_going_goes_past_a_vector_of_another_dimension_and_an_unknown_node() {
+    let d = Dir::new();
+    // Euclidean distances by hand: (0,1)–(0,0) = 1, (3,3)–(3,4) = 1.
+    let vectors = d.write("v.csv", b"0,0\n3,4\n10,10\n");
+    // Shortest paths by hand: a–b 1, b–c 2.
+    let edges = d.write("e.txt", b"a b 1\nb c 2\n");
+    for (input, args, queries, refused, expected) in [
+        (
+            &vectors,
+            ["--metric", "l2"],
+            "0,1\n1,2,3\n3,3\n",
+            "the query has 3 components",
+            [("0,0", 1.0), ("3,4", 1.0)],
+        ),
+        (
+            &edges,
+            ["--metric", "graph"],
+            "a\nzz\nc\n",
+            "`zz` is not a node of the graph",
+            [("a", 0.0), ("c", 0.0)],
+        ),
+    ] {
+        let index = d.build(
+            input,
+            "idx.wmk",
+            &[&["-q", "--dim", "2"], &args[..]].concat(),
+        );
+        let out = waymark()
+            .arg("query")
+            .arg(&index)
+            .args(["-k", "1", "--exact", "--keep-going"])
+            .write_stdin(queries)
+            .assert()
+            .success()
+            .get_output()
+            .stdout
+            .clone();
+        let lines: Vec<serde_json::Value> = json_lines(&out);
+        assert_eq!(lines.len(), 3, "{lines:?}");
+        let q: Vec<&str> = queries.lines().collect();
+        assert_eq!(lines[1]["line"], 2);
+        assert_eq!(lines[1]["query"], q[1]);
+        let error = lines[1]["error"].as_str().unwrap();
+        assert!(error.contains(refused), "{error}");
+        for (line, (item, distance)) in [(0, expected[0]), (2, expected[1])] {
+            assert_eq!(lines[line]["line"], line + 1);
+            assert_eq!(lines[line]["query"], q[line]);
+            assert_eq!(lines[line]["neighbors"][0]["item"], item);
+            assert_eq!(
+                lines[line]["neighbors"][0]["distance"].as_f64(),
+                Some(distance)
+            );
+        }
+    }
+}
