@@ -15,6 +15,7 @@ use crate::search::{Request, SearchParams, Searcher};
 
 pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
     let index = Index::open(&a.index)?;
+    super::announce_program(&index, a.quiet_metric);
     let mut params = SearchParams::from_index(&index, a.k.unwrap_or(10));
     if let Some(c) = a.candidates {
         params = params.with_candidates(c);
