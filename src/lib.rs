@@ -28,6 +28,7 @@ pub mod coords;
 pub mod cpu;
 pub mod embed;
 pub mod error;
+pub mod escape;
 pub mod eval;
 pub mod index;
 pub mod ingest;

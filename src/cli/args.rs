@@ -339,6 +339,10 @@ pub(super) struct QueryArgs {
     /// Print a one-line summary on stderr when done (queries, q/s, distances per query).
     #[arg(long)]
     pub summary: bool,
+    /// Do not print the metric program's command on stderr before running it (an index
+    /// built with --metric external names a program that this command runs).
+    #[arg(long = "quiet-metric")]
+    pub quiet_metric: bool,
 }
 
 #[derive(Debug, clap::Args)]
@@ -392,6 +396,10 @@ pub(super) struct EvalArgs {
     /// Print one JSON object instead of tables.
     #[arg(long)]
     pub json: bool,
+    /// Do not print the metric program's command on stderr before running it (an index
+    /// built with --metric external names a program that this command runs).
+    #[arg(long = "quiet-metric")]
+    pub quiet_metric: bool,
 }
 
 #[derive(Debug, clap::Args)]

@@ -19,6 +19,7 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
         .into());
     }
     let index = Index::open(&a.index)?;
+    super::announce_program(&index, a.quiet_metric);
     let space: Space = a.space.map_or(index.meta().space, Into::into);
     // One setting per candidate count, checked (k, candidates) before any answer is computed.
     let settings: Vec<SearchParams> = a

@@ -4,8 +4,28 @@ use std::io::Write;
 use std::time::Instant;
 
 use super::args::InspectArgs;
+use crate::escape::escape_controls as esc;
 use crate::index::Index;
 use crate::metric::MetricSpec;
+
+/// JSON text with the control characters serde_json writes as they are (DEL, C1 controls,
+/// bidirectional formatting) written as `\u` escapes: the same values, safe on a terminal.
+/// Such characters can only stand inside JSON strings, where the escape means the same.
+fn json_escaped(text: &str) -> String {
+    let mut out = String::with_capacity(text.len());
+    for c in text.chars() {
+        // serde_json escapes C0 controls itself; the line breaks are its layout.
+        if c >= '\x7f' && crate::escape::is_control(c) {
+            let mut units = [0u16; 2];
+            for u in c.encode_utf16(&mut units) {
+                out.push_str(&format!("\\u{u:04x}"));
+            }
+        } else {
+            out.push(c);
+        }
+    }
+    out
+}
 
 pub(super) fn inspect(a: InspectArgs) -> anyhow::Result<()> {
     let index = Index::open(&a.index)?;
@@ -35,21 +55,27 @@ pub(super) fn inspect(a: InspectArgs) -> anyhow::Result<()> {
             "sections": sections.iter().map(|(k, l)| serde_json::json!({"name": k, "bytes": l})).collect::<Vec<_>>(),
             "verified": verified.is_some(),
         });
-        serde_json::to_writer_pretty(&mut out, &obj)?;
-        writeln!(out)?;
+        writeln!(
+            out,
+            "{}",
+            json_escaped(&serde_json::to_string_pretty(&obj)?)
+        )?;
         return Ok(());
     }
-    writeln!(out, "index         {}", a.index.display())?;
+    writeln!(out, "index         {}", esc(&a.index.display().to_string()))?;
     writeln!(
         out,
         "format        waymark index, version {}",
         crate::index::file::FORMAT_VERSION
     )?;
-    writeln!(out, "written by    {}", m.written_by)?;
+    writeln!(out, "written by    {}", esc(&m.written_by))?;
     writeln!(
         out,
         "items         {} (from {}: {} records, {} blank skipped)",
-        m.n, m.source, m.records, m.blank_skipped
+        m.n,
+        esc(&m.source),
+        m.records,
+        m.blank_skipped
     )?;
     writeln!(out, "ids           {:?}", m.ids)?;
     let params = match &m.metric_spec {
@@ -72,10 +98,10 @@ pub(super) fn inspect(a: InspectArgs) -> anyhow::Result<()> {
             timeout_ms,
         } => format!(
             " (program `{}`, {} s per batch)",
-            command.join(" "),
+            esc(&command.join(" ")),
             *timeout_ms as f64 / 1000.0
         ),
-        MetricSpec::Custom { name, .. } => format!(" (`{name}`, written in Rust)"),
+        MetricSpec::Custom { name, .. } => format!(" (`{}`, written in Rust)", esc(name)),
         MetricSpec::Levenshtein | MetricSpec::Damerau | MetricSpec::Graph => String::new(),
     };
     writeln!(out, "metric        {}{params}", m.metric)?;
@@ -102,7 +128,7 @@ pub(super) fn inspect(a: InspectArgs) -> anyhow::Result<()> {
         m.dim,
         m.seed
     )?;
-    writeln!(out, "references    {}", landmarks.join(" | "))?;
+    writeln!(out, "references    {}", esc(&landmarks.join(" | ")))?;
     writeln!(
         out,
         "coordinates   u8, {} bytes per item; kd-tree of dimension {} (f32)",
@@ -116,7 +142,7 @@ pub(super) fn inspect(a: InspectArgs) -> anyhow::Result<()> {
     )?;
     writeln!(out, "file size     {} bytes", index.file_len())?;
     for (name, len) in &sections {
-        writeln!(out, "  section     {name:<14} {len:>12} bytes")?;
+        writeln!(out, "  section     {:<14} {len:>12} bytes", esc(name))?;
     }
     match verified {
         Some(s) => writeln!(out, "verified      every checksum matches ({s:.3} s)")?,

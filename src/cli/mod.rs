@@ -53,7 +53,8 @@ pub fn main() -> ExitCode {
                     msg.push_str(&format!(": {text}"));
                 }
             }
-            eprintln!("{msg}");
+            // Messages may quote what a file says: its control characters are shown escaped.
+            eprintln!("{}", crate::escape::escape_controls_keep_lines(&msg));
             ExitCode::from(exit_code(&e))
         }
     }
@@ -68,6 +69,21 @@ fn run(args: Args) -> anyhow::Result<()> {
         Command::Eval(a) => eval::eval(a),
         Command::Sweep(a) => sweep::sweep(a),
         Command::CheckMetric(a) => check_metric::check_metric(a),
+    }
+}
+
+/// Says on stderr which program an index's external metric runs, before it is started
+/// (the command comes from the index file: open indexes you trust), unless `quiet`.
+fn announce_program(index: &crate::index::Index, quiet: bool) {
+    if let crate::metric::MetricSpec::External { command, .. } = &index.meta().metric_spec {
+        if !quiet {
+            eprintln!(
+                "waymark: note: {} runs its metric program `{}` (named in the index file; \
+                 --quiet-metric leaves out this note)",
+                crate::escape::escape_controls(&index.path().display().to_string()),
+                crate::escape::escape_controls(&command.join(" "))
+            );
+        }
     }
 }
 

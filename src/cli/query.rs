@@ -27,6 +27,7 @@ const READ_BUFFER: usize = 256 * 1024;
 
 pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
     let index = Index::open(&a.index)?;
+    super::announce_program(&index, a.quiet_metric);
     let mut params = SearchParams::from_index(&index, a.k.unwrap_or(10));
     if let Some(c) = a.candidates {
         params = params.with_candidates(c);

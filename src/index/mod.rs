@@ -170,8 +170,13 @@ impl Index {
             find(k).ok_or_else(|| corrupt(format!("missing section {}", k.name())))
         };
         let meta_bytes = &map[need(SectionKind::Meta)?];
-        let meta: IndexMeta = serde_json::from_slice(meta_bytes)
-            .map_err(|e| corrupt(format!("metadata does not parse: {e}")))?;
+        let meta: IndexMeta = serde_json::from_slice(meta_bytes).map_err(|e| {
+            let e = e.to_string();
+            corrupt(format!(
+                "metadata does not parse: {}",
+                crate::escape::escape_controls(&e)
+            ))
+        })?;
         let n = usize::try_from(meta.n).map_err(|_| corrupt("n too large".into()))?;
         let expect_len = |k: SectionKind, r: &Range<usize>, want: Option<usize>| match want {
             Some(w) if r.len() == w => Ok(()),
@@ -279,16 +284,19 @@ impl Index {
         let bad = |reason: String| Error::refused(path, reason);
         match &index.meta.metric_spec {
             MetricSpec::Custom { name, integral } => {
+                let esc = crate::escape::escape_controls;
                 if name != metric.name() {
                     return Err(bad(format!(
-                        "built with the custom metric `{name}`, not `{}`",
-                        metric.name()
+                        "built with the custom metric `{}`, not `{}`",
+                        esc(name),
+                        esc(metric.name())
                     )));
                 }
                 if *integral != metric.is_integral() {
                     return Err(bad(format!(
-                        "the custom metric `{name}` was recorded with {} distances, \
+                        "the custom metric `{}` was recorded with {} distances, \
                          but the metric given has {}",
+                        esc(name),
                         if *integral { "whole" } else { "fractional" },
                         if metric.is_integral() {
                             "whole"

@@ -150,9 +150,10 @@ impl MetricSpec {
             )?),
             MetricSpec::Custom { name, .. } => {
                 return Err(MetricError::Options(format!(
-                    "the index was built with the custom metric `{name}`, written in Rust; \
+                    "the index was built with the custom metric `{}`, written in Rust; \
                      open it from a program that supplies that metric \
-                     (Index::open_with_metric)"
+                     (Index::open_with_metric)",
+                    crate::escape::escape_controls(name)
                 )))
             }
         })

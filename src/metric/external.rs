@@ -26,9 +26,17 @@
 //! # Failures
 //!
 //! Each batch has a time limit ([`ExternalMetric::spawn`]). When the program exits, stops
-//! answering within the limit, writes a line that is not a response, or gives the wrong
-//! number of distances, waymark kills it and reports a [`MetricError::Program`] naming the
-//! command and what happened. The [`PreparedQuery`] methods cannot return errors: after a
+//! answering within the limit, writes a line that is not a response or that is longer than
+//! its cap (the hello line [`HELLO_MAX`] bytes, an answer [`ANSWER_BYTES_PER_ITEM`] bytes per
+//! item plus [`ANSWER_SLACK`]), or gives the wrong number of distances, waymark kills it and
+//! reports a [`MetricError::Program`] naming the command and what happened. Its standard
+//! error is read all the time (so the program never blocks on it), and only the last
+//! [`STDERR_TAIL`] bytes are kept, for error messages. Text the program or the command
+//! supplies is quoted with its control characters escaped
+//! ([`crate::escape::escape_controls`]).
+//!
+//! The program runs in a process group of its own (Unix): on a failure, and when the metric
+//! is dropped, the whole group is killed, so processes the program started end with it. The [`PreparedQuery`] methods cannot return errors: after a
 //! failure they give NaN, and [`ExternalMetric::check`] returns the error; callers check it
 //! after each batch. [`ExternalQuery::try_distances`] returns it directly.
 //!
@@ -47,8 +55,9 @@
 //! ```
 
 use std::collections::VecDeque;
-use std::io::{BufRead, BufReader, Write};
+use std::io::{BufRead, BufReader, Read, Write};
 use std::process::{Child, Command, Stdio};
+use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::mpsc::{self, Receiver, RecvTimeoutError, Sender};
 use std::sync::{Arc, Mutex, MutexGuard};
 use std::time::{Duration, Instant};
@@ -65,8 +74,16 @@ pub const PROTOCOL_VERSION: u64 = 1;
 pub const MAX_BATCH: usize = 4096;
 /// The least time allowed for the hello line (an interpreter may be slow to start).
 const START_TIMEOUT: Duration = Duration::from_secs(10);
-/// Lines of the program's standard error kept for error messages.
+/// Lines of the program's standard error quoted in error messages.
 const STDERR_LINES: usize = 5;
+/// Bytes of the program's standard error kept (its last ones) for error messages.
+pub const STDERR_TAIL: usize = 4096;
+/// Longest hello line accepted, in bytes.
+pub const HELLO_MAX: usize = 8192;
+/// Bytes allowed per distance in an answer line ...
+pub const ANSWER_BYTES_PER_ITEM: usize = 64;
+/// ... plus this much (room for an `{"error": …}` message).
+pub const ANSWER_SLACK: usize = 64 * 1024;
 
 /// A metric computed by an external program (see the module documentation).
 #[derive(Clone)]
@@ -88,7 +105,10 @@ struct Inner {
     pipe: Mutex<Pipe>,
     /// The first failure; every later call fails with it.
     failed: Mutex<Option<String>>,
-    stderr: Arc<Mutex<VecDeque<String>>>,
+    /// The last bytes of the program's standard error.
+    stderr: Arc<Mutex<VecDeque<u8>>>,
+    /// The longest output line accepted now, in bytes (set before each request).
+    line_cap: Arc<AtomicUsize>,
 }
 
 struct Pipe {
@@ -96,7 +116,7 @@ struct Pipe {
     /// Request lines to the writer thread (which owns the program's stdin); `None` once closed.
     requests: Option<Sender<Vec<u8>>>,
     /// Response lines from the reader thread; disconnected at the program's end of output.
-    responses: Receiver<std::io::Result<String>>,
+    responses: Receiver<Result<String, String>>,
 }
 
 #[derive(Serialize)]
@@ -121,7 +141,7 @@ impl ExternalMetric {
     /// Starts `command` (program and arguments) and reads its hello line; `timeout` limits
     /// the wait for each batch's answer (and for the hello, which gets at least 10 s).
     pub fn spawn(command: &[String], timeout: Duration) -> Result<Self, MetricError> {
-        let shown = command.join(" ");
+        let shown = crate::escape::escape_controls(&command.join(" ")).into_owned();
         let fail = |message: String| MetricError::Program {
             command: shown.clone(),
             message,
@@ -129,11 +149,14 @@ impl ExternalMetric {
         let (program, args) = command
             .split_first()
             .ok_or_else(|| MetricError::Options("the metric command is empty".into()))?;
-        let mut child = Command::new(program)
-            .args(args)
+        let mut cmd = Command::new(program);
+        cmd.args(args)
             .stdin(Stdio::piped())
             .stdout(Stdio::piped())
-            .stderr(Stdio::piped())
+            .stderr(Stdio::piped());
+        #[cfg(unix)]
+        std::os::unix::process::CommandExt::process_group(&mut cmd, 0);
+        let mut child = cmd
             .spawn()
             .map_err(|e| fail(format!("could not start: {e}")))?;
         let (stdin, stdout, stderr) = (
@@ -150,35 +173,44 @@ impl ExternalMetric {
                 }
             }
         });
-        let (resp_tx, resp_rx) = mpsc::channel();
+        // At most one line waits in the channel: a program writing lines nobody asked for
+        // fills its pipe and blocks instead of growing waymark's memory.
+        let (resp_tx, resp_rx) = mpsc::sync_channel(1);
+        let line_cap = Arc::new(AtomicUsize::new(HELLO_MAX));
+        let cap = line_cap.clone();
         std::thread::spawn(move || {
             let mut r = BufReader::with_capacity(1 << 16, stdout);
             loop {
-                let mut line = String::new();
-                match r.read_line(&mut line) {
-                    Ok(0) => break,
-                    Ok(_) => {
-                        if resp_tx.send(Ok(line)).is_err() {
-                            break;
-                        }
-                    }
-                    Err(e) => {
-                        let _ = resp_tx.send(Err(e));
-                        break;
-                    }
+                let line = read_capped_line(&mut r, &cap);
+                let end = !matches!(line, Ok(Some(_)));
+                let sent = match line {
+                    Ok(None) => break,
+                    Ok(Some(line)) => resp_tx.send(Ok(line)),
+                    Err(e) => resp_tx.send(Err(e)),
+                };
+                if end || sent.is_err() {
+                    break;
                 }
             }
         });
-        let tail = Arc::new(Mutex::new(VecDeque::new()));
+        let tail = Arc::new(Mutex::new(VecDeque::with_capacity(STDERR_TAIL)));
         let tail2 = tail.clone();
         std::thread::spawn(move || {
-            for line in BufReader::new(stderr).lines() {
-                let Ok(line) = line else { break };
+            // Read everything, keep the last bytes: the program never blocks on its stderr.
+            let mut stderr = stderr;
+            let mut buf = vec![0u8; 16 * 1024];
+            loop {
+                let got = match stderr.read(&mut buf) {
+                    Ok(0) => break,
+                    Ok(got) => got,
+                    Err(e) if e.kind() == std::io::ErrorKind::Interrupted => continue,
+                    Err(_) => break,
+                };
+                let chunk = &buf[got.saturating_sub(STDERR_TAIL)..got];
                 let mut t = tail2.lock().unwrap_or_else(|e| e.into_inner());
-                if t.len() == STDERR_LINES {
-                    t.pop_front();
-                }
-                t.push_back(line);
+                let over = (t.len() + chunk.len()).saturating_sub(STDERR_TAIL);
+                t.drain(..over);
+                t.extend(chunk);
             }
         });
         let m = ExternalMetric {
@@ -192,6 +224,7 @@ impl ExternalMetric {
                 }),
                 failed: Mutex::new(None),
                 stderr: tail,
+                line_cap,
             }),
         };
         let line = {
@@ -232,14 +265,87 @@ impl ExternalMetric {
     }
 }
 
-/// The first 200 characters of a line, for error messages.
+/// The first 200 characters of a line, control characters escaped, for error messages.
 fn preview(line: &str) -> String {
     let t = line.trim_end();
     let mut s: String = t.chars().take(200).collect();
     if s.len() < t.len() {
         s.push('…');
     }
-    format!("`{s}`")
+    format!("`{}`", crate::escape::escape_controls(&s))
+}
+
+/// One line of the program's output without its `\n` (`None` at the end of output), or
+/// why it is refused: longer than the cap, not UTF-8, a read error. Reads at most the cap
+/// (and one buffer) before refusing, whatever the program writes.
+fn read_capped_line(r: &mut impl BufRead, cap: &AtomicUsize) -> Result<Option<String>, String> {
+    let mut line = Vec::new();
+    loop {
+        let buf = match r.fill_buf() {
+            Ok(b) => b,
+            Err(e) if e.kind() == std::io::ErrorKind::Interrupted => continue,
+            Err(e) => return Err(format!("reading its output failed: {e}")),
+        };
+        if buf.is_empty() {
+            if line.is_empty() {
+                return Ok(None);
+            }
+            break; // a last line without a newline
+        }
+        let (take, done) = match buf.iter().position(|&b| b == b'\n') {
+            Some(i) => (i + 1, true),
+            None => (buf.len(), false),
+        };
+        line.extend_from_slice(&buf[..take]);
+        r.consume(take);
+        let max = cap.load(Ordering::Relaxed);
+        if line.len() > max.saturating_add(1) {
+            return Err(format!(
+                "wrote a line longer than {max} bytes (the most accepted there)"
+            ));
+        }
+        if done {
+            break;
+        }
+    }
+    String::from_utf8(line)
+        .map(Some)
+        .map_err(|_| "wrote a line that is not UTF-8".to_string())
+}
+
+/// Kills the program's whole process group (the program and what it started) and reaps
+/// the program. The group is killed before the program is reaped, so its id cannot have
+/// been reused.
+fn kill_group(child: &mut Child) {
+    #[cfg(unix)]
+    let pid = rustix::process::Pid::from_child(child);
+    #[cfg(unix)]
+    let _ = rustix::process::kill_process_group(pid, rustix::process::Signal::KILL);
+    let _ = child.kill();
+    let _ = child.wait();
+}
+
+/// The program's exit status, once it has exited, without reaping it (its process group
+/// can still be killed safely).
+#[cfg(unix)]
+fn exit_status(child: &mut Child) -> Option<String> {
+    use rustix::process::{Pid, WaitId, WaitIdOptions};
+    let status = rustix::process::waitid(
+        WaitId::Pid(Pid::from_child(child)),
+        WaitIdOptions::EXITED | WaitIdOptions::NOHANG | WaitIdOptions::NOWAIT,
+    )
+    .ok()??;
+    Some(match (status.exit_status(), status.terminating_signal()) {
+        (Some(code), _) if status.exited() => format!("exit status: {code}"),
+        (_, Some(sig)) => format!("signal: {sig}"),
+        _ => "ended".to_string(),
+    })
+}
+
+/// The program's exit status, once it has exited.
+#[cfg(not(unix))]
+fn exit_status(child: &mut Child) -> Option<String> {
+    child.try_wait().ok()?.map(|s| s.to_string())
 }
 
 impl Inner {
@@ -261,26 +367,42 @@ impl Inner {
             *failed = Some(message.clone());
             let mut pipe = self.lock_pipe();
             pipe.requests = None;
-            let _ = pipe.child.kill();
-            let _ = pipe.child.wait();
+            kill_group(&mut pipe.child);
         }
         self.error(failed.clone().unwrap_or(message))
     }
 
     fn stderr_tail(&self) -> String {
-        let t = self.stderr.lock().unwrap_or_else(|e| e.into_inner());
-        if t.is_empty() {
-            String::new()
-        } else {
-            format!("; its last messages: {}", Vec::from(t.clone()).join(" | "))
+        let bytes = Vec::from(
+            self.stderr
+                .lock()
+                .unwrap_or_else(|e| e.into_inner())
+                .clone(),
+        );
+        let text = String::from_utf8_lossy(&bytes);
+        let lines: Vec<&str> = text
+            .lines()
+            .map(str::trim)
+            .filter(|l| !l.is_empty())
+            .collect();
+        if lines.is_empty() {
+            return String::new();
         }
+        let last = lines[lines.len().saturating_sub(STDERR_LINES)..].join(" | ");
+        format!(
+            "; its last messages: {}",
+            crate::escape::escape_controls(&last)
+        )
     }
 
     /// Waits for one line, with the time limit.
     fn receive(&self, pipe: &mut Pipe, what: &str, limit: Duration) -> Result<String, String> {
         match pipe.responses.recv_timeout(limit) {
             Ok(Ok(line)) => Ok(line),
-            Ok(Err(e)) => Err(format!("reading its output failed: {e}")),
+            Ok(Err(e)) => Err(format!(
+                "{e}, waiting for {what}; stopped it{}",
+                self.stderr_tail()
+            )),
             Err(RecvTimeoutError::Timeout) => Err(format!(
                 "gave no answer ({what}) within {:.1} s; stopped it{}",
                 limit.as_secs_f64(),
@@ -290,12 +412,12 @@ impl Inner {
                 // End of output: give the program a moment to exit, for its status.
                 let start = Instant::now();
                 let status = loop {
-                    match pipe.child.try_wait() {
-                        Ok(Some(s)) => break Some(s),
-                        Ok(None) if start.elapsed() < Duration::from_millis(500) => {
+                    match exit_status(&mut pipe.child) {
+                        Some(s) => break Some(s),
+                        None if start.elapsed() < Duration::from_millis(500) => {
                             std::thread::sleep(Duration::from_millis(5))
                         }
-                        _ => break None,
+                        None => break None,
                     }
                 };
                 // Give the stderr thread a moment to read the last lines.
@@ -326,6 +448,10 @@ impl Inner {
         line.push(b'\n');
         let answer = {
             let mut pipe = self.lock_pipe();
+            let cap = ANSWER_BYTES_PER_ITEM
+                .saturating_mul(items.len())
+                .saturating_add(ANSWER_SLACK);
+            self.line_cap.store(cap, Ordering::Relaxed);
             let sent = pipe.requests.as_ref().is_some_and(|s| s.send(line).is_ok());
             if sent {
                 self.receive(&mut pipe, "the distances", self.timeout)
@@ -341,7 +467,10 @@ impl Inner {
             ))
         })?;
         if let Some(message) = resp.error {
-            return Err(self.fail(format!("reported an error: {message}")));
+            return Err(self.fail(format!(
+                "reported an error: {}",
+                crate::escape::escape_controls(&message)
+            )));
         }
         let Some(d) = resp.distances else {
             return Err(self.fail(format!(
@@ -371,14 +500,12 @@ impl Drop for Inner {
         let pipe = self.pipe.get_mut().unwrap_or_else(|e| e.into_inner());
         pipe.requests = None; // the writer thread ends and closes the program's input
         let start = Instant::now();
-        while start.elapsed() < Duration::from_millis(500) {
-            if let Ok(Some(_)) = pipe.child.try_wait() {
-                return;
-            }
+        while start.elapsed() < Duration::from_millis(500) && exit_status(&mut pipe.child).is_none()
+        {
             std::thread::sleep(Duration::from_millis(2));
         }
-        let _ = pipe.child.kill();
-        let _ = pipe.child.wait();
+        // Whatever the program started and left behind ends with it.
+        kill_group(&mut pipe.child);
     }
 }
 

@@ -1226,3 +1226,117 @@ fn bad_input_an_input_too_large_for_memory_is_refused_up_front() {
         .stderr(contains("building an index of 5000 items"));
     assert_eq!(d.others(&["w.txt"]), Vec::<String>::new());
 }
+
+// ---------------------------------------------------------------------------------------
+// What an index file says, printed to a terminal.
+
+/// A metric program (difference of lengths) that ignores its arguments.
+const LENGTH_PROGRAM: &str = r#"
+import json, sys
+print(json.dumps({"protocol": "waymark-metric", "version": 1}), flush=True)
+for line in sys.stdin:
+    r = json.loads(line)
+    q = r["query"]
+    print(json.dumps({"distances": [abs(len(q) - len(s)) for s in r["items"]]}), flush=True)
+"#;
+
+/// Control characters that would move the cursor, erase a line or reverse the text shown.
+const PAINT: &str = "\x1b[2K\r\u{9b}1m\u{202e}";
+const PAINT_ESCAPED: &str = r"\x1b[2K\r\x9b1m\u{202e}";
+
+fn has_controls(s: &str) -> bool {
+    s.chars()
+        .any(|c| c == '\x1b' || c == '\r' || c == '\u{9b}' || c == '\u{202e}')
+}
+
+#[test]
+fn bad_input_control_characters_in_an_index_are_shown_escaped() {
+    let d = Dir::new();
+    d.write("length.py", LENGTH_PROGRAM.as_bytes());
+    let input = d.write(&format!("in{PAINT}.txt"), b"Keth\nHolmsund\nOrvane Kay\n");
+    let index = d.build(
+        &input,
+        "x.wmk",
+        &[
+            "--metric",
+            "external",
+            "-q",
+            "--dim",
+            "2",
+            "--",
+            "python3",
+            "length.py",
+            PAINT,
+        ],
+    );
+    // The command and the source name, as text: escaped, never raw.
+    let out = d.cmd().arg("inspect").arg(&index).output().unwrap();
+    assert!(out.status.success());
+    let text = stdout_of(&out);
+    assert!(!has_controls(&text), "{text:?}");
+    assert!(
+        text.contains(&format!("python3 length.py {PAINT_ESCAPED}")),
+        "{text}"
+    );
+    assert!(text.contains(&format!("in{PAINT_ESCAPED}.txt")), "{text}");
+    // As JSON: the same values, every control written as a \u escape.
+    let out = d
+        .cmd()
+        .args(["inspect", "--json"])
+        .arg(&index)
+        .output()
+        .unwrap();
+    let text = stdout_of(&out);
+    assert!(!has_controls(&text), "{text:?}");
+    let v: serde_json::Value = serde_json::from_str(&text).unwrap();
+    assert_eq!(v["meta"]["metric_spec"]["command"][2], PAINT);
+    // `query` and `eval` name the program before starting it, escaped, once; a flag of
+    // their own silences it.
+    let out = d
+        .cmd()
+        .arg("query")
+        .arg(&index)
+        .write_stdin("Kath\nHolm\n")
+        .output()
+        .unwrap();
+    assert!(out.status.success());
+    let err = String::from_utf8(out.stderr.clone()).unwrap();
+    assert!(!has_controls(&err), "{err:?}");
+    assert_eq!(
+        err.matches(&format!("python3 length.py {PAINT_ESCAPED}"))
+            .count(),
+        1,
+        "{err}"
+    );
+    assert_eq!(stdout_of(&out).lines().count(), 2);
+    let out = d
+        .cmd()
+        .args(["query", "--quiet-metric"])
+        .arg(&index)
+        .write_stdin("Kath\n")
+        .output()
+        .unwrap();
+    assert!(out.status.success() && out.stderr.is_empty(), "{out:?}");
+    let out = d
+        .cmd()
+        .args(["eval", "--distortion", "--pairs", "3"])
+        .arg(&index)
+        .output()
+        .unwrap();
+    assert!(out.status.success(), "{out:?}");
+    let err = String::from_utf8(out.stderr.clone()).unwrap();
+    assert!(err.contains(&format!("length.py {PAINT_ESCAPED}")), "{err}");
+    // An error that quotes the command (the program is gone) escapes it too.
+    std::fs::remove_file(d.path("length.py")).unwrap();
+    let out = d
+        .cmd()
+        .args(["query", "--quiet-metric"])
+        .arg(&index)
+        .write_stdin("Kath\n")
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(3), "{out:?}");
+    let err = String::from_utf8(out.stderr.clone()).unwrap();
+    assert!(!has_controls(&err), "{err:?}");
+    assert!(err.contains(PAINT_ESCAPED), "{err}");
+}
