@@ -365,9 +365,13 @@ impl Index {
         // Bounds are `scale · (difference − 1)` for differences up to 255 (and the first one
         // past them): each must be a finite number, or an exact query's pruning breaks.
         if !(meta.scale.is_finite() && meta.scale > 0.0 && meta.scale <= MAX_SCALE) {
+            let scale = if meta.scale.abs() < 1e15 {
+                meta.scale.to_string()
+            } else {
+                format!("{:e}", meta.scale)
+            };
             return Err(corrupt(format!(
-                "coordinate scale {} is not a positive number of at most {MAX_SCALE:e}",
-                meta.scale
+                "coordinate scale {scale} is not a positive number of at most {MAX_SCALE:e}"
             )));
         }
         if meta.stride as usize != coord_stride(dim)
