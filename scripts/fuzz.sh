@@ -15,7 +15,7 @@ shift || true
 jobs=${FUZZ_JOBS:-$(nproc)}
 nice_level=${FUZZ_NICE:-19}
 export RUSTC_BOOTSTRAP=1
-mkdir -p corpus/index_file corpus/ingest corpus/query_text artifacts
+mkdir -p corpus/index_file corpus/index_meta corpus/ingest corpus/query_text artifacts
 # Seeds: real index files (so mutations start past the magic number) and real inputs.
 if [ ! -f corpus/index_file/seed-small.wmk ]; then
   (cd .. && cargo build --release -q)

@@ -28,10 +28,24 @@ pub fn build_estimate(n: usize, bytes: usize, dim: usize) -> u64 {
     n * per_item + 3 * bytes as u64 + (16 << 20)
 }
 
-/// The memory this process may use, in bytes, if the system tells.
-pub fn budget() -> Option<u64> {
-    if let Ok(v) = std::env::var("WAYMARK_MEMORY_BUDGET") {
-        return v.trim().parse().ok();
+/// The memory this process may use, in bytes, if the system tells; `WAYMARK_MEMORY_BUDGET`
+/// (a whole number of bytes) overrides it, and a value that is not one is refused.
+pub fn budget() -> Result<Option<u64>> {
+    match std::env::var("WAYMARK_MEMORY_BUDGET") {
+        Ok(v) => {
+            return v.trim().parse().map(Some).map_err(|_| {
+                Error::Usage(format!(
+                    "WAYMARK_MEMORY_BUDGET={v:?} is not a whole number of bytes \
+                     (for 2 GB: WAYMARK_MEMORY_BUDGET=2000000000)"
+                ))
+            });
+        }
+        Err(std::env::VarError::NotUnicode(v)) => {
+            return Err(Error::Usage(format!(
+                "WAYMARK_MEMORY_BUDGET={v:?} is not a whole number of bytes"
+            )));
+        }
+        Err(std::env::VarError::NotPresent) => {}
     }
     let available = std::fs::read_to_string("/proc/meminfo").ok().and_then(|m| {
         m.lines()
@@ -42,10 +56,10 @@ pub fn budget() -> Option<u64> {
     let cgroup = std::fs::read_to_string("/sys/fs/cgroup/memory.max")
         .ok()
         .and_then(|v| v.trim().parse::<u64>().ok());
-    match (available, cgroup) {
+    Ok(match (available, cgroup) {
         (Some(a), Some(c)) => Some(a.min(c)),
         (a, c) => a.or(c),
-    }
+    })
 }
 
 fn refuse(what: &str, need: u64, have: u64) -> Error {
@@ -59,7 +73,7 @@ fn refuse(what: &str, need: u64, have: u64) -> Error {
 /// Refuses to read an input file of `file_bytes` bytes when even its text would not fit
 /// (reading keeps about three times the text: items, keys and parse buffers).
 pub fn check_input(source: &str, file_bytes: u64) -> Result<()> {
-    match budget() {
+    match budget()? {
         Some(have) if 3 * file_bytes > have => Err(refuse(
             &format!("reading {source} ({:.1} GB)", file_bytes as f64 / 1e9),
             3 * file_bytes,
@@ -72,7 +86,7 @@ pub fn check_input(source: &str, file_bytes: u64) -> Result<()> {
 /// Refuses a build whose estimated peak memory ([`build_estimate`]) exceeds the budget.
 pub fn check_build(source: &str, n: usize, bytes: usize, dim: usize) -> Result<()> {
     let need = build_estimate(n, bytes, dim);
-    match budget() {
+    match budget()? {
         Some(have) if need > have => Err(refuse(
             &format!("building an index of {n} items from {source} at dimension {dim}"),
             need,

@@ -235,6 +235,13 @@ impl InputArgs {
         }
     }
 
+    /// The files read: the input and a cost file; outputs must not be written over them.
+    pub fn files(&self) -> Vec<PathBuf> {
+        std::iter::once(self.input.clone())
+            .chain(self.metric.costs.clone())
+            .collect()
+    }
+
     /// The input's path as errors and summaries name it.
     pub fn source(&self) -> String {
         self.input.display().to_string()

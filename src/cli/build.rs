@@ -20,10 +20,13 @@ pub(super) fn build(a: BuildArgs) -> anyhow::Result<()> {
         candidates: a.candidates.map_or(0, |c| c as usize),
         space: a.space.into(),
         normalize: a.input.normalize(),
+        inputs: a.input.files(),
         ..BuildOptions::default()
     };
     // Refuse impossible options before reading a large input.
     options.check()?;
+    // Refuse an output that is an input before reading it (the writer checks again).
+    crate::index::file::refuse_input_as_output(&a.output, &options.inputs)?;
     let source = a.input.source();
     if let Ok(m) = std::fs::metadata(&a.input.input) {
         crate::resources::check_input(&source, m.len())?;

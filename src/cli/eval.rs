@@ -164,6 +164,12 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
         );
         if a.json {
             json["distortion"] = serde_json::to_value(&r)?;
+        } else if r.pairs == 0 {
+            writeln!(
+                out,
+                "distortion of the {} coordinates ({}): no pairs to measure: {} items, {} pairs at distance 0 skipped (a distortion needs two items at a distance above 0)",
+                r.method, r.dim, r.items, r.zero_pairs
+            )?;
         } else {
             writeln!(
                 out,

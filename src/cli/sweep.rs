@@ -23,6 +23,12 @@ pub(super) fn sweep(a: SweepArgs) -> anyhow::Result<()> {
         normalize: a.input.normalize(),
         metric: MetricSpec::Levenshtein,
         graph: None,
+        inputs: a
+            .input
+            .files()
+            .into_iter()
+            .chain([a.queries.clone()])
+            .collect(),
     };
     // Refuse impossible options before reading the input.
     opts.check()?;

@@ -73,7 +73,8 @@ pub struct DistortionReport {
     pub pairs: usize,
     /// Pairs skipped because their true distance is 0 (duplicates).
     pub zero_pairs: usize,
-    /// Per space: L1, L2, L∞.
+    /// Per space: L1, L2, L∞; empty when no pair was measured (`pairs == 0`: a single
+    /// item, or only pairs at distance 0), as there is then no distortion.
     pub spaces: Vec<SpaceDistortion>,
 }
 
@@ -136,6 +137,8 @@ pub fn measure_distortion<M: Metric, T: AsRef<[u8]> + Sync>(
         .collect();
     let pairs: Vec<(f64, [f64; 3])> = rows.into_iter().flatten().collect();
     let zero_pairs = pairs.iter().filter(|p| p.0 <= 0.0).count();
+    // With no pair at a distance above 0 there is no ratio, and no distortion to report.
+    let measured = pairs.len() > zero_pairs;
     let spaces = [Space::L1, Space::L2, Space::Linf]
         .into_iter()
         .enumerate()
@@ -147,6 +150,7 @@ pub fn measure_distortion<M: Metric, T: AsRef<[u8]> + Sync>(
                 .collect();
             ratio_stats(space, ratios)
         })
+        .filter(|_| measured)
         .collect();
     DistortionReport {
         method: embedding.name(),

@@ -32,6 +32,7 @@ use super::truth::{load_or_compute_truth, TruthSource};
 use crate::coords::Space;
 use crate::embed::{embed_items, EmbedOptions, Method, MAX_DIM};
 use crate::error::{Error, Param, Result};
+use crate::index::file::refuse_input_as_output;
 use crate::index::{build_index_from, BuildOptions, Index};
 use crate::ingest::{Corpus, Normalize};
 use crate::metric::{Graph, MetricSpec};
@@ -62,6 +63,9 @@ pub struct SweepOptions {
     pub metric: MetricSpec,
     /// The graph of a graph metric.
     pub graph: Option<Graph>,
+    /// The files the sweep reads (input, queries, a cost file): no output may be written
+    /// over one of them (compared by device and inode, so links are caught too).
+    pub inputs: Vec<PathBuf>,
 }
 
 impl Default for SweepOptions {
@@ -78,6 +82,7 @@ impl Default for SweepOptions {
             normalize: Normalize::default(),
             metric: MetricSpec::Levenshtein,
             graph: None,
+            inputs: Vec::new(),
         }
     }
 }
@@ -170,6 +175,9 @@ pub struct SweepReport {
     pub rows: Vec<SweepRow>,
     /// Notes (cache problems), for the user.
     pub notes: Vec<String>,
+    /// The files the sweep read ([`SweepOptions::inputs`]), which [`write_outputs`] spares.
+    #[serde(skip)]
+    pub inputs: Vec<PathBuf>,
 }
 
 /// Progress of a sweep, for a progress bar.
@@ -201,6 +209,10 @@ pub fn run_sweep(
         path: out_dir.to_path_buf(),
         source,
     })?;
+    // Refuse an output that is an input before the long part, not after it.
+    for path in output_paths(out_dir, &opts.candidates) {
+        refuse_input_as_output(&path, &opts.inputs)?;
+    }
     let tmp = tempfile::Builder::new()
         .prefix(".sweep-indexes")
         .tempdir_in(out_dir)
@@ -311,11 +323,31 @@ pub fn run_sweep(
         total_seconds: started.elapsed().as_secs_f64(),
         rows,
         notes,
+        inputs: opts.inputs.clone(),
     })
+}
+
+/// Every file [`write_outputs`] may write into `dir` for these candidate counts.
+fn output_paths(dir: &Path, candidates: &[usize]) -> Vec<PathBuf> {
+    let mut paths = vec![dir.join("sweep.csv"), dir.join("sweep.json")];
+    if cfg!(feature = "charts") {
+        let mut cands = candidates.to_vec();
+        cands.sort_unstable();
+        cands.dedup();
+        paths.extend(
+            cands
+                .iter()
+                .map(|c| dir.join(format!("recall_vs_dim_c{c}.svg"))),
+        );
+        paths.push(dir.join("recall_vs_qps.svg"));
+    }
+    paths
 }
 
 /// Writes `sweep.csv`, `sweep.json` and, with the `charts` feature, the SVG charts into
 /// `dir`; returns the paths written (without the feature: the CSV and JSON files only).
+/// Refused, before anything is written, when one of them is an input of the sweep
+/// ([`SweepReport::inputs`]).
 ///
 /// Charts: `recall_vs_dim_c<C>.svg` (recall@k against dimension, a line per method and space,
 /// one chart per candidate count) and `recall_vs_qps.svg` (recall@k against queries per
@@ -329,6 +361,10 @@ pub fn write_outputs(report: &SweepReport, dir: &Path) -> Result<Vec<PathBuf>> {
         }
     };
     std::fs::create_dir_all(dir).map_err(io(dir))?;
+    let cands: Vec<usize> = report.rows.iter().map(|r| r.candidates).collect();
+    for path in output_paths(dir, &cands) {
+        refuse_input_as_output(&path, &report.inputs)?;
+    }
     let mut written = Vec::new();
     let csv_path = dir.join("sweep.csv");
     {

@@ -1,6 +1,6 @@
 //! Building an index: embed every item, build the tree, write the file.
 
-use std::path::Path;
+use std::path::{Path, PathBuf};
 use std::time::Instant;
 
 use super::file::{ContainerWriter, SectionKind};
@@ -37,6 +37,9 @@ pub struct BuildOptions {
     pub space: Space,
     /// The normalisation the corpus keys were made with; queries get the same.
     pub normalize: Normalize,
+    /// The files the build reads (the input, a cost file): the index must not be written
+    /// over any of them (compared by device and inode, so links are caught too).
+    pub inputs: Vec<PathBuf>,
 }
 
 impl Default for BuildOptions {
@@ -52,6 +55,7 @@ impl Default for BuildOptions {
             candidates: 0,
             space: Space::default(),
             normalize: Normalize::default(),
+            inputs: Vec::new(),
         }
     }
 }
@@ -197,7 +201,7 @@ fn build(
         None => open_metric(&keys, source, opts)?,
     };
     // Start the file first: an unwritable destination fails before the expensive part.
-    let writer = ContainerWriter::create(dest)?;
+    let writer = ContainerWriter::create(dest, &opts.inputs)?;
     let t0 = Instant::now();
     progress.stage(BuildStage::Embed);
     let embedded = embed_items(
@@ -293,7 +297,7 @@ pub fn build_index_from(
             corpus.items.len()
         )));
     }
-    let writer = ContainerWriter::create(dest)?;
+    let writer = ContainerWriter::create(dest, &opts.inputs)?;
     write_index(
         corpus,
         source,

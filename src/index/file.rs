@@ -163,8 +163,10 @@ fn write_err(dest: &Path, e: std::io::Error) -> Error {
 }
 
 impl ContainerWriter {
-    /// Starts writing an index that will replace `dest` when finished.
-    pub fn create(dest: &Path) -> Result<ContainerWriter> {
+    /// Starts writing an index that will replace `dest` when finished; refused when `dest`
+    /// is one of `inputs` (the same file, see [`refuse_input_as_output`]).
+    pub fn create(dest: &Path, inputs: &[PathBuf]) -> Result<ContainerWriter> {
+        refuse_input_as_output(dest, inputs)?;
         let dir = match dest.parent() {
             Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
             _ => PathBuf::from("."),
@@ -281,6 +283,27 @@ fn partial_name_matches(file: &str, dest_name: &str) -> bool {
         .and_then(|f| f.strip_prefix('.'))
         .and_then(|f| f.strip_suffix(PARTIAL_SUFFIX))
         .is_some_and(|r| r.len() == PARTIAL_RAND && r.bytes().all(|b| b.is_ascii_alphanumeric()))
+}
+
+/// Refuses an `output` that is one of `inputs`: the same file by device and inode, so also
+/// under another name, through a symbolic link or a hard link. Writing it would destroy the
+/// input. An output that does not exist yet, or an input that cannot be read, passes.
+pub fn refuse_input_as_output(output: &Path, inputs: &[PathBuf]) -> Result<()> {
+    let Ok(out) = std::fs::metadata(output) else {
+        return Ok(());
+    };
+    let out = file_id(&out);
+    for input in inputs {
+        if std::fs::metadata(input).is_ok_and(|m| file_id(&m) == out) {
+            return Err(Error::Usage(format!(
+                "{}: the output is the input {} (the same file); writing it would destroy \
+                 the input: choose another output",
+                output.display(),
+                input.display()
+            )));
+        }
+    }
+    Ok(())
 }
 
 /// Identity of a file on disk (device and inode).

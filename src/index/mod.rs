@@ -142,13 +142,162 @@ struct Strings {
     bytes: Range<usize>,
 }
 
+/// The largest coordinate scale an index may record: the bounds of exact and range queries,
+/// `scale · (difference − 1)` for differences up to 256, stay finite below it.
+pub const MAX_SCALE: f64 = f64::MAX / 512.0;
+
+/// The counts of the metadata: `n` fits the u32 item numbers, the default candidates are at
+/// least 1, and the records read cover the items and the blank records skipped.
+fn check_counts(meta: &IndexMeta) -> std::result::Result<(), String> {
+    if meta.n > u64::from(u32::MAX) {
+        return Err(format!(
+            "{} items, more than {} an index can hold",
+            meta.n,
+            u32::MAX
+        ));
+    }
+    if meta.n == 0 {
+        return Err("no items".into());
+    }
+    if meta.candidates == 0 {
+        return Err("the stored default of candidates per query is 0".into());
+    }
+    if meta.sample == 0 || meta.sample > meta.n {
+        return Err(format!(
+            "a sample of {} items out of {}",
+            meta.sample, meta.n
+        ));
+    }
+    if meta
+        .n
+        .checked_add(meta.blank_skipped)
+        .is_none_or(|need| meta.records < need)
+    {
+        return Err(format!(
+            "{} records read, fewer than its {} items and {} blank records skipped",
+            meta.records, meta.n, meta.blank_skipped
+        ));
+    }
+    Ok(())
+}
+
+/// The last offset of a strings section: the length of all its strings together.
+fn strings_total(map: &[u8], s: &Strings) -> Option<u64> {
+    let end = s.offsets.end.checked_sub(8)?;
+    let b = map.get(end..s.offsets.end)?;
+    Some(u64::from_le_bytes(b.try_into().ok()?))
+}
+
+/// The metric's parameters, checked at open rather than at first use: q-grams of at least
+/// one character, a non-empty separator, vectors of at least one component whose keys are
+/// `4 · dim` bytes each (in total), an external program with a positive time limit, Hamming
+/// items whose bytes can hold their length in chars.
+fn check_metric_spec(
+    meta: &IndexMeta,
+    map: &[u8],
+    items: &Strings,
+    keys: Option<&Strings>,
+) -> std::result::Result<(), String> {
+    use crate::metric::Tokens;
+    let n = meta.n;
+    match &meta.metric_spec {
+        MetricSpec::Jaccard {
+            tokens: Tokens::QGrams(0),
+        } => Err("jaccard q-grams of 0 characters".into()),
+        MetricSpec::Jaccard {
+            tokens: Tokens::Separator(sep),
+        } if sep.is_empty() => Err("an empty jaccard separator".into()),
+        MetricSpec::Vector { dim, .. } => {
+            if *dim == 0 {
+                return Err("vectors of 0 components".into());
+            }
+            let want = n.checked_mul(4 * u64::from(*dim));
+            let have = keys.and_then(|k| strings_total(map, k));
+            if have.is_none() || have != want {
+                return Err(format!(
+                    "the vector keys hold {} bytes; {n} vectors of {dim} components need {}",
+                    have.map_or("no".to_string(), |h| h.to_string()),
+                    want.map_or("more than fits".to_string(), |w| w.to_string())
+                ));
+            }
+            Ok(())
+        }
+        MetricSpec::External {
+            command,
+            timeout_ms,
+        } => {
+            if command.first().is_none_or(|c| c.is_empty()) {
+                Err("the external metric has no program".into())
+            } else if *timeout_ms == 0 {
+                Err("the external metric has a time limit of 0".into())
+            } else {
+                Ok(())
+            }
+        }
+        MetricSpec::Hamming { length } => {
+            // Each item holds `length` chars of 1 to 4 bytes.
+            let total = strings_total(map, keys.unwrap_or(items));
+            let fits = total.is_some_and(|t| {
+                n.checked_mul(*length).is_some_and(|lo| t >= lo)
+                    && n.checked_mul(*length)
+                        .and_then(|x| x.checked_mul(4))
+                        .is_none_or(|hi| t <= hi)
+            });
+            if fits {
+                Ok(())
+            } else {
+                Err(format!(
+                    "hamming items of {length} chars cannot make {} bytes for {n} items",
+                    total.map_or("no".to_string(), |t| t.to_string())
+                ))
+            }
+        }
+        _ => Ok(()),
+    }
+}
+
 impl Index {
     /// Opens and checks an index file.
     pub fn open(path: &Path) -> Result<Index> {
-        let file = File::open(path).map_err(|source| Error::Io {
+        let io = |source| Error::Io {
             path: path.to_path_buf(),
             source,
-        })?;
+        };
+        // Only a regular file is mapped: opening a FIFO would block until a writer comes,
+        // and a folder or device cannot be an index. The type is checked before the open,
+        // and again on the file opened.
+        let what = |t: std::fs::FileType| {
+            use std::os::unix::fs::FileTypeExt;
+            if t.is_dir() {
+                "a folder"
+            } else if t.is_fifo() {
+                "a named pipe (FIFO)"
+            } else if t.is_socket() {
+                "a socket"
+            } else if t.is_block_device() || t.is_char_device() {
+                "a device"
+            } else {
+                "not a regular file"
+            }
+        };
+        let refuse_type = |t: std::fs::FileType| {
+            Error::refused(
+                path,
+                format!(
+                    "is {}, not an index file (an index is a regular file)",
+                    what(t)
+                ),
+            )
+        };
+        let t = std::fs::metadata(path).map_err(io)?.file_type();
+        if !t.is_file() {
+            return Err(refuse_type(t));
+        }
+        let file = File::open(path).map_err(io)?;
+        let t = file.metadata().map_err(io)?.file_type();
+        if !t.is_file() {
+            return Err(refuse_type(t));
+        }
         // SAFETY: the mapping is read-only and the file is never written in place: builds
         // write a new file and rename it over the old one, so a reader's pages stay valid.
         // Another program truncating the file while it is mapped is outside what any mapped
@@ -177,6 +326,7 @@ impl Index {
                 crate::escape::escape_controls(&e)
             ))
         })?;
+        check_counts(&meta).map_err(corrupt)?;
         let n = usize::try_from(meta.n).map_err(|_| corrupt("n too large".into()))?;
         let expect_len = |k: SectionKind, r: &Range<usize>, want: Option<usize>| match want {
             Some(w) if r.len() == w => Ok(()),
@@ -217,10 +367,16 @@ impl Index {
                 meta.embedding.dim()
             )));
         }
-        if !(meta.scale.is_finite() && meta.scale > 0.0) {
+        // Bounds are `scale · (difference − 1)` for differences up to 255 (and the first one
+        // past them): each must be a finite number, or an exact query's pruning breaks.
+        if !(meta.scale.is_finite() && meta.scale > 0.0 && meta.scale <= MAX_SCALE) {
+            let scale = if meta.scale.abs() < 1e15 {
+                meta.scale.to_string()
+            } else {
+                format!("{:e}", meta.scale)
+            };
             return Err(corrupt(format!(
-                "coordinate scale {} is not a positive number",
-                meta.scale
+                "coordinate scale {scale} is not a positive number of at most {MAX_SCALE:e}"
             )));
         }
         if meta.stride as usize != coord_stride(dim)
@@ -247,6 +403,7 @@ impl Index {
                 meta.metric_spec.kind()
             )));
         }
+        check_metric_spec(&meta, &map, &items, keys.as_ref()).map_err(corrupt)?;
         let graph = find(SectionKind::Graph);
         let cells = find(SectionKind::Cells);
         if (meta.metric == MetricKind::Graph) != graph.is_some() {

@@ -318,6 +318,78 @@ fn bad_input_output_in_a_missing_folder_or_under_a_file() {
 }
 
 #[test]
+fn bad_input_an_output_that_is_an_input_is_refused() {
+    // The same file by name, through a symlink and through a hard link: refused with both
+    // paths named, and the input left as it was.
+    let d = Dir::new();
+    let words: Vec<String> = (0..40).map(|i| format!("Ness Point {i}")).collect();
+    let text = words.join("\n") + "\n";
+    let input = d.write("s.txt", text.as_bytes());
+    std::os::unix::fs::symlink(&input, d.path("link.wmk")).unwrap();
+    std::fs::hard_link(&input, d.path("hard.wmk")).unwrap();
+    for out in ["s.txt", "link.wmk", "hard.wmk"] {
+        d.cmd()
+            .arg("build")
+            .arg("s.txt")
+            .args(["-o", out])
+            .assert()
+            .code(2)
+            .stderr(
+                contains(out)
+                    .and(contains("s.txt"))
+                    .and(contains("is the input")),
+            );
+        assert_eq!(std::fs::read_to_string(&input).unwrap(), text, "{out}");
+    }
+    // The library refuses it too.
+    let corpus = crate::util::corpus(&words);
+    let opts = waymark::index::BuildOptions {
+        inputs: vec![input.clone()],
+        ..Default::default()
+    };
+    let e = waymark::index::build_index(&corpus, "s.txt", &opts, &d.path("hard.wmk"), &|_| {})
+        .unwrap_err();
+    assert!(e.to_string().contains("is the input"), "{e}");
+    assert_eq!(std::fs::read_to_string(&input).unwrap(), text);
+    assert_eq!(
+        d.others(&["s.txt", "link.wmk", "hard.wmk"]),
+        Vec::<String>::new()
+    );
+
+    // A sweep whose output folder holds an input under a name it writes.
+    let queries = d.write("q.txt", b"Ness Pont 3\n");
+    let out = d.path("out");
+    std::fs::create_dir(&out).unwrap();
+    std::fs::hard_link(&input, out.join("sweep.csv")).unwrap();
+    std::fs::hard_link(&queries, out.join("sweep.json")).unwrap();
+    for (hidden, seen) in [("sweep.csv", "s.txt"), ("sweep.json", "q.txt")] {
+        d.cmd()
+            .arg("sweep")
+            .arg("s.txt")
+            .args([
+                "--queries",
+                "q.txt",
+                "--dims",
+                "2",
+                "-k",
+                "2",
+                "--out",
+                "out",
+            ])
+            .assert()
+            .code(2)
+            .stderr(
+                contains(hidden)
+                    .and(contains(seen))
+                    .and(contains("is the input")),
+            );
+        std::fs::remove_file(out.join(hidden)).unwrap();
+    }
+    assert_eq!(std::fs::read_to_string(&input).unwrap(), text);
+    assert_eq!(std::fs::read(&queries).unwrap(), b"Ness Pont 3\n");
+}
+
+#[test]
 fn bad_input_output_in_a_read_only_folder() {
     // Root ignores permission bits, so a read-only place is made with a read-only file
     // system when one is at hand (/proc is one on Linux); the message names the folder.
@@ -1339,4 +1411,285 @@ fn bad_input_control_characters_in_an_index_are_shown_escaped() {
     let err = String::from_utf8(out.stderr.clone()).unwrap();
     assert!(!has_controls(&err), "{err:?}");
     assert!(err.contains(PAINT_ESCAPED), "{err}");
+}
+
+/// `bytes` (an index) with its metadata changed by `change` and every checksum recomputed,
+/// as someone crafting a file would. The JSON is written compactly and padded with spaces
+/// to the section's length, so no other section moves.
+fn with_meta(bytes: &[u8], change: impl Fn(&mut serde_json::Value)) -> Vec<u8> {
+    let meta = section(bytes, 1);
+    let mut v: serde_json::Value = serde_json::from_slice(&bytes[meta.clone()]).unwrap();
+    change(&mut v);
+    let mut json = serde_json::to_vec(&v).unwrap();
+    assert!(
+        json.len() <= meta.len(),
+        "the crafted metadata fits its section"
+    );
+    json.resize(meta.len(), b' ');
+    let mut out = bytes.to_vec();
+    out[meta].copy_from_slice(&json);
+    fix_checksums(&mut out);
+    out
+}
+
+#[test]
+fn bad_input_crafted_meta_fields_are_refused_at_open() {
+    let d = Dir::new();
+    let words = first_words(3_000);
+    let text = d.write("w.txt", words.join("\n").as_bytes());
+    let lev = std::fs::read(d.build(&text, "w.wmk", &["-q", "--dim", "8"])).unwrap();
+    let jac = d.write("j.txt", b"ab cd\nef gh\nab ef\n");
+    let jq = std::fs::read(d.build(
+        &jac,
+        "jq.wmk",
+        &["-q", "--metric", "jaccard", "--qgrams", "2"],
+    ))
+    .unwrap();
+    let js = std::fs::read(d.build(
+        &jac,
+        "js.wmk",
+        &["-q", "--metric", "jaccard", "--separator", ","],
+    ))
+    .unwrap();
+    let vec = d.write("v.csv", b"1,2\n3,4\n5,7\n");
+    let vc = std::fs::read(d.build(&vec, "v.wmk", &["-q", "--metric", "l2"])).unwrap();
+    let ham = d.write("h.txt", b"abc\nabd\nxyz\n");
+    let hm = std::fs::read(d.build(&ham, "h.wmk", &["-q", "--metric", "hamming"])).unwrap();
+    type Change = Box<dyn Fn(&mut serde_json::Value)>;
+    let set = |k: &'static str, v: serde_json::Value| -> Change {
+        Box::new(move |m: &mut serde_json::Value| m[k] = v.clone())
+    };
+    let spec = |v: serde_json::Value| -> Change {
+        Box::new(move |m: &mut serde_json::Value| m["metric_spec"] = v.clone())
+    };
+    use serde_json::json;
+    let cases: Vec<(&str, &[u8], Change, &str)> = vec![
+        // A huge scale made the exact query's bound infinite (a panic in the search).
+        (
+            "huge scale",
+            &lev,
+            set("scale", json!(9e307)),
+            "coordinate scale",
+        ),
+        (
+            "largest scale",
+            &lev,
+            set("scale", json!(f64::MAX)),
+            "coordinate scale",
+        ),
+        ("n past u32", &lev, set("n", json!(1u64 << 32)), "items"),
+        (
+            "candidates 0",
+            &lev,
+            set("candidates", json!(0)),
+            "candidates",
+        ),
+        ("sample 0", &lev, set("sample", json!(0)), "sample"),
+        (
+            "sample above n",
+            &lev,
+            set("sample", json!(3_001)),
+            "sample",
+        ),
+        (
+            "records below n",
+            &lev,
+            set("records", json!(10)),
+            "records",
+        ),
+        (
+            "blank past u64",
+            &lev,
+            set("blank_skipped", json!(u64::MAX)),
+            "records",
+        ),
+        (
+            "q-grams 0",
+            &jq,
+            spec(json!({"kind": "jaccard", "tokens": {"qgrams": 0}})),
+            "q-grams",
+        ),
+        (
+            "empty separator",
+            &js,
+            spec(json!({"kind": "jaccard", "tokens": {"separator": ""}})),
+            "separator",
+        ),
+        (
+            "vector dim 0",
+            &vc,
+            spec(json!({"kind": "vector", "norm": "l2", "dim": 0})),
+            "0 components",
+        ),
+        (
+            "vector dim 3",
+            &vc,
+            spec(json!({"kind": "vector", "norm": "l2", "dim": 3})),
+            "vector keys",
+        ),
+        (
+            "hamming length",
+            &hm,
+            spec(json!({"kind": "hamming", "length": 7})),
+            "hamming",
+        ),
+        (
+            "external, no program",
+            &lev,
+            Box::new(|m: &mut serde_json::Value| {
+                m["metric"] = json!("external");
+                m["metric_spec"] = json!({"kind": "external", "command": [], "timeout_ms": 1000});
+            }),
+            "no program",
+        ),
+        (
+            "external, no time",
+            &lev,
+            Box::new(|m: &mut serde_json::Value| {
+                m["metric"] = json!("external");
+                m["metric_spec"] = json!({"kind": "external", "command": ["x"], "timeout_ms": 0});
+            }),
+            "time limit",
+        ),
+    ];
+    for (what, good, change, says) in &cases {
+        let path = d.write("x.wmk", &with_meta(good, change));
+        match Index::open(&path) {
+            Err(e @ waymark::Error::CorruptIndex { .. }) => {
+                assert!(e.to_string().contains(says), "{what}: {e}")
+            }
+            Err(e) => panic!("{what}: not refused as corrupt: {e}"),
+            Ok(_) => panic!("{what}: opened"),
+        }
+    }
+    // The command line: exit 3, naming the field, for an exact query and the default query.
+    let path = d.write("x.wmk", &with_meta(&lev, set("scale", json!(9e307))));
+    for extra in [&["--exact"][..], &[][..]] {
+        d.cmd()
+            .arg("query")
+            .arg(&path)
+            .args(extra)
+            .write_stdin("abcd\n")
+            .assert()
+            .code(3)
+            .stderr(contains("corrupt index").and(contains("coordinate scale")));
+    }
+    let path = d.write("x.wmk", &with_meta(&lev, set("candidates", json!(0))));
+    d.cmd()
+        .arg("query")
+        .arg(&path)
+        .write_stdin("abcd\n")
+        .assert()
+        .code(3)
+        .stderr(contains("corrupt index").and(contains("candidates per query is 0")));
+    // The untouched files still open.
+    for good in [&lev, &jq, &js, &vc, &hm] {
+        let path = d.write("x.wmk", &with_meta(good, |_| {}));
+        Index::open(&path).expect("an unchanged index opens");
+    }
+}
+
+#[test]
+fn bad_input_an_index_path_that_is_not_a_regular_file_is_refused() {
+    let d = Dir::new();
+    std::fs::create_dir(d.path("folder.wmk")).unwrap();
+    let fifo = d.path("pipe.wmk");
+    let made = std::process::Command::new("mkfifo")
+        .arg(&fifo)
+        .status()
+        .unwrap();
+    assert!(made.success(), "mkfifo");
+    for (name, what) in [("folder.wmk", "a folder"), ("pipe.wmk", "a named pipe")] {
+        // A FIFO hung the open: the child is killed after 20 s, which fails the test.
+        let mut child = std::process::Command::new(waymark_path())
+            .current_dir(d.dir.path())
+            .args(["query", name])
+            .stdin(Stdio::piped())
+            .stdout(Stdio::piped())
+            .stderr(Stdio::piped())
+            .spawn()
+            .unwrap();
+        drop(child.stdin.take());
+        let t0 = Instant::now();
+        let status = loop {
+            if let Some(s) = child.try_wait().unwrap() {
+                break s;
+            }
+            if t0.elapsed() > Duration::from_secs(20) {
+                child.kill().unwrap();
+                panic!("{name}: the query hangs");
+            }
+            std::thread::sleep(Duration::from_millis(20));
+        };
+        let mut err = String::new();
+        child
+            .stderr
+            .take()
+            .unwrap()
+            .read_to_string(&mut err)
+            .unwrap();
+        assert_eq!(status.code(), Some(3), "{name}: {err}");
+        assert!(
+            err.contains(name) && err.contains(what) && err.contains("not an index file"),
+            "{name}: {err}"
+        );
+        match Index::open(&d.path(name)) {
+            Err(e @ waymark::Error::IndexRefused { .. }) => {
+                assert!(e.to_string().contains(what), "{e}")
+            }
+            Err(e) => panic!("{name}: {e}"),
+            Ok(_) => panic!("{name}: opened"),
+        }
+    }
+}
+
+#[test]
+fn bad_input_an_invalid_memory_budget_is_refused() {
+    let d = Dir::new();
+    let path = d.write("few.txt", b"Ness\nNeap\n");
+    for bad in ["lots", "2GB", "-1", ""] {
+        d.cmd()
+            .arg("build")
+            .arg(&path)
+            .args(["-o", "x.wmk"])
+            .env("WAYMARK_MEMORY_BUDGET", bad)
+            .assert()
+            .code(2)
+            .stderr(contains("WAYMARK_MEMORY_BUDGET").and(contains("not a whole number")));
+    }
+    assert_eq!(d.others(&["few.txt"]), Vec::<String>::new());
+}
+
+#[test]
+fn bad_input_distortion_over_no_pairs_says_so() {
+    // One item, and two identical ones: no pair at a distance above 0.
+    let d = Dir::new();
+    for (name, text) in [
+        ("one.txt", "Skerry Light\n"),
+        ("two.txt", "Skerry Light\nSkerry Light\n"),
+    ] {
+        let input = d.write(name, text.as_bytes());
+        let idx = d.build(&input, &format!("{name}.wmk"), &["-q"]);
+        let out = d
+            .cmd()
+            .arg("eval")
+            .arg(&idx)
+            .arg("--distortion")
+            .output()
+            .unwrap();
+        assert!(out.status.success());
+        let text = stdout_of(&out);
+        assert!(text.contains("no pairs to measure"), "{name}: {text}");
+        assert!(!text.contains("histogram"), "{name}: {text}");
+        let out = d
+            .cmd()
+            .arg("eval")
+            .arg(&idx)
+            .args(["--distortion", "--json"])
+            .output()
+            .unwrap();
+        let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+        assert_eq!(v["distortion"]["pairs"], 0, "{name}");
+        assert_eq!(v["distortion"]["spaces"], serde_json::json!([]), "{name}");
+    }
 }
