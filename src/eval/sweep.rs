@@ -253,6 +253,15 @@ pub fn run_sweep(
         );
         metric.check()?;
         embed_seconds.push((method.name(), t.elapsed().as_secs_f64()));
+        if full.dim() == 0 {
+            // FastMap finds no axis among fewer than two distinct items; the other methods
+            // still measure.
+            notes.push(format!(
+                "{}: the items allow no coordinate (too few distinct items); left out",
+                method.name()
+            ));
+            continue;
+        }
         for &dim in &opts.dims {
             let e = full.prefix(dim);
             let path = tmp.path().join(format!("{}-{dim}.wmk", method.name()));
@@ -312,6 +321,12 @@ pub fn run_sweep(
             drop(index);
             let _ = std::fs::remove_file(&path);
         }
+    }
+    if rows.is_empty() {
+        return Err(Error::Usage(format!(
+            "{source}: no embedding method asked for can make a coordinate of these items \
+             (too few distinct items)"
+        )));
     }
     Ok(SweepReport {
         items: corpus.items.len(),

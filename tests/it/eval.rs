@@ -280,3 +280,41 @@ fn eval_measures_the_candidate_source_and_visit_asked_for() {
         "{text}"
     );
 }
+
+/// A corpus of one item: FastMap finds no axis, so it is left out with a note and the other
+/// methods are measured; asked for FastMap alone, the sweep is refused with the reason.
+#[test]
+fn sweep_leaves_out_a_method_that_makes_no_coordinate() {
+    let dir = tempfile::tempdir().unwrap();
+    let one = dir.path().join("one.txt");
+    let queries = dir.path().join("q.txt");
+    std::fs::write(&one, "Keth Landing\n").unwrap();
+    std::fs::write(&queries, "Kath Landing\n").unwrap();
+    let out = dir.path().join("sweep");
+    let run = |methods: &str, out: &Path| {
+        waymark()
+            .arg("sweep")
+            .arg(&one)
+            .arg("--queries")
+            .arg(&queries)
+            .args(["-k", "1", "--dims", "1", "--embeddings", methods])
+            .args(["--spaces", "l1", "--candidates", "1", "--out"])
+            .arg(out)
+            .assert()
+    };
+    let done = run("landmarks,fastmap", &out).success();
+    let err = String::from_utf8_lossy(&done.get_output().stderr).into_owned();
+    assert!(
+        err.contains("fastmap: the items allow no coordinate (too few distinct items); left out"),
+        "{err}"
+    );
+    let mut csv = csv::Reader::from_path(out.join("sweep.csv")).unwrap();
+    let methods: Vec<String> = csv.records().map(|r| r.unwrap()[0].to_string()).collect();
+    assert_eq!(methods, ["landmarks"]);
+    let refused = run("fastmap", &dir.path().join("sweep2")).failure().code(2);
+    let err = String::from_utf8_lossy(&refused.get_output().stderr).into_owned();
+    assert!(
+        err.contains("no embedding method asked for can make a coordinate"),
+        "{err}"
+    );
+}
