@@ -338,8 +338,8 @@ pub(super) struct QueryArgs {
     /// Report a query that cannot be answered (invalid UTF-8, not a node, another length or
     /// dimension) on its own output line, in place of its answer, and go on [default: stop
     /// with exit code 2].
-    #[arg(long = "keep-going")]
-    pub keep_going: bool,
+    #[arg(long = "errors-inline")]
+    pub errors_inline: bool,
     /// Add per-query cost figures (distances computed, candidates pruned) to JSON output.
     #[arg(long)]
     pub stats: bool,

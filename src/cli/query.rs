@@ -99,7 +99,7 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
                         OutFormat::Tsv => write_tsv(&mut out, &index, &query, &found)?,
                     }
                 }
-                Err(Error::InvalidQuery(m) | Error::Usage(m)) if a.keep_going => {
+                Err(Error::InvalidQuery(m) | Error::Usage(m)) if a.errors_inline => {
                     refused += 1;
                     match a.format {
                         OutFormat::Json => write_json_error(&mut out, line, &query, &m)?,
@@ -117,7 +117,7 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
     if a.summary {
         let secs = t0.elapsed().as_secs_f64();
         let per = distances as f64 / answered.max(1) as f64;
-        let refused = if a.keep_going {
+        let refused = if a.errors_inline {
             format!("; {refused} refused")
         } else {
             String::new()

@@ -563,7 +563,7 @@ fn the_external_program_is_named_as_such_in_usage_lines() {
     }
 }
 
-/// What `--keep-going` writes for a query it cannot answer.
+/// What `--errors-inline` writes for a query it cannot answer.
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
 struct Refused {
@@ -572,7 +572,7 @@ struct Refused {
     error: String,
 }
 
-/// One output line of `--keep-going`: an answer or a refused query.
+/// One output line of `--errors-inline`: an answer or a refused query.
 #[derive(Debug, Deserialize)]
 #[serde(untagged)]
 enum Reply {
@@ -682,7 +682,7 @@ fn answers_carry_their_line_blank_lines_included() {
 const CODES: &str = "ACGTACGT\nACGTACGA\nTTGTACGT\nGGGGCCCC\n";
 
 #[test]
-fn keep_going_reports_unanswerable_queries_in_place_and_goes_on() {
+fn errors_inline_reports_unanswerable_queries_in_place_and_goes_on() {
     let d = Dir::new();
     let input = d.write("codes.txt", CODES.as_bytes());
     let idx = d.build(
@@ -711,7 +711,7 @@ fn keep_going_reports_unanswerable_queries_in_place_and_goes_on() {
         .cmd()
         .arg("query")
         .arg(&idx)
-        .args(["-k", "1", "--keep-going"])
+        .args(["-k", "1", "--errors-inline"])
         .write_stdin(queries)
         .assert()
         .success()
@@ -760,7 +760,7 @@ fn keep_going_reports_unanswerable_queries_in_place_and_goes_on() {
         .cmd()
         .arg("query")
         .arg(&idx)
-        .args(["-k", "1", "--keep-going", "--format", "tsv"])
+        .args(["-k", "1", "--errors-inline", "--format", "tsv"])
         .write_stdin(queries)
         .assert()
         .success()
@@ -777,7 +777,7 @@ fn keep_going_reports_unanswerable_queries_in_place_and_goes_on() {
 }
 
 #[test]
-fn keep_going_reports_invalid_utf8_with_the_bytes_replaced() {
+fn errors_inline_reports_invalid_utf8_with_the_bytes_replaced() {
     let d = Dir::new();
     let input = d.write("names.txt", NAMES.as_bytes());
     let idx = d.build(&input, "idx.wmk", &["--dim", "2"]);
@@ -785,7 +785,7 @@ fn keep_going_reports_invalid_utf8_with_the_bytes_replaced() {
         .cmd()
         .arg("query")
         .arg(&idx)
-        .args(["-k", "1", "--keep-going", "--exact"])
+        .args(["-k", "1", "--errors-inline", "--exact"])
         .write_stdin(b"Keth Landing\nK\xfeth\nMirrow Steps\n".to_vec())
         .assert()
         .success()

@@ -583,7 +583,7 @@ fn unknown_metric_is_a_usage_error() {
 }
 
 #[test]
-fn keep_going_goes_past_a_vector_of_another_dimension_and_an_unknown_node() {
+fn errors_inline_goes_past_a_vector_of_another_dimension_and_an_unknown_node() {
     let d = Dir::new();
     // Euclidean distances by hand: (0,1)–(0,0) = 1, (3,3)–(3,4) = 1.
     let vectors = d.write("v.csv", b"0,0\n3,4\n10,10\n");
@@ -613,7 +613,7 @@ fn keep_going_goes_past_a_vector_of_another_dimension_and_an_unknown_node() {
         let out = waymark()
             .arg("query")
             .arg(&index)
-            .args(["-k", "1", "--exact", "--keep-going"])
+            .args(["-k", "1", "--exact", "--errors-inline"])
             .write_stdin(queries)
             .assert()
             .success()
