@@ -26,8 +26,10 @@ lower-casing, punctuation folding and sorting its words.
 import csv
 import os
 import random
+import sys
 
-HERE = os.path.dirname(os.path.abspath(__file__))
+# The files go beside this script, or into the folder given as the only argument.
+HERE = sys.argv[1] if len(sys.argv) > 1 else os.path.dirname(os.path.abspath(__file__))
 rng = random.Random(8191)
 
 ONSETS = ["", "b", "d", "f", "g", "h", "k", "l", "m", "n", "r", "s", "t", "v", "th", "sk",

@@ -130,8 +130,11 @@ fn a_moved_word_costs_two_where_levenshtein_charges_its_length() {
     );
 }
 
-/// (code, name) of the bundled trading register, and its truth (code -> (firm, kind)).
-fn traders() -> (Vec<(String, String)>, HashMap<String, (String, String)>) {
+/// code -> (firm, kind), as `traders-truth.csv` has them.
+type Truth = HashMap<String, (String, String)>;
+
+/// (code, name) of the bundled trading register, and its truth.
+fn traders() -> (Vec<(String, String)>, Truth) {
     let mut rows = Vec::new();
     let mut r = csv::Reader::from_path(demo("traders.csv")).unwrap();
     for rec in r.records() {

@@ -238,3 +238,25 @@ fn bad_input_name_normalisations_on_vectors_or_graphs_are_refused() {
         }
     }
 }
+
+#[test]
+fn the_trading_register_is_regenerated_byte_for_byte() {
+    // The generator (Python 3 standard library, fixed seed) writes into a temp folder; its
+    // output must equal the committed files.
+    let d = Dir::new();
+    let out = std::process::Command::new("python3")
+        .arg(crate::util::repo_file("demo-data/generate_traders.py"))
+        .arg(d.path(""))
+        .output()
+        .expect("python3 runs");
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    for f in ["traders.csv", "traders-truth.csv"] {
+        let made = std::fs::read(d.path(f)).unwrap();
+        let kept = std::fs::read(crate::util::demo(f)).unwrap();
+        assert!(made == kept, "{f} differs from what the generator writes");
+    }
+}
