@@ -260,3 +260,37 @@ fn the_trading_register_is_regenerated_byte_for_byte() {
         assert!(made == kept, "{f} differs from what the generator writes");
     }
 }
+
+/// `examples/name_matching.rs` measures every pair of the trading register; whatever the
+/// radius, sorting the words puts every word-order variant at distance 0 from its original.
+#[test]
+fn the_name_matching_example_finds_every_swap_once_words_are_sorted() {
+    // Integration tests live in target/<profile>/deps; cargo builds examples beside it.
+    let exe = std::env::current_exe().unwrap();
+    let examples = exe.parent().unwrap().parent().unwrap().join("examples");
+    let bin = examples.join(format!("name_matching{}", std::env::consts::EXE_SUFFIX));
+    assert!(
+        bin.exists(),
+        "{} not built (cargo test builds examples)",
+        bin.display()
+    );
+    let out = std::process::Command::new(&bin).output().unwrap();
+    let stdout = String::from_utf8_lossy(&out.stdout);
+    assert!(
+        out.status.success(),
+        "{stdout}{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let truth = std::fs::read_to_string(crate::util::demo("traders-truth.csv")).unwrap();
+    let swaps = truth.lines().filter(|l| l.ends_with(",swap")).count();
+    let rows: Vec<Vec<&str>> = stdout
+        .lines()
+        .filter(|l| l.contains("--sort-tokens"))
+        .map(|l| l.split('|').map(str::trim).collect())
+        .collect();
+    assert_eq!(rows.len(), 8, "{stdout}");
+    for r in rows {
+        // | choice | R | pairs | same-firm | precision | recall | typo | case | swap | …
+        assert_eq!(r[9], format!("{swaps}/{swaps}"), "{r:?}");
+    }
+}
