@@ -120,6 +120,9 @@ pub(super) enum MetricArg {
     Weighted,
     /// 1 − |A∩B|/|A∪B| of token sets (--separator) or character q-grams (--qgrams).
     Jaccard,
+    /// Edit distance over words: a word inserted or deleted costs 1, one word for another
+    /// costs their normalised Levenshtein distance (0 to 1), so moved words and typos cost little.
+    TokenEdit,
     /// Sum of absolute differences of numeric vectors (CSV/TSV rows or .npy).
     L1,
     /// Euclidean distance of numeric vectors.
@@ -142,6 +145,7 @@ impl From<MetricArg> for MetricKind {
             MetricArg::Hamming => MetricKind::Hamming,
             MetricArg::Weighted => MetricKind::WeightedEdit,
             MetricArg::Jaccard => MetricKind::Jaccard,
+            MetricArg::TokenEdit => MetricKind::TokenEdit,
             MetricArg::L1 => MetricKind::L1,
             MetricArg::L2 => MetricKind::L2,
             MetricArg::Linf => MetricKind::Linf,
@@ -216,6 +220,16 @@ pub(super) struct InputArgs {
     /// --fold-case).
     #[arg(long)]
     trim: bool,
+    /// Compare items with punctuation as white space, runs of white space as one space, and
+    /// no white space at the ends (`Keth-Marine, Ltd.` as `Keth Marine Ltd`; stored and
+    /// applied like --fold-case).
+    #[arg(long = "fold-punct")]
+    fold_punct: bool,
+    /// Compare items with their white-space-separated words sorted, so that word order does
+    /// not count (`Marine Supply Keth` as `Keth Marine Supply`; stored and applied like
+    /// --fold-case).
+    #[arg(long = "sort-tokens")]
+    sort_tokens: bool,
 }
 
 /// Where the ids are (`build` and `sweep`).
@@ -232,6 +246,8 @@ impl InputArgs {
         Normalize {
             fold_case: self.fold_case,
             trim: self.trim,
+            fold_punct: self.fold_punct,
+            sort_tokens: self.sort_tokens,
         }
     }
 

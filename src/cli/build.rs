@@ -89,7 +89,7 @@ pub(super) fn build(a: BuildArgs) -> anyhow::Result<()> {
         if (m.dim as usize) < a.dim {
             writeln!(
                 out,
-                "note: only {} coordinates could be made (asked for {}): the input has too few distinct items",
+                "note: only {} coordinates could be made (asked for {}): the input has too few distinct items (items at distance 0 from each other count as one)",
                 m.dim, a.dim
             )?;
         }

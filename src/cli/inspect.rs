@@ -102,13 +102,16 @@ pub(super) fn inspect(a: InspectArgs) -> anyhow::Result<()> {
             *timeout_ms as f64 / 1000.0
         ),
         MetricSpec::Custom { name, .. } => format!(" (`{}`, written in Rust)", esc(name)),
-        MetricSpec::Levenshtein | MetricSpec::Damerau | MetricSpec::Graph => String::new(),
+        MetricSpec::Levenshtein
+        | MetricSpec::Damerau
+        | MetricSpec::TokenEdit
+        | MetricSpec::Graph => String::new(),
     };
     writeln!(out, "metric        {}{params}", m.metric)?;
     writeln!(
         out,
-        "normalise     fold-case {}, trim {}",
-        m.normalize.fold_case, m.normalize.trim
+        "normalise     fold-case {}, trim {}, fold-punct {}, sort-tokens {}",
+        m.normalize.fold_case, m.normalize.trim, m.normalize.fold_punct, m.normalize.sort_tokens
     )?;
     let how = match &m.embedding {
         crate::embed::Embedding::Landmarks { .. } => {

@@ -437,6 +437,7 @@ mod tests {
         let fold = Normalize {
             fold_case: true,
             trim: true,
+            ..Normalize::default()
         };
         let folded = BuildOptions {
             normalize: fold,

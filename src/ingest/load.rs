@@ -134,7 +134,8 @@ pub fn load_input(
         || !ingest.normalize.is_identity();
     if (vector.is_some() || metric.kind == MetricKind::Graph) && text_options_given {
         return Err(usage(format!(
-            "--field, --id-field, --input-format, --fold-case and --trim are for text inputs; \
+            "--field, --id-field, --input-format, --fold-case, --trim, --fold-punct and \
+             --sort-tokens are for text inputs; \
              --metric {name} reads {}",
             if vector.is_some() {
                 "one vector per line (or a .npy file)"
@@ -146,6 +147,7 @@ pub fn load_input(
     let spec = match metric.kind {
         MetricKind::Levenshtein => MetricSpec::Levenshtein,
         MetricKind::Damerau => MetricSpec::Damerau,
+        MetricKind::TokenEdit => MetricSpec::TokenEdit,
         MetricKind::Hamming => MetricSpec::Hamming { length: 0 },
         MetricKind::WeightedEdit => {
             let file = metric
@@ -301,7 +303,7 @@ mod tests {
         let folded = IngestOptions {
             normalize: crate::ingest::Normalize {
                 fold_case: true,
-                trim: false,
+                ..Default::default()
             },
             ..IngestOptions::default()
         };

@@ -160,6 +160,20 @@ pub struct IngestOptions {
 
 /// Changes applied to items before comparing them; stored in the index and applied to
 /// every query, so that queries are compared exactly like the items were.
+///
+/// The steps run in this order: trim, fold punctuation, fold case, sort tokens. A metric d
+/// applied after a normalisation f compares `d(f(a), f(b))`: a *pseudometric* on the items
+/// as given (two different items with one comparison form are at distance 0, `"Keth Marine"`
+/// and `"Marine Keth"` with [`Normalize::sort_tokens`]). Symmetry and the triangle
+/// inequality still hold, so the lower bounds of exact and range queries stay valid; such
+/// items tie at distance 0 and come out ordered by id.
+///
+/// ```
+/// use waymark::ingest::Normalize;
+///
+/// let n = Normalize { fold_case: true, fold_punct: true, sort_tokens: true, ..Normalize::default() };
+/// assert_eq!(n.apply("Marine-Supply (Keth),  Ltd."), "keth ltd marine supply");
+/// ```
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
 pub struct Normalize {
     /// Compare in lower case (`str::to_lowercase`, Unicode's default lower-casing: `Å` → `å`).
@@ -168,24 +182,81 @@ pub struct Normalize {
     /// Ignore leading and trailing white space (Unicode `White_Space`); an item that is only
     /// white space then counts as blank and is skipped.
     pub trim: bool,
+    /// Punctuation (Unicode general category P: `.,;:!?'"-_()[]{}/\&*#%@` and their
+    /// kin, `’ – « »`) becomes a space, then runs of white space become one space and the
+    /// ends are trimmed. Symbols (`+`, `$`, `©`) and letters, digits and marks are kept. An
+    /// item of only punctuation and white space counts as blank and is skipped.
+    #[serde(default, skip_serializing_if = "is_false")]
+    pub fold_punct: bool,
+    /// Split on white space, sort the tokens (byte order, after the steps above) and join
+    /// them with one space, so that word order does not count; implies trimming.
+    #[serde(default, skip_serializing_if = "is_false")]
+    pub sort_tokens: bool,
+}
+
+/// For serde: fields that are off are left out, so that files and cache keys written
+/// before they existed stay as they were.
+fn is_false(b: &bool) -> bool {
+    !*b
+}
+
+/// Whether `c` is punctuation (Unicode general category P*).
+fn is_punctuation(c: char) -> bool {
+    use unicode_general_category::{get_general_category, GeneralCategory as G};
+    if c.is_ascii() {
+        return c.is_ascii_punctuation()
+            && !matches!(c, '$' | '+' | '<' | '=' | '>' | '^' | '`' | '|' | '~');
+    }
+    matches!(
+        get_general_category(c),
+        G::ConnectorPunctuation
+            | G::DashPunctuation
+            | G::OpenPunctuation
+            | G::ClosePunctuation
+            | G::InitialPunctuation
+            | G::FinalPunctuation
+            | G::OtherPunctuation
+    )
 }
 
 impl Normalize {
     /// The comparison form of `s`.
     pub fn apply<'a>(&self, s: &'a str) -> Cow<'a, str> {
         let s = if self.trim { s.trim() } else { s };
+        let mut s = Cow::Borrowed(s);
+        if self.fold_punct {
+            let spaced = s.chars().any(is_punctuation)
+                || s.starts_with(char::is_whitespace)
+                || s.ends_with(char::is_whitespace)
+                || s.chars().any(|c| c.is_whitespace() && c != ' ')
+                || s.contains("  ");
+            if spaced {
+                let cleaned: String = s
+                    .chars()
+                    .map(|c| if is_punctuation(c) { ' ' } else { c })
+                    .collect();
+                s = Cow::Owned(cleaned.split_whitespace().collect::<Vec<_>>().join(" "));
+            }
+        }
         // A character changes under lower-casing iff its lower case is not itself; this also
         // catches title-case letters such as U+01C5, which `char::is_uppercase` does not.
         if self.fold_case && s.chars().any(|c| !c.to_lowercase().eq([c])) {
-            Cow::Owned(s.to_lowercase())
-        } else {
-            Cow::Borrowed(s)
+            s = Cow::Owned(s.to_lowercase());
         }
+        if self.sort_tokens {
+            let mut tokens: Vec<&str> = s.split_whitespace().collect();
+            tokens.sort_unstable();
+            let joined = tokens.join(" ");
+            if joined != *s {
+                return Cow::Owned(joined);
+            }
+        }
+        s
     }
 
     /// Whether this normalisation changes nothing.
     pub fn is_identity(&self) -> bool {
-        !self.fold_case && !self.trim
+        !self.fold_case && !self.trim && !self.fold_punct && !self.sort_tokens
     }
 }
 

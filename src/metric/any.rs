@@ -22,8 +22,8 @@ use serde::{Deserialize, Serialize};
 use super::{
     CostRules, CostTable, CustomMetric, CustomQuery, Damerau, DamerauQuery, ExternalMetric,
     ExternalQuery, Graph, GraphMetric, GraphQuery, Hamming, HammingQuery, Jaccard, JaccardQuery,
-    Levenshtein, LevenshteinQuery, Metric, MetricError, MetricKind, Norm, PreparedQuery, Tokens,
-    VectorMetric, VectorQuery, WeightedEdit, WeightedQuery,
+    Levenshtein, LevenshteinQuery, Metric, MetricError, MetricKind, Norm, PreparedQuery, TokenEdit,
+    TokenEditQuery, Tokens, VectorMetric, VectorQuery, WeightedEdit, WeightedQuery,
 };
 
 /// A metric as recorded in an index: its kind and its parameters.
@@ -50,6 +50,8 @@ pub enum MetricSpec {
         /// How items are cut into set elements.
         tokens: Tokens,
     },
+    /// Edit distance over words ([`TokenEdit`]).
+    TokenEdit,
     /// A distance between `f32` vectors.
     Vector {
         /// Which distance.
@@ -85,6 +87,7 @@ impl MetricSpec {
             MetricSpec::Hamming { .. } => MetricKind::Hamming,
             MetricSpec::WeightedEdit { .. } => MetricKind::WeightedEdit,
             MetricSpec::Jaccard { .. } => MetricKind::Jaccard,
+            MetricSpec::TokenEdit => MetricKind::TokenEdit,
             MetricSpec::Vector { norm, .. } => match norm {
                 Norm::L1 => MetricKind::L1,
                 Norm::L2 => MetricKind::L2,
@@ -133,6 +136,7 @@ impl MetricSpec {
                 AnyMetric::WeightedEdit(WeightedEdit::new(table))
             }
             MetricSpec::Jaccard { tokens } => AnyMetric::Jaccard(Jaccard::new(tokens.clone())?),
+            MetricSpec::TokenEdit => AnyMetric::TokenEdit(TokenEdit),
             MetricSpec::Vector { norm, dim } => {
                 AnyMetric::Vector(VectorMetric::new(*norm, *dim as usize)?)
             }
@@ -173,6 +177,8 @@ pub enum AnyMetric {
     WeightedEdit(WeightedEdit),
     /// [`Jaccard`].
     Jaccard(Jaccard),
+    /// [`TokenEdit`].
+    TokenEdit(TokenEdit),
     /// [`VectorMetric`].
     Vector(VectorMetric),
     /// [`GraphMetric`].
@@ -201,6 +207,8 @@ pub enum AnyQuery {
     WeightedEdit(WeightedQuery),
     /// For [`Jaccard`].
     Jaccard(JaccardQuery),
+    /// For [`TokenEdit`].
+    TokenEdit(TokenEditQuery),
     /// For [`VectorMetric`].
     Vector(VectorQuery),
     /// For [`GraphMetric`].
@@ -219,6 +227,7 @@ macro_rules! each {
             AnyQuery::Hamming($name) => $body,
             AnyQuery::WeightedEdit($name) => $body,
             AnyQuery::Jaccard($name) => $body,
+            AnyQuery::TokenEdit($name) => $body,
             AnyQuery::Vector($name) => $body,
             AnyQuery::Graph($name) => $body,
             AnyQuery::External($name) => $body,
@@ -246,6 +255,7 @@ macro_rules! each_metric {
             AnyMetric::Hamming($name) => $body,
             AnyMetric::WeightedEdit($name) => $body,
             AnyMetric::Jaccard($name) => $body,
+            AnyMetric::TokenEdit($name) => $body,
             AnyMetric::Vector($name) => $body,
             AnyMetric::Graph($name) => $body,
             AnyMetric::External($name) => $body,
@@ -280,6 +290,7 @@ impl Metric for AnyMetric {
             AnyMetric::Hamming(m) => AnyQuery::Hamming(m.prepare(query)),
             AnyMetric::WeightedEdit(m) => AnyQuery::WeightedEdit(m.prepare(query)),
             AnyMetric::Jaccard(m) => AnyQuery::Jaccard(m.prepare(query)),
+            AnyMetric::TokenEdit(m) => AnyQuery::TokenEdit(m.prepare(query)),
             AnyMetric::Vector(m) => AnyQuery::Vector(m.prepare(query)),
             AnyMetric::Graph(m) => AnyQuery::Graph(m.prepare(query)),
             AnyMetric::External(m) => AnyQuery::External(m.prepare(query)),

@@ -15,6 +15,7 @@
 //! | [`Damerau`] | strings (unrestricted Damerau–Levenshtein) | nothing |
 //! | [`WeightedEdit`] | strings | a cost file ([`CostTable`]) |
 //! | [`Jaccard`] | strings, as word or q-gram sets | [`Tokens`] |
+//! | [`TokenEdit`] | strings, as word sequences (edits of words, normalised Levenshtein between words) | nothing |
 //! | [`VectorMetric`] | little-endian `f32` vectors | [`Norm`] and the dimension |
 //! | [`GraphMetric`] | node names | an edge list ([`Graph`]) |
 //! | [`ExternalMetric`] | strings | a program speaking the `waymark-metric` protocol |
@@ -33,6 +34,7 @@ mod graph;
 mod hamming;
 mod jaccard;
 mod levenshtein;
+mod token_edit;
 mod vector;
 mod weighted;
 
@@ -46,6 +48,7 @@ pub use graph::{Disconnected, Graph, GraphMetric, GraphQuery};
 pub use hamming::{check_equal_lengths, Hamming, HammingQuery};
 pub use jaccard::{Jaccard, JaccardQuery, Tokens};
 pub use levenshtein::{Levenshtein, LevenshteinQuery};
+pub use token_edit::{normalized_levenshtein, TokenEdit, TokenEditQuery};
 pub use vector::{vector_bytes, Norm, VectorMetric, VectorQuery};
 pub use weighted::{CostRules, CostTable, WeightedEdit, WeightedQuery};
 
@@ -167,6 +170,10 @@ pub enum MetricKind {
     WeightedEdit,
     /// Jaccard distance of token or q-gram sets.
     Jaccard,
+    /// Edit distance over words: a word inserted or deleted costs 1, one word for another
+    /// their normalised Levenshtein distance.
+    #[serde(rename = "token-edit")]
+    TokenEdit,
     /// L1 distance of `f32` vectors.
     L1,
     /// L2 distance of `f32` vectors.
@@ -192,6 +199,7 @@ impl MetricKind {
             MetricKind::Damerau => "damerau",
             MetricKind::WeightedEdit => "weighted-edit",
             MetricKind::Jaccard => "jaccard",
+            MetricKind::TokenEdit => "token-edit",
             MetricKind::L1 => "l1",
             MetricKind::L2 => "l2",
             MetricKind::Linf => "linf",
@@ -208,6 +216,7 @@ impl MetricKind {
             MetricKind::Levenshtein | MetricKind::Hamming | MetricKind::Damerau => true,
             MetricKind::WeightedEdit
             | MetricKind::Jaccard
+            | MetricKind::TokenEdit
             | MetricKind::L1
             | MetricKind::L2
             | MetricKind::Linf

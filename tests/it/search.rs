@@ -35,7 +35,7 @@ fn round_trip_keeps_items_ids_and_parameters() {
         format: Some(InputFormat::Text),
         normalize: Normalize {
             fold_case: true,
-            trim: false,
+            ..Normalize::default()
         },
         ..Default::default()
     };
