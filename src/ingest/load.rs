@@ -159,6 +159,7 @@ pub fn load_input(
         }
         MetricKind::Jaccard => {
             let tokens = match (&metric.qgrams, &metric.separator) {
+                (Some(0), _) => return Err(usage("--qgrams must be at least 1, not 0".into())),
                 (Some(q), _) => Tokens::QGrams(*q),
                 (None, Some(s)) => Tokens::Separator(s.clone()),
                 (None, None) => Tokens::Whitespace,
