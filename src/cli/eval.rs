@@ -79,7 +79,13 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
             ),
             TruthSource::Computed { seconds, note } => {
                 if let Some(n) = note {
-                    eprintln!("waymark: note: {n}");
+                    // A cache whose answers are wrong is a warning; a stale one only a note.
+                    let level = if n.contains("does not hold the true answers") {
+                        "warning"
+                    } else {
+                        "note"
+                    };
+                    eprintln!("waymark: {level}: {n}");
                 }
                 let qps = queries.len() as f64 / seconds.max(1e-9);
                 (

@@ -117,6 +117,28 @@ struct Pipe {
     requests: Option<Sender<Vec<u8>>>,
     /// Response lines from the reader thread; disconnected at the program's end of output.
     responses: Receiver<Result<String, String>>,
+    /// Requests answered so far (the hello line is not one).
+    answered: u64,
+}
+
+impl Pipe {
+    /// A line the program wrote that no request asked for (waiting before a request is
+    /// sent, or after the last answer), as the protocol error that refuses it.
+    fn stray_line(&mut self) -> Option<String> {
+        let extra = match self.responses.try_recv() {
+            Ok(Ok(line)) => preview(&line),
+            Ok(Err(e)) => e,
+            Err(_) => return None,
+        };
+        let after = match self.answered {
+            0 => "its hello line".to_string(),
+            n => format!("its answer to request {n}"),
+        };
+        Some(format!(
+            "broke the protocol: wrote a second line after {after}, where one line answers \
+             one request: {extra}"
+        ))
+    }
 }
 
 #[derive(Serialize)]
@@ -221,6 +243,7 @@ impl ExternalMetric {
                     child,
                     requests: Some(req_tx),
                     responses: resp_rx,
+                    answered: 0,
                 }),
                 failed: Mutex::new(None),
                 stderr: tail,
@@ -253,9 +276,19 @@ impl ExternalMetric {
 
     /// The first failure of the program, if any (after which distances are NaN).
     pub fn check(&self) -> Result<(), MetricError> {
-        match &*self.inner.failed.lock().unwrap_or_else(|e| e.into_inner()) {
+        if let Some(message) = &*self.inner.failed.lock().unwrap_or_else(|e| e.into_inner()) {
+            return Err(self.inner.error(message.clone()));
+        }
+        // A line after the last answer breaks the protocol as one before a request does
+        // (not looked for while another thread has a request out: it is checked then).
+        let stray = match self.inner.pipe.try_lock() {
+            Ok(mut pipe) => pipe.stray_line(),
+            Err(std::sync::TryLockError::Poisoned(e)) => e.into_inner().stray_line(),
+            Err(std::sync::TryLockError::WouldBlock) => None,
+        };
+        match stray {
+            Some(message) => Err(self.inner.fail(message)),
             None => Ok(()),
-            Some(message) => Err(self.inner.error(message.clone())),
         }
     }
 
@@ -451,12 +484,18 @@ impl Inner {
             let cap = ANSWER_BYTES_PER_ITEM
                 .saturating_mul(items.len())
                 .saturating_add(ANSWER_SLACK);
-            self.line_cap.store(cap, Ordering::Relaxed);
-            let sent = pipe.requests.as_ref().is_some_and(|s| s.send(line).is_ok());
-            if sent {
-                self.receive(&mut pipe, "the distances", self.timeout)
+            if let Some(stray) = pipe.stray_line() {
+                Err(stray)
             } else {
-                Err("its input is closed".into())
+                self.line_cap.store(cap, Ordering::Relaxed);
+                let sent = pipe.requests.as_ref().is_some_and(|s| s.send(line).is_ok());
+                let got = if sent {
+                    self.receive(&mut pipe, "the distances", self.timeout)
+                } else {
+                    Err("its input is closed".into())
+                };
+                pipe.answered += 1;
+                got
             }
         };
         let line = answer.map_err(|m| self.fail(m))?;
