@@ -115,8 +115,11 @@ struct Pipe {
     child: Child,
     /// Request lines to the writer thread (which owns the program's stdin); `None` once closed.
     requests: Option<Sender<Vec<u8>>>,
-    /// Response lines from the reader thread; disconnected at the program's end of output.
-    responses: Receiver<Result<String, String>>,
+    /// Response lines from the reader thread, each with whether more output was already
+    /// waiting behind it; disconnected at the program's end of output.
+    responses: Receiver<Result<(String, bool), String>>,
+    /// Whether more output was waiting behind the last line received.
+    more_behind: bool,
     /// Requests answered so far (the hello line is not one).
     answered: u64,
 }
@@ -125,10 +128,19 @@ impl Pipe {
     /// A line the program wrote that no request asked for (waiting before a request is
     /// sent, or after the last answer), as the protocol error that refuses it.
     fn stray_line(&mut self) -> Option<String> {
-        let extra = match self.responses.try_recv() {
-            Ok(Ok(line)) => preview(&line),
-            Ok(Err(e)) => e,
-            Err(_) => return None,
+        let extra = if std::mem::take(&mut self.more_behind) {
+            // Already read behind the last line: it comes at once.
+            match self.responses.recv_timeout(Duration::from_secs(1)) {
+                Ok(Ok((line, _))) => preview(&line),
+                Ok(Err(e)) => e,
+                Err(_) => "(a part of a line)".to_string(),
+            }
+        } else {
+            match self.responses.try_recv() {
+                Ok(Ok((line, _))) => preview(&line),
+                Ok(Err(e)) => e,
+                Err(_) => return None,
+            }
         };
         let after = match self.answered {
             0 => "its hello line".to_string(),
@@ -207,7 +219,9 @@ impl ExternalMetric {
                 let end = !matches!(line, Ok(Some(_)));
                 let sent = match line {
                     Ok(None) => break,
-                    Ok(Some(line)) => resp_tx.send(Ok(line)),
+                    // Bytes already read behind the line were written before any next
+                    // request could be answered: a second line for one request.
+                    Ok(Some(line)) => resp_tx.send(Ok((line, !r.buffer().is_empty()))),
                     Err(e) => resp_tx.send(Err(e)),
                 };
                 if end || sent.is_err() {
@@ -243,6 +257,7 @@ impl ExternalMetric {
                     child,
                     requests: Some(req_tx),
                     responses: resp_rx,
+                    more_behind: false,
                     answered: 0,
                 }),
                 failed: Mutex::new(None),
@@ -431,7 +446,10 @@ impl Inner {
     /// Waits for one line, with the time limit.
     fn receive(&self, pipe: &mut Pipe, what: &str, limit: Duration) -> Result<String, String> {
         match pipe.responses.recv_timeout(limit) {
-            Ok(Ok(line)) => Ok(line),
+            Ok(Ok((line, more))) => {
+                pipe.more_behind = more;
+                Ok(line)
+            }
             Ok(Err(e)) => Err(format!(
                 "{e}, waiting for {what}; stopped it{}",
                 self.stderr_tail()
@@ -495,7 +513,10 @@ impl Inner {
                     Err("its input is closed".into())
                 };
                 pipe.answered += 1;
-                got
+                match (got, pipe.more_behind) {
+                    (Ok(_), true) => Err(pipe.stray_line().unwrap_or_default()),
+                    (got, _) => got,
+                }
             }
         };
         let line = answer.map_err(|m| self.fail(m))?;
