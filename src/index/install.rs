@@ -40,14 +40,16 @@ pub fn install_index(source: &Path, dest: &Path) -> Result<u64> {
         let path = path.to_path_buf();
         move |source| Error::Io { path, source }
     };
+    let not_regular = || Error::refused(source, "is not a regular file, not an index file");
+    // The type is checked by name first, so that a FIFO is never opened (the open would
+    // wait for a writer), and again on the file opened, which is what counts.
+    if !std::fs::metadata(source).map_err(io(source))?.is_file() {
+        return Err(not_regular());
+    }
     let mut src = File::open(source).map_err(io(source))?;
-    // Checked on the file opened, not by name.
     let meta = src.metadata().map_err(io(source))?;
     if !meta.is_file() {
-        return Err(Error::refused(
-            source,
-            "is not a regular file, not an index file",
-        ));
+        return Err(not_regular());
     }
     if std::fs::metadata(dest).is_ok_and(|d| file_id(&d) == file_id(&meta)) {
         return Err(Error::Usage(format!(
