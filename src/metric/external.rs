@@ -28,7 +28,10 @@
 //! Each batch has a time limit ([`ExternalMetric::spawn`]). When the program exits, stops
 //! answering within the limit, writes a line that is not a response or that is longer than
 //! its cap (the hello line [`HELLO_MAX`] bytes, an answer [`ANSWER_BYTES_PER_ITEM`] bytes per
-//! item plus [`ANSWER_SLACK`]), or gives the wrong number of distances, waymark kills it and
+//! item plus [`ANSWER_SLACK`]), writes more than one line for a request (a line read
+//! together with its answer, or waiting before the next request is sent, or found by
+//! [`ExternalMetric::check`] after the last answer), or gives the wrong number of
+//! distances, waymark kills it and
 //! reports a [`MetricError::Program`] naming the command and what happened. Its standard
 //! error is read all the time (so the program never blocks on it), and only the last
 //! [`STDERR_TAIL`] bytes are kept, for error messages. Text the program or the command

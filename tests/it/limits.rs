@@ -842,7 +842,9 @@ fn bad_input_a_ground_truth_cache_that_is_a_device_a_fifo_or_too_large_is_not_re
         }
         make(&path);
     };
-    let cases: Vec<(&str, Box<dyn Fn(&Path)>, &str)> = vec![
+    /// What the cache path is made into, and what the note says.
+    type Case<'a> = (&'a str, Box<dyn Fn(&Path) + 'a>, &'a str);
+    let cases: Vec<Case> = vec![
         (
             "a link to /dev/zero",
             Box::new(|p| std::os::unix::fs::symlink("/dev/zero", p).expect("symlink")),
