@@ -315,8 +315,8 @@ fn bad_input_pairs_and_samples_beyond_the_memory_budget_are_refused_up_front() {
         );
 }
 
-/// An endless input (a pipe from `yes`, `/dev/zero` as one endless line, `/dev/urandom`)
-/// stops once more than a third of the budget has been read, with exit 2 and a message, and
+/// An endless input (a pipe from `yes`, `/dev/zero` as one endless line, `/dev/urandom` as
+/// vectors, `/dev/zero` as an edge list or as a cost file) stops once more than a third of the budget has been read, with exit 2 and a message, and
 /// leaves nothing behind: no index, no temp file.
 #[test]
 fn bad_input_an_endless_input_stops_at_the_memory_budget_and_writes_nothing() {
@@ -348,9 +348,13 @@ fn bad_input_an_endless_input_stops_at_the_memory_budget_and_writes_nothing() {
     );
     assert!(err.contains("WAYMARK_MEMORY_BUDGET"), "{err}");
     // One line without end, and random bytes read as vectors (no line ends, no text check).
+    let costs = d.write("costs.txt", b"indel * 1\nsub * * 1\n");
+    let costs = costs.to_str().expect("utf-8 path");
     for (input, extra) in [
         ("/dev/zero", vec![]),
         ("/dev/urandom", vec!["--metric", "l2"]),
+        ("/dev/zero", vec!["--metric", "graph"]),
+        (costs, vec!["--metric", "weighted", "--costs", "/dev/zero"]),
     ] {
         let out = d
             .cmd()
@@ -367,7 +371,7 @@ fn bad_input_an_endless_input_stops_at_the_memory_budget_and_writes_nothing() {
             "{err}"
         );
     }
-    assert_eq!(d.others(&[]), Vec::<String>::new());
+    assert_eq!(d.others(&["costs.txt"]), Vec::<String>::new());
 }
 
 // ---------------------------------------------------------------------------------------
