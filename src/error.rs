@@ -137,6 +137,8 @@ pub enum Param {
     Dims,
     /// The methods, dimensions and spaces of a sweep (each needs one value at least).
     SweepAxes,
+    /// The items landmarks and pivots are chosen from ([`crate::index::BuildOptions::sample`]).
+    Sample,
 }
 
 impl Param {
@@ -150,6 +152,7 @@ impl Param {
             Param::Pool => "pool",
             Param::Dims => "dims",
             Param::SweepAxes => "the sweep's methods, dimensions and spaces",
+            Param::Sample => "sample",
         }
     }
 }

@@ -95,3 +95,116 @@ pub fn check_build(source: &str, n: usize, bytes: usize, dim: usize) -> Result<(
         _ => Ok(()),
     }
 }
+
+/// The most bytes of an input a build reads: a third of the budget (reading keeps about three
+/// times the text), `None` when the system tells no budget.
+pub fn input_limit() -> Result<Option<u64>> {
+    Ok(budget()?.map(|b| b / 3))
+}
+
+/// A reader that fails once more than `limit` bytes have come through it, so that an endless
+/// input (`/dev/zero`, a pipe from `yes`) stops with an error instead of filling the memory.
+///
+/// ```
+/// use std::io::Read;
+/// use waymark::resources::BoundedRead;
+///
+/// let mut all = String::new();
+/// BoundedRead::new("quay\nstrand\n".as_bytes(), 12).read_to_string(&mut all).unwrap();
+/// assert_eq!(all, "quay\nstrand\n");
+/// let e = BoundedRead::new(std::io::repeat(b'y'), 1000).read_to_end(&mut Vec::new());
+/// assert!(e.unwrap_err().to_string().contains("more than 1000 bytes"));
+/// ```
+#[derive(Debug)]
+pub struct BoundedRead<R> {
+    inner: R,
+    limit: u64,
+    left: u64,
+}
+
+impl<R> BoundedRead<R> {
+    /// Reads at most `limit` bytes of `inner`; one more is an error.
+    pub fn new(inner: R, limit: u64) -> BoundedRead<R> {
+        BoundedRead {
+            inner,
+            limit,
+            left: limit,
+        }
+    }
+}
+
+impl<R: std::io::Read> std::io::Read for BoundedRead<R> {
+    fn read(&mut self, buf: &mut [u8]) -> std::io::Result<usize> {
+        // One byte past the limit tells an input that ends exactly there from a longer one.
+        let room = usize::try_from(self.left.saturating_add(1)).unwrap_or(usize::MAX);
+        let take = buf.len().min(room);
+        let got = self.inner.read(&mut buf[..take])?;
+        if got as u64 > self.left {
+            return Err(std::io::Error::other(format!(
+                "reading stopped after more than {} bytes: an input this large would not fit \
+                 in the memory budget ({} bytes, three times the text; the budget is \
+                 MemAvailable or WAYMARK_MEMORY_BUDGET=bytes)",
+                self.limit,
+                self.limit.saturating_mul(3)
+            )));
+        }
+        self.left -= got as u64;
+        Ok(got)
+    }
+}
+
+/// Peak memory of `eval --distortion` over about `pairs` pairs among `items` items at
+/// dimension `dim`: each pair's true and three embedded distances, held twice while the rows
+/// are joined (64 bytes), a ratio per pair being sorted (8), the items' coordinates.
+pub fn distortion_estimate(pairs: u64, items: u64, dim: usize) -> u64 {
+    pairs
+        .saturating_mul(72)
+        .saturating_add(items.saturating_mul(8 * dim as u64 + 48))
+        .saturating_add(16 << 20)
+}
+
+/// Refuses `eval --distortion` when [`distortion_estimate`] exceeds the budget. The pairs
+/// measured are `max_pairs` or every pair of `n` items, whichever is fewer (with the sample's
+/// slack of one item's pairs).
+pub fn check_distortion(n: usize, max_pairs: usize, dim: usize) -> Result<()> {
+    let n = n as u64;
+    let all = n.saturating_sub(1).saturating_mul(n) / 2;
+    let pairs = all.min((max_pairs as u64).saturating_add(n));
+    let items = if all <= max_pairs as u64 {
+        n
+    } else {
+        // s(s−1)/2 ≥ pairs: s about √(2·pairs) + 1.
+        (((2.0 * pairs as f64).sqrt() as u64) + 2).min(n)
+    };
+    let need = distortion_estimate(pairs, items, dim);
+    match budget()? {
+        Some(have) if need > have => Err(refuse(
+            &format!("measuring the distortion over {pairs} pairs of {items} items"),
+            need,
+            have,
+        )),
+        _ => Ok(()),
+    }
+}
+
+/// Peak memory of the axiom check over a sample of `m` items: the m × m distance matrix.
+pub fn axiom_check_estimate(m: u64) -> u64 {
+    m.saturating_mul(m)
+        .saturating_mul(8)
+        .saturating_add(16 << 20)
+}
+
+/// Refuses `check-metric` when the sample it would draw (`sample` items, at most `n`) needs
+/// more than the budget ([`axiom_check_estimate`]).
+pub fn check_axiom_sample(n: usize, sample: usize) -> Result<()> {
+    let m = sample.min(n) as u64;
+    let need = axiom_check_estimate(m);
+    match budget()? {
+        Some(have) if need > have => Err(refuse(
+            &format!("checking the metric on a sample of {m} items"),
+            need,
+            have,
+        )),
+        _ => Ok(()),
+    }
+}

@@ -34,6 +34,9 @@ pub(super) enum Command {
     Eval(EvalArgs),
     /// Build and measure indexes over embedding methods, dimensions and spaces; write CSV, JSON and SVG charts.
     Sweep(SweepArgs),
+    /// Replace an index atomically with a file built elsewhere: copied next to it, checked
+    /// whole, then renamed over it (readers of the old index keep answering).
+    Install(InstallArgs),
     /// Check on a sample of the input that the distance is a metric (zero on equal items,
     /// symmetric, triangle inequality); exit code 4 when it is not.
     CheckMetric(CheckMetricArgs),
@@ -489,6 +492,17 @@ pub(super) struct SweepArgs {
 }
 
 #[derive(Debug, clap::Args)]
+pub(super) struct InstallArgs {
+    /// The new index file (built elsewhere; left as it is).
+    pub new: PathBuf,
+    /// The index to replace (or to create).
+    pub index: PathBuf,
+    /// Print nothing on success.
+    #[arg(short, long)]
+    pub quiet: bool,
+}
+
+#[derive(Debug, clap::Args)]
 pub(super) struct CheckMetricArgs {
     #[command(flatten)]
     pub input: InputArgs,
@@ -514,6 +528,7 @@ pub(super) fn flag(p: crate::error::Param) -> &'static str {
         Param::Pool => "--pool",
         Param::Dims => "--dims",
         Param::SweepAxes => "--embeddings, --dims and --spaces",
+        Param::Sample => "--landmark-sample",
     }
 }
 

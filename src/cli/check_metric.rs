@@ -59,6 +59,7 @@ pub(super) fn check_metric(a: CheckMetricArgs) -> anyhow::Result<()> {
     let input = a.input.load(None)?;
     let source = a.input.source();
     let keys = input.corpus.key_bytes();
+    crate::resources::check_axiom_sample(keys.len(), a.sample)?;
     let (spec, metric) = crate::index::open_metric(
         &keys,
         &source,

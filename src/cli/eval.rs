@@ -19,6 +19,10 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
         .into());
     }
     let index = Index::open(&a.index)?;
+    // The pairs asked for must fit in memory, checked before any work.
+    if a.distortion {
+        crate::resources::check_distortion(index.len(), a.pairs, index.meta().dim as usize)?;
+    }
     super::announce_program(&index, a.quiet_metric);
     let space: Space = a.space.map_or(index.meta().space, Into::into);
     // One setting per candidate count, checked (k, candidates) before any answer is computed.
@@ -75,7 +79,13 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
             ),
             TruthSource::Computed { seconds, note } => {
                 if let Some(n) = note {
-                    eprintln!("waymark: note: {n}");
+                    // A cache whose answers are wrong is a warning; a stale one only a note.
+                    let level = if n.contains("does not hold the true answers") {
+                        "warning"
+                    } else {
+                        "note"
+                    };
+                    eprintln!("waymark: {level}: {n}");
                 }
                 let qps = queries.len() as f64 / seconds.max(1e-9);
                 (

@@ -1,5 +1,6 @@
 //! The command line: `args.rs` holds every clap definition, one file per command runs it
-//! (`build.rs`, `query.rs`, `inspect.rs`, `eval.rs`, `sweep.rs`, `check_metric.rs`),
+//! (`build.rs`, `query.rs`, `inspect.rs`, `eval.rs`, `sweep.rs`, `check_metric.rs`,
+//! `install.rs`),
 //! `output.rs` writes answers and progress; this file runs a command and maps its error to
 //! the exit code.
 //!
@@ -14,6 +15,7 @@ mod build;
 mod check_metric;
 mod eval;
 mod inspect;
+mod install;
 mod output;
 mod query;
 mod sweep;
@@ -69,6 +71,7 @@ fn run(args: Args) -> anyhow::Result<()> {
         Command::Eval(a) => eval::eval(a),
         Command::Sweep(a) => sweep::sweep(a),
         Command::CheckMetric(a) => check_metric::check_metric(a),
+        Command::Install(a) => install::install(a),
     }
 }
 
@@ -111,12 +114,23 @@ fn describe(e: &(dyn std::error::Error + 'static)) -> String {
         ),
         Error::TooLarge { what, need, have } => format!(
             "{what} needs about {:.1} GB of memory and {:.1} GB is available; \
-             build a smaller input (split it), use a lower --dim, or free memory \
-             (the budget can be set with WAYMARK_MEMORY_BUDGET=bytes)",
+             {}, or free memory (the budget can be set with WAYMARK_MEMORY_BUDGET=bytes)",
             *need as f64 / 1e9,
-            *have as f64 / 1e9
+            *have as f64 / 1e9,
+            too_large_hint(what)
         ),
         other => other.to_string(),
+    }
+}
+
+/// What to ask for instead of a request refused by the memory budget.
+fn too_large_hint(what: &str) -> &'static str {
+    if what.starts_with("measuring the distortion") {
+        "ask for fewer --pairs"
+    } else if what.starts_with("checking the metric") {
+        "use a smaller --sample"
+    } else {
+        "build a smaller input (split it), use a lower --dim"
     }
 }
 

@@ -33,7 +33,8 @@ pub(super) fn brute_force_k(index: &Index, query: &str, k: NonZeroUsize) -> Vec<
     if index.meta().metric == MetricKind::Levenshtein {
         return super::scan::full_scan_k(index, query, k);
     }
-    let k = k.get();
+    // No more answers than items: a k above n means every item, never an allocation of k.
+    let k = k.get().min(index.len().max(1));
     let Ok(q) = index.prepare_query(query) else {
         return Vec::new();
     };

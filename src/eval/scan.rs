@@ -41,7 +41,8 @@ pub fn full_scan(index: &Index, query: &str, k: usize) -> Result<Vec<Neighbor>> 
 
 /// [`full_scan`] of a Levenshtein index.
 pub(super) fn full_scan_k(index: &Index, query: &str, k: NonZeroUsize) -> Vec<Neighbor> {
-    let k = k.get();
+    // No more answers than items: a k above n means every item, never an allocation of k.
+    let k = k.get().min(index.len().max(1));
     let q = prepare_query(index, query);
     let keys = index.keys();
     let mut best: Vec<Neighbor> = Vec::with_capacity(k + 1);
@@ -90,7 +91,8 @@ fn all_ascii(index: &Index) -> bool {
 fn best_scan_with(index: &Index, query: &str, k: NonZeroUsize, ascii: bool) -> Vec<Neighbor> {
     /// Items per call of the batched kernel.
     const GROUP: usize = 64;
-    let k = k.get();
+    // No more answers than items: a k above n means every item, never an allocation of k.
+    let k = k.get().min(index.len().max(1));
     let q = prepare_query(index, query);
     let m = q.len();
     let keys = index.keys();

@@ -110,6 +110,9 @@ impl SweepOptions {
         if self.pool == 0 {
             return bad(Param::Pool, "must be at least 1");
         }
+        if self.sample == 0 {
+            return bad(Param::Sample, "must be at least 1");
+        }
         Ok(())
     }
 

@@ -7,7 +7,11 @@
 //! index, the normalisation, every key and id; not the embedding, so indexes of one corpus
 //! built with different embeddings share a cache) and the queries themselves (SHA-256 of
 //! both). A cache file whose keys, counts or checksum do not match is not trusted: it is
-//! recomputed and replaced, and the reason is reported.
+//! recomputed and replaced, and the reason is reported. The checksum only catches damage,
+//! not a file edited with care, so before a cache is trusted the answers of
+//! [`CACHE_SAMPLE`] queries chosen at random are recomputed by brute force and compared
+//! with it. The cache path must be a regular file (checked on the file opened, so a link to
+//! a device is refused) of at most [`cache_size_bound`] bytes, which is all that is read.
 
 use std::path::{Path, PathBuf};
 use std::time::Instant;
@@ -146,8 +150,24 @@ pub fn cache_path(queries_file: &Path, index_key: &str, k: usize) -> PathBuf {
         .file_name()
         .map(|s| s.to_string_lossy().into_owned())
         .unwrap_or_else(|| "queries".into());
-    queries_file.with_file_name(format!("{name}.truth-{}-k{k}.json", &index_key[..16]))
+    let suffix = format!(".truth-{}-k{k}.json", &index_key[..16]);
+    // A file name has at most 255 bytes: a long queries name is cut, with a digest of the
+    // whole name, so that every queries file gets a cache name of its own.
+    let name = if name.len() + suffix.len() > NAME_MAX {
+        let mut cut = NAME_MAX - suffix.len() - 17;
+        while !name.is_char_boundary(cut) {
+            cut -= 1;
+        }
+        let digest = hex(Sha256::digest(name.as_bytes()));
+        format!("{}~{}", &name[..cut], &digest[..16])
+    } else {
+        name
+    };
+    queries_file.with_file_name(format!("{name}{suffix}"))
 }
+
+/// The longest file name most filesystems take, in bytes.
+const NAME_MAX: usize = 255;
 
 /// Exact answers by brute force on all cores ([`super::brute_force`]); `progress` is called
 /// with the number of queries done since the last call. For `k = 0` every answer is empty.
@@ -175,6 +195,115 @@ pub fn compute_truth(
     Truth { k, answers }
 }
 
+/// Queries of a cache whose answers are recomputed by brute force before it is trusted,
+/// chosen at random (all of them when there are no more).
+pub const CACHE_SAMPLE: usize = 8;
+
+/// The most bytes a cache file of `queries` answers of `k` neighbours among `n` items can
+/// hold: the header, and per answer `min(k, n)` pairs `[item, distance]` of at most 48
+/// bytes each (a u32 and a shortest round-trip f64) with the brackets and commas.
+pub fn cache_size_bound(queries: usize, k: usize, n: usize) -> u64 {
+    let per_answer = (k.min(n) as u64).saturating_mul(48).saturating_add(4);
+    (queries as u64)
+        .saturating_mul(per_answer)
+        .saturating_add(4096)
+}
+
+/// What a file type is, for the refusal of a cache path that is not a regular file.
+fn file_kind(t: std::fs::FileType) -> &'static str {
+    use std::os::unix::fs::FileTypeExt;
+    if t.is_dir() {
+        "a folder"
+    } else if t.is_fifo() {
+        "a named pipe (FIFO)"
+    } else if t.is_socket() {
+        "a socket"
+    } else if t.is_block_device() || t.is_char_device() {
+        "a device"
+    } else {
+        "not a regular file"
+    }
+}
+
+/// The bytes of a cache file: a regular file (its type checked by name first, so that a
+/// FIFO is never opened, and then on the file opened, which is what counts) of at most
+/// `bound` bytes, read with that cap.
+fn read_bounded(path: &Path, bound: u64) -> std::result::Result<Vec<u8>, String> {
+    use std::io::Read;
+    let named = std::fs::metadata(path).map_err(|e| format!("cannot be read ({e})"))?;
+    if !named.is_file() {
+        return Err(format!(
+            "is {}, not a regular file",
+            file_kind(named.file_type())
+        ));
+    }
+    let file = std::fs::File::open(path).map_err(|e| format!("cannot be read ({e})"))?;
+    let meta = file
+        .metadata()
+        .map_err(|e| format!("cannot be read ({e})"))?;
+    if !meta.is_file() {
+        return Err(format!(
+            "is {}, not a regular file",
+            file_kind(meta.file_type())
+        ));
+    }
+    let too_large = |len: u64| {
+        format!(
+            "is too large ({len} bytes; answers of this many queries and neighbours take at \
+             most {bound})"
+        )
+    };
+    if meta.len() > bound {
+        return Err(too_large(meta.len()));
+    }
+    let mut bytes = Vec::with_capacity(meta.len() as usize);
+    file.take(bound.saturating_add(1))
+        .read_to_end(&mut bytes)
+        .map_err(|e| format!("cannot be read ({e})"))?;
+    if bytes.len() as u64 > bound {
+        return Err(too_large(bytes.len() as u64));
+    }
+    Ok(bytes)
+}
+
+/// Recomputes the answers of [`CACHE_SAMPLE`] queries chosen at random and compares them
+/// with the cache's; `Err` names the first query whose answer differs.
+fn check_sample(
+    index: &Index,
+    queries: &[String],
+    truth: &Truth,
+) -> std::result::Result<(), String> {
+    use rand::seq::index::sample;
+    let Some(k) = std::num::NonZeroUsize::new(truth.k) else {
+        return Ok(());
+    };
+    let picked = sample(
+        &mut rand::thread_rng(),
+        queries.len(),
+        CACHE_SAMPLE.min(queries.len()),
+    );
+    let mut picked = picked.into_vec();
+    picked.sort_unstable();
+    let wrong = picked
+        .par_iter()
+        .filter_map(|&q| {
+            let fresh = brute_force_k(index, &queries[q], k);
+            (fresh != truth.answers[q]).then_some(q)
+        })
+        .min();
+    match wrong {
+        None => Ok(()),
+        Some(q) => Err(format!(
+            "does not hold the true answers: query {} ({:?}) was recomputed and differs \
+             ({} of {} queries checked at random)",
+            q + 1,
+            crate::escape::escape_controls(&queries[q]),
+            picked.len(),
+            queries.len()
+        )),
+    }
+}
+
 /// Reads and checks a cache file; `Err` says why it cannot be used.
 fn read_cache(
     path: &Path,
@@ -183,7 +312,7 @@ fn read_cache(
     queries: &[String],
     k: usize,
 ) -> std::result::Result<Truth, String> {
-    let bytes = std::fs::read(path).map_err(|e| format!("cannot be read ({e})"))?;
+    let bytes = read_bounded(path, cache_size_bound(queries.len(), k, index.len()))?;
     let c: CacheFile =
         serde_json::from_slice(&bytes).map_err(|e| format!("is damaged (does not parse: {e})"))?;
     if c.format != FORMAT || c.version != VERSION {
@@ -264,8 +393,10 @@ pub fn load_or_compute_truth(
     let key = index_key(index);
     let path = cache_path(qf, &key, k);
     let mut note = None;
-    if path.exists() {
-        match read_cache(&path, index, &key, queries, k) {
+    if std::fs::symlink_metadata(&path).is_ok() {
+        let checked = read_cache(&path, index, &key, queries, k)
+            .and_then(|truth| check_sample(index, queries, &truth).map(|()| truth));
+        match checked {
             Ok(truth) => return (truth, TruthSource::Cached(path)),
             Err(why) => {
                 note = Some(format!(

@@ -73,6 +73,9 @@ impl BuildOptions {
         if self.method == Method::RefSets && self.pool == 0 {
             return Err(Error::parameter(Param::Pool, "must be at least 1"));
         }
+        if self.sample == 0 {
+            return Err(Error::parameter(Param::Sample, "must be at least 1"));
+        }
         Ok(())
     }
 }

@@ -167,30 +167,7 @@ impl ContainerWriter {
     /// is one of `inputs` (the same file, see [`refuse_input_as_output`]).
     pub fn create(dest: &Path, inputs: &[PathBuf]) -> Result<ContainerWriter> {
         refuse_input_as_output(dest, inputs)?;
-        let dir = match dest.parent() {
-            Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
-            _ => PathBuf::from("."),
-        };
-        if !dir.is_dir() {
-            let (kind, what) = if dir.exists() {
-                (std::io::ErrorKind::NotADirectory, "is not a folder")
-            } else {
-                (
-                    std::io::ErrorKind::NotFound,
-                    "the output folder does not exist",
-                )
-            };
-            return Err(Error::Io {
-                path: dir,
-                source: std::io::Error::new(kind, what),
-            });
-        }
-        let name = dest
-            .file_name()
-            .map(|n| n.to_string_lossy().into_owned())
-            .unwrap_or_else(|| "index".into());
-        let mut tmp = create_partial(&dir, &name)?;
-        remove_stale_partials(&dir, &name, tmp.path());
+        let mut tmp = partial_for(dest)?;
         let reserved = vec![0u8; HEADER_LEN + TABLE_LEN];
         tmp.write_all(&reserved).map_err(|e| write_err(dest, e))?;
         Ok(ContainerWriter {
@@ -251,22 +228,60 @@ impl ContainerWriter {
             .and_then(|_| f.write_all(&table))
             .and_then(|_| f.sync_all())
             .map_err(|e| write_err(&self.dest, e))?;
-        self.tmp
-            .persist(&self.dest)
-            .map_err(|e| io_err(&self.dest, e.error))?;
-        // Flush the folder too, so that the rename itself survives a crash.
-        if let Some(dir) = self.dest.parent() {
-            let dir = if dir.as_os_str().is_empty() {
-                Path::new(".")
-            } else {
-                dir
-            };
-            if let Ok(d) = File::open(dir) {
-                d.sync_all().map_err(|e| io_err(dir, e))?;
-            }
-        }
-        Ok(())
+        persist_partial(self.tmp, &self.dest)
     }
+}
+
+/// The folder `dest` is written in, which must exist.
+fn output_dir(dest: &Path) -> Result<PathBuf> {
+    let dir = match dest.parent() {
+        Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
+        _ => PathBuf::from("."),
+    };
+    if !dir.is_dir() {
+        let (kind, what) = if dir.exists() {
+            (std::io::ErrorKind::NotADirectory, "is not a folder")
+        } else {
+            (
+                std::io::ErrorKind::NotFound,
+                "the output folder does not exist",
+            )
+        };
+        return Err(Error::Io {
+            path: dir,
+            source: std::io::Error::new(kind, what),
+        });
+    }
+    Ok(dir)
+}
+
+/// A new locked temporary file in `dest`'s folder that will replace `dest` (removed when
+/// dropped unless persisted); the temporary files of dead writers of `dest` are removed.
+pub(super) fn partial_for(dest: &Path) -> Result<tempfile::NamedTempFile> {
+    let dir = output_dir(dest)?;
+    let name = dest
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_else(|| "index".into());
+    let tmp = create_partial(&dir, &name)?;
+    remove_stale_partials(&dir, &name, tmp.path());
+    Ok(tmp)
+}
+
+/// Renames `tmp` over `dest` and flushes the folder, so that the rename survives a crash.
+pub(super) fn persist_partial(tmp: tempfile::NamedTempFile, dest: &Path) -> Result<()> {
+    tmp.persist(dest).map_err(|e| io_err(dest, e.error))?;
+    if let Some(dir) = dest.parent() {
+        let dir = if dir.as_os_str().is_empty() {
+            Path::new(".")
+        } else {
+            dir
+        };
+        if let Ok(d) = File::open(dir) {
+            d.sync_all().map_err(|e| io_err(dir, e))?;
+        }
+    }
+    Ok(())
 }
 
 /// Random letters and digits in a temporary file's name (tempfile's default, made explicit
@@ -274,12 +289,30 @@ impl ContainerWriter {
 const PARTIAL_RAND: usize = 6;
 const PARTIAL_SUFFIX: &str = ".waymark-partial";
 
+/// Longest destination name written whole into a temporary file's name (which adds 24
+/// bytes to it); a longer one is written as its digest, so that any valid name can be
+/// written (a file name has at most 255 bytes).
+const PARTIAL_TAG_MAX: usize = 200;
+
+/// The part of a temporary file's name that names its destination: `dest_name` itself, or
+/// for a name longer than [`PARTIAL_TAG_MAX`] bytes `~` and the first 16 hex digits of its
+/// SHA-256.
+fn partial_tag(dest_name: &str) -> String {
+    if dest_name.len() <= PARTIAL_TAG_MAX {
+        return dest_name.to_string();
+    }
+    use sha2::{Digest, Sha256};
+    let h = Sha256::digest(dest_name.as_bytes());
+    let hex: String = h[..8].iter().map(|b| format!("{b:02x}")).collect();
+    format!("~{hex}")
+}
+
 /// Whether `file` is a temporary file of a build of `dest_name`:
 /// `.DEST_NAME.XXXXXX.waymark-partial` with six ASCII letters or digits. The random part
 /// has no dot, so the partial files of `a` and of `a.b` never match each other.
 fn partial_name_matches(file: &str, dest_name: &str) -> bool {
     file.strip_prefix('.')
-        .and_then(|f| f.strip_prefix(dest_name))
+        .and_then(|f| f.strip_prefix(partial_tag(dest_name).as_str()))
         .and_then(|f| f.strip_prefix('.'))
         .and_then(|f| f.strip_suffix(PARTIAL_SUFFIX))
         .is_some_and(|r| r.len() == PARTIAL_RAND && r.bytes().all(|b| b.is_ascii_alphanumeric()))
@@ -307,7 +340,7 @@ pub fn refuse_input_as_output(output: &Path, inputs: &[PathBuf]) -> Result<()> {
 }
 
 /// Identity of a file on disk (device and inode).
-fn file_id(m: &std::fs::Metadata) -> (u64, u64) {
+pub(super) fn file_id(m: &std::fs::Metadata) -> (u64, u64) {
     use std::os::unix::fs::MetadataExt;
     (m.dev(), m.ino())
 }
@@ -337,7 +370,7 @@ fn create_partial(dir: &Path, dest_name: &str) -> Result<tempfile::NamedTempFile
         // The prefix marks the file as unfinished; its header stays zero until finish(),
         // so even a leftover temp file is refused by the reader.
         let tmp = tempfile::Builder::new()
-            .prefix(&format!(".{dest_name}."))
+            .prefix(&format!(".{}.", partial_tag(dest_name)))
             .suffix(PARTIAL_SUFFIX)
             .rand_bytes(PARTIAL_RAND)
             .permissions(new_file_permissions())

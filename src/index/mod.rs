@@ -17,6 +17,7 @@
 mod build;
 pub mod cells;
 pub mod file;
+mod install;
 pub mod tree;
 
 use std::fs::File;
@@ -32,6 +33,7 @@ pub use build::{
     BuildOptions, BuildProgress, BuildReport, BuildStage, AXIOM_SAMPLE,
 };
 use file::{Section, SectionKind};
+pub use install::install_index;
 
 pub use crate::coords::coord_stride;
 

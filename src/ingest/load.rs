@@ -154,13 +154,14 @@ pub fn load_input(
                 .costs
                 .as_ref()
                 .ok_or_else(|| usage("--metric weighted needs --costs FILE".into()))?;
-            let table = CostTable::from_path(file)?;
+            let table = CostTable::parse(&read_text(file)?, &file.display().to_string())?;
             MetricSpec::WeightedEdit {
                 costs: table.rules().clone(),
             }
         }
         MetricKind::Jaccard => {
             let tokens = match (&metric.qgrams, &metric.separator) {
+                (Some(0), _) => return Err(usage("--qgrams must be at least 1, not 0".into())),
                 (Some(q), _) => Tokens::QGrams(*q),
                 (None, Some(s)) => Tokens::Separator(s.clone()),
                 (None, None) => Tokens::Whitespace,
@@ -228,9 +229,33 @@ fn load_vectors(path: &Path, norm: Norm, header: bool) -> Result<LoadedInput> {
     })
 }
 
+/// The text of a side file or edge list, read within the memory budget as every other
+/// input (an endless device stops with an error); invalid UTF-8 is refused with its line.
+fn read_text(path: &Path) -> Result<String> {
+    use std::io::Read;
+    let name = path.display().to_string();
+    let io = |error| super::IngestError::Io {
+        source_name: name.clone(),
+        error,
+    };
+    let mut bytes = Vec::new();
+    super::bounded(std::fs::File::open(path).map_err(io)?, &name)?
+        .read_to_end(&mut bytes)
+        .map_err(io)?;
+    String::from_utf8(bytes).map_err(|e| {
+        let at = e.utf8_error().valid_up_to();
+        let line = e.as_bytes()[..at].iter().filter(|&&b| b == b'\n').count() as u64 + 1;
+        Error::from(crate::metric::MetricError::Line {
+            source_name: name.clone(),
+            line,
+            message: "invalid UTF-8".into(),
+        })
+    })
+}
+
 /// Reads an edge list; its nodes are the items (and their ids).
 fn load_graph(path: &Path) -> Result<LoadedInput> {
-    let g = Graph::from_path(path)?;
+    let g = Graph::parse(&read_text(path)?, &path.display().to_string())?;
     let names: Vec<String> = (0..g.len() as u32)
         .map(|v| String::from_utf8_lossy(g.name(v)).into_owned())
         .collect();

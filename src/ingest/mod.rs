@@ -373,7 +373,23 @@ pub fn read_corpus(path: &Path, opts: &IngestOptions) -> Result<Corpus, IngestEr
     if opts.format.is_none() {
         opts.format = Some(InputFormat::from_path(path));
     }
-    read_corpus_from(file, &name, &opts)
+    read_corpus_from(bounded(file, &name)?, &name, &opts)
+}
+
+/// `file` read through [`crate::resources::BoundedRead`] with the input limit of the memory
+/// budget, so that an endless input (a device, a pipe) stops with an error.
+pub(crate) fn bounded(
+    file: std::fs::File,
+    name: &str,
+) -> Result<crate::resources::BoundedRead<std::fs::File>, IngestError> {
+    let limit = crate::resources::input_limit().map_err(|e| IngestError::Io {
+        source_name: name.to_string(),
+        error: std::io::Error::other(e.to_string()),
+    })?;
+    Ok(crate::resources::BoundedRead::new(
+        file,
+        limit.unwrap_or(u64::MAX),
+    ))
 }
 
 /// Reads a corpus from any reader; `source_name` is used in errors.

@@ -86,7 +86,7 @@ pub fn read_vectors(path: &Path, opts: &VectorOptions) -> Result<Vectors, Ingest
         source_name: name.clone(),
         error,
     })?;
-    read_vectors_from(file, &name, &opts)
+    read_vectors_from(super::bounded(file, &name)?, &name, &opts)
 }
 
 /// Reads vectors from any reader; `source_name` is used in errors. With no format given,

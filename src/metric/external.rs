@@ -28,7 +28,10 @@
 //! Each batch has a time limit ([`ExternalMetric::spawn`]). When the program exits, stops
 //! answering within the limit, writes a line that is not a response or that is longer than
 //! its cap (the hello line [`HELLO_MAX`] bytes, an answer [`ANSWER_BYTES_PER_ITEM`] bytes per
-//! item plus [`ANSWER_SLACK`]), or gives the wrong number of distances, waymark kills it and
+//! item plus [`ANSWER_SLACK`]), writes more than one line for a request (a line read
+//! together with its answer, or waiting before the next request is sent, or found by
+//! [`ExternalMetric::check`] after the last answer), or gives the wrong number of
+//! distances, waymark kills it and
 //! reports a [`MetricError::Program`] naming the command and what happened. Its standard
 //! error is read all the time (so the program never blocks on it), and only the last
 //! [`STDERR_TAIL`] bytes are kept, for error messages. Text the program or the command
@@ -115,8 +118,42 @@ struct Pipe {
     child: Child,
     /// Request lines to the writer thread (which owns the program's stdin); `None` once closed.
     requests: Option<Sender<Vec<u8>>>,
-    /// Response lines from the reader thread; disconnected at the program's end of output.
-    responses: Receiver<Result<String, String>>,
+    /// Response lines from the reader thread, each with whether more output was already
+    /// waiting behind it; disconnected at the program's end of output.
+    responses: Receiver<Result<(String, bool), String>>,
+    /// Whether more output was waiting behind the last line received.
+    more_behind: bool,
+    /// Requests answered so far (the hello line is not one).
+    answered: u64,
+}
+
+impl Pipe {
+    /// A line the program wrote that no request asked for (waiting before a request is
+    /// sent, or after the last answer), as the protocol error that refuses it.
+    fn stray_line(&mut self) -> Option<String> {
+        let extra = if std::mem::take(&mut self.more_behind) {
+            // Already read behind the last line: it comes at once.
+            match self.responses.recv_timeout(Duration::from_secs(1)) {
+                Ok(Ok((line, _))) => preview(&line),
+                Ok(Err(e)) => e,
+                Err(_) => "(a part of a line)".to_string(),
+            }
+        } else {
+            match self.responses.try_recv() {
+                Ok(Ok((line, _))) => preview(&line),
+                Ok(Err(e)) => e,
+                Err(_) => return None,
+            }
+        };
+        let after = match self.answered {
+            0 => "its hello line".to_string(),
+            n => format!("its answer to request {n}"),
+        };
+        Some(format!(
+            "broke the protocol: wrote a second line after {after}, where one line answers \
+             one request: {extra}"
+        ))
+    }
 }
 
 #[derive(Serialize)]
@@ -185,7 +222,9 @@ impl ExternalMetric {
                 let end = !matches!(line, Ok(Some(_)));
                 let sent = match line {
                     Ok(None) => break,
-                    Ok(Some(line)) => resp_tx.send(Ok(line)),
+                    // Bytes already read behind the line were written before any next
+                    // request could be answered: a second line for one request.
+                    Ok(Some(line)) => resp_tx.send(Ok((line, !r.buffer().is_empty()))),
                     Err(e) => resp_tx.send(Err(e)),
                 };
                 if end || sent.is_err() {
@@ -221,6 +260,8 @@ impl ExternalMetric {
                     child,
                     requests: Some(req_tx),
                     responses: resp_rx,
+                    more_behind: false,
+                    answered: 0,
                 }),
                 failed: Mutex::new(None),
                 stderr: tail,
@@ -253,9 +294,19 @@ impl ExternalMetric {
 
     /// The first failure of the program, if any (after which distances are NaN).
     pub fn check(&self) -> Result<(), MetricError> {
-        match &*self.inner.failed.lock().unwrap_or_else(|e| e.into_inner()) {
+        if let Some(message) = &*self.inner.failed.lock().unwrap_or_else(|e| e.into_inner()) {
+            return Err(self.inner.error(message.clone()));
+        }
+        // A line after the last answer breaks the protocol as one before a request does
+        // (not looked for while another thread has a request out: it is checked then).
+        let stray = match self.inner.pipe.try_lock() {
+            Ok(mut pipe) => pipe.stray_line(),
+            Err(std::sync::TryLockError::Poisoned(e)) => e.into_inner().stray_line(),
+            Err(std::sync::TryLockError::WouldBlock) => None,
+        };
+        match stray {
+            Some(message) => Err(self.inner.fail(message)),
             None => Ok(()),
-            Some(message) => Err(self.inner.error(message.clone())),
         }
     }
 
@@ -398,7 +449,10 @@ impl Inner {
     /// Waits for one line, with the time limit.
     fn receive(&self, pipe: &mut Pipe, what: &str, limit: Duration) -> Result<String, String> {
         match pipe.responses.recv_timeout(limit) {
-            Ok(Ok(line)) => Ok(line),
+            Ok(Ok((line, more))) => {
+                pipe.more_behind = more;
+                Ok(line)
+            }
             Ok(Err(e)) => Err(format!(
                 "{e}, waiting for {what}; stopped it{}",
                 self.stderr_tail()
@@ -451,12 +505,21 @@ impl Inner {
             let cap = ANSWER_BYTES_PER_ITEM
                 .saturating_mul(items.len())
                 .saturating_add(ANSWER_SLACK);
-            self.line_cap.store(cap, Ordering::Relaxed);
-            let sent = pipe.requests.as_ref().is_some_and(|s| s.send(line).is_ok());
-            if sent {
-                self.receive(&mut pipe, "the distances", self.timeout)
+            if let Some(stray) = pipe.stray_line() {
+                Err(stray)
             } else {
-                Err("its input is closed".into())
+                self.line_cap.store(cap, Ordering::Relaxed);
+                let sent = pipe.requests.as_ref().is_some_and(|s| s.send(line).is_ok());
+                let got = if sent {
+                    self.receive(&mut pipe, "the distances", self.timeout)
+                } else {
+                    Err("its input is closed".into())
+                };
+                pipe.answered += 1;
+                match (got, pipe.more_behind) {
+                    (Ok(_), true) => Err(pipe.stray_line().unwrap_or_default()),
+                    (got, _) => got,
+                }
             }
         };
         let line = answer.map_err(|m| self.fail(m))?;

@@ -27,6 +27,8 @@ impl Searcher<'_> {
     /// and a metric program's failure is reported.
     pub(super) fn rerank(&self, pq: &Prepared, k: usize, picked: &[(u32, u32)]) -> Result<Found> {
         let metric = self.index.metric()?;
+        // No more answers than items: a k above n means every item, never an allocation of k.
+        let k = k.min(self.index.len().max(1));
         let group = pq.q.group_size();
         let mut found = if group > 1 {
             self.rerank_groups(&pq.q, k, picked, group)

@@ -14,6 +14,7 @@ mod hardening;
 mod ingest;
 mod layout;
 mod library;
+mod limits;
 mod metric_cli;
 mod metric_damerau;
 mod metric_external;
