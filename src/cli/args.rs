@@ -494,6 +494,7 @@ pub(super) fn flag(p: crate::error::Param) -> &'static str {
         Param::K => "-k",
         Param::Candidates => "--candidates",
         Param::Radius => "--within",
+        Param::Fraction => "--within-fraction",
         Param::Dim => "--dim",
         Param::Pool => "--pool",
         Param::Dims => "--dims",
