@@ -1,5 +1,6 @@
 //! The command line: `args.rs` holds every clap definition, one file per command runs it
-//! (`build.rs`, `query.rs`, `inspect.rs`, `eval.rs`, `sweep.rs`, `check_metric.rs`),
+//! (`build.rs`, `query.rs`, `inspect.rs`, `eval.rs`, `sweep.rs`, `check_metric.rs`,
+//! `pairs.rs`, `groups.rs`),
 //! `output.rs` writes answers and progress; this file runs a command and maps its error to
 //! the exit code.
 //!
@@ -13,8 +14,10 @@ mod args;
 mod build;
 mod check_metric;
 mod eval;
+mod groups;
 mod inspect;
 mod output;
+mod pairs;
 mod query;
 mod sweep;
 
@@ -69,6 +72,8 @@ fn run(args: Args) -> anyhow::Result<()> {
         Command::Eval(a) => eval::eval(a),
         Command::Sweep(a) => sweep::sweep(a),
         Command::CheckMetric(a) => check_metric::check_metric(a),
+        Command::Pairs(a) => pairs::pairs(a),
+        Command::Groups(a) => groups::groups(a),
     }
 }
 

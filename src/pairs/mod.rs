@@ -296,7 +296,11 @@ impl<'a> SelfJoin<'a> {
             .clone()
             .map(|p| {
                 let reach = self.reach(p);
-                (reach, self.window_end(p, reach), self.bound.max_diff_within(reach))
+                (
+                    reach,
+                    self.window_end(p, reach),
+                    self.bound.max_diff_within(reach),
+                )
             })
             .collect();
         let ts: Vec<Threshold<'_>> = ps
@@ -341,10 +345,8 @@ impl<'a> SelfJoin<'a> {
                 if self.by_length {
                     lb = lb.max(f64::from(li.abs_diff(lj)));
                     if sig_here {
-                        let gap = LevenshteinQuery::signature_gap(
-                            self.sigs[p],
-                            self.sigs[pos as usize],
-                        );
+                        let gap =
+                            LevenshteinQuery::signature_gap(self.sigs[p], self.sigs[pos as usize]);
                         lb = lb.max(f64::from(gap));
                     }
                 }

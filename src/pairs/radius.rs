@@ -109,7 +109,9 @@ pub fn lookup_within(
             .collect();
     }
     let f = match radius {
-        Radius::Fixed(r) => return searcher.answer_many(queries, &Request::Within { radius: r, k }),
+        Radius::Fixed(r) => {
+            return searcher.answer_many(queries, &Request::Within { radius: r, k })
+        }
         Radius::Fraction(f) => f,
     };
     let by_length = index.metric().is_ok_and(|m| m.bounded_by_char_counts());

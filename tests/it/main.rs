@@ -23,6 +23,7 @@ mod metric_jaccard;
 mod metric_levenshtein;
 mod metric_vectors;
 mod metric_weighted;
+mod pairs;
 mod permissions;
 mod search;
 mod vector_digits;
