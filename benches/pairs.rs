@@ -11,6 +11,7 @@
 //! - `WAYMARK_PAIRS_RADII` radii of the exact joins [1,2]
 //! - `WAYMARK_PAIRS_CANDIDATES` candidates per item of the 10-NN graph [the index's default]
 //! - `WAYMARK_PAIRS_VISIT` rows visited per item with cells [12 per candidate]
+//! - `WAYMARK_PAIRS_ROUNDS` refinement rounds by neighbours of neighbours [2]
 //! - `WAYMARK_PAIRS_ONLY` `within` or `nearest`: run only that part [both]
 
 use std::path::PathBuf;
@@ -138,8 +139,11 @@ fn main() {
         if let Some(&v) = env_list::<usize>("WAYMARK_PAIRS_VISIT", "").first() {
             params.visit = v;
         }
+        let rounds: usize = env_list("WAYMARK_PAIRS_ROUNDS", "2")[0];
         let t = Instant::now();
-        let mut join = NearestJoin::new(&index, k, Some(params)).expect("join");
+        let mut join = NearestJoin::new(&index, k, Some(params))
+            .expect("join")
+            .refine(rounds);
         let mut pairs = 0usize;
         while let Some(b) = join.next_batch() {
             pairs += b.expect("batch").len();
@@ -158,7 +162,7 @@ fn main() {
         }
         let recall = rec / sample.len() as f64;
         println!(
-            "approximate 10-NN graph ({} candidates, {} rows visited, {:?}): {secs:.1} s \
+            "approximate 10-NN graph ({} candidates, {} rows visited, {:?}, {rounds} refinement rounds): {secs:.1} s \
              ({:.0} items/s); {pairs} pairs; recall@10 {recall:.4} on {} items checked by full scan; \
              vs brute force {:.1}x",
             params.candidates,

@@ -97,6 +97,9 @@ pub struct SelfJoin<'a> {
     lens: Vec<u32>,
     /// The sort key at each position.
     sort_key: Vec<u32>,
+    /// The first stored coordinate at each position (the order's second key when the
+    /// first is the length).
+    first_coord: Vec<u8>,
     /// Whether the sort key is the length (a metric bounded by char counts).
     by_length: bool,
     /// The longest item, in chars.
@@ -140,9 +143,11 @@ impl<'a> SelfJoin<'a> {
                 u32::from(coords.get(i * stride).copied().unwrap_or(0))
             }
         };
+        let first = |i: usize| coords.get(i * stride).copied().unwrap_or(0);
         let mut order: Vec<u32> = (0..n as u32).collect();
-        order.par_sort_unstable_by_key(|&i| (key_of(i as usize), i));
+        order.par_sort_unstable_by_key(|&i| (key_of(i as usize), first(i as usize), i));
         let sort_key: Vec<u32> = order.iter().map(|&i| key_of(i as usize)).collect();
+        let first_coord: Vec<u8> = order.iter().map(|&i| first(i as usize)).collect();
         let mut sorted = vec![0u8; n * stride];
         sorted
             .par_chunks_mut(stride.max(1))
@@ -197,6 +202,7 @@ impl<'a> SelfJoin<'a> {
             order,
             lens,
             sort_key,
+            first_coord,
             by_length,
             longest,
             cols,
@@ -273,56 +279,93 @@ impl<'a> SelfJoin<'a> {
             .widened(self.lens[i], self.by_length, self.longest)
     }
 
-    /// The first position after `p`'s window: later items whose sort key exceeds `p`'s by
-    /// more than the reach allows are farther than the radius.
-    fn window_end(&self, p: usize, reach: f64) -> usize {
-        let w = if self.by_length {
-            if reach.is_finite() {
-                reach.floor().min(f64::from(u32::MAX)) as u32
-            } else {
-                u32::MAX
-            }
+    /// The positions after `p` that can be within its reach, as ranges: items whose sort
+    /// key exceeds `p`'s by more than the reach allows are farther than the radius. When
+    /// the key is the length, each length from `p`'s up to its reach is one range, of the
+    /// items whose first coordinate is within the reach of `p`'s (the order's second key).
+    fn ranges(&self, p: usize, reach: f64, out: &mut Vec<std::ops::Range<usize>>) {
+        out.clear();
+        let n = self.len();
+        let w_coord = self.bound.max_diff_within(reach);
+        if !self.by_length {
+            let top = self.sort_key[p].saturating_add(u32::from(w_coord));
+            out.push(p + 1..p + self.sort_key[p..].partition_point(|&v| v <= top));
+            return;
+        }
+        let w_len = if reach.is_finite() {
+            reach.floor().min(f64::from(u32::MAX)) as u32
         } else {
-            u32::from(self.bound.max_diff_within(reach))
+            u32::MAX
         };
-        let top = self.sort_key[p].saturating_add(w);
-        p + self.sort_key[p..].partition_point(|&v| v <= top)
+        let len = self.sort_key[p];
+        let top = len.saturating_add(w_len);
+        let v = self.first_coord[p];
+        let (lo_c, hi_c) = (v.saturating_sub(w_coord), v.saturating_add(w_coord));
+        let mut at = p + 1;
+        // The rest of p's own length: first coordinates from p's up.
+        let own_end = at + self.sort_key[at..].partition_point(|&m| m == len);
+        let cut = at + self.first_coord[at..own_end].partition_point(|&c| c <= hi_c);
+        if cut > at {
+            out.push(at..cut);
+        }
+        at = own_end;
+        while at < n && self.sort_key[at] <= top {
+            let m = self.sort_key[at];
+            let end = at + self.sort_key[at..].partition_point(|&x| x == m);
+            let group = &self.first_coord[at..end];
+            let from = at + group.partition_point(|&c| c < lo_c);
+            let to = at + group.partition_point(|&c| c <= hi_c);
+            if to > from {
+                out.push(from..to);
+            }
+            at = end;
+        }
     }
 
-    /// The pairs of positions `ps` with the positions after each, in one shared pass.
+    /// The pairs of positions `ps` with the positions after each, in shared passes over
+    /// the union of their ranges ([`SelfJoin::ranges`]).
     fn query_block(&self, ps: std::ops::Range<usize>) -> (Vec<Pair>, JoinStats) {
         let width = self.cols.cols();
-        let his: Vec<(f64, usize, u8)> = ps
-            .clone()
-            .map(|p| {
-                let reach = self.reach(p);
-                (
-                    reach,
-                    self.window_end(p, reach),
-                    self.bound.max_diff_within(reach),
-                )
-            })
-            .collect();
+        let mut ranges: Vec<Vec<std::ops::Range<usize>>> = vec![Vec::new(); ps.len()];
+        let mut his: Vec<u8> = Vec::with_capacity(ps.len());
+        for (j, p) in ps.clone().enumerate() {
+            let reach = self.reach(p);
+            self.ranges(p, reach, &mut ranges[j]);
+            his.push(self.bound.max_diff_within(reach));
+        }
         let ts: Vec<Threshold<'_>> = ps
             .clone()
             .zip(&his)
-            .map(|(p, &(_, _, hi))| Threshold {
+            .map(|(p, &hi)| Threshold {
                 q: &self.values[p * width..(p + 1) * width],
                 lo: None,
                 hi,
                 sig: self.sigs.get(p).copied().unwrap_or(0),
             })
             .collect();
-        let last_end = his.iter().map(|h| h.1).max().unwrap_or(ps.end);
-        let blocks = (ps.start + 1) / columns::BLOCK..last_end.div_ceil(columns::BLOCK);
-        let mut cands: Vec<Vec<(u32, u8)>> = vec![Vec::new(); ps.len()];
-        self.cols.within_many_in(&ts, blocks, |j, pos, b| {
-            let p = ps.start + j;
-            let pos = pos as usize;
-            if pos > p && pos < his[j].1 {
-                cands[j].push((pos as u32, b));
+        // The block ranges of every query, merged.
+        let mut blocks: Vec<std::ops::Range<usize>> = ranges
+            .iter()
+            .flatten()
+            .map(|r| r.start / columns::BLOCK..r.end.div_ceil(columns::BLOCK))
+            .collect();
+        blocks.sort_unstable_by_key(|r| (r.start, r.end));
+        let mut merged: Vec<std::ops::Range<usize>> = Vec::new();
+        for r in blocks {
+            match merged.last_mut() {
+                Some(last) if r.start <= last.end => last.end = last.end.max(r.end),
+                _ => merged.push(r),
             }
-        });
+        }
+        let mut cands: Vec<Vec<(u32, u8)>> = vec![Vec::new(); ps.len()];
+        for r in merged {
+            self.cols.within_many_in(&ts, r, |j, pos, b| {
+                let p = pos as usize;
+                if ranges[j].iter().any(|r| r.contains(&p)) {
+                    cands[j].push((pos, b));
+                }
+            });
+        }
         let mut stats = JoinStats::default();
         let mut out = Vec::new();
         let mut found: Vec<Neighbor> = Vec::new();
