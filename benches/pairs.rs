@@ -9,9 +9,9 @@
 //! - `WAYMARK_PAIRS_WORDS` word list [/usr/share/dict/american-english-insane]
 //! - `WAYMARK_PAIRS_SAMPLE` items scanned for the brute-force estimate and the recall [500]
 //! - `WAYMARK_PAIRS_RADII` radii of the exact joins [1,2]
-//! - `WAYMARK_PAIRS_CANDIDATES` candidates per item of the 10-NN graph [the index's default]
+//! - `WAYMARK_PAIRS_CANDIDATES` candidates per item of the 10-NN graph [500]
 //! - `WAYMARK_PAIRS_VISIT` rows visited per item with cells [12 per candidate]
-//! - `WAYMARK_PAIRS_ROUNDS` refinement rounds by neighbours of neighbours [2]
+//! - `WAYMARK_PAIRS_ROUNDS` refinement rounds by neighbours of neighbours [3]
 //! - `WAYMARK_PAIRS_ONLY` `within` or `nearest`: run only that part [both]
 
 use std::path::PathBuf;
@@ -133,13 +133,11 @@ fn main() {
     if only != "within" {
         let k = 10;
         let mut params = SearchParams::from_index(&index, k);
-        if let Some(&c) = env_list::<usize>("WAYMARK_PAIRS_CANDIDATES", "").first() {
-            params = params.with_candidates(c);
-        }
+        params = params.with_candidates(env_list("WAYMARK_PAIRS_CANDIDATES", "500")[0]);
         if let Some(&v) = env_list::<usize>("WAYMARK_PAIRS_VISIT", "").first() {
             params.visit = v;
         }
-        let rounds: usize = env_list("WAYMARK_PAIRS_ROUNDS", "2")[0];
+        let rounds: usize = env_list("WAYMARK_PAIRS_ROUNDS", "3")[0];
         let t = Instant::now();
         let mut join = NearestJoin::new(&index, k, Some(params))
             .expect("join")

@@ -400,6 +400,15 @@ pub(super) struct PairsArgs {
     #[arg(long = "candidates-from", value_enum, conflicts_with = "exact",
           help = candidates_from_help())]
     pub candidates_from: Option<SourceArg>,
+    /// With -k, approximate: after the search, N rounds that measure each item's
+    /// neighbours' neighbours and keep the k best (cheap; more recall for fewer candidates).
+    #[arg(
+        long = "refine-rounds",
+        value_name = "N",
+        default_value_t = 0,
+        conflicts_with = "exact"
+    )]
+    pub refine_rounds: usize,
     /// Look up the queries of this file (one per line) against the index instead of
     /// pairing the index's items; each pair carries the query's line.
     #[arg(long, value_name = "FILE")]

@@ -69,7 +69,7 @@ pub(super) fn pairs(a: PairsArgs) -> anyhow::Result<()> {
         Some(join.stats().computed)
     } else {
         let k = a.k.expect("-k or a radius, checked above");
-        let mut join = NearestJoin::new(&index, k, params)?;
+        let mut join = NearestJoin::new(&index, k, params)?.refine(a.refine_rounds);
         while let Some(batch) = join.next_batch() {
             write(&mut out, &batch?)?;
             bar.set_position(join.done() as u64);

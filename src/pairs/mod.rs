@@ -2,12 +2,13 @@
 //! queries against an index in bulk.
 //!
 //! - [`SelfJoin`]: every pair of distinct items at true distance at most a [`Radius`],
-//!   exactly. The items are sorted by a key whose difference bounds the distance from below
-//!   (length in chars for metrics bounded by char counts, else the first stored
-//!   coordinate), laid out in column blocks in that order, and each block of
-//!   [`QUERY_BLOCK`] consecutive items is compared in one shared pass with the blocks after
-//!   it up to where the key's window ends: every unordered pair is compared once (the later
-//!   item of the two in the sorted order is never a query for the earlier one). Items whose
+//!   exactly. The items are sorted by keys whose differences bound the distance from below
+//!   (length in chars, then the first stored coordinate, for metrics bounded by char
+//!   counts; else the first stored coordinate), laid out in column blocks in that order,
+//!   and each block of [`QUERY_BLOCK`] consecutive items is compared in shared passes with
+//!   the ranges of blocks after it that the keys allow: every unordered pair is compared
+//!   once (the later item of the two in the sorted order is never a query for the earlier
+//!   one). Items whose
 //!   stored lower bound is within the radius are measured with the metric's bounded
 //!   distance, or in groups through the vector-lane kernel.
 //! - [`NearestJoin`]: each item's k nearest other items, approximate or exact, through
@@ -81,8 +82,9 @@ pub struct JoinStats {
 /// Every pair of distinct items within a [`Radius`], exactly, batch by batch
 /// ([`SelfJoin::next_batch`]).
 ///
-/// Order: batches follow the join's sorted order of items (by length in chars for
-/// Levenshtein, else by the first stored coordinate; ties by item number), each item's
+/// Order: batches follow the join's sorted order of items (by length in chars and then
+/// the first stored coordinate for Levenshtein, else by the first stored coordinate; ties
+/// by item number), each item's
 /// pairs with the items after it in that order, nearest first (by distance, then id, then
 /// item number). The order depends only on the index, never on the number of threads.
 pub struct SelfJoin<'a> {
