@@ -12,7 +12,7 @@
 //!   stored lower bound is within the radius are measured with the metric's bounded
 //!   distance, or in groups through the vector-lane kernel.
 //! - [`NearestJoin`]: each item's k nearest other items, approximate or exact, through
-//!   [`Searcher::answer_stored`] (stored coordinates reused); a pair found from both sides
+//!   [`crate::search::Searcher::answer_stored`] (stored coordinates reused); a pair found from both sides
 //!   is written once.
 //! - [`group`]: groups of near-duplicates from the pairs ([`Grouping`]).
 //! - [`Radius::Fraction`]: a radius relative to the length of the items.

@@ -107,6 +107,11 @@ fn write_lines(d: &Dir, name: &str, lines: &[String]) -> std::path::PathBuf {
 // ---------------------------------------------------------------------------------------
 // Brute force.
 
+/// Pairs (a < b) and their distances.
+type PairMap = BTreeMap<(u32, u32), f64>;
+/// Each item's neighbours (item, distance), nearest first.
+type Lists = Vec<Vec<(u32, f64)>>;
+
 /// Every pair (a < b) within `radius`, by calling `dist` on all n(n−1)/2 pairs.
 fn brute_pairs(
     index: &Index,
@@ -212,11 +217,7 @@ fn list_pairs(lists: &[Vec<(u32, f64)>]) -> BTreeMap<(u32, u32), f64> {
 }
 
 /// Runs the k-NN join; returns its pairs and each item's list.
-fn nearest(
-    index: &Index,
-    k: usize,
-    params: Option<SearchParams>,
-) -> (BTreeMap<(u32, u32), f64>, Vec<Vec<(u32, f64)>>) {
+fn nearest(index: &Index, k: usize, params: Option<SearchParams>) -> (PairMap, Lists) {
     nearest_refined(index, k, params, 0)
 }
 
@@ -226,7 +227,7 @@ fn nearest_refined(
     k: usize,
     params: Option<SearchParams>,
     rounds: usize,
-) -> (BTreeMap<(u32, u32), f64>, Vec<Vec<(u32, f64)>>) {
+) -> (PairMap, Lists) {
     let mut join = NearestJoin::new(index, k, params)
         .expect("join")
         .refine(rounds);
