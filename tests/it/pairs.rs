@@ -877,3 +877,59 @@ fn bad_input_pairs_and_groups_refuse_bad_radii_and_missing_modes() {
         .code(2)
         .stderr(predicate::str::contains("needs items that are text"));
 }
+
+/// A metric of the library user's own: edit distance over words (each word one symbol),
+/// computed by strsim's `generic_levenshtein`.
+struct WordEdits;
+struct WordEditsQuery(Vec<String>);
+
+impl Metric for WordEdits {
+    type Prepared = WordEditsQuery;
+    fn name(&self) -> &str {
+        "word-edits"
+    }
+    fn is_integral(&self) -> bool {
+        true
+    }
+    fn prepare(&self, q: &[u8]) -> WordEditsQuery {
+        WordEditsQuery(words_of(q))
+    }
+}
+
+fn words_of(s: &[u8]) -> Vec<String> {
+    String::from_utf8_lossy(s)
+        .split(' ')
+        .map(str::to_string)
+        .collect()
+}
+
+impl waymark::metric::PreparedQuery for WordEditsQuery {
+    fn distance(&self, item: &[u8]) -> f64 {
+        // strsim::generic_levenshtein: edit distance over any sequence, here of words.
+        strsim::generic_levenshtein(&self.0, &words_of(item)) as f64
+    }
+}
+
+#[test]
+fn a_metric_of_your_own_pairs_match_brute_force() {
+    // Reference: strsim::generic_levenshtein over the words of each pair.
+    let names = register(1500, 29);
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("c.wmk");
+    let metric = waymark::metric::CustomMetric::new(WordEdits);
+    let corpus = crate::util::corpus(&names);
+    let opts = waymark::index::BuildOptions {
+        dim: 8,
+        ..Default::default()
+    };
+    waymark::index::build_index_with_metric(&corpus, "test", &opts, &metric, &path, &()).unwrap();
+    let index = Index::open_with_metric(&path, &metric).unwrap();
+    let reference =
+        |a: &[u8], b: &[u8]| strsim::generic_levenshtein(&words_of(a), &words_of(b)) as f64;
+    let radii = [
+        Radius::Fixed(1.0),
+        Radius::Fixed(0.0),
+        Radius::Fraction(0.05),
+    ];
+    assert!(check_metric(&index, &radii, 4, &reference, "custom") > 100);
+}
