@@ -129,6 +129,8 @@ pub enum Param {
     Candidates,
     /// The radius of a range query.
     Radius,
+    /// A radius as a fraction of the items' length ([`crate::pairs::Radius::Fraction`]).
+    Fraction,
     /// The embedding dimension of a build ([`crate::index::BuildOptions::dim`]).
     Dim,
     /// The reference-set pool of a build ([`crate::index::BuildOptions::pool`]).
@@ -148,6 +150,7 @@ impl Param {
             Param::K => "k",
             Param::Candidates => "candidates",
             Param::Radius => "radius",
+            Param::Fraction => "fraction",
             Param::Dim => "dim",
             Param::Pool => "pool",
             Param::Dims => "dims",

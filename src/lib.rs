@@ -33,6 +33,7 @@ pub mod eval;
 pub mod index;
 pub mod ingest;
 pub mod metric;
+pub mod pairs;
 pub mod resources;
 pub mod search;
 

@@ -40,6 +40,11 @@ pub(super) enum Command {
     /// Check on a sample of the input that the distance is a metric (zero on equal items,
     /// symmetric, triangle inequality); exit code 4 when it is not.
     CheckMetric(CheckMetricArgs),
+    /// Every pair of near items of an index (within R, or each item's k nearest), or
+    /// look-ups of a queries file in bulk (JSON Lines out).
+    Pairs(PairsArgs),
+    /// Groups of near-duplicates of an index: items within R of each other, grouped.
+    Groups(GroupsArgs),
 }
 
 /// `n` with a comma between groups of three digits (`50,000`), as help texts print counts.
@@ -336,6 +341,11 @@ pub(super) struct QueryArgs {
     /// Every item at true distance at most R, exactly (with -k: the k nearest of them).
     #[arg(long, value_name = "R", allow_negative_numbers = true, conflicts_with_all = ["candidates", "space", "candidates_from"])]
     pub within: Option<f64>,
+    /// Every item at true distance at most F × the length in chars of the longer of the
+    /// query and the item, exactly (with -k: the k nearest of them); text metrics only.
+    #[arg(long = "within-fraction", value_name = "F", allow_negative_numbers = true,
+          conflicts_with_all = ["within", "exact", "candidates", "space", "candidates_from", "visit"])]
+    pub within_fraction: Option<f64>,
     /// Candidates re-ranked by the true distance (default: stored in the index).
     #[arg(long, value_name = "C")]
     pub candidates: Option<usize>,
@@ -367,6 +377,135 @@ pub(super) struct QueryArgs {
     pub summary: bool,
     /// Do not print the metric program's command on stderr before running it (an index
     /// built with --metric external names a program that this command runs).
+    #[arg(long = "quiet-metric")]
+    pub quiet_metric: bool,
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub(super) enum PairFormat {
+    /// One JSON object per pair.
+    Json,
+    /// One tab-separated line per pair: id, item, id, item, distance (with --queries:
+    /// line, query, id, item, distance).
+    Tsv,
+}
+
+#[derive(Debug, clap::Args)]
+pub(super) struct PairsArgs {
+    /// The index file.
+    pub index: PathBuf,
+    /// Each item's K nearest other items (approximate unless --exact).
+    #[arg(short = 'k', value_name = "K", conflicts_with_all = ["within", "within_fraction"])]
+    pub k: Option<usize>,
+    /// Every pair at true distance at most R, exactly.
+    #[arg(long, value_name = "R", allow_negative_numbers = true)]
+    pub within: Option<f64>,
+    /// Every pair at true distance at most F × the length in chars of its longer item,
+    /// exactly; text metrics only.
+    #[arg(
+        long = "within-fraction",
+        value_name = "F",
+        allow_negative_numbers = true,
+        conflicts_with = "within"
+    )]
+    pub within_fraction: Option<f64>,
+    /// With -k: the exact k nearest (needs an index whose embedding gives a lower bound).
+    #[arg(long, requires = "k")]
+    pub exact: bool,
+    /// With -k, approximate: candidates re-ranked by the true distance (default: stored in
+    /// the index).
+    #[arg(long, value_name = "C", conflicts_with = "exact")]
+    pub candidates: Option<usize>,
+    #[arg(long = "candidates-from", value_enum, conflicts_with = "exact",
+          help = candidates_from_help())]
+    pub candidates_from: Option<SourceArg>,
+    /// With -k, approximate: after the search, N rounds that measure each item's
+    /// neighbours' neighbours and keep the k best (cheap; more recall for fewer candidates).
+    #[arg(
+        long = "refine-rounds",
+        value_name = "N",
+        default_value_t = 0,
+        conflicts_with = "exact"
+    )]
+    pub refine_rounds: usize,
+    /// Look up the queries of this file (one per line) against the index instead of
+    /// pairing the index's items; each pair carries the query's line.
+    #[arg(long, value_name = "FILE")]
+    pub queries: Option<PathBuf>,
+    /// Output format.
+    #[arg(long, value_enum, default_value = "json")]
+    pub format: PairFormat,
+    /// Print a one-line summary on stderr when done (pairs, time, distances computed).
+    #[arg(long)]
+    pub summary: bool,
+    /// No progress bar.
+    #[arg(short, long)]
+    pub quiet: bool,
+    /// Do not print the metric program's command on stderr before running it.
+    #[arg(long = "quiet-metric")]
+    pub quiet_metric: bool,
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub(super) enum GroupingArg {
+    /// Connected components of the pairs: chains join items far apart.
+    Components,
+    /// Every member within R of its group's centre (greedy, most-paired items first).
+    Centre,
+    /// Every two members within R of each other (greedy, most-paired seeds first).
+    Clique,
+}
+
+impl From<GroupingArg> for crate::pairs::Grouping {
+    fn from(g: GroupingArg) -> crate::pairs::Grouping {
+        match g {
+            GroupingArg::Components => crate::pairs::Grouping::Components,
+            GroupingArg::Centre => crate::pairs::Grouping::Centre,
+            GroupingArg::Clique => crate::pairs::Grouping::Clique,
+        }
+    }
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+pub(super) enum GroupFormat {
+    /// One JSON object per group.
+    Json,
+    /// One tab-separated line per member: group, size, id, item.
+    Tsv,
+}
+
+#[derive(Debug, clap::Args)]
+pub(super) struct GroupsArgs {
+    /// The index file.
+    pub index: PathBuf,
+    /// Items at true distance at most R are near-duplicates.
+    #[arg(long, value_name = "R", allow_negative_numbers = true)]
+    pub within: Option<f64>,
+    /// Items at true distance at most F × the length in chars of the longer are
+    /// near-duplicates; text metrics only.
+    #[arg(
+        long = "within-fraction",
+        value_name = "F",
+        allow_negative_numbers = true,
+        conflicts_with = "within"
+    )]
+    pub within_fraction: Option<f64>,
+    /// How pairs make groups.
+    #[arg(long, value_enum, default_value = "centre")]
+    pub grouping: GroupingArg,
+    /// Also write items in no pair, as groups of one.
+    #[arg(long)]
+    pub singletons: bool,
+    /// Output format.
+    #[arg(long, value_enum, default_value = "json")]
+    pub format: GroupFormat,
+    /// Print a one-line summary on stderr when done.
+    #[arg(long)]
+    pub summary: bool,
+    /// No progress bar.
+    #[arg(short, long)]
+    pub quiet: bool,
+    /// Do not print the metric program's command on stderr before running it.
     #[arg(long = "quiet-metric")]
     pub quiet_metric: bool,
 }
@@ -524,6 +663,7 @@ pub(super) fn flag(p: crate::error::Param) -> &'static str {
         Param::K => "-k",
         Param::Candidates => "--candidates",
         Param::Radius => "--within",
+        Param::Fraction => "--within-fraction",
         Param::Dim => "--dim",
         Param::Pool => "--pool",
         Param::Dims => "--dims",

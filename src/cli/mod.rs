@@ -1,6 +1,6 @@
 //! The command line: `args.rs` holds every clap definition, one file per command runs it
 //! (`build.rs`, `query.rs`, `inspect.rs`, `eval.rs`, `sweep.rs`, `check_metric.rs`,
-//! `install.rs`),
+//! `install.rs`, `pairs.rs`, `groups.rs`),
 //! `output.rs` writes answers and progress; this file runs a command and maps its error to
 //! the exit code.
 //!
@@ -14,9 +14,11 @@ mod args;
 mod build;
 mod check_metric;
 mod eval;
+mod groups;
 mod inspect;
 mod install;
 mod output;
+mod pairs;
 mod query;
 mod sweep;
 
@@ -72,6 +74,8 @@ fn run(args: Args) -> anyhow::Result<()> {
         Command::Sweep(a) => sweep::sweep(a),
         Command::CheckMetric(a) => check_metric::check_metric(a),
         Command::Install(a) => install::install(a),
+        Command::Pairs(a) => pairs::pairs(a),
+        Command::Groups(a) => groups::groups(a),
     }
 }
 

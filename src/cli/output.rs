@@ -16,6 +16,14 @@ pub fn id_json(id: IdRef<'_>) -> serde_json::Value {
     }
 }
 
+/// An id as TSV text: the number, or the text id as given.
+pub fn id_text(id: IdRef<'_>) -> String {
+    match id {
+        IdRef::Int(v) => v.to_string(),
+        IdRef::Text(b) => String::from_utf8_lossy(b).into_owned(),
+    }
+}
+
 /// A distance as JSON: an integer when it is whole, else a float.
 pub fn distance_json(d: f64) -> serde_json::Value {
     if d.fract() == 0.0 && d.abs() < 9e15 {
@@ -120,10 +128,7 @@ pub fn write_tsv(
     found: &Found,
 ) -> anyhow::Result<()> {
     for (rank, n) in found.neighbors.iter().enumerate() {
-        let id = match index.id(n.index as usize) {
-            IdRef::Int(v) => v.to_string(),
-            IdRef::Text(b) => String::from_utf8_lossy(b).into_owned(),
-        };
+        let id = id_text(index.id(n.index as usize));
         let item = String::from_utf8_lossy(index.item(n.index as usize));
         write!(
             out,

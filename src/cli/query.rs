@@ -17,6 +17,7 @@ use super::args::{OutFormat, QueryArgs};
 use super::output::{write_json, write_json_error, write_tsv, write_tsv_error};
 use crate::error::Error;
 use crate::index::Index;
+use crate::pairs::{lookup_within, Radius};
 use crate::search::{Request, SearchParams, Searcher};
 
 /// Largest number of queries answered together.
@@ -39,11 +40,20 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
         params.space = s.into();
     }
     params.source = a.candidates_from.map_or(params.source, Into::into);
-    let request = match (a.within, a.exact) {
-        (Some(radius), _) => Request::Within { radius, k: a.k },
-        (None, true) => Request::Exact { k: params.k },
-        (None, false) => Request::Approximate(params),
+    let request = match (a.within, a.within_fraction, a.exact) {
+        (Some(radius), _, _) => Request::Within { radius, k: a.k },
+        // Each query's radius follows from its length; the check takes radius 0.
+        (None, Some(_), _) => Request::Within {
+            radius: 0.0,
+            k: a.k,
+        },
+        (None, None, true) => Request::Exact { k: params.k },
+        (None, None, false) => Request::Approximate(params),
     };
+    let fraction = a.within_fraction.map(Radius::Fraction);
+    if let Some(f) = fraction {
+        f.check(&index)?;
+    }
     let searcher = Searcher::new(&index);
     searcher.check(&request)?;
     let mut lines = match &a.queries {
@@ -75,7 +85,11 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
                 Err((text, e)) => entries.push(Entry::Bad(line, text, e)),
             }
         }
-        let mut answers = searcher.answer_many(&texts, &request).into_iter();
+        let mut answers = match fraction {
+            Some(f) => lookup_within(&searcher, &texts, f, a.k),
+            None => searcher.answer_many(&texts, &request),
+        }
+        .into_iter();
         let mut texts = texts.into_iter();
         for entry in entries {
             let (line, query, result) = match entry {

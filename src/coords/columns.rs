@@ -269,17 +269,35 @@ impl Columns {
     /// in item order for each query. Blocks are taken [`TILE`] at a time and each tile
     /// is compared with every query before the next is read, so the columns are read from
     /// memory about once per call rather than once per query.
-    pub fn within_many(&self, qs: &[Threshold<'_>], mut found: impl FnMut(usize, u32, u8)) {
+    pub fn within_many(&self, qs: &[Threshold<'_>], found: impl FnMut(usize, u32, u8)) {
+        self.within_many_in(qs, 0..self.blocks, found);
+    }
+
+    /// Number of blocks ([`BLOCK`] items each, the last one possibly part-filled).
+    pub fn blocks(&self) -> usize {
+        self.blocks
+    }
+
+    /// [`Columns::within_many`] over the blocks in `blocks` only (items
+    /// `blocks.start · BLOCK .. blocks.end · BLOCK`): a self-join whose items are sorted
+    /// compares a block of items only with the blocks after it.
+    pub fn within_many_in(
+        &self,
+        qs: &[Threshold<'_>],
+        blocks: std::ops::Range<usize>,
+        mut found: impl FnMut(usize, u32, u8),
+    ) {
         for t in qs {
             assert_eq!(t.q.len(), self.cols, "one query value per column");
         }
+        let blocks = blocks.start.min(self.blocks)..blocks.end.min(self.blocks);
         #[cfg(target_arch = "x86_64")]
         if crate::cpu::has_avx2_popcnt() {
             // SAFETY: the CPU has AVX2 and popcnt, the features the function needs.
-            unsafe { avx2::within_many(self, qs, &mut found) };
+            unsafe { avx2::within_many(self, qs, blocks, &mut found) };
             return;
         }
-        self.within_many_portable(qs, &mut found);
+        self.portable_in(qs, blocks, &mut found);
     }
 
     /// The portable form of [`Columns::within_many`] (same results on any CPU).
@@ -291,9 +309,18 @@ impl Columns {
         for t in qs {
             assert_eq!(t.q.len(), self.cols, "one query value per column");
         }
-        let mut at = 0;
-        while at < self.blocks {
-            let end = (at + TILE).min(self.blocks);
+        self.portable_in(qs, 0..self.blocks, found);
+    }
+
+    fn portable_in(
+        &self,
+        qs: &[Threshold<'_>],
+        blocks: std::ops::Range<usize>,
+        found: &mut impl FnMut(usize, u32, u8),
+    ) {
+        let mut at = blocks.start;
+        while at < blocks.end {
+            let end = (at + TILE).min(blocks.end);
             for (j, t) in qs.iter().enumerate() {
                 self.blocks_portable(t, at..end, &mut |i, b| found(j, i, b));
             }
@@ -382,6 +409,7 @@ mod avx2 {
     pub(super) fn within_many(
         c: &Columns,
         qs: &[Threshold<'_>],
+        range: std::ops::Range<usize>,
         found: &mut impl FnMut(usize, u32, u8),
     ) {
         // Each query's values per group, padded with zeros like the stored columns.
@@ -397,9 +425,9 @@ mod avx2 {
                     .collect()
             })
             .collect();
-        let mut at = 0;
-        while at < c.blocks {
-            let end = (at + TILE).min(c.blocks);
+        let mut at = range.start;
+        while at < range.end {
+            let end = (at + TILE).min(range.end);
             for (j, (t, qv)) in qs.iter().zip(&prepared).enumerate() {
                 blocks(c, qv, t, at..end, &mut |i, b| found(j, i, b));
             }
@@ -631,6 +659,42 @@ mod tests {
                 assert_eq!(a, expect, "n {n} dim {dim} lo {lo:?} hi {hi}");
                 assert_eq!(p, expect);
             }
+        }
+    }
+
+    #[test]
+    fn a_range_of_blocks_gives_the_items_of_those_blocks_only() {
+        let mut next = lcg(99);
+        let (n, stride, dim) = (1000, 8, 6);
+        let coords: Vec<u8> = (0..n * stride).map(|_| next() % 7).collect();
+        let cols = Columns::build(Parts {
+            coords: &coords,
+            stride,
+            dim,
+            counts: None,
+            sigs: None,
+        });
+        let q: Vec<u8> = (0..cols.cols()).map(|_| next() % 7).collect();
+        let want = direct(&coords, stride, dim, None, &q);
+        let t = Threshold {
+            q: &q,
+            lo: None,
+            hi: 3,
+            sig: 0,
+        };
+        for range in [0..0, 0..1, 3..17, 30..cols.blocks(), 5..cols.blocks() + 9] {
+            let mut got = Vec::new();
+            cols.within_many_in(&[t, t], range.clone(), |j, i, b| {
+                if j == 1 {
+                    got.push((i, b))
+                }
+            });
+            let items = range.start * BLOCK..(range.end * BLOCK).min(n);
+            let expect: Vec<(u32, u8)> = items
+                .filter(|&i| want[i] <= 3)
+                .map(|i| (i as u32, want[i]))
+                .collect();
+            assert_eq!(got, expect, "{range:?}");
         }
     }
 

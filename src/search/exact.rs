@@ -114,6 +114,46 @@ impl Searcher<'_> {
             .collect()
     }
 
+    /// Exact answers for a block of stored items ([`Searcher::answer_stored`]): as
+    /// [`Searcher::exact_block`], the items' stored coordinates reused.
+    pub(super) fn exact_stored_block(
+        &self,
+        block: &[u32],
+        k: Option<usize>,
+        radius: Option<f64>,
+    ) -> Vec<Result<Found>> {
+        let bound = match self.require_bound() {
+            Ok(b) => b,
+            Err(e) => {
+                let mut first = Some(e);
+                return block
+                    .iter()
+                    .map(|_| Err(first.take().unwrap_or_else(|| self.no_bound())))
+                    .collect();
+            }
+        };
+        let prepared: Vec<Result<Prepared>> =
+            block.iter().map(|&i| self.prepare_stored(i)).collect();
+        let mut runs: Vec<ExactRun<'_>> = prepared
+            .iter()
+            .filter_map(|p| p.as_ref().ok())
+            .map(|pq| self.start_exact(pq, bound, k, radius))
+            .collect();
+        let mut answers = self.run_exact(&mut runs).into_iter();
+        let check = || -> Result<()> {
+            self.index.metric()?.check()?;
+            Ok(())
+        };
+        prepared
+            .into_iter()
+            .map(|p| {
+                p?;
+                let found = answers.next().expect("one answer per prepared item");
+                check().map(|()| found)
+            })
+            .collect()
+    }
+
     /// The exact search behind [`Searcher::search_exact`] and [`Searcher::search_within`]:
     /// the `k` nearest (all when `None`) among items within `radius` (any when `None`).
     pub(super) fn exact(

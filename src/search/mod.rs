@@ -312,10 +312,111 @@ impl<'a> Searcher<'a> {
             .collect()
     }
 
+    /// Stored item `i` as a query: its key, prepared, and its stored coordinates (no
+    /// distance to the reference items is computed: the build already did).
+    fn prepare_stored(&self, i: u32) -> Result<Prepared> {
+        let i = i as usize;
+        if i >= self.index.len() {
+            return Err(Error::Usage(format!(
+                "item {i} is not in the index ({} items)",
+                self.index.len()
+            )));
+        }
+        let key = self.keys.get(i).to_vec();
+        let q = self.index.metric()?.prepare(&key);
+        let (stride, dim) = (self.index.stride(), self.index.meta().dim as usize);
+        let mut small = [0u8; 64];
+        let row = self.index.coords().get(i * stride..i * stride + dim);
+        small[..dim].copy_from_slice(row.unwrap_or(&[0; 64][..dim]));
+        Ok(Prepared { key, q, small })
+    }
+
+    /// Answers `req` for stored items of the index, each asked as a query, in parallel;
+    /// answers come back in the order of `items`. The items' stored coordinates are reused
+    /// (nothing is re-embedded) and, as for [`Searcher::answer_many`], blocks of items share
+    /// passes over the coordinates. Each item finds itself too (at distance 0, unless
+    /// others at distance 0 sort before it and fill the answer).
+    ///
+    /// With the kd-tree as the candidate source, items are embedded again (the tree needs
+    /// unquantised coordinates).
+    pub fn answer_stored(&self, items: &[u32], req: &Request) -> Vec<Result<Found>> {
+        if self.check(req).is_err() {
+            // Every item gets the same error, as from one call each.
+            return items
+                .iter()
+                .map(|_| self.check(req).and(Err(Error::Usage(String::new()))))
+                .collect();
+        }
+        let (k, radius) = match *req {
+            Request::Approximate(p) if p.source == CandidateSource::Tree => {
+                return items
+                    .par_iter()
+                    .map_init(Scratch::default, |s, &i| {
+                        let text = String::from_utf8_lossy(self.index.item(i as usize));
+                        self.search(&text, &p, s)
+                    })
+                    .collect();
+            }
+            Request::Approximate(p) => {
+                let blocks: Vec<Vec<Result<Found>>> = items
+                    .par_chunks(candidates::QUERY_BLOCK)
+                    .map_init(Vec::new, |s, block| self.stored_block(block, &p, s))
+                    .collect();
+                return blocks.into_iter().flatten().collect();
+            }
+            Request::Exact { k } => (Some(k), None),
+            Request::Within { radius, k } => (k, Some(radius)),
+        };
+        let blocks: Vec<Vec<Result<Found>>> = items
+            .par_chunks(candidates::QUERY_BLOCK)
+            .map(|block| self.exact_stored_block(block, k, radius))
+            .collect();
+        blocks.into_iter().flatten().collect()
+    }
+
+    /// Approximate answers for a block of stored items ([`Searcher::answer_stored`]).
+    fn stored_block(
+        &self,
+        block: &[u32],
+        p: &SearchParams,
+        s: &mut Vec<Scratch>,
+    ) -> Vec<Result<Found>> {
+        let prepared: Vec<Result<Prepared>> =
+            block.iter().map(|&i| self.prepare_stored(i)).collect();
+        if s.len() < block.len() {
+            s.resize_with(block.len(), Scratch::default);
+        }
+        let c = p.candidates.max(p.k).min(self.index.len());
+        if p.source == CandidateSource::Scan {
+            let smalls: Vec<[u8; 64]> = prepared
+                .iter()
+                .map(|r| r.as_ref().map_or([0; 64], |pq| pq.small))
+                .collect();
+            self.score_block(&smalls, p.space, s);
+        }
+        prepared
+            .into_iter()
+            .zip(s.iter_mut())
+            .map(|(pq, sc)| {
+                let pq = pq?;
+                match p.source {
+                    CandidateSource::Scan => sc.select(c),
+                    _ => self.cells_candidates(&pq.small, c, p.visit, p.space, sc)?,
+                }
+                self.rerank(&pq, p.k, &sc.picked)
+            })
+            .collect()
+    }
+
     fn require_bound(&self) -> Result<Bound> {
-        self.bound.ok_or_else(|| Error::NoLowerBound {
+        self.bound.ok_or_else(|| self.no_bound())
+    }
+
+    /// The refusal of exact requests on this index.
+    fn no_bound(&self) -> Error {
+        Error::NoLowerBound {
             path: self.index.path().to_path_buf(),
             embedding: self.index.meta().embedding.name().to_string(),
-        })
+        }
     }
 }

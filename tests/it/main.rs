@@ -26,6 +26,7 @@ mod metric_token_edit;
 mod metric_vectors;
 mod metric_weighted;
 mod names;
+mod pairs;
 mod permissions;
 mod search;
 mod vector_digits;
