@@ -247,7 +247,8 @@ impl InputArgs {
         self.input.display().to_string()
     }
 
-    /// Reads the input as its metric wants it (ids from `ids`, else record numbers).
+    /// Reads the input as its metric wants it (ids from `ids`, else record numbers), and
+    /// prints the reader's warnings on stderr.
     pub fn load(&self, ids: Option<&IdArgs>) -> crate::Result<LoadedInput> {
         let ingest = IngestOptions {
             format: self.input_format,
@@ -255,7 +256,9 @@ impl InputArgs {
             id_field: ids.and_then(|i| i.id_field.clone()),
             normalize: self.normalize(),
         };
-        load_input(&self.input, &ingest, &self.metric.options())
+        let input = load_input(&self.input, &ingest, &self.metric.options())?;
+        super::print_warnings(&input.warnings);
+        Ok(input)
     }
 }
 

@@ -34,12 +34,14 @@ use std::path::Path;
 use serde::{Deserialize, Serialize};
 
 mod csv;
+mod fastx;
 mod jsonl;
 mod load;
 mod text;
 pub mod vectors;
 
-pub use crate::error::IngestError;
+pub use crate::error::{IngestError, IngestWarning};
+pub use fastx::{read_sequences, SequenceFormat, SequenceRecord};
 pub use load::{load_input, LoadedInput, MetricOptions, DEFAULT_TIMEOUT_SECS};
 pub use vectors::parse_vector;
 
@@ -97,14 +99,39 @@ pub enum InputFormat {
     },
     /// One JSON object per line.
     JsonLines,
+    /// FASTA or FASTQ records (plain or gzip-compressed): the sequences are the items, the
+    /// record names their ids.
+    Sequences(SequenceFormat),
 }
 
 impl InputFormat {
-    /// The format implied by a file name: `.csv`, `.tsv`/`.tab`, `.jsonl`/`.ndjson`, else text.
+    /// The format implied by a file name: `.csv`, `.tsv`/`.tab`, `.jsonl`/`.ndjson`,
+    /// `.fa`/`.fasta`/`.fna` (FASTA) and `.fq`/`.fastq` (FASTQ), these two also with `.gz`
+    /// after them; else text.
     pub fn from_path(path: &Path) -> InputFormat {
-        let ext = path
-            .extension()
-            .map(|e| e.to_string_lossy().to_ascii_lowercase());
+        let name = path
+            .file_name()
+            .map(|e| e.to_string_lossy().to_ascii_lowercase())
+            .unwrap_or_default();
+        let ext = |name: &str| {
+            Path::new(name)
+                .extension()
+                .map(|e| e.to_string_lossy().into_owned())
+        };
+        let sequences = |ext: Option<&str>| match ext {
+            Some("fa") | Some("fasta") | Some("fna") => Some(SequenceFormat::Fasta),
+            Some("fq") | Some("fastq") => Some(SequenceFormat::Fastq),
+            _ => None,
+        };
+        if let Some(inner) = name.strip_suffix(".gz") {
+            if let Some(f) = sequences(ext(inner).as_deref()) {
+                return InputFormat::Sequences(f);
+            }
+        }
+        let ext = ext(&name);
+        if let Some(f) = sequences(ext.as_deref()) {
+            return InputFormat::Sequences(f);
+        }
         match ext.as_deref() {
             Some("csv") => InputFormat::Csv { delimiter: b',' },
             Some("tsv") | Some("tab") => InputFormat::Csv { delimiter: b'\t' },
@@ -125,6 +152,8 @@ impl clap::ValueEnum for InputFormat {
             InputFormat::Csv { delimiter: b',' },
             InputFormat::Csv { delimiter: b'\t' },
             InputFormat::JsonLines,
+            InputFormat::Sequences(SequenceFormat::Fasta),
+            InputFormat::Sequences(SequenceFormat::Fastq),
         ]
     }
 
@@ -140,6 +169,14 @@ impl clap::ValueEnum for InputFormat {
             }
             InputFormat::Csv { .. } => return None,
             InputFormat::JsonLines => ("jsonl", "One JSON object per line"),
+            InputFormat::Sequences(SequenceFormat::Fasta) => (
+                "fasta",
+                "FASTA records (plain or gzip): sequences, ids from the record names",
+            ),
+            InputFormat::Sequences(SequenceFormat::Fastq) => (
+                "fastq",
+                "FASTQ records (plain or gzip): sequences, ids from the record names",
+            ),
         };
         Some(PossibleValue::new(name).help(help))
     }
@@ -291,8 +328,18 @@ impl Corpus {
     }
 }
 
-/// Reads a corpus from a file.
+/// Reads a corpus from a file. What the readers warn of is dropped: see
+/// [`read_corpus_with_warnings`].
 pub fn read_corpus(path: &Path, opts: &IngestOptions) -> Result<Corpus, IngestError> {
+    read_corpus_with_warnings(path, opts).map(|(c, _)| c)
+}
+
+/// Reads a corpus from a file, with the readers' warnings (quoting that looks wrong, rows
+/// longer than the header, repeated column names, a text file that looks like FASTA).
+pub fn read_corpus_with_warnings(
+    path: &Path,
+    opts: &IngestOptions,
+) -> Result<(Corpus, Vec<IngestWarning>), IngestError> {
     let name = path.display().to_string();
     let file = std::fs::File::open(path).map_err(|error| IngestError::Io {
         source_name: name.clone(),
@@ -302,29 +349,43 @@ pub fn read_corpus(path: &Path, opts: &IngestOptions) -> Result<Corpus, IngestEr
     if opts.format.is_none() {
         opts.format = Some(InputFormat::from_path(path));
     }
-    read_corpus_from(file, &name, &opts)
+    read_corpus_from_with_warnings(file, &name, &opts)
 }
 
-/// Reads a corpus from any reader; `source_name` is used in errors.
+/// Reads a corpus from any reader; `source_name` is used in errors. What the readers warn
+/// of is dropped: see [`read_corpus_from_with_warnings`].
 pub fn read_corpus_from<R: Read>(
     reader: R,
     source_name: &str,
     opts: &IngestOptions,
 ) -> Result<Corpus, IngestError> {
+    read_corpus_from_with_warnings(reader, source_name, opts).map(|(c, _)| c)
+}
+
+/// Reads a corpus from any reader, with the readers' warnings; `source_name` is used in
+/// errors and warnings.
+pub fn read_corpus_from_with_warnings<R: Read>(
+    reader: R,
+    source_name: &str,
+    opts: &IngestOptions,
+) -> Result<(Corpus, Vec<IngestWarning>), IngestError> {
     let mut b = Builder::new(source_name, opts);
-    match opts.format.unwrap_or(InputFormat::Text) {
-        InputFormat::Text => {
-            if opts.field.is_some() || opts.id_field.is_some() {
-                return Err(b.options_error(
-                    "--field and --id-field need a CSV, TSV or JSON Lines input".into(),
-                ));
-            }
-            text::read_text(reader, &mut b)?
-        }
+    let format = opts.format.unwrap_or(InputFormat::Text);
+    if matches!(format, InputFormat::Text | InputFormat::Sequences(_))
+        && (opts.field.is_some() || opts.id_field.is_some())
+    {
+        return Err(
+            b.options_error("--field and --id-field need a CSV, TSV or JSON Lines input".into())
+        );
+    }
+    match format {
+        InputFormat::Text => text::read_text(reader, &mut b)?,
         InputFormat::Csv { delimiter } => csv::read_csv(reader, delimiter, &mut b)?,
         InputFormat::JsonLines => jsonl::read_jsonl(reader, &mut b)?,
+        InputFormat::Sequences(f) => fastx::read_fastx(reader, f, &mut b)?,
     }
-    b.finish()
+    let warnings = std::mem::take(&mut b.warnings);
+    Ok((b.finish()?, warnings))
 }
 
 /// Collects items, keys and ids while checking them.
@@ -338,6 +399,7 @@ struct Builder<'a> {
     text_ids: Vec<String>,
     blank: usize,
     records: usize,
+    warnings: Vec<IngestWarning>,
 }
 
 /// An id as read from one record.
@@ -358,6 +420,7 @@ impl<'a> Builder<'a> {
             text_ids: Vec::new(),
             blank: 0,
             records: 0,
+            warnings: Vec::new(),
         }
     }
 
