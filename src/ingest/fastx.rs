@@ -96,8 +96,11 @@ pub fn read_sequences<R: Read>(
         let rec = match next {
             Ok(rec) => rec,
             Err(e) => {
-                let line = e.position.line.max(1);
-                return Err(record_error(number, line, describe(&e, format)));
+                // needletail may name the line after the last when the input ends early.
+                let lines =
+                    text.split(|&c| c == b'\n').count() as u64 - u64::from(text.ends_with(b"\n"));
+                let line = e.position.line.clamp(1, lines.max(1));
+                return Err(record_error(number, line, describe(&e, format, text, line)));
             }
         };
         let line = rec.start_line_number();
@@ -144,8 +147,8 @@ pub fn read_sequences<R: Read>(
     Ok(out)
 }
 
-/// needletail's error in our words.
-fn describe(e: &ParseError, format: SequenceFormat) -> String {
+/// needletail's error in our words; `line` (1-based) is the line it concerns in `text`.
+fn describe(e: &ParseError, format: SequenceFormat, text: &[u8], line: u64) -> String {
     let name = match &e.position.id {
         Some(id) if !id.is_empty() => format!(" (\"{id}\")"),
         _ => String::new(),
@@ -180,12 +183,24 @@ fn describe(e: &ParseError, format: SequenceFormat) -> String {
                 ),
             }
         }
-        ParseErrorKind::InvalidStart | ParseErrorKind::UnknownFormat => format!(
-            "a {} record must start with '{}' ({})",
-            format.name().to_uppercase(),
-            format.mark(),
-            e.msg.replace("Expected", "expected").trim_end_matches('.')
-        ),
+        ParseErrorKind::InvalidStart | ParseErrorKind::UnknownFormat => {
+            let found = text
+                .split(|&c| c == b'\n')
+                .nth(line as usize - 1)
+                .map(|l| l.strip_suffix(b"\r").unwrap_or(l));
+            let found = match found {
+                Some([]) | None => "this line is blank".to_string(),
+                Some(l) => format!(
+                    "this line starts with \"{}\"",
+                    String::from_utf8_lossy(&l[..l.len().min(20)]).escape_debug()
+                ),
+            };
+            format!(
+                "a {} record must start with '{}' and {found}",
+                format.name().to_uppercase(),
+                format.mark()
+            )
+        }
         ParseErrorKind::EmptyFile => "the record is cut short".into(),
         ParseErrorKind::Io => format!("reading failed: {}", e.msg),
     };

@@ -25,4 +25,5 @@ mod metric_vectors;
 mod metric_weighted;
 mod permissions;
 mod search;
+mod sequences;
 mod vector_digits;
