@@ -332,9 +332,14 @@ pub(super) struct QueryArgs {
     /// [default: 12 per candidate]; 0 compares every row.
     #[arg(long, value_name = "N", conflicts_with_all = ["exact", "within"])]
     pub visit: Option<usize>,
-    /// Read queries from this file instead of stdin, one per line.
+    /// Read queries from this file instead of stdin, one per line (FASTA/FASTQ records for
+    /// .fa, .fasta, .fna, .fq, .fastq, also with .gz).
     #[arg(long, value_name = "FILE")]
     pub queries: Option<PathBuf>,
+    /// How the queries are laid out [default: from the --queries file's extension; stdin:
+    /// text]. FASTA/FASTQ input is read whole before the first answer.
+    #[arg(long = "query-format", value_enum, value_name = "FORMAT")]
+    pub query_format: Option<QueryFormat>,
     /// Output format.
     #[arg(long, value_enum, default_value = "json")]
     pub format: OutFormat,
@@ -353,6 +358,28 @@ pub(super) struct QueryArgs {
     /// built with --metric external names a program that this command runs).
     #[arg(long = "quiet-metric")]
     pub quiet_metric: bool,
+}
+
+/// The layouts of queries.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub(super) enum QueryFormat {
+    /// One query per line.
+    Text,
+    /// FASTA records (plain or gzip): the sequences, with the record names in the answers.
+    Fasta,
+    /// FASTQ records (plain or gzip): the sequences, with the record names in the answers.
+    Fastq,
+}
+
+impl QueryFormat {
+    /// The sequence layout, if it is one.
+    pub fn sequences(self) -> Option<crate::ingest::SequenceFormat> {
+        match self {
+            QueryFormat::Text => None,
+            QueryFormat::Fasta => Some(crate::ingest::SequenceFormat::Fasta),
+            QueryFormat::Fastq => Some(crate::ingest::SequenceFormat::Fastq),
+        }
+    }
 }
 
 #[derive(Debug, clap::Args)]

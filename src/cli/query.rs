@@ -13,11 +13,11 @@ use std::time::Instant;
 
 use anyhow::Context;
 
-use super::args::{OutFormat, QueryArgs};
+use super::args::{OutFormat, QueryArgs, QueryFormat};
 use super::output::{write_json, write_json_error, write_tsv, write_tsv_error};
 use crate::error::Error;
 use crate::index::Index;
-use crate::ingest::{read_sequences, InputFormat, SequenceRecord};
+use crate::ingest::{read_sequences, InputFormat, SequenceFormat, SequenceRecord};
 use crate::search::{Request, SearchParams, Searcher};
 
 /// Largest number of queries answered together.
@@ -50,9 +50,10 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
     };
     let searcher = Searcher::new(&index);
     searcher.check(&request)?;
+    let format = a.query_format.map(QueryFormat::sequences);
     let mut lines = match &a.queries {
-        Some(p) => QueryLines::open(p)?,
-        None => QueryLines::stdin(),
+        Some(p) => QueryLines::open(p, format)?,
+        None => QueryLines::stdin(format.flatten())?,
     };
     let stdout = std::io::stdout();
     let mut out = BufWriter::new(stdout.lock());
@@ -167,8 +168,9 @@ struct QueryLines {
 }
 
 impl QueryLines {
-    /// A queries file; a folder or a missing file is a usage error.
-    fn open(path: &Path) -> Result<QueryLines, Error> {
+    /// A queries file; a folder or a missing file is a usage error. `format`: `Some(None)`
+    /// for lines, `Some(Some(f))` for FASTA/FASTQ records, `None` by the file's extension.
+    fn open(path: &Path, format: Option<Option<SequenceFormat>>) -> Result<QueryLines, Error> {
         let io = |source| Error::Io {
             path: path.to_path_buf(),
             source,
@@ -182,11 +184,13 @@ impl QueryLines {
             )));
         }
         let name = path.display().to_string();
-        let records = match InputFormat::from_path(path) {
-            InputFormat::Sequences(format) => {
-                Some(read_sequences(file, &name, format)?.into_iter())
-            }
+        let format = format.unwrap_or(match InputFormat::from_path(path) {
+            InputFormat::Sequences(f) => Some(f),
             _ => None,
+        });
+        let records = match format {
+            Some(format) => Some(read_sequences(file, &name, format)?.into_iter()),
+            None => None,
         };
         Ok(QueryLines {
             reader: BufReader::with_capacity(
@@ -201,14 +205,20 @@ impl QueryLines {
     }
 
     /// Standard input. Its own buffer stays empty: reads as large as ours bypass it.
-    fn stdin() -> QueryLines {
-        QueryLines {
+    /// FASTA/FASTQ records are read whole before the first answer.
+    fn stdin(format: Option<SequenceFormat>) -> Result<QueryLines, Error> {
+        let name = "<stdin>".to_string();
+        let records = match format {
+            Some(format) => Some(read_sequences(std::io::stdin(), &name, format)?.into_iter()),
+            None => None,
+        };
+        Ok(QueryLines {
             reader: BufReader::with_capacity(READ_BUFFER, Box::new(std::io::stdin())),
             line: 0,
-            name: "<stdin>".to_string(),
+            name,
             may_wait: !stdin_is_file(),
-            records: None,
-        }
+            records,
+        })
     }
 
     /// Whether a whole line is already in the buffer (reading it cannot wait).
@@ -277,7 +287,7 @@ fn stdin_is_file() -> bool {
 
 /// Every line of a queries file (UTF-8 checked, the line named on error).
 pub(super) fn read_query_file(path: &Path) -> anyhow::Result<Vec<String>> {
-    let mut lines = QueryLines::open(path)?;
+    let mut lines = QueryLines::open(path, None)?;
     let mut all = Vec::new();
     while let Some((line, bytes, _)) = lines.next_raw()? {
         let text = decode(bytes).map_err(|(_, e)| at_query_line(e, &lines.name, line))?;

@@ -315,3 +315,74 @@ fn a_query_of_another_length_is_reported_inline_with_its_record_name() {
     assert_eq!(replies[1]["neighbors"][0]["id"], "bc00001");
     assert_eq!(replies[1]["neighbors"][0]["distance"], 0);
 }
+
+#[test]
+fn fastq_queries_from_stdin_and_a_layout_named_over_the_extension() {
+    let d = Dir::new();
+    let items = d.write("codes.txt", b"ACGTACGT\nTTGTACGT\nGGGGCCCC\n");
+    let idx = d.build(
+        &items,
+        "c.wmk",
+        &["--metric", "hamming", "--dim", "2", "-q"],
+    );
+    let fq = "@q1 lane1\nACGTACGA\n+\nIIIIIIII\n@q2\nGGGGCCCA\n+\nIIIIIIII\n";
+    let run = |args: &[&str], stdin: &str| -> Vec<Value> {
+        let out = d
+            .cmd()
+            .arg("query")
+            .arg(&idx)
+            .args(["-k", "1"])
+            .args(args)
+            .write_stdin(stdin.to_string())
+            .assert()
+            .success()
+            .get_output()
+            .stdout
+            .clone();
+        json_lines(&out)
+    };
+    let a = run(&["--query-format", "fastq"], fq);
+    assert_eq!(a.len(), 2);
+    assert_eq!(
+        (a[0]["name"].as_str(), a[1]["name"].as_str()),
+        (Some("q1"), Some("q2"))
+    );
+    assert_eq!(
+        (a[0]["line"].as_u64(), a[1]["line"].as_u64()),
+        (Some(1), Some(5))
+    );
+    // strsim: the Hamming distance of each read to its nearest code.
+    assert_eq!(a[0]["neighbors"][0]["item"], "ACGTACGT");
+    assert_eq!(
+        a[0]["neighbors"][0]["distance"].as_u64(),
+        Some(strsim::hamming("ACGTACGA", "ACGTACGT").unwrap() as u64)
+    );
+    assert_eq!(a[1]["neighbors"][0]["item"], "GGGGCCCC");
+    // A .fq file read as lines when told so: four queries per record, the header lines of
+    // another length refused in place.
+    let q = d.write("q.fq", fq.as_bytes());
+    let lines = run(
+        &[
+            "--query-format",
+            "text",
+            "--errors-inline",
+            "--queries",
+            q.to_str().unwrap(),
+        ],
+        "",
+    );
+    assert_eq!(lines.len(), 8);
+    assert!(lines[0].get("name").is_none());
+    assert_eq!(lines[1]["query"], "ACGTACGA");
+    // A bad record on stdin is refused with its number.
+    d.cmd()
+        .arg("query")
+        .arg(&idx)
+        .args(["--query-format", "fasta"])
+        .write_stdin("ACGT\n")
+        .assert()
+        .code(2)
+        .stderr(contains(
+            "<stdin>:1: record 1: a FASTA record must start with '>'",
+        ));
+}
