@@ -202,7 +202,8 @@ pub(super) struct InputArgs {
     pub input: PathBuf,
     #[command(flatten)]
     metric: MetricArgs,
-    /// Input format; by default from the file extension (.csv, .tsv, .jsonl, else text).
+    /// Input format; by default from the file extension (.csv, .tsv, .jsonl, .fa/.fasta/.fna,
+    /// .fq/.fastq, these two also with .gz; else text).
     #[arg(long = "input-format", value_enum, value_name = "FORMAT")]
     input_format: Option<InputFormat>,
     /// The column (header name or 0-based number) or JSON field holding the items.

@@ -1,15 +1,23 @@
 //! Reading items and their ids: text lines, a CSV/TSV column, or a JSON Lines field; and
 //! [`load_input`], which reads an input as its metric wants it.
 //!
-//! One file per reader: `text.rs`, `csv.rs` (CSV and TSV), `jsonl.rs`, [`vectors`] (CSV/TSV
-//! rows of numbers or `.npy`), and `load.rs` ([`load_input`]: text records, vectors, or an edge
+//! One file per reader: `text.rs`, `csv.rs` (CSV and TSV), `jsonl.rs`, `fastx.rs` (FASTA and
+//! FASTQ), [`vectors`] (CSV/TSV rows of numbers or `.npy`), and `load.rs` ([`load_input`]: text records, vectors, or an edge
 //! list whose nodes are the items, with the metric's options checked against the input).
 //!
 //! - **Text**: one item per line, UTF-8 (invalid UTF-8 and NUL bytes are errors naming the
 //!   line), a leading byte-order mark is dropped, CRLF is tolerated.
-//! - **CSV/TSV** (the `csv` crate, RFC 4180 quoting): a header row is required; `field`
-//!   names the item column by header name or 0-based number.
+//! - **CSV/TSV** (the `csv` crate): a header row is required; `field` names the item column
+//!   by header name or 0-based number. CSV is quoted as RFC 4180 says (a quote never closed
+//!   is an error naming its line); TSV is not quoted at all, as the IANA
+//!   `text/tab-separated-values` registration says.
+//! - **FASTA/FASTQ** (`needletail`; plain or gzip): the sequences, with the record names as
+//!   ids; a bad record is an error naming its number and line.
 //! - **JSON Lines** (`serde_json`): one object per line; `field` names a string field.
+//!
+//! What looks wrong but does not stop the read (quoting that may have gone astray, rows
+//! longer than the header, a text file of FASTA records) is an [`IngestWarning`], returned
+//! by [`read_corpus_with_warnings`].
 //!
 //! Records whose item is empty (blank lines, empty cells) are skipped and counted. The
 //! default id of an item is its 0-based **record number** in the input — the line of a text
