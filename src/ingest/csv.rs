@@ -372,3 +372,73 @@ pub(super) fn read_csv<R: Read>(
     }
     Ok(())
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use proptest::prelude::*;
+
+    /// Runs `QuoteScan` over `bytes` as the csv crate reads them.
+    fn scan(bytes: &[u8], quoting: bool) -> QuoteScan<&[u8]> {
+        let mut s = QuoteScan::new(bytes, b',', quoting);
+        let mut sink = Vec::new();
+        s.read_to_end(&mut sink).unwrap();
+        assert_eq!(sink, bytes);
+        s
+    }
+
+    proptest! {
+        /// Records written by the csv crate's writer (RFC 4180 quoting, an outside reference
+        /// for what well-formed CSV is) never look unclosed or stray, and the fields that
+        /// hold a line feed are counted exactly.
+        #[test]
+        fn records_the_csv_writer_quotes_are_well_formed(
+            rows in prop::collection::vec(
+                prop::collection::vec("[a\",\n\r ]{0,6}", 1..4), 1..8)
+        ) {
+            let mut w = ::csv::WriterBuilder::new().flexible(true).from_writer(Vec::new());
+            for r in &rows {
+                w.write_record(r).unwrap();
+            }
+            let bytes = w.into_inner().unwrap();
+            let s = scan(&bytes, true);
+            prop_assert_eq!(s.unterminated(), None);
+            prop_assert_eq!(s.stray, 0);
+            let with_lf = rows.iter().flatten().filter(|f| f.contains('\n')).count();
+            prop_assert_eq!(s.multi_line, with_lf);
+            prop_assert_eq!(s.lines(), bytes.iter().filter(|&&c| c == b'\n').count() as u64);
+        }
+
+        /// A quote opened at the start of a field and never closed is found on its line.
+        #[test]
+        fn an_unclosed_quote_is_found_on_its_line(
+            before in prop::collection::vec("[a-z ]{0,5}", 0..6),
+            after in prop::collection::vec("[a-z ,]{0,5}", 0..6),
+        ) {
+            let mut text: String = before.iter().map(|b| format!("{b}\n")).collect();
+            let line = before.len() as u64 + 1;
+            text.push_str("\"open");
+            for a in &after {
+                text.push('\n');
+                text.push_str(a);
+            }
+            prop_assert_eq!(scan(text.as_bytes(), true).unterminated(), Some(line));
+            // TSV has no quoting: nothing is open.
+            prop_assert_eq!(scan(text.as_bytes(), false).unterminated(), None);
+        }
+    }
+
+    #[test]
+    fn stray_quotes_and_a_bom_before_a_quoted_header() {
+        let s = scan(
+            b"\xEF\xBB\xBF\"name\",code\nThe \"Old\" Slip,1\n\"Keth\"x,2\n",
+            true,
+        );
+        assert_eq!((s.stray, s.first_stray), (2, Some(2)));
+        assert_eq!(s.unterminated(), None);
+        // A quoted field closed by the last byte of the input.
+        let s = scan(b"name\n\"a\nb\"", true);
+        assert_eq!((s.multi_line, s.first_multi_line), (1, Some((2, 2))));
+        assert_eq!(s.lines(), 3);
+    }
+}
