@@ -10,6 +10,8 @@
     tag-queries.txt       200 tag sets with a tag added, dropped or changed
     barcodes.txt          10,000 twelve-base sample barcodes of the marine survey
     barcode-reads.txt     500 reads of them with 1-2 substitutions
+    barcodes.fa           the barcodes as FASTA records named by survey plate and well
+    barcode-reads.fq      the reads as FASTQ records, with run names and quality strings
     nucleotide-costs.txt  an edit cost file: transitions cheaper than transversions
 """
 import math
@@ -145,6 +147,7 @@ def barcodes():
             c[p] = rng.choice([b for b in "ACGT" if b != c[p]])
         reads.append("".join(c))
     write("barcode-reads.txt", reads)
+    sequence_files(codes, reads)
     write("nucleotide-costs.txt", [
         "# Vessmark marine survey: edit costs between bases",
         "# transitions (A<->G, C<->T) are more frequent read errors than transversions",
@@ -153,6 +156,27 @@ def barcodes():
         "sub A G 0.5",
         "sub C T 0.5",
     ])
+
+
+def sequence_files(codes, reads):
+    """The barcodes and reads again as FASTA and FASTQ records. A generator of its own, so
+    that the files written before these keep their bytes."""
+    srng = random.Random(6151)
+    records = []
+    for i, c in enumerate(codes):
+        plate, well = divmod(i, 96)
+        records.append(f">bc{i + 1:05d} plate{plate + 1}:{'ABCDEFGH'[well // 12]}{well % 12 + 1}")
+        records.append(c)
+    write("barcodes.fa", records)
+    records = []
+    for i, r in enumerate(reads):
+        station = srng.choice(ISLANDS)
+        tile = srng.randint(1, 24)
+        # Phred+33 qualities: mostly high, falling towards the end of the read.
+        qual = "".join(chr(33 + max(2, min(40, int(srng.gauss(36 - 1.2 * p, 3)))))
+                       for p in range(len(r)))
+        records += [f"@vsm-run7:{i + 1:04d}:{tile} station={station}", r, "+", qual]
+    write("barcode-reads.fq", records)
 
 
 if __name__ == "__main__":

@@ -25,8 +25,12 @@ if [ ! -f corpus/index_file/seed-small.wmk ]; then
   printf 'code,name\nA1,Skerry Light\nA2,"Salt, Store"\n' > "$tmp/b.csv"
   ../target/release/waymark build "$tmp/b.csv" -o corpus/index_file/seed-csv.wmk --field name --id-field code --fold-case -q
   printf '\x00Skerry Light\r\nSalt Store\n' > corpus/ingest/text
-  printf '\x05code,name\nA1,Skerry Light\nA2,"Salt, Store"\n' > corpus/ingest/csv
-  printf '\x07{"code":"A1","name":"Skerry Light"}\n{"code":7,"name":"Salt Store"}\n' > corpus/ingest/jsonl
+  # The first byte picks the format (its value mod 6) and the field (its value / 6 mod 3):
+  # see fuzz_targets/ingest.rs.
+  printf '\x07code,name\nA1,Skerry Light\nA2,"Salt, Store"\n' > corpus/ingest/csv
+  printf '\x0b{"code":"A1","name":"Skerry Light"}\n{"code":7,"name":"Salt Store"}\n' > corpus/ingest/jsonl
+  printf '\x03>bc1 plate1\nACGT\nAC\n>bc2\nTTGA\n' > corpus/ingest/fasta
+  printf '\x04@r1 x\nACGT\n+\nIIII\n@r2\nAC\n+\n@+\n' > corpus/ingest/fastq
   printf 'Skery Lihgt' > corpus/query_text/typo
   rm -rf "$tmp"
 fi

@@ -214,3 +214,98 @@ pub enum IngestError {
         items: usize,
     },
 }
+
+/// Something in an input that did not stop the reading but may mean that it was not read as
+/// its writer meant (re-exported as `waymark::ingest::IngestWarning`). The readers collect
+/// them ([`crate::ingest::read_corpus_with_warnings`]); the command line prints each on
+/// stderr as `waymark: warning: …`.
+#[derive(Clone, Debug, PartialEq, Eq, thiserror::Error)]
+pub enum IngestWarning {
+    /// CSV: quoted fields that hold line breaks, so that records and lines disagree; a
+    /// closing quote may be missing.
+    #[error(
+        "{source_name}:{line}: a quoted field opened on this line runs over {lines} lines; \
+         {fields} quoted field(s) hold line breaks, and {records} records were read from \
+         {file_lines} lines: check for a missing closing quote"
+    )]
+    MultiLineFields {
+        /// The file.
+        source_name: String,
+        /// The line where the first such field opens.
+        line: u64,
+        /// The lines that field runs over.
+        lines: u64,
+        /// How many quoted fields hold line breaks.
+        fields: usize,
+        /// Records read (the header included).
+        records: usize,
+        /// Lines in the file.
+        file_lines: u64,
+    },
+    /// CSV: a quote inside a field that does not start with one (kept as a character), or
+    /// text after a field's closing quote (joined to the field).
+    #[error(
+        "{source_name}:{line}: a quote inside an unquoted field, or text after a closing \
+         quote ({count} such field(s)); RFC 4180 quotes whole fields only, so the quote was \
+         read as a character: quote the whole field and double the quotes inside it"
+    )]
+    StrayQuote {
+        /// The file.
+        source_name: String,
+        /// The first line with one.
+        line: u64,
+        /// How many fields.
+        count: usize,
+    },
+    /// CSV/TSV: rows with more fields than the header (the extra fields are not read).
+    #[error(
+        "{source_name}:{line}: the row has {fields} fields and the header {header}; \
+         {count} row(s) have more fields than the header (the extra fields are not read)"
+    )]
+    ExtraFields {
+        /// The file.
+        source_name: String,
+        /// The first such row's line.
+        line: u64,
+        /// Its number of fields.
+        fields: usize,
+        /// The header's number of fields.
+        header: usize,
+        /// How many rows have more fields than the header.
+        count: usize,
+    },
+    /// CSV/TSV: two or more columns of the header have the same name.
+    #[error(
+        "{source_name}:1: the header names column \"{name}\" {} times (columns {}, counting \
+         from 0); choose such a column by its number",
+        .columns.len(),
+        .columns.iter().map(|c| c.to_string()).collect::<Vec<_>>().join(", ")
+    )]
+    DuplicateColumn {
+        /// The file.
+        source_name: String,
+        /// The repeated name.
+        name: String,
+        /// The columns of that name.
+        columns: Vec<usize>,
+    },
+    /// Text: the records start with `>` or `@`, as FASTA and FASTQ files do; read as text,
+    /// their header lines become items.
+    #[error(
+        "{source_name}:{line}: the input starts with '{mark}' and {count} of its lines do, \
+         like a {format} file; read as text, every line is an item (headers too): use \
+         --input-format {format} to read its records"
+    )]
+    LooksLikeSequences {
+        /// The file.
+        source_name: String,
+        /// The first such line.
+        line: u64,
+        /// `>` or `@`.
+        mark: char,
+        /// How many lines start with it.
+        count: usize,
+        /// `fasta` or `fastq`.
+        format: &'static str,
+    },
+}

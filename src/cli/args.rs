@@ -214,7 +214,8 @@ pub(super) struct InputArgs {
     pub input: PathBuf,
     #[command(flatten)]
     metric: MetricArgs,
-    /// Input format; by default from the file extension (.csv, .tsv, .jsonl, else text).
+    /// Input format; by default from the file extension (.csv, .tsv, .jsonl, .fa/.fasta/.fna,
+    /// .fq/.fastq, these two also with .gz; else text).
     #[arg(long = "input-format", value_enum, value_name = "FORMAT")]
     input_format: Option<InputFormat>,
     /// The column (header name or 0-based number) or JSON field holding the items.
@@ -271,7 +272,8 @@ impl InputArgs {
         self.input.display().to_string()
     }
 
-    /// Reads the input as its metric wants it (ids from `ids`, else record numbers).
+    /// Reads the input as its metric wants it (ids from `ids`, else record numbers), and
+    /// prints the reader's warnings on stderr.
     pub fn load(&self, ids: Option<&IdArgs>) -> crate::Result<LoadedInput> {
         let ingest = IngestOptions {
             format: self.input_format,
@@ -279,7 +281,9 @@ impl InputArgs {
             id_field: ids.and_then(|i| i.id_field.clone()),
             normalize: self.normalize(),
         };
-        load_input(&self.input, &ingest, &self.metric.options())
+        let input = load_input(&self.input, &ingest, &self.metric.options())?;
+        super::print_warnings(&input.warnings);
+        Ok(input)
     }
 }
 
@@ -358,9 +362,14 @@ pub(super) struct QueryArgs {
     /// [default: 12 per candidate]; 0 compares every row.
     #[arg(long, value_name = "N", conflicts_with_all = ["exact", "within"])]
     pub visit: Option<usize>,
-    /// Read queries from this file instead of stdin, one per line.
+    /// Read queries from this file instead of stdin, one per line (FASTA/FASTQ records for
+    /// .fa, .fasta, .fna, .fq, .fastq, also with .gz).
     #[arg(long, value_name = "FILE")]
     pub queries: Option<PathBuf>,
+    /// How the queries are laid out [default: from the --queries file's extension; stdin:
+    /// text]. FASTA/FASTQ input is read whole before the first answer.
+    #[arg(long = "query-format", value_enum, value_name = "FORMAT")]
+    pub query_format: Option<QueryFormat>,
     /// Output format.
     #[arg(long, value_enum, default_value = "json")]
     pub format: OutFormat,
@@ -462,6 +471,28 @@ impl From<GroupingArg> for crate::pairs::Grouping {
             GroupingArg::Components => crate::pairs::Grouping::Components,
             GroupingArg::Centre => crate::pairs::Grouping::Centre,
             GroupingArg::Clique => crate::pairs::Grouping::Clique,
+        }
+    }
+}
+
+/// The layouts of queries.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub(super) enum QueryFormat {
+    /// One query per line.
+    Text,
+    /// FASTA records (plain or gzip): the sequences, with the record names in the answers.
+    Fasta,
+    /// FASTQ records (plain or gzip): the sequences, with the record names in the answers.
+    Fastq,
+}
+
+impl QueryFormat {
+    /// The sequence layout, if it is one.
+    pub fn sequences(self) -> Option<crate::ingest::SequenceFormat> {
+        match self {
+            QueryFormat::Text => None,
+            QueryFormat::Fasta => Some(crate::ingest::SequenceFormat::Fasta),
+            QueryFormat::Fastq => Some(crate::ingest::SequenceFormat::Fastq),
         }
     }
 }

@@ -35,6 +35,7 @@ pub(super) fn build(a: BuildArgs) -> anyhow::Result<()> {
         corpus,
         spec,
         graph,
+        ..
     } = a.input.load(Some(&a.ids))?;
     let read_seconds = t0.elapsed().as_secs_f64();
     let n = corpus.items.len();

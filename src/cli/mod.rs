@@ -79,6 +79,16 @@ fn run(args: Args) -> anyhow::Result<()> {
     }
 }
 
+/// Prints what an input's reader warned of on stderr, one `waymark: warning: …` line each.
+fn print_warnings(warnings: &[crate::ingest::IngestWarning]) {
+    for w in warnings {
+        eprintln!(
+            "waymark: warning: {}",
+            crate::escape::escape_controls(&w.to_string())
+        );
+    }
+}
+
 /// Says on stderr which program an index's external metric runs, before it is started
 /// (the command comes from the index file: open indexes you trust), unless `quiet`.
 fn announce_program(index: &crate::index::Index, quiet: bool) {

@@ -34,11 +34,13 @@ pub fn distance_json(d: f64) -> serde_json::Value {
 }
 
 /// Writes one query's answer as a JSON object on one line; `line` is the query's 1-based
-/// line in its input.
+/// line in its input (a FASTA/FASTQ record's header line), `name` a record's name.
+#[allow(clippy::too_many_arguments)]
 pub fn write_json(
     out: &mut impl Write,
     index: &Index,
     line: usize,
+    name: Option<&str>,
     query: &str,
     found: &Found,
     stats: bool,
@@ -54,7 +56,12 @@ pub fn write_json(
             })
         })
         .collect();
-    let mut obj = serde_json::json!({ "line": line, "query": query, "neighbors": neighbors });
+    let mut obj = serde_json::json!({ "line": line });
+    if let Some(name) = name {
+        obj["name"] = name.into();
+    }
+    obj["query"] = query.into();
+    obj["neighbors"] = neighbors.into();
     if stats {
         obj["distances"] = found.distances.into();
         obj["pruned"] = found.pruned.into();
@@ -72,14 +79,21 @@ pub fn write_json(
 }
 
 /// Writes a query that could not be answered as a JSON object on one line:
-/// `{"line": N, "query": "...", "error": "..."}`.
+/// `{"line": N, "query": "...", "error": "..."}` (with `"name"` after the line for a
+/// FASTA/FASTQ record).
 pub fn write_json_error(
     out: &mut impl Write,
     line: usize,
+    name: Option<&str>,
     query: &str,
     error: &str,
 ) -> anyhow::Result<()> {
-    let obj = serde_json::json!({ "line": line, "query": query, "error": error });
+    let mut obj = serde_json::json!({ "line": line });
+    if let Some(name) = name {
+        obj["name"] = name.into();
+    }
+    obj["query"] = query.into();
+    obj["error"] = error.into();
     serde_json::to_writer(&mut *out, &obj)?;
     out.write_all(b"\n")?;
     Ok(())

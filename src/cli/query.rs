@@ -13,15 +13,19 @@ use std::time::Instant;
 
 use anyhow::Context;
 
-use super::args::{OutFormat, QueryArgs};
+use super::args::{OutFormat, QueryArgs, QueryFormat};
 use super::output::{write_json, write_json_error, write_tsv, write_tsv_error};
 use crate::error::Error;
 use crate::index::Index;
+use crate::ingest::{read_sequences, InputFormat, SequenceFormat, SequenceRecord};
 use crate::pairs::{lookup_within, Radius};
 use crate::search::{Request, SearchParams, Searcher};
 
 /// Largest number of queries answered together.
 const BLOCK: usize = 1024;
+
+/// The UTF-8 byte-order mark, dropped from the start of a queries file or stdin.
+const BOM: &[u8] = b"\xEF\xBB\xBF";
 
 /// Size of the read buffer (a pipe gives at most its own size, 64 KiB on Linux, per read).
 const READ_BUFFER: usize = 256 * 1024;
@@ -56,9 +60,10 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
     }
     let searcher = Searcher::new(&index);
     searcher.check(&request)?;
+    let format = a.query_format.map(QueryFormat::sequences);
     let mut lines = match &a.queries {
-        Some(p) => QueryLines::open(p)?,
-        None => QueryLines::stdin(),
+        Some(p) => QueryLines::open(p, format)?,
+        None => QueryLines::stdin(format.flatten())?,
     };
     let stdout = std::io::stdout();
     let mut out = BufWriter::new(stdout.lock());
@@ -73,16 +78,16 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
             if lines.may_wait && !entries.is_empty() && !lines.line_waiting() {
                 break;
             }
-            let Some((line, bytes)) = lines.next_raw()? else {
+            let Some((line, bytes, name)) = lines.next_raw()? else {
                 end = true;
                 break;
             };
             match decode(bytes) {
                 Ok(text) => {
                     texts.push(text);
-                    entries.push(Entry::Good(line));
+                    entries.push(Entry::Good(line, name));
                 }
-                Err((text, e)) => entries.push(Entry::Bad(line, text, e)),
+                Err((text, e)) => entries.push(Entry::Bad(line, name, text, e)),
             }
         }
         let mut answers = match fraction {
@@ -92,14 +97,15 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
         .into_iter();
         let mut texts = texts.into_iter();
         for entry in entries {
-            let (line, query, result) = match entry {
-                Entry::Good(line) => {
+            let (line, name, query, result) = match entry {
+                Entry::Good(line, name) => {
                     let query = texts.next().expect("one text per good line");
                     let result = answers.next().expect("one answer per query");
-                    (line, query, result)
+                    (line, name, query, result)
                 }
-                Entry::Bad(line, text, e) => (line, text, Err(e)),
+                Entry::Bad(line, name, text, e) => (line, name, text, Err(e)),
             };
+            let name = name.as_deref();
             match result {
                 Ok(found) => {
                     answered += 1;
@@ -108,7 +114,7 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
                         usize::from(found.neighbors.first().is_some_and(|n| n.distance == 0.0));
                     match a.format {
                         OutFormat::Json => {
-                            write_json(&mut out, &index, line, &query, &found, a.stats)?
+                            write_json(&mut out, &index, line, name, &query, &found, a.stats)?
                         }
                         OutFormat::Tsv => write_tsv(&mut out, &index, &query, &found)?,
                     }
@@ -116,7 +122,7 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
                 Err(Error::InvalidQuery(m) | Error::Usage(m)) if a.errors_inline => {
                     refused += 1;
                     match a.format {
-                        OutFormat::Json => write_json_error(&mut out, line, &query, &m)?,
+                        OutFormat::Json => write_json_error(&mut out, line, name, &query, &m)?,
                         OutFormat::Tsv => write_tsv_error(&mut out, line, &query, &m)?,
                     }
                 }
@@ -146,11 +152,11 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
     Ok(())
 }
 
-/// One line of a block: a query handed to the searcher, or one refused as read (its line,
-/// its text with invalid bytes replaced, the error).
+/// One line of a block: a query handed to the searcher (its line and record name), or one
+/// refused as read (its line, record name, text with invalid bytes replaced, the error).
 enum Entry {
-    Good(usize),
-    Bad(usize, String, Error),
+    Good(usize, Option<String>),
+    Bad(usize, Option<String>, String, Error),
 }
 
 /// Names the query line in a query's error (a query the metric cannot take, a failing
@@ -163,18 +169,22 @@ pub(super) fn at_query_line(e: Error, name: &str, line: usize) -> Error {
     }
 }
 
-/// Queries read line by line, the line counted for errors.
+/// Queries read line by line, the line counted for errors; or the records of a FASTA or
+/// FASTQ file (by its name's extension, as `build` tells them), read whole.
 struct QueryLines {
     reader: BufReader<Box<dyn Read>>,
     line: usize,
     name: String,
     /// A read may wait on a writer (a pipe or a terminal), so a block is answered before it.
     may_wait: bool,
+    /// The records of a FASTA/FASTQ queries file, in order.
+    records: Option<std::vec::IntoIter<SequenceRecord>>,
 }
 
 impl QueryLines {
-    /// A queries file; a folder or a missing file is a usage error.
-    fn open(path: &Path) -> Result<QueryLines, Error> {
+    /// A queries file; a folder or a missing file is a usage error. `format`: `Some(None)`
+    /// for lines, `Some(Some(f))` for FASTA/FASTQ records, `None` by the file's extension.
+    fn open(path: &Path, format: Option<Option<SequenceFormat>>) -> Result<QueryLines, Error> {
         let io = |source| Error::Io {
             path: path.to_path_buf(),
             source,
@@ -187,31 +197,59 @@ impl QueryLines {
                 path.display()
             )));
         }
+        let name = path.display().to_string();
+        let format = format.unwrap_or(match InputFormat::from_path(path) {
+            InputFormat::Sequences(f) => Some(f),
+            _ => None,
+        });
+        let records = match format {
+            Some(format) => Some(read_sequences(file, &name, format)?.into_iter()),
+            None => None,
+        };
         Ok(QueryLines {
-            reader: BufReader::with_capacity(READ_BUFFER, Box::new(file)),
+            reader: BufReader::with_capacity(
+                READ_BUFFER,
+                Box::new(std::fs::File::open(path).map_err(io)?),
+            ),
             line: 0,
-            name: path.display().to_string(),
+            name,
             may_wait: !meta.is_file(),
+            records,
         })
     }
 
     /// Standard input. Its own buffer stays empty: reads as large as ours bypass it.
-    fn stdin() -> QueryLines {
-        QueryLines {
+    /// FASTA/FASTQ records are read whole before the first answer.
+    fn stdin(format: Option<SequenceFormat>) -> Result<QueryLines, Error> {
+        let name = "<stdin>".to_string();
+        let records = match format {
+            Some(format) => Some(read_sequences(std::io::stdin(), &name, format)?.into_iter()),
+            None => None,
+        };
+        Ok(QueryLines {
             reader: BufReader::with_capacity(READ_BUFFER, Box::new(std::io::stdin())),
             line: 0,
-            name: "<stdin>".to_string(),
+            name,
             may_wait: !stdin_is_file(),
-        }
+            records,
+        })
     }
 
     /// Whether a whole line is already in the buffer (reading it cannot wait).
     fn line_waiting(&self) -> bool {
-        self.reader.buffer().contains(&b'\n')
+        self.records.is_some() || self.reader.buffer().contains(&b'\n')
     }
 
-    /// The next line's number and bytes, without its line ending; `None` at the end.
-    fn next_raw(&mut self) -> anyhow::Result<Option<(usize, Vec<u8>)>> {
+    /// The next line's number and bytes, without its line ending and, on the first line,
+    /// without a UTF-8 byte-order mark; `None` at the end. For a FASTA/FASTQ file: the next
+    /// record's header line, sequence and name.
+    #[allow(clippy::type_complexity)]
+    fn next_raw(&mut self) -> anyhow::Result<Option<(usize, Vec<u8>, Option<String>)>> {
+        if let Some(records) = &mut self.records {
+            return Ok(records
+                .next()
+                .map(|r| (r.line as usize, r.sequence.into_bytes(), Some(r.name))));
+        }
         let mut buf = Vec::new();
         let got = self
             .reader
@@ -227,7 +265,10 @@ impl QueryLines {
         if buf.last() == Some(&b'\r') {
             buf.pop();
         }
-        Ok(Some((self.line, buf)))
+        if self.line == 1 && buf.starts_with(BOM) {
+            buf.drain(..BOM.len());
+        }
+        Ok(Some((self.line, buf, None)))
     }
 }
 
@@ -260,9 +301,9 @@ fn stdin_is_file() -> bool {
 
 /// Every line of a queries file (UTF-8 checked, the line named on error).
 pub(super) fn read_query_file(path: &Path) -> anyhow::Result<Vec<String>> {
-    let mut lines = QueryLines::open(path)?;
+    let mut lines = QueryLines::open(path, None)?;
     let mut all = Vec::new();
-    while let Some((line, bytes)) = lines.next_raw()? {
+    while let Some((line, bytes, _)) = lines.next_raw()? {
         let text = decode(bytes).map_err(|(_, e)| at_query_line(e, &lines.name, line))?;
         all.push(text);
     }

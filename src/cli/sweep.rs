@@ -36,6 +36,7 @@ pub(super) fn sweep(a: SweepArgs) -> anyhow::Result<()> {
         corpus,
         spec,
         graph,
+        ..
     } = a.input.load(Some(&a.ids))?;
     let opts = SweepOptions {
         metric: spec,

@@ -7,7 +7,7 @@
 
 use std::path::{Path, PathBuf};
 
-use super::{read_corpus, vectors, Corpus, Ids, IngestOptions};
+use super::{read_corpus_with_warnings, vectors, Corpus, Ids, IngestOptions, IngestWarning};
 use crate::error::{Error, Result};
 use crate::metric::{CostTable, Graph, Jaccard, MetricKind, MetricSpec, Norm, Tokens};
 
@@ -73,6 +73,8 @@ pub struct LoadedInput {
     pub spec: MetricSpec,
     /// The graph of the graph metric.
     pub graph: Option<Graph>,
+    /// What the reader warned of (see [`IngestWarning`]); the command line prints them.
+    pub warnings: Vec<IngestWarning>,
 }
 
 /// The metric's name as the command line's `--metric` spells it.
@@ -201,11 +203,12 @@ pub fn load_input(
         MetricKind::Angular => return load_vectors(path, Norm::Angular, metric.header),
         MetricKind::Graph => return load_graph(path),
     };
-    let corpus = read_corpus(path, ingest)?;
+    let (corpus, warnings) = read_corpus_with_warnings(path, ingest)?;
     Ok(LoadedInput {
         corpus,
         spec,
         graph: None,
+        warnings,
     })
 }
 
@@ -226,6 +229,7 @@ fn load_vectors(path: &Path, norm: Norm, header: bool) -> Result<LoadedInput> {
         corpus,
         spec: MetricSpec::Vector { norm, dim },
         graph: None,
+        warnings: Vec::new(),
     })
 }
 
@@ -264,6 +268,7 @@ fn load_graph(path: &Path) -> Result<LoadedInput> {
         corpus,
         spec: MetricSpec::Graph,
         graph: Some(g),
+        warnings: Vec::new(),
     })
 }
 

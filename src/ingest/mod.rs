@@ -1,15 +1,23 @@
 //! Reading items and their ids: text lines, a CSV/TSV column, or a JSON Lines field; and
 //! [`load_input`], which reads an input as its metric wants it.
 //!
-//! One file per reader: `text.rs`, `csv.rs` (CSV and TSV), `jsonl.rs`, [`vectors`] (CSV/TSV
-//! rows of numbers or `.npy`), and `load.rs` ([`load_input`]: text records, vectors, or an edge
+//! One file per reader: `text.rs`, `csv.rs` (CSV and TSV), `jsonl.rs`, `fastx.rs` (FASTA and
+//! FASTQ), [`vectors`] (CSV/TSV rows of numbers or `.npy`), and `load.rs` ([`load_input`]: text records, vectors, or an edge
 //! list whose nodes are the items, with the metric's options checked against the input).
 //!
 //! - **Text**: one item per line, UTF-8 (invalid UTF-8 and NUL bytes are errors naming the
 //!   line), a leading byte-order mark is dropped, CRLF is tolerated.
-//! - **CSV/TSV** (the `csv` crate, RFC 4180 quoting): a header row is required; `field`
-//!   names the item column by header name or 0-based number.
+//! - **CSV/TSV** (the `csv` crate): a header row is required; `field` names the item column
+//!   by header name or 0-based number. CSV is quoted as RFC 4180 says (a quote never closed
+//!   is an error naming its line); TSV is not quoted at all, as the IANA
+//!   `text/tab-separated-values` registration says.
+//! - **FASTA/FASTQ** (`needletail`; plain or gzip): the sequences, with the record names as
+//!   ids; a bad record is an error naming its number and line.
 //! - **JSON Lines** (`serde_json`): one object per line; `field` names a string field.
+//!
+//! What looks wrong but does not stop the read (quoting that may have gone astray, rows
+//! longer than the header, a text file of FASTA records) is an [`IngestWarning`], returned
+//! by [`read_corpus_with_warnings`].
 //!
 //! Records whose item is empty (blank lines, empty cells) are skipped and counted. The
 //! default id of an item is its 0-based **record number** in the input — the line of a text
@@ -34,12 +42,14 @@ use std::path::Path;
 use serde::{Deserialize, Serialize};
 
 mod csv;
+mod fastx;
 mod jsonl;
 mod load;
 mod text;
 pub mod vectors;
 
-pub use crate::error::IngestError;
+pub use crate::error::{IngestError, IngestWarning};
+pub use fastx::{read_sequences, SequenceFormat, SequenceRecord};
 pub use load::{load_input, LoadedInput, MetricOptions, DEFAULT_TIMEOUT_SECS};
 pub use vectors::parse_vector;
 
@@ -97,14 +107,39 @@ pub enum InputFormat {
     },
     /// One JSON object per line.
     JsonLines,
+    /// FASTA or FASTQ records (plain or gzip-compressed): the sequences are the items, the
+    /// record names their ids.
+    Sequences(SequenceFormat),
 }
 
 impl InputFormat {
-    /// The format implied by a file name: `.csv`, `.tsv`/`.tab`, `.jsonl`/`.ndjson`, else text.
+    /// The format implied by a file name: `.csv`, `.tsv`/`.tab`, `.jsonl`/`.ndjson`,
+    /// `.fa`/`.fasta`/`.fna` (FASTA) and `.fq`/`.fastq` (FASTQ), these two also with `.gz`
+    /// after them; else text.
     pub fn from_path(path: &Path) -> InputFormat {
-        let ext = path
-            .extension()
-            .map(|e| e.to_string_lossy().to_ascii_lowercase());
+        let name = path
+            .file_name()
+            .map(|e| e.to_string_lossy().to_ascii_lowercase())
+            .unwrap_or_default();
+        let ext = |name: &str| {
+            Path::new(name)
+                .extension()
+                .map(|e| e.to_string_lossy().into_owned())
+        };
+        let sequences = |ext: Option<&str>| match ext {
+            Some("fa") | Some("fasta") | Some("fna") => Some(SequenceFormat::Fasta),
+            Some("fq") | Some("fastq") => Some(SequenceFormat::Fastq),
+            _ => None,
+        };
+        if let Some(inner) = name.strip_suffix(".gz") {
+            if let Some(f) = sequences(ext(inner).as_deref()) {
+                return InputFormat::Sequences(f);
+            }
+        }
+        let ext = ext(&name);
+        if let Some(f) = sequences(ext.as_deref()) {
+            return InputFormat::Sequences(f);
+        }
         match ext.as_deref() {
             Some("csv") => InputFormat::Csv { delimiter: b',' },
             Some("tsv") | Some("tab") => InputFormat::Csv { delimiter: b'\t' },
@@ -125,6 +160,8 @@ impl clap::ValueEnum for InputFormat {
             InputFormat::Csv { delimiter: b',' },
             InputFormat::Csv { delimiter: b'\t' },
             InputFormat::JsonLines,
+            InputFormat::Sequences(SequenceFormat::Fasta),
+            InputFormat::Sequences(SequenceFormat::Fastq),
         ]
     }
 
@@ -140,6 +177,14 @@ impl clap::ValueEnum for InputFormat {
             }
             InputFormat::Csv { .. } => return None,
             InputFormat::JsonLines => ("jsonl", "One JSON object per line"),
+            InputFormat::Sequences(SequenceFormat::Fasta) => (
+                "fasta",
+                "FASTA records (plain or gzip): sequences, ids from the record names",
+            ),
+            InputFormat::Sequences(SequenceFormat::Fastq) => (
+                "fastq",
+                "FASTQ records (plain or gzip): sequences, ids from the record names",
+            ),
         };
         Some(PossibleValue::new(name).help(help))
     }
@@ -362,8 +407,18 @@ impl Corpus {
     }
 }
 
-/// Reads a corpus from a file.
+/// Reads a corpus from a file. What the readers warn of is dropped: see
+/// [`read_corpus_with_warnings`].
 pub fn read_corpus(path: &Path, opts: &IngestOptions) -> Result<Corpus, IngestError> {
+    read_corpus_with_warnings(path, opts).map(|(c, _)| c)
+}
+
+/// Reads a corpus from a file, with the readers' warnings (quoting that looks wrong, rows
+/// longer than the header, repeated column names, a text file that looks like FASTA).
+pub fn read_corpus_with_warnings(
+    path: &Path,
+    opts: &IngestOptions,
+) -> Result<(Corpus, Vec<IngestWarning>), IngestError> {
     let name = path.display().to_string();
     let file = std::fs::File::open(path).map_err(|error| IngestError::Io {
         source_name: name.clone(),
@@ -373,7 +428,7 @@ pub fn read_corpus(path: &Path, opts: &IngestOptions) -> Result<Corpus, IngestEr
     if opts.format.is_none() {
         opts.format = Some(InputFormat::from_path(path));
     }
-    read_corpus_from(bounded(file, &name)?, &name, &opts)
+    read_corpus_from_with_warnings(bounded(file, &name)?, &name, &opts)
 }
 
 /// `file` read through [`crate::resources::BoundedRead`] with the input limit of the memory
@@ -392,26 +447,40 @@ pub(crate) fn bounded(
     ))
 }
 
-/// Reads a corpus from any reader; `source_name` is used in errors.
+/// Reads a corpus from any reader; `source_name` is used in errors. What the readers warn
+/// of is dropped: see [`read_corpus_from_with_warnings`].
 pub fn read_corpus_from<R: Read>(
     reader: R,
     source_name: &str,
     opts: &IngestOptions,
 ) -> Result<Corpus, IngestError> {
+    read_corpus_from_with_warnings(reader, source_name, opts).map(|(c, _)| c)
+}
+
+/// Reads a corpus from any reader, with the readers' warnings; `source_name` is used in
+/// errors and warnings.
+pub fn read_corpus_from_with_warnings<R: Read>(
+    reader: R,
+    source_name: &str,
+    opts: &IngestOptions,
+) -> Result<(Corpus, Vec<IngestWarning>), IngestError> {
     let mut b = Builder::new(source_name, opts);
-    match opts.format.unwrap_or(InputFormat::Text) {
-        InputFormat::Text => {
-            if opts.field.is_some() || opts.id_field.is_some() {
-                return Err(b.options_error(
-                    "--field and --id-field need a CSV, TSV or JSON Lines input".into(),
-                ));
-            }
-            text::read_text(reader, &mut b)?
-        }
+    let format = opts.format.unwrap_or(InputFormat::Text);
+    if matches!(format, InputFormat::Text | InputFormat::Sequences(_))
+        && (opts.field.is_some() || opts.id_field.is_some())
+    {
+        return Err(
+            b.options_error("--field and --id-field need a CSV, TSV or JSON Lines input".into())
+        );
+    }
+    match format {
+        InputFormat::Text => text::read_text(reader, &mut b)?,
         InputFormat::Csv { delimiter } => csv::read_csv(reader, delimiter, &mut b)?,
         InputFormat::JsonLines => jsonl::read_jsonl(reader, &mut b)?,
+        InputFormat::Sequences(f) => fastx::read_fastx(reader, f, &mut b)?,
     }
-    b.finish()
+    let warnings = std::mem::take(&mut b.warnings);
+    Ok((b.finish()?, warnings))
 }
 
 /// Collects items, keys and ids while checking them.
@@ -425,6 +494,7 @@ struct Builder<'a> {
     text_ids: Vec<String>,
     blank: usize,
     records: usize,
+    warnings: Vec<IngestWarning>,
 }
 
 /// An id as read from one record.
@@ -445,6 +515,7 @@ impl<'a> Builder<'a> {
             text_ids: Vec::new(),
             blank: 0,
             records: 0,
+            warnings: Vec::new(),
         }
     }
 

@@ -1693,3 +1693,293 @@ fn bad_input_distortion_over_no_pairs_says_so() {
         assert_eq!(v["distortion"]["spaces"], serde_json::json!([]), "{name}");
     }
 }
+
+// ---------------------------------------------------------------------------------------
+// Delimited input read as its standard says (RFC 4180 for CSV, IANA
+// text/tab-separated-values for TSV), and no data lost without a word.
+
+/// 500 rows `Isle N,CN` under a header; row `bad` (0-based) opens a quote it never closes.
+fn isles_csv(bad: usize) -> Vec<u8> {
+    let mut rows = vec!["name,code".to_string()];
+    for i in 0..500 {
+        rows.push(if i == bad {
+            format!("\"Isle {i},C{i}")
+        } else {
+            format!("Isle {i},C{i}")
+        });
+    }
+    (rows.join("\n") + "\n").into_bytes()
+}
+
+#[test]
+fn bad_input_an_unclosed_quote_in_csv_is_refused_with_its_line() {
+    // RFC 4180, section 2, rule 5: a field that starts with a quote ends with one. The csv
+    // crate ends such a field at the end of the input, so row 3 took the 497 rows after it
+    // into one item and the build said "indexed 3 items".
+    let d = Dir::new();
+    let path = d.write("isles.csv", &isles_csv(2));
+    d.cmd()
+        .arg("build")
+        .arg(&path)
+        .args(["--field", "name", "-o", "isles.wmk"])
+        .assert()
+        .code(2)
+        .stderr(contains(
+            "isles.csv:4: a quoted field opens on this line and is never closed",
+        ));
+    assert_eq!(d.others(&["isles.csv"]), Vec::<String>::new());
+    // The same file with the quote closed is read whole.
+    let fixed = String::from_utf8(isles_csv(2))
+        .unwrap()
+        .replace("\"Isle 2,C2", "\"Isle 2\",C2");
+    let path = d.write("fixed.csv", fixed.as_bytes());
+    d.cmd()
+        .arg("build")
+        .arg(&path)
+        .args(["--field", "name", "-o", "fixed.wmk", "--dim", "4"])
+        .assert()
+        .success()
+        .stdout(contains("indexed 500 items"))
+        .stderr(contains("warning").not());
+}
+
+#[test]
+fn bad_input_csv_quoting_trouble_and_long_rows_are_warned_with_file_and_line() {
+    let d = Dir::new();
+    // Line 3: a quoted field that runs over lines 3 to 5 (a missing closing quote that a
+    // later quote closed); line 7: a quote inside an unquoted field; line 8: text after a
+    // closing quote; line 9: a row with more fields than the header.
+    let csv = "name,code\n\
+               Keth Landing,1\n\
+               \"Orvane Quay,2\n\
+               Mirrow Steps,3\n\
+               Salt Store\",4\n\
+               North Mole,5\n\
+               The \"Old\" Slip,6\n\
+               \"Skerry\" Light,7\n\
+               Net Loft,8,spare\n";
+    let path = d.write("harbours.csv", csv.as_bytes());
+    d.cmd()
+        .arg("build")
+        .arg(&path)
+        .args(["--field", "name", "-o", "h.wmk", "--dim", "2"])
+        .assert()
+        .success()
+        .stdout(contains("indexed 6 items"))
+        .stderr(
+            contains("waymark: warning: /")
+                .and(contains(
+                    "harbours.csv:3: a quoted field opened on this line runs over 3 lines",
+                ))
+                .and(contains("7 records were read from 9 lines"))
+                .and(contains("harbours.csv:7: a quote inside an unquoted field"))
+                .and(contains("(2 such field(s))"))
+                .and(contains(
+                    "harbours.csv:9: the row has 3 fields and the header 2; 1 row(s)",
+                )),
+        );
+    // A file that is well-formed draws no warning, a multi-line field aside.
+    let path = d.write(
+        "clean.csv",
+        b"name,code\n\"Row, East\",1\n\"The \"\"Old\"\" Slip\",2\n",
+    );
+    d.cmd()
+        .arg("build")
+        .arg(&path)
+        .args(["--field", "name", "-o", "c.wmk", "--dim", "2"])
+        .assert()
+        .success()
+        .stderr(contains("warning").not());
+}
+
+#[test]
+fn bad_input_repeated_column_names_warn_and_an_ambiguous_field_is_refused() {
+    let d = Dir::new();
+    let path = d.write(
+        "twice.csv",
+        b"name,code,name\nKeth,1,Orvane\nMirrow,2,Salt\n",
+    );
+    d.cmd()
+        .arg("build")
+        .arg(&path)
+        .args(["--field", "name", "-o", "t.wmk"])
+        .assert()
+        .code(2)
+        .stderr(contains(
+            "twice.csv: column name \"name\" is ambiguous: the header has it 2 times (columns 0, 2",
+        ));
+    d.cmd()
+        .arg("build")
+        .arg(&path)
+        .args(["--field", "code", "--id-field", "name", "-o", "t.wmk"])
+        .assert()
+        .code(2)
+        .stderr(contains("column name \"name\" is ambiguous"));
+    // By number it is not ambiguous; the repetition is still warned of.
+    d.cmd()
+        .arg("build")
+        .arg(&path)
+        .args(["--field", "2", "-o", "t.wmk", "--dim", "2"])
+        .assert()
+        .success()
+        .stdout(contains("indexed 2 items"))
+        .stderr(contains(
+            "twice.csv:1: the header names column \"name\" 2 times (columns 0, 2,",
+        ));
+    let out = d
+        .cmd()
+        .arg("query")
+        .arg(d.path("t.wmk"))
+        .args(["-k", "1", "--format", "tsv"])
+        .write_stdin("Salt\n")
+        .output()
+        .unwrap();
+    assert_eq!(stdout_of(&out), "Salt\t1\t1\tSalt\t0\n");
+}
+
+#[test]
+fn bad_input_quotes_in_tsv_are_characters() {
+    // IANA text/tab-separated-values: fields hold no tab or line break and nothing is
+    // quoted, so a quote is part of its field. Read with CSV quoting, the quote on line 3
+    // took every later line into one field.
+    let d = Dir::new();
+    let tsv = "name\tcode\nKeth Landing\t1\n\"Orvane Quay\t2\nMirrow Steps\t3\n\"Salt Store\"\t4\n";
+    let path = d.write("harbours.tsv", tsv.as_bytes());
+    let idx = d.build(&path, "h.wmk", &["--field", "name", "--dim", "2", "-q"]);
+    let out = d
+        .cmd()
+        .arg("query")
+        .arg(&idx)
+        .args(["-k", "1", "--format", "tsv"])
+        .write_stdin("\"Orvane Quay\nMirrow Steps\n\"Salt Store\"\n")
+        .output()
+        .unwrap();
+    assert_eq!(
+        stdout_of(&out),
+        "\"Orvane Quay\t1\t1\t\"Orvane Quay\t0\n\
+         Mirrow Steps\t1\t2\tMirrow Steps\t0\n\
+         \"Salt Store\"\t1\t3\t\"Salt Store\"\t0\n"
+    );
+}
+
+#[test]
+fn bad_input_a_bom_is_dropped_by_every_reader() {
+    const BOM: &str = "\u{feff}";
+    let d = Dir::new();
+    let exact = |idx: &Path, query_file: Option<&Path>, stdin: &str| -> String {
+        let mut c = d.cmd();
+        c.arg("query").arg(idx).args(["-k", "1", "--format", "tsv"]);
+        if let Some(q) = query_file {
+            c.arg("--queries").arg(q);
+        } else {
+            c.write_stdin(stdin.to_string());
+        }
+        stdout_of(&c.output().unwrap())
+    };
+    // Text items; queries from a file and from stdin, each starting with a BOM.
+    let names = d.write(
+        "names.txt",
+        format!("{BOM}Keth Landing\nOrvane Quay\n").as_bytes(),
+    );
+    let idx = d.build(&names, "n.wmk", &["--dim", "2", "-q"]);
+    let q = d.write("q.txt", format!("{BOM}Keth Landing\n").as_bytes());
+    assert_eq!(
+        exact(&idx, Some(&q), ""),
+        "Keth Landing\t1\t0\tKeth Landing\t0\n"
+    );
+    assert_eq!(
+        exact(&idx, None, &format!("{BOM}Keth Landing\n")),
+        "Keth Landing\t1\t0\tKeth Landing\t0\n"
+    );
+    // eval reads its queries file through the same reader: a BOM there would be a query
+    // with no exact match (recall would still be 1, so the answers are checked above).
+    // CSV with a quoted first header name, TSV, JSON Lines.
+    for (file, text, field) in [
+        (
+            "h.csv",
+            format!("{BOM}\"name\",code\nKeth Landing,1\n"),
+            "name",
+        ),
+        (
+            "h.tsv",
+            format!("{BOM}name\tcode\nKeth Landing\t1\n"),
+            "name",
+        ),
+        (
+            "h.jsonl",
+            format!("{BOM}{{\"name\":\"Keth Landing\"}}\n"),
+            "name",
+        ),
+    ] {
+        let p = d.write(file, text.as_bytes());
+        let idx = d.build(&p, "x.wmk", &["--field", field, "--dim", "1", "-q"]);
+        assert_eq!(
+            exact(&idx, None, "Keth Landing\n"),
+            "Keth Landing\t1\t0\tKeth Landing\t0\n",
+            "{file}"
+        );
+    }
+    // Vectors, an edge list, a cost file.
+    let v = d.write("v.csv", format!("{BOM}1,2\n3,4\n").as_bytes());
+    let idx = d.build(&v, "v.wmk", &["--metric", "l1", "--dim", "1", "-q"]);
+    assert_eq!(exact(&idx, None, "1,2\n"), "1,2\t1\t0\t1,2\t0\n");
+    let g = d.write(
+        "g.txt",
+        format!("{BOM}Keth Orvane 3\nOrvane Mirrow 4\n").as_bytes(),
+    );
+    let idx = d.build(&g, "g.wmk", &["--metric", "graph", "--dim", "1", "-q"]);
+    assert_eq!(exact(&idx, None, "Keth\n"), "Keth\t1\tKeth\tKeth\t0\n");
+    let costs = d.write("c.txt", format!("{BOM}sub A G 0.5\n").as_bytes());
+    let codes = d.write("codes.txt", b"ACGT\nGCGT\n");
+    let idx = d.build(
+        &codes,
+        "w.wmk",
+        &[
+            "--metric",
+            "weighted",
+            "--costs",
+            costs.to_str().unwrap(),
+            "--dim",
+            "1",
+            "-q",
+        ],
+    );
+    assert_eq!(exact(&idx, None, "GCGA\n").split('\t').nth(3), Some("GCGT"));
+}
+
+#[test]
+fn bad_input_a_text_file_of_fasta_or_fastq_records_is_warned_of() {
+    let d = Dir::new();
+    let fa = d.write("codes.txt", b">bc1 plate1\nACGTACGT\n>bc2\nTTGCAACG\n");
+    d.cmd()
+        .arg("build")
+        .arg(&fa)
+        .args(["-o", "f.wmk", "--dim", "2"])
+        .assert()
+        .success()
+        .stdout(contains("indexed 4 items"))
+        .stderr(
+            contains(
+                "codes.txt:1: the input starts with '>' and 2 of its lines do, \
+             like a fasta file",
+            )
+            .and(contains("--input-format fasta")),
+        );
+    let fq = d.write("reads.txt", b"@r1\nACGT\n+\nIIII\n");
+    d.cmd()
+        .arg("build")
+        .arg(&fq)
+        .args(["-o", "q.wmk", "--dim", "2"])
+        .assert()
+        .success()
+        .stderr(contains("--input-format fastq"));
+    // Read as FASTA, the same file gives its two sequences and no warning.
+    d.cmd()
+        .arg("build")
+        .arg(&fa)
+        .args(["--input-format", "fasta", "-o", "f.wmk", "--dim", "2"])
+        .assert()
+        .success()
+        .stdout(contains("indexed 2 items"))
+        .stderr(contains("warning").not());
+}

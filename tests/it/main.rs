@@ -29,4 +29,5 @@ mod names;
 mod pairs;
 mod permissions;
 mod search;
+mod sequences;
 mod vector_digits;
