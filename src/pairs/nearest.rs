@@ -125,9 +125,14 @@ impl<'a> NearestJoin<'a> {
             if to < n {
                 return Some(Ok(Vec::new()));
             }
+            // A round that changes no list leaves the next one nothing to do: stop there, so
+            // that any number of rounds ends (each change makes some list strictly better
+            // in the answer order, which can happen only finitely often).
             for _ in 0..self.rounds {
-                if let Err(e) = self.refine_round() {
-                    return Some(Err(e));
+                match self.refine_round() {
+                    Ok(true) => {}
+                    Ok(false) => break,
+                    Err(e) => return Some(Err(e)),
                 }
             }
         } else if self.rounds == 0 {
@@ -173,8 +178,8 @@ impl NearestJoin<'_> {
         Ok(())
     }
 
-    /// One round of [`NearestJoin::refine`].
-    fn refine_round(&mut self) -> Result<()> {
+    /// One round of [`NearestJoin::refine`]; whether any list changed.
+    fn refine_round(&mut self) -> Result<bool> {
         let index = self.searcher.index();
         let metric = index.metric()?;
         let keys = index.keys();
@@ -236,7 +241,8 @@ impl NearestJoin<'_> {
             )
             .collect();
         metric.check()?;
+        let changed = new != self.lists;
         self.lists = new;
-        Ok(())
+        Ok(changed)
     }
 }

@@ -1030,3 +1030,38 @@ fn the_readme_deduplication_example_scores_as_shown() {
     );
     assert_eq!(printed, expected);
 }
+
+/// `--refine-rounds` at the top of its range ends: a round that changes no list stops the
+/// refinement, so u64::MAX rounds give the lists that enough rounds give, and end.
+#[test]
+fn bad_input_refine_rounds_at_the_top_of_their_range_end_when_nothing_changes() {
+    let d = Dir::new();
+    let names: Vec<String> = demo_lines("names.txt").into_iter().take(400).collect();
+    let input = d.write("names.txt", names.join("\n").as_bytes());
+    let idx = d.build(&input, "n.wmk", &["--dim", "8", "-q"]);
+    let run = |rounds: &str| {
+        let out = d
+            .cmd()
+            .args([
+                "pairs",
+                idx.to_str().unwrap(),
+                "-k",
+                "3",
+                "--candidates",
+                "5",
+            ])
+            .args(["--refine-rounds", rounds, "-q"])
+            .timeout(std::time::Duration::from_secs(60))
+            .output()
+            .unwrap();
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        out.stdout
+    };
+    let endless = run("18446744073709551615");
+    assert_eq!(endless, run("400"));
+    assert!(!endless.is_empty());
+}
