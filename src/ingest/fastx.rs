@@ -66,15 +66,24 @@ pub fn read_sequences<R: Read>(
     let mut bytes = Vec::new();
     reader.read_to_end(&mut bytes).map_err(io)?;
     if bytes.starts_with(GZIP_MAGIC) {
+        // The compressed bytes were bounded by the caller; the text they unpack to is
+        // bounded here, by the same share of the memory budget, so that a small file that
+        // unpacks to gigabytes stops with an error.
+        let limit = crate::resources::input_limit()
+            .map_err(|e| io(std::io::Error::other(e.to_string())))?
+            .unwrap_or(u64::MAX);
         let mut plain = Vec::new();
-        flate2::read::MultiGzDecoder::new(bytes.as_slice())
-            .read_to_end(&mut plain)
-            .map_err(|e| {
-                io(std::io::Error::new(
-                    e.kind(),
-                    format!("reading the gzip-compressed input: {e}"),
-                ))
-            })?;
+        crate::resources::BoundedRead::new(
+            flate2::read::MultiGzDecoder::new(bytes.as_slice()),
+            limit,
+        )
+        .read_to_end(&mut plain)
+        .map_err(|e| {
+            io(std::io::Error::new(
+                e.kind(),
+                format!("reading the gzip-compressed input: {e}"),
+            ))
+        })?;
         bytes = plain;
     }
     let text = bytes.strip_prefix(BOM).unwrap_or(&bytes);

@@ -4,6 +4,7 @@
 
 use std::io::Write;
 
+use predicates::prelude::*;
 use predicates::str::contains;
 use serde_json::Value;
 use waymark::ingest::{
@@ -427,4 +428,33 @@ proptest::proptest! {
             }
         }
     }
+}
+
+/// A small gzip file that unpacks to far more than the memory budget allows is stopped while
+/// it unpacks, with the budget's message, and leaves no index.
+#[test]
+fn bad_input_a_gzip_file_that_unpacks_beyond_the_budget_is_stopped() {
+    let d = Dir::new();
+    let mut fa = Vec::new();
+    for i in 0..200_000 {
+        fa.extend_from_slice(
+            format!(">r{i}\nACGTACGTACGTACGTACGTACGTACGTACGTACGTACGT\n").as_bytes(),
+        );
+    }
+    assert!(fa.len() > 9_000_000);
+    let gz = d.write("bomb.fa.gz", &gzip(&fa));
+    assert!(std::fs::metadata(&gz).unwrap().len() < 1_000_000);
+    let out = d.path("bomb.wmk");
+    d.cmd()
+        .env("WAYMARK_MEMORY_BUDGET", "6000000")
+        .arg("build")
+        .arg(&gz)
+        .arg("-o")
+        .arg(&out)
+        .assert()
+        .code(2)
+        .stderr(
+            contains("bomb.fa.gz").and(contains("reading stopped after more than 2000000 bytes")),
+        );
+    assert!(!out.exists());
 }
