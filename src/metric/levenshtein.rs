@@ -33,9 +33,12 @@
 //! keeps the processor's arithmetic units mostly idle. Scans therefore go through
 //! [`LevenshteinQuery::dist_batch`] (or [`LevenshteinQuery::dist_each`]), which on x86-64
 //! CPUs with AVX2 runs one item per vector lane: eight items in 32-bit lanes for queries of
-//! up to 32 chars, four in 64-bit lanes up to 64 chars. Elsewhere (no AVX2, or another
+//! up to 32 chars, four in 64-bit lanes up to 64 chars. With AVX-512 the lanes are as wide
+//! as the query: 64 items in 8-bit lanes up to 8 chars, 32 in 16-bit lanes up to 16, 16 in
+//! 32-bit lanes up to 32, 8 in 64-bit lanes up to 64. Elsewhere (no AVX2, or another
 //! architecture) four items are interleaved as four independent dependency chains, with the
-//! same results. [`LevenshteinQuery::dist_within`] stops early when the bound is small. On
+//! same results. `WAYMARK_SIMD` and [`LevenshteinQuery::with_level`] force a lower level
+//! ([`crate::cpu::Level`]). [`LevenshteinQuery::dist_within`] stops early when the bound is small. On
 //! x86-64 every kernel is also compiled for `popcnt` and `bmi1` and picked at run time, since
 //! the baseline target has neither instruction. `benches/kernel.rs` measures all of these.
 //!
@@ -407,7 +410,8 @@ impl LevenshteinQuery {
     /// Same results as [`LevenshteinQuery::dist`] item by item. For queries of up to 64 chars
     /// on x86-64 CPUs with AVX2, items are computed four at a time, one per 64-bit lane of a
     /// vector register, or eight at a time in 32-bit lanes when the query has at most 32
-    /// chars; elsewhere four interleaved items at a time.
+    /// chars; with AVX-512, 8 to 64 at a time in lanes of 64 down to 8 bits, the narrowest
+    /// that holds the query; elsewhere four interleaved items at a time.
     ///
     /// ```
     /// use waymark::metric::LevenshteinQuery;
