@@ -15,7 +15,7 @@
 //! * `avx512`: at most the AVX-512 kernels (the default: the best the CPU has).
 //!
 //! A level the CPU lacks is clamped to the best it has, and an unknown value is ignored;
-//! both print one note on standard error. Tests and benches that need several levels in one
+//! both print one note on standard error. An empty value counts as unset. Tests and benches that need several levels in one
 //! process pass a [`Level`] to the kernels directly
 //! (e.g. [`crate::metric::LevenshteinQuery::with_level`]).
 
@@ -101,9 +101,11 @@ fn settings() -> (Level, bool) {
     static SETTINGS: OnceLock<(Level, bool)> = OnceLock::new();
     *SETTINGS.get_or_init(|| {
         let detected = Level::detected();
-        let Ok(raw) = std::env::var("WAYMARK_SIMD") else {
+        // Unset or empty: the best level, no note.
+        let raw = std::env::var("WAYMARK_SIMD").unwrap_or_default();
+        if raw.trim().is_empty() {
             return (detected, false);
-        };
+        }
         match Level::parse(&raw) {
             Some(want) if want <= detected => (want, want == Level::Portable),
             Some(want) => {
