@@ -10,6 +10,10 @@
 //!   (full scan and best scan through `scan_many`, both cores) on the whole word list with
 //!   typo queries, in pairs per second by wall time and by CPU time; `=kernel` runs only the
 //!   one-thread comparison of `dist` with `dist_batch`.
+//! * `levels`: `dist_batch` of one query against the word list at every dispatch level this
+//!   CPU runs (`portable`, `avx2`, `avx512`; see `waymark::cpu::Level`), with queries of 8,
+//!   9, 20 and 40 chars: the AVX-512 lane widths 8, 16, 32 and 64 bits (AVX2 takes 32-bit
+//!   lanes up to 32 chars, 64-bit above). Run alone with `cargo bench --bench kernel -- levels`.
 //! * `long`: a 300-char query (five 64-row blocks) against 300-char items a few edits away.
 
 mod common;
@@ -69,6 +73,40 @@ fn scan(c: &mut Criterion) {
             hits
         })
     });
+    group.finish();
+}
+
+/// `dist_batch` at every level this CPU runs and every AVX-512 lane width, over the same
+/// items, so that the ratios between levels come from one run.
+fn levels(c: &mut Criterion) {
+    use waymark::cpu::Level;
+    let items = common::words(100_000);
+    let slices: Vec<&[u8]> = items.iter().map(Vec::as_slice).collect();
+    let mut out = vec![0u32; slices.len()];
+    let mut group = c.benchmark_group("levels");
+    group.throughput(Throughput::Elements(slices.len() as u64));
+    let queries: [&[u8]; 4] = [
+        b"vessmark",                                 // 8 chars: 8-bit lanes
+        b"continent",                                // 9 chars: 16-bit lanes
+        b"harbour lights north",                     // 20 chars: 32-bit lanes
+        b"continental shelf of the vessmark isles!", // 40 chars: 64-bit lanes
+    ];
+    for query in queries {
+        let mut want: Option<u64> = None;
+        for level in Level::ALL.into_iter().filter(|l| l.available()) {
+            let q = LevenshteinQuery::with_level(query, level);
+            let id = BenchmarkId::new(level.name(), format!("q{}", q.len()));
+            group.bench_function(id, |b| {
+                b.iter(|| {
+                    q.dist_batch(black_box(&slices), &mut out);
+                    out.iter().map(|&d| u64::from(d)).sum::<u64>()
+                })
+            });
+            // Every level gives the same answers.
+            let sum = out.iter().map(|&d| u64::from(d)).sum::<u64>();
+            assert_eq!(*want.get_or_insert(sum), sum, "{} disagrees", level.name());
+        }
+    }
     group.finish();
 }
 
@@ -251,7 +289,7 @@ fn cpu_seconds() -> f64 {
     ns as f64 / 1e9
 }
 
-criterion_group!(benches, scan, long);
+criterion_group!(benches, scan, levels, long);
 
 fn main() {
     // `WAYMARK_BENCH_SCANS=1 cargo bench --bench kernel` runs the brute-force report alone.

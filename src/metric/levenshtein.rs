@@ -33,9 +33,12 @@
 //! keeps the processor's arithmetic units mostly idle. Scans therefore go through
 //! [`LevenshteinQuery::dist_batch`] (or [`LevenshteinQuery::dist_each`]), which on x86-64
 //! CPUs with AVX2 runs one item per vector lane: eight items in 32-bit lanes for queries of
-//! up to 32 chars, four in 64-bit lanes up to 64 chars. Elsewhere (no AVX2, or another
+//! up to 32 chars, four in 64-bit lanes up to 64 chars. With AVX-512 the lanes are as wide
+//! as the query: 64 items in 8-bit lanes up to 8 chars, 32 in 16-bit lanes up to 16, 16 in
+//! 32-bit lanes up to 32, 8 in 64-bit lanes up to 64. Elsewhere (no AVX2, or another
 //! architecture) four items are interleaved as four independent dependency chains, with the
-//! same results. [`LevenshteinQuery::dist_within`] stops early when the bound is small. On
+//! same results. `WAYMARK_SIMD` and [`LevenshteinQuery::with_level`] force a lower level
+//! ([`crate::cpu::Level`]). [`LevenshteinQuery::dist_within`] stops early when the bound is small. On
 //! x86-64 every kernel is also compiled for `popcnt` and `bmi1` and picked at run time, since
 //! the baseline target has neither instruction. `benches/kernel.rs` measures all of these.
 //!
@@ -128,11 +131,41 @@ pub struct LevenshteinQuery {
     /// Whether this CPU also has AVX2, for the kernels that run one item per vector lane.
     #[cfg(target_arch = "x86_64")]
     x86_lanes: bool,
+    /// Whether the lane kernels may use AVX-512 (lanes sized to the query), not AVX2.
+    #[cfg(target_arch = "x86_64")]
+    x86_wide: bool,
 }
 
 impl LevenshteinQuery {
-    /// Prepares `query` (UTF-8, invalid sequences read as U+FFFD) for repeated comparison.
+    /// Prepares `query` (UTF-8, invalid sequences read as U+FFFD) for repeated comparison,
+    /// for the kernels of [`crate::cpu::Level::active`].
     pub fn new(query: &[u8]) -> Self {
+        let mut q = Self::with_level(query, crate::cpu::Level::active());
+        #[cfg(target_arch = "x86_64")]
+        {
+            q.x86_fast = crate::cpu::has_popcnt_bmi1();
+        }
+        q
+    }
+
+    /// Prepares `query` for the kernels of `level` at most (lowered to what this CPU runs),
+    /// whatever `WAYMARK_SIMD` says: for tests and benches that compare the levels in one
+    /// process. Every level gives the same distances.
+    ///
+    /// ```
+    /// use waymark::cpu::Level;
+    /// use waymark::metric::LevenshteinQuery;
+    ///
+    /// for level in Level::ALL {
+    ///     assert_eq!(LevenshteinQuery::with_level(b"kitten", level).dist(b"sitting"), 3);
+    /// }
+    /// ```
+    pub fn with_level(query: &[u8], level: crate::cpu::Level) -> Self {
+        #[cfg(target_arch = "x86_64")]
+        use crate::cpu::Level;
+        let level = level.clamped();
+        #[cfg(not(target_arch = "x86_64"))]
+        let _ = level;
         let chars: Vec<char> = Chars::new(query).collect();
         let len = chars.len();
         let words = len.div_ceil(WORD);
@@ -166,9 +199,11 @@ impl LevenshteinQuery {
             other_masks: other_masks.into_boxed_slice(),
             text: (words > 1).then(|| query.into()),
             #[cfg(target_arch = "x86_64")]
-            x86_fast: crate::cpu::has_popcnt_bmi1(),
+            x86_fast: level >= Level::Avx2,
             #[cfg(target_arch = "x86_64")]
-            x86_lanes: crate::cpu::has_avx2() && crate::cpu::has_popcnt_bmi1(),
+            x86_lanes: level >= Level::Avx2,
+            #[cfg(target_arch = "x86_64")]
+            x86_wide: level >= Level::Avx512,
         }
     }
 
@@ -375,7 +410,8 @@ impl LevenshteinQuery {
     /// Same results as [`LevenshteinQuery::dist`] item by item. For queries of up to 64 chars
     /// on x86-64 CPUs with AVX2, items are computed four at a time, one per 64-bit lane of a
     /// vector register, or eight at a time in 32-bit lanes when the query has at most 32
-    /// chars; elsewhere four interleaved items at a time.
+    /// chars; with AVX-512, 8 to 64 at a time in lanes of 64 down to 8 bits, the narrowest
+    /// that holds the query; elsewhere four interleaved items at a time.
     ///
     /// ```
     /// use waymark::metric::LevenshteinQuery;
@@ -392,6 +428,21 @@ impl LevenshteinQuery {
         if self.words != 1 {
             for (item, d) in items.iter().zip(out.iter_mut()) {
                 *d = self.dist(item);
+            }
+            return;
+        }
+        #[cfg(target_arch = "x86_64")]
+        if self.x86_wide {
+            // SAFETY: `x86_wide` is set only when the CPU reports AVX-512 F, BW and VL besides
+            // AVX2, popcnt and bmi1; the query has 1 ..= 64 chars and `out` the length of
+            // `items`.
+            unsafe {
+                match self.len {
+                    ..=8 => wide::run_x64(self, items, out),
+                    9..=16 => wide::run_x32(self, items, out),
+                    17..=32 => wide::run_x16(self, items, out),
+                    _ => wide::run_x8(self, items, out),
+                }
             }
             return;
         }
@@ -910,7 +961,7 @@ mod lanes {
     use super::{saturate, LevenshteinQuery, LANE_BYTES};
 
     /// Column-major masks of one batch: `[column][lane]`.
-    type Columns<T, const L: usize> = [MaybeUninit<[T; L]>; LANE_BYTES];
+    pub(super) type Columns<T, const L: usize> = [MaybeUninit<[T; L]>; LANE_BYTES];
 
     /// Fills `columns[j][lane]` with the mask of char `j` of each item (items of at most
     /// `LANE_BYTES` bytes), rows past an item's end with zeros or stale masks (never used:
@@ -963,7 +1014,7 @@ mod lanes {
     /// Runs `items` through `columns_of` in batches of `L`, filling the table of each batch
     /// while the previous one runs; writes the distances to `out` (same length as `items`).
     #[inline(always)]
-    fn run<T: Copy + Default, const L: usize>(
+    pub(super) fn run<T: Copy + Default, const L: usize>(
         q: &LevenshteinQuery,
         items: &[&[u8]],
         out: &mut [u32],
@@ -1119,6 +1170,116 @@ mod lanes {
             n[l] + (p[l] & rows).count_ones() as usize - (m[l] & rows).count_ones() as usize
         })
     }
+}
+
+/// The single-block kernel with one item per AVX-512 lane, the lanes as wide as the query.
+///
+/// The same column loop as [`lanes`] on 512-bit registers, with the lane width chosen by the
+/// query's length: 8-bit lanes for queries of up to 8 chars (64 items per register), 16-bit
+/// up to 16 (32 items), 32-bit up to 32 (16 items), 64-bit up to 64 (8 items). Rows at and
+/// above the query's length never reach its rows (carries and shifts only move bits
+/// upwards), so a lane just as wide as the query computes what a 64-bit lane does. AVX-512 BW
+/// has no 8-bit shift; the shift by one is an addition of a register to itself. The batch
+/// table is filled by the same code as the AVX2 lanes (ASCII by byte look-up, other chars
+/// through `other_row`), and lanes whose item has ended are frozen with a mask register.
+#[cfg(target_arch = "x86_64")]
+mod wide {
+    use std::arch::x86_64::*;
+
+    use super::lanes::{run, Columns};
+    use super::LevenshteinQuery;
+
+    /// One lane width: the public entry `$run` and its column loop `$columns`.
+    macro_rules! wide_kernel {
+        (
+            $(#[$doc:meta])*
+            $run:ident, $columns:ident, $t:ty, $s:ty, $l:literal,
+            $set1:ident, $add:ident, $cmpgt:ident, $mov:ident
+        ) => {
+            $(#[$doc])*
+            #[target_feature(enable = "avx2,popcnt,bmi1,avx512f,avx512bw,avx512vl")]
+            pub(super) fn $run(q: &LevenshteinQuery, items: &[&[u8]], out: &mut [u32]) {
+                // The query fits in the low bits of its masks.
+                run::<$t, $l>(q, items, out, |eq| eq as $t, |c, n| $columns(q, c, n));
+            }
+
+            /// The column loop of one batch; `n` are the items' char counts (at most 64).
+            #[target_feature(enable = "avx2,popcnt,bmi1,avx512f,avx512bw,avx512vl")]
+            fn $columns(
+                q: &LevenshteinQuery,
+                columns: &Columns<$t, $l>,
+                n: &[usize; $l],
+            ) -> [usize; $l] {
+                let longest = n.iter().copied().max().unwrap_or(0);
+                // Char counts are at most 64 (`LANE_BYTES`), so they fit a signed lane.
+                let ends: [$s; $l] = std::array::from_fn(|l| n[l] as $s);
+                // SAFETY: unaligned 64-byte load from a `[$s; $l]` of 64 bytes.
+                let ends = unsafe { _mm512_loadu_si512(ends.as_ptr().cast()) };
+                let one = $set1(1);
+                let mut column = _mm512_setzero_si512();
+                let mut pv = $set1(-1);
+                let mut mv = _mm512_setzero_si512();
+                for row in &columns[..longest] {
+                    // SAFETY: `fill` initialised every row below the largest char count;
+                    // unaligned load of 64 bytes from a `[$t; $l]`.
+                    let eq = unsafe { _mm512_loadu_si512(row.as_ptr().cast()) };
+                    let running = $cmpgt(ends, column);
+                    column = $add(column, one);
+                    // The scalar `step`, lane-wise; `x << 1` is `x + x`.
+                    let d0 = _mm512_or_si512(
+                        _mm512_or_si512(
+                            _mm512_xor_si512($add(_mm512_and_si512(eq, pv), pv), pv),
+                            eq,
+                        ),
+                        mv,
+                    );
+                    let hn = _mm512_and_si512(pv, d0);
+                    let not_hp = _mm512_andnot_si512(mv, _mm512_or_si512(d0, pv));
+                    let not_x = $add(not_hp, not_hp);
+                    let new_pv = _mm512_or_si512($add(hn, hn), _mm512_andnot_si512(d0, not_x));
+                    let new_mv = _mm512_andnot_si512(not_x, d0);
+                    pv = $mov(pv, running, new_pv);
+                    mv = $mov(mv, running, new_mv);
+                }
+                let (mut p, mut m) = ([0 as $t; $l], [0 as $t; $l]);
+                // SAFETY: unaligned 64-byte stores into `[$t; $l]` of 64 bytes.
+                unsafe {
+                    _mm512_storeu_si512(p.as_mut_ptr().cast(), pv);
+                    _mm512_storeu_si512(m.as_mut_ptr().cast(), mv);
+                }
+                let rows = q.rows_one_word() as $t;
+                std::array::from_fn(|l| {
+                    n[l] + (p[l] & rows).count_ones() as usize
+                        - (m[l] & rows).count_ones() as usize
+                })
+            }
+        };
+    }
+
+    wide_kernel!(
+        /// Distances of `items` to a query of 1 ..= 8 chars, 64 items at a time in 8-bit
+        /// lanes; `out` has the length of `items`.
+        run_x64, columns_x64, u8, i8, 64,
+        _mm512_set1_epi8, _mm512_add_epi8, _mm512_cmpgt_epi8_mask, _mm512_mask_mov_epi8
+    );
+    wide_kernel!(
+        /// Distances of `items` to a query of 1 ..= 16 chars, 32 items at a time in 16-bit
+        /// lanes; `out` has the length of `items`.
+        run_x32, columns_x32, u16, i16, 32,
+        _mm512_set1_epi16, _mm512_add_epi16, _mm512_cmpgt_epi16_mask, _mm512_mask_mov_epi16
+    );
+    wide_kernel!(
+        /// Distances of `items` to a query of 1 ..= 32 chars, 16 items at a time in 32-bit
+        /// lanes; `out` has the length of `items`.
+        run_x16, columns_x16, u32, i32, 16,
+        _mm512_set1_epi32, _mm512_add_epi32, _mm512_cmpgt_epi32_mask, _mm512_mask_mov_epi32
+    );
+    wide_kernel!(
+        /// Distances of `items` to a query of 1 ..= 64 chars, 8 items at a time in 64-bit
+        /// lanes; `out` has the length of `items`.
+        run_x8, columns_x8, u64, i64, 8,
+        _mm512_set1_epi64, _mm512_add_epi64, _mm512_cmpgt_epi64_mask, _mm512_mask_mov_epi64
+    );
 }
 
 /// State of the single-block kernel: the vertical deltas of the current column and the
@@ -1396,6 +1557,7 @@ mod tests {
         {
             p.x86_fast = false;
             p.x86_lanes = false;
+            p.x86_wide = false;
         }
         p
     }
@@ -1431,6 +1593,71 @@ mod tests {
                     .map(|i| if i % 3 == 1 { want_c } else { want_b })
                     .collect();
                 proptest::prop_assert_eq!(&out[..], &want[..]);
+            }
+        }
+    }
+
+    /// Query lengths at every lane boundary of the vector kernels: 8/9 (8-bit lanes),
+    /// 16/17 (16-bit), 32/33 (32-bit), 64/65 (64-bit lanes, then the multi-block kernel).
+    const LANE_EDGES: [usize; 12] = [1, 7, 8, 9, 15, 16, 17, 31, 32, 33, 64, 65];
+
+    /// Chars of the lane tests: ASCII letters, an accented letter (two bytes), a CJK char
+    /// (three bytes) and one outside the BMP (four bytes).
+    const LANE_CHARS: [char; 8] = ['a', 'b', 'c', 'd', 'é', 'ø', '中', '😀'];
+
+    /// A query of one of the [`LANE_EDGES`] lengths and a group of 0 ..= 70 items of
+    /// 0 ..= length + 3 chars (groups of every size leave partial registers at each width).
+    fn lane_case() -> impl Strategy<Value = (String, Vec<String>)> {
+        prop::sample::select(LANE_EDGES.to_vec()).prop_flat_map(|m| {
+            let word = move |lo: usize, hi: usize| {
+                prop::collection::vec(prop::sample::select(LANE_CHARS.to_vec()), lo..=hi)
+                    .prop_map(|cs| cs.into_iter().collect::<String>())
+            };
+            (word(m, m), prop::collection::vec(word(0, m + 3), 0..=70))
+        })
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(300))]
+
+        /// Every dispatch level this CPU runs (portable, AVX2 lanes, AVX-512 lanes of 8, 16,
+        /// 32 and 64 bits) gives the distances of the reference crate `strsim`
+        /// (`strsim::levenshtein`, a general-purpose crate counting chars), through
+        /// `dist_batch`, `dist_each` and `dist`.
+        #[test]
+        fn every_level_and_lane_width_matches_strsim((query, items) in lane_case()) {
+            let want: Vec<u32> = items
+                .iter()
+                .map(|x| strsim::levenshtein(&query, x) as u32)
+                .collect();
+            let slices: Vec<&[u8]> = items.iter().map(|x| x.as_bytes()).collect();
+            for level in crate::cpu::Level::ALL.into_iter().filter(|l| l.available()) {
+                let q = LevenshteinQuery::with_level(query.as_bytes(), level);
+                let mut out = vec![u32::MAX; items.len()];
+                q.dist_batch(&slices, &mut out);
+                prop_assert_eq!(&out, &want, "dist_batch, level {:?}, m = {}", level, q.len());
+                let mut each = Vec::new();
+                q.dist_each(&slices, |_, d| each.push(d));
+                prop_assert_eq!(&each, &want, "dist_each, level {:?}", level);
+                for (x, &d) in slices.iter().zip(&want) {
+                    prop_assert_eq!(q.dist(x), d, "dist, level {:?}", level);
+                }
+            }
+        }
+    }
+
+    /// The level a query is prepared for is lowered to what this CPU runs, and every level
+    /// gives the worked example `kitten` → `sitting` = 3 (the textbook example, from memory).
+    #[test]
+    fn levels_are_clamped_and_agree() {
+        use crate::cpu::Level;
+        for level in Level::ALL {
+            let q = LevenshteinQuery::with_level(b"kitten", level);
+            assert_eq!(q.dist(b"sitting"), 3, "{level:?}");
+            #[cfg(target_arch = "x86_64")]
+            {
+                assert_eq!(q.x86_wide, level.clamped() >= Level::Avx512);
+                assert_eq!(q.x86_lanes, level.clamped() >= Level::Avx2);
             }
         }
     }
