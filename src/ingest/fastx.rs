@@ -67,16 +67,12 @@ pub fn read_sequences<R: Read>(
     reader.read_to_end(&mut bytes).map_err(io)?;
     if bytes.starts_with(GZIP_MAGIC) {
         // The compressed bytes were bounded by the caller; the text they unpack to is
-        // bounded here, by the same share of the memory budget, so that a small file that
-        // unpacks to gigabytes stops with an error.
-        let limit = crate::resources::input_limit()
-            .map_err(|e| io(std::io::Error::other(e.to_string())))?
-            .unwrap_or(u64::MAX);
+        // bounded here, by the same share of the memory budget.
         let mut plain = Vec::new();
-        crate::resources::BoundedRead::new(
+        super::bounded(
             flate2::read::MultiGzDecoder::new(bytes.as_slice()),
-            limit,
-        )
+            source_name,
+        )?
         .read_to_end(&mut plain)
         .map_err(|e| {
             io(std::io::Error::new(

@@ -431,18 +431,19 @@ pub fn read_corpus_with_warnings(
     read_corpus_from_with_warnings(bounded(file, &name)?, &name, &opts)
 }
 
-/// `file` read through [`crate::resources::BoundedRead`] with the input limit of the memory
-/// budget, so that an endless input (a device, a pipe) stops with an error.
-pub(crate) fn bounded(
-    file: std::fs::File,
+/// `reader` read through [`crate::resources::BoundedRead`] with the input limit of the
+/// memory budget, so that an endless input (a device, a pipe, a small gzip file that unpacks
+/// to gigabytes) stops with an error.
+pub(crate) fn bounded<R: Read>(
+    reader: R,
     name: &str,
-) -> Result<crate::resources::BoundedRead<std::fs::File>, IngestError> {
+) -> Result<crate::resources::BoundedRead<R>, IngestError> {
     let limit = crate::resources::input_limit().map_err(|e| IngestError::Io {
         source_name: name.to_string(),
         error: std::io::Error::other(e.to_string()),
     })?;
     Ok(crate::resources::BoundedRead::new(
-        file,
+        reader,
         limit.unwrap_or(u64::MAX),
     ))
 }
