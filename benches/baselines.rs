@@ -81,7 +81,10 @@ fn check_knn(name: &str, a: &[Answer], truth: &[Vec<Neighbor>]) {
     for (q, (x, t)) in a.iter().zip(truth).enumerate() {
         let got: Vec<u32> = x.hits.iter().map(|&(_, d)| d).collect();
         let want: Vec<u32> = t.iter().map(|nb| nb.distance as u32).collect();
-        assert_eq!(got, want, "{name}: exact k-NN differs from the brute force on query {q}");
+        assert_eq!(
+            got, want,
+            "{name}: exact k-NN differs from the brute force on query {q}"
+        );
     }
 }
 
@@ -90,7 +93,10 @@ fn check_range(name: &str, a: &[Answer], brute: &[Vec<u32>]) {
     for (q, (x, b)) in a.iter().zip(brute).enumerate() {
         let mut got: Vec<u32> = x.hits.iter().map(|&(i, _)| i).collect();
         got.sort_unstable();
-        assert_eq!(&got, b, "{name}: range answer differs from the brute force on query {q}");
+        assert_eq!(
+            &got, b,
+            "{name}: range answer differs from the brute force on query {q}"
+        );
     }
 }
 
@@ -98,9 +104,7 @@ fn run_list(path: &str, seed: u64, nq: usize, radii: &[u32], tune: usize) {
     let k = 10;
     let words_path = PathBuf::from(path);
     if !words_path.exists() {
-        println!(
-            "{path} is missing: install Debian's wamerican / wamerican-insane; list skipped"
-        );
+        println!("{path} is missing: install Debian's wamerican / wamerican-insane; list skipped");
         return;
     }
     let corpus = read_corpus(&words_path, &IngestOptions::default()).expect("word list reads");
@@ -114,8 +118,8 @@ fn run_list(path: &str, seed: u64, nq: usize, radii: &[u32], tune: usize) {
     let dir = tempfile::tempdir().expect("temp dir");
     let ipath = dir.path().join("base.wmk");
     let t = Instant::now();
-    let report = build_index(&corpus, "bench", &BuildOptions::default(), &ipath, &|_| {})
-        .expect("build");
+    let report =
+        build_index(&corpus, "bench", &BuildOptions::default(), &ipath, &|_| {}).expect("build");
     println!(
         "waymark build (default): {:.2} s, {:.1} MB",
         t.elapsed().as_secs_f64(),
@@ -199,8 +203,11 @@ fn run_list(path: &str, seed: u64, nq: usize, radii: &[u32], tune: usize) {
             .iter()
             .zip(&truth_d)
             .map(|(f, td)| {
-                let got: Vec<(u32, f64)> =
-                    f.neighbors.iter().map(|nb| (nb.index, nb.distance)).collect();
+                let got: Vec<(u32, f64)> = f
+                    .neighbors
+                    .iter()
+                    .map(|nb| (nb.index, nb.distance))
+                    .collect();
                 threshold_recall(td, &got, k)
             })
             .sum::<f64>()
@@ -223,7 +230,10 @@ fn run_list(path: &str, seed: u64, nq: usize, radii: &[u32], tune: usize) {
     for (q, (f, t)) in found.iter().zip(&truth).enumerate() {
         let got: Vec<f64> = f.neighbors.iter().map(|nb| nb.distance).collect();
         let want: Vec<f64> = t.iter().map(|nb| nb.distance).collect();
-        assert_eq!(got, want, "waymark --exact differs from the brute force on query {q}");
+        assert_eq!(
+            got, want,
+            "waymark --exact differs from the brute force on query {q}"
+        );
     }
     rows.push(Row {
         mode: "exact k-NN".into(),
@@ -242,7 +252,10 @@ fn run_list(path: &str, seed: u64, nq: usize, radii: &[u32], tune: usize) {
         for (q, (f, b)) in found.iter().zip(b).enumerate() {
             let mut got: Vec<u32> = f.neighbors.iter().map(|nb| nb.index).collect();
             got.sort_unstable();
-            assert_eq!(&got, b, "waymark --within {r} differs from the brute force on query {q}");
+            assert_eq!(
+                &got, b,
+                "waymark --within {r} differs from the brute force on query {q}"
+            );
         }
         rows.push(Row {
             mode: format!("range R={r}"),

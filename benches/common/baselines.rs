@@ -546,8 +546,7 @@ impl<'a> DeletionIndex<'a> {
             });
         pairs.par_sort_unstable();
         let entries = pairs.len();
-        let mut map: HashMap<u64, (u32, u32), BuildHasherDefault<Passthrough>> =
-            HashMap::default();
+        let mut map: HashMap<u64, (u32, u32), BuildHasherDefault<Passthrough>> = HashMap::default();
         let mut ids = Vec::with_capacity(pairs.len());
         let mut at = 0;
         while at < pairs.len() {
@@ -595,7 +594,10 @@ impl<'a> DeletionIndex<'a> {
         cand.dedup();
         let mut hits: Vec<(u32, u32)> = cand
             .iter()
-            .filter_map(|&i| q.dist_within(self.words[i as usize], radius).map(|d| (i, d)))
+            .filter_map(|&i| {
+                q.dist_within(self.words[i as usize], radius)
+                    .map(|d| (i, d))
+            })
             .collect();
         hits.sort_unstable_by_key(|&(i, d)| (d, i));
         Answer {
