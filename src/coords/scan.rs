@@ -888,8 +888,10 @@ mod tests {
         check_with(&f, coords, stride, q, space, what)
     }
 
+    type DynScore<'a> = &'a dyn Fn(&[u8], usize, &[u8; 64], Space, &mut [u32], &mut [u32]);
+
     fn check_with(
-        f: &dyn Fn(&[u8], usize, &[u8; 64], Space, &mut [u32], &mut [u32]),
+        f: DynScore<'_>,
         coords: &[u8],
         stride: usize,
         q: &[u8; 64],

@@ -357,7 +357,13 @@ mod tests {
         let b: String = a
             .chars()
             .enumerate()
-            .map(|(i, c)| if (i + seed) % every == 0 { 'N' } else { c })
+            .map(|(i, c)| {
+                if (i + seed).is_multiple_of(every) {
+                    'N'
+                } else {
+                    c
+                }
+            })
             .collect();
         (a, b)
     }
