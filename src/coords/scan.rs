@@ -43,8 +43,9 @@ pub const HIST_BINS: usize = 1 << 14;
 /// In the same pass `hist[min(score, HIST_BINS − 1)]` is incremented for every row; the
 /// caller clears `hist` beforehand (counts are added to what is there).
 ///
-/// Uses the best kernels of [`Level::active`] (AVX-512, AVX2, else [`score_rows_portable`]);
-/// the results are identical.
+/// Uses AVX2 when the CPU has it, else [`score_rows_portable`]; the AVX-512 kernels only
+/// when `WAYMARK_SIMD=avx512` names them ([`Level::active_avx512_if_forced`]: they measured
+/// no faster, the scan being bound by memory). The results are identical at every level.
 ///
 /// # Panics
 ///
@@ -58,7 +59,10 @@ pub fn score_rows(
     out: &mut [u32],
     hist: &mut [u32],
 ) {
-    score_rows_at(Level::active(), coords, stride, q, space, out, hist);
+    // The AVX-512 rows measured no faster than AVX2 (the scan is bound by memory; see
+    // DEVELOPERS.md, "Dispatch levels"): taken only when `WAYMARK_SIMD=avx512` asks.
+    let level = Level::active_avx512_if_forced();
+    score_rows_at(level, coords, stride, q, space, out, hist);
 }
 
 /// [`score_rows`] with the kernels of `level` (lowered to what this CPU runs, whatever

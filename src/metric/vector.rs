@@ -269,7 +269,7 @@ const L2: u8 = 1;
 const LINF: u8 = 2;
 
 /// The kernels, written once over each level's sixteen-lane type `V` and its operations
-/// (`zero`, `splat`, `load`, `add`, `sub`, `mul`, `div`, `abs`, `max`, `sum`, `maximum`),
+/// (`zero`, `splat`, `load`, `add`, `sub`, `mul`, `abs`, `max`, `sum`, `maximum`),
 /// so that every level performs the same operations in the same order. `$tf` is the
 /// level's `target_feature` attribute (none for the portable form).
 macro_rules! kernels {
@@ -303,7 +303,7 @@ macro_rules! kernels {
             Some(acc)
         }
 
-        /// `(Σ(q − x̂)², Σ(q + x̂)²)`, `x̂ = x / |x|`, or `None` for `|x| = 0`.
+        /// `(Σ(q − x̂)², Σ(q + x̂)²)`, `x̂ = x · (1 / |x|)`, or `None` for `|x| = 0`.
         $(#[$tf])*
         pub(super) fn angular_sums(q: &[f64], x: &[u8]) -> Option<(f64, f64)> {
             let mut squares = zero();
@@ -315,11 +315,13 @@ macro_rules! kernels {
             if len == 0.0 {
                 return None;
             }
-            let len = splat(len);
+            // One division, then products (a division per component costs several times
+            // a product; the reciprocal adds at most one rounding to each component).
+            let scale = splat(1.0 / len);
             let (mut minus, mut plus) = (zero(), zero());
             for (qs, xs) in q.chunks(LANES).zip(x.chunks(4 * LANES)) {
                 let (qv, xv) = load(qs, xs);
-                let unit = div(xv, len);
+                let unit = mul(xv, scale);
                 let (m, p) = (sub(qv, unit), add(qv, unit));
                 minus = add(minus, mul(m, m));
                 plus = add(plus, mul(p, p));
@@ -350,6 +352,18 @@ mod portable {
     fn load(q: &[f64], x: &[u8]) -> (V, V) {
         let mut qv = zero();
         let mut xv = zero();
+        if let (Ok(q), Ok(x)) = (
+            <&[f64; LANES]>::try_from(q),
+            <&[u8; 4 * LANES]>::try_from(x),
+        ) {
+            // A whole group: fixed bounds, so the loop is unrolled and vectorised.
+            for i in 0..LANES {
+                qv[i] = q[i];
+                let c = [x[4 * i], x[4 * i + 1], x[4 * i + 2], x[4 * i + 3]];
+                xv[i] = f64::from(f32::from_le_bytes(c));
+            }
+            return (qv, xv);
+        }
         for ((a, b), (q, c)) in qv
             .iter_mut()
             .zip(&mut xv)
@@ -362,8 +376,11 @@ mod portable {
     }
 
     #[inline(always)]
-    fn lanewise(a: V, b: V, f: impl Fn(f64, f64) -> f64) -> V {
-        std::array::from_fn(|i| f(a[i], b[i]))
+    fn lanewise(mut a: V, b: V, f: impl Fn(f64, f64) -> f64) -> V {
+        for i in 0..LANES {
+            a[i] = f(a[i], b[i]);
+        }
+        a
     }
 
     #[inline(always)]
@@ -382,13 +399,11 @@ mod portable {
     }
 
     #[inline(always)]
-    fn div(a: V, b: V) -> V {
-        lanewise(a, b, |x, y| x / y)
-    }
-
-    #[inline(always)]
-    fn abs(a: V) -> V {
-        a.map(f64::abs)
+    fn abs(mut a: V) -> V {
+        for x in &mut a {
+            *x = x.abs();
+        }
+        a
     }
 
     /// `a` where `a > b`, else `b` (the rule of the `maxpd` instruction).
@@ -491,12 +506,6 @@ mod avx512 {
     #[target_feature(enable = "avx512f,avx2")]
     fn mul(a: V, b: V) -> V {
         V(_mm512_mul_pd(a.0, b.0), _mm512_mul_pd(a.1, b.1))
-    }
-
-    #[inline]
-    #[target_feature(enable = "avx512f,avx2")]
-    fn div(a: V, b: V) -> V {
-        V(_mm512_div_pd(a.0, b.0), _mm512_div_pd(a.1, b.1))
     }
 
     #[inline]
@@ -620,12 +629,6 @@ mod avx2 {
     #[target_feature(enable = "avx2")]
     fn mul(a: V, b: V) -> V {
         lanewise(a, b, |x, y| _mm256_mul_pd(x, y))
-    }
-
-    #[inline]
-    #[target_feature(enable = "avx2")]
-    fn div(a: V, b: V) -> V {
-        lanewise(a, b, |x, y| _mm256_div_pd(x, y))
     }
 
     #[inline]
