@@ -133,8 +133,12 @@ impl Metric for VectorMetric {
         }
     }
 
+    /// Uses the AVX2 kernels where the CPU has them; the AVX-512 ones only when
+    /// `WAYMARK_SIMD=avx512` names them ([`Level::active_avx512_if_forced`]): they measured
+    /// no faster than AVX2 across dimensions (DEVELOPERS.md, "Dispatch levels"). The
+    /// distances are identical at every level.
     fn prepare(&self, query: &[u8]) -> VectorQuery {
-        self.prepare_with_level(query, Level::active())
+        self.prepare_with_level(query, Level::active_avx512_if_forced())
     }
 }
 
