@@ -4,9 +4,11 @@
 //! (/usr/share/dict/american-english, 104,334 words, or as many generated words when it is
 //! missing) against 64 landmarks drawn from the list, saturated at 255 like an index's
 //! rows; the query is a word with one substitution. For each space (L1, squared L2, L∞)
-//! and stride 16, 32 and 64 the portable loop is timed against the dispatched version (AVX2
-//! when the CPU has it; skipped otherwise). Each iteration clears the histogram, as a
-//! caller does, then scores all rows and fills it.
+//! and stride 8, 16, 32 and 64, every dispatch level this CPU runs (`portable`, `avx2`,
+//! `avx512`; `waymark::cpu::Level`, passed to `score_rows_at`) is timed in the same run, and
+//! every level's scores are checked to be the portable ones. Each iteration clears the
+//! histogram, as a caller does, then scores all rows and fills it.
+//! `cargo bench --bench scan`.
 
 mod common;
 
@@ -15,8 +17,8 @@ use std::hint::black_box;
 use criterion::{criterion_group, criterion_main, BenchmarkId, Criterion, Throughput};
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
-use waymark::coords::scan::{score_rows, score_rows_portable, HIST_BINS};
-use waymark::cpu::has_avx2;
+use waymark::coords::scan::{score_rows_at, HIST_BINS};
+use waymark::cpu::Level;
 use waymark::metric::LevenshteinQuery;
 use waymark::search::Space;
 
@@ -44,16 +46,18 @@ fn scan(c: &mut Criterion) {
     typo[at] = b'q';
     let q_full = row(&landmarks, &typo);
     let n = full.len();
-    if !has_avx2() {
-        println!("this CPU has no AVX2: only the portable scan is timed");
-    }
+    let levels: Vec<Level> = Level::ALL.into_iter().filter(|l| l.available()).collect();
+    println!(
+        "levels timed: {:?}",
+        levels.iter().map(|l| l.name()).collect::<Vec<_>>()
+    );
 
     let mut out = vec![0u32; n];
     let mut hist = vec![0u32; HIST_BINS];
     for space in [Space::L1, Space::L2, Space::Linf] {
         let mut group = c.benchmark_group(format!("scan_{}", space.name()));
         group.throughput(Throughput::Elements(n as u64));
-        for stride in [16, 32, 64] {
+        for stride in [8, 16, 32, 64] {
             // The first `stride` landmarks, as an index of dimension `stride` stores them.
             let coords: Vec<u8> = full
                 .iter()
@@ -61,16 +65,13 @@ fn scan(c: &mut Criterion) {
                 .collect();
             let mut q = [0u8; 64];
             q[..stride].copy_from_slice(&q_full[..stride]);
-            type ScoreFn = fn(&[u8], usize, &[u8; 64], Space, &mut [u32], &mut [u32]);
-            let mut kernels: Vec<(&str, ScoreFn)> = vec![("portable", score_rows_portable)];
-            if has_avx2() {
-                kernels.push(("avx2", score_rows));
-            }
-            for (name, f) in kernels {
-                group.bench_function(BenchmarkId::new(name, stride), |b| {
+            let mut want: Option<Vec<u32>> = None;
+            for &level in &levels {
+                group.bench_function(BenchmarkId::new(level.name(), stride), |b| {
                     b.iter(|| {
                         hist.fill(0);
-                        f(
+                        score_rows_at(
+                            level,
                             black_box(&coords),
                             stride,
                             black_box(&q),
@@ -81,6 +82,9 @@ fn scan(c: &mut Criterion) {
                         black_box((&out, &hist));
                     })
                 });
+                // Every level gives the portable scores.
+                let want = want.get_or_insert_with(|| out.clone());
+                assert!(*want == out, "{} disagrees", level.name());
             }
         }
         group.finish();

@@ -12,7 +12,9 @@
 //!
 //! * `portable`: plain Rust only (no AVX2, and no `popcnt`/`bmi1` forms either);
 //! * `avx2`: at most the AVX2 kernels (and the `popcnt`/`bmi1` scalar forms);
-//! * `avx512`: at most the AVX-512 kernels (the default: the best the CPU has).
+//! * `avx512`: at most the AVX-512 kernels (the default: the best the CPU has; kernels whose
+//!   AVX-512 form measured no faster than AVX2 use it only when `avx512` is named, see
+//!   [`Level::active_avx512_if_forced`]).
 //!
 //! A level the CPU lacks is clamped to the best it has, and an unknown value is ignored;
 //! both print one note on standard error. An empty value counts as unset. Tests and benches that need several levels in one
@@ -85,6 +87,25 @@ impl Level {
         settings().0
     }
 
+    /// The level `WAYMARK_SIMD` named (lowered to what this CPU runs), or `None` when it is
+    /// unset, empty or not a level.
+    ///
+    /// Kernels whose AVX-512 form measured no faster than their AVX2 form take AVX2 unless
+    /// AVX-512 is asked for here (see DEVELOPERS.md, "Dispatch levels").
+    pub fn forced() -> Option<Level> {
+        let (level, _, named) = settings();
+        named.then_some(level)
+    }
+
+    /// The level for a kernel whose AVX-512 form is kept for when it is asked for:
+    /// [`Level::active`], but at most [`Level::Avx2`] unless `WAYMARK_SIMD` named `avx512`.
+    pub fn active_avx512_if_forced() -> Level {
+        match Level::forced() {
+            Some(level) => level,
+            None => Level::active().min(Level::Avx2),
+        }
+    }
+
     /// Whether this CPU runs the level.
     pub fn available(self) -> bool {
         self <= Level::detected()
@@ -96,25 +117,26 @@ impl Level {
     }
 }
 
-/// The active level and whether `WAYMARK_SIMD=portable` turned the scalar forms off too.
-fn settings() -> (Level, bool) {
-    static SETTINGS: OnceLock<(Level, bool)> = OnceLock::new();
+/// The active level, whether `WAYMARK_SIMD=portable` turned the scalar forms off too, and
+/// whether `WAYMARK_SIMD` named a level.
+fn settings() -> (Level, bool, bool) {
+    static SETTINGS: OnceLock<(Level, bool, bool)> = OnceLock::new();
     *SETTINGS.get_or_init(|| {
         let detected = Level::detected();
         // Unset or empty: the best level, no note.
         let raw = std::env::var("WAYMARK_SIMD").unwrap_or_default();
         if raw.trim().is_empty() {
-            return (detected, false);
+            return (detected, false, false);
         }
         match Level::parse(&raw) {
-            Some(want) if want <= detected => (want, want == Level::Portable),
+            Some(want) if want <= detected => (want, want == Level::Portable, true),
             Some(want) => {
                 eprintln!(
                     "note: WAYMARK_SIMD={} asks for a level this CPU lacks; using {}",
                     want.name(),
                     detected.name()
                 );
-                (detected, false)
+                (detected, false, true)
             }
             None => {
                 eprintln!(
@@ -122,7 +144,7 @@ fn settings() -> (Level, bool) {
                      (using {})",
                     detected.name()
                 );
-                (detected, false)
+                (detected, false, false)
             }
         }
     })

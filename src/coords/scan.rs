@@ -22,12 +22,17 @@
 //!   one vector of eight scores, stored at once; the histogram is then counted from the
 //!   stored scores, one block of rows at a time.
 //!
+//! The AVX-512 path (`avx512` below) scores sixteen rows a step with 64-byte loads; it
+//! measured no faster than AVX2 (the scan is bound by memory), so [`score_rows`] takes it
+//! only when `WAYMARK_SIMD=avx512` names it; [`score_rows_at`] runs any level.
+//!
 //! The AVX2 path is chosen at run time ([`crate::cpu::has_avx2`]); the portable path (plain loops,
-//! correct on any CPU) is used otherwise, for the last `n % 8` rows, and on other
-//! architectures. Both give identical scores and histograms; the tests check both against a
-//! direct scalar reference.
+//! correct on any CPU) is used otherwise, for the last rows that do not fill a group, and on
+//! other architectures. Every level gives identical scores and histograms; the tests check
+//! each against a direct scalar reference.
 
 use super::{Space, STRIDES};
+use crate::cpu::Level;
 
 /// Number of histogram bins filled by [`score_rows`]; scores at or past the last bin are
 /// counted in it.
@@ -42,7 +47,9 @@ pub const HIST_BINS: usize = 1 << 14;
 /// In the same pass `hist[min(score, HIST_BINS − 1)]` is incremented for every row; the
 /// caller clears `hist` beforehand (counts are added to what is there).
 ///
-/// Uses AVX2 when the CPU has it, else [`score_rows_portable`]; the results are identical.
+/// Uses AVX2 when the CPU has it, else [`score_rows_portable`]; the AVX-512 kernels only
+/// when `WAYMARK_SIMD=avx512` names them ([`Level::active_avx512_if_forced`]: they measured
+/// no faster, the scan being bound by memory). The results are identical at every level.
 ///
 /// # Panics
 ///
@@ -56,12 +63,48 @@ pub fn score_rows(
     out: &mut [u32],
     hist: &mut [u32],
 ) {
+    // The AVX-512 rows measured no faster than AVX2 (the scan is bound by memory; see
+    // DEVELOPERS.md, "Dispatch levels"): taken only when `WAYMARK_SIMD=avx512` asks.
+    let level = Level::active_avx512_if_forced();
+    score_rows_at(level, coords, stride, q, space, out, hist);
+}
+
+/// [`score_rows`] with the kernels of `level` (lowered to what this CPU runs, whatever
+/// `WAYMARK_SIMD` says), so that tests and benches can run every level in one process.
+/// Every level gives identical scores and histograms.
+///
+/// # Panics
+///
+/// As [`score_rows`].
+pub fn score_rows_at(
+    level: Level,
+    coords: &[u8],
+    stride: usize,
+    q: &[u8; 64],
+    space: Space,
+    out: &mut [u32],
+    hist: &mut [u32],
+) {
     let hist = check_args(coords, stride, out, hist);
     #[cfg(target_arch = "x86_64")]
     {
-        if crate::cpu::has_avx2() {
-            // SAFETY: the CPU supports AVX2 (checked on the line above), which is the only
-            // requirement of the `target_feature` functions called here.
+        let level = level.clamped();
+        if level >= Level::Avx512 {
+            // SAFETY: `clamped` lowered the level to what the CPU reports, so it has
+            // AVX-512 F, BW, VL and AVX2, the `target_feature`s of the functions called here.
+            unsafe {
+                match stride {
+                    8 => avx512::rows::<8>(coords, q, space, out, hist),
+                    16 => avx512::rows::<16>(coords, q, space, out, hist),
+                    32 => avx512::rows::<32>(coords, q, space, out, hist),
+                    _ => avx512::rows::<64>(coords, q, space, out, hist),
+                }
+            }
+            return;
+        }
+        if level >= Level::Avx2 {
+            // SAFETY: `clamped` lowered the level to what the CPU reports, so it has AVX2,
+            // the only `target_feature` of the functions called here.
             unsafe {
                 match stride {
                     8 => avx2::rows::<8>(coords, q, space, out, hist),
@@ -73,6 +116,8 @@ pub fn score_rows(
             return;
         }
     }
+    #[cfg(not(target_arch = "x86_64"))]
+    let _ = level;
     portable_dispatch(coords, stride, q, space, out, hist);
 }
 
@@ -170,11 +215,55 @@ fn portable_with<const S: usize>(
     }
 }
 
+/// Counts bins below [`HIST_BINS`] (L1 ≤ 64 × 255; L2 clamped by the caller) into `hist`.
+#[cfg(target_arch = "x86_64")]
+#[inline(always)]
+fn count(hist: &mut [u32; HIST_BINS], bins: &[u32]) {
+    for &b in bins {
+        // The mask never changes a bin; it only lets the compiler drop the bounds check.
+        hist[b as usize & (HIST_BINS - 1)] += 1;
+    }
+}
+
+/// Counts of L∞ scores (below 256). L∞ scores take few distinct values and neighbouring
+/// rows often share one; four small tables, used in turn, keep increments of one bin from
+/// waiting on each other.
+#[cfg(target_arch = "x86_64")]
+struct SmallCounts([[u32; 256]; 4]);
+
+#[cfg(target_arch = "x86_64")]
+impl SmallCounts {
+    #[inline(always)]
+    fn new() -> Self {
+        SmallCounts([[0; 256]; 4])
+    }
+
+    /// Counts `bins` (a multiple of four of them, each below 256).
+    #[inline(always)]
+    fn add(&mut self, bins: &[u32]) {
+        for four in bins.chunks_exact(4) {
+            for (t, &b) in self.0.iter_mut().zip(four) {
+                t[b as usize & 255] += 1;
+            }
+        }
+    }
+
+    /// Adds the counts to `hist`.
+    #[inline(always)]
+    fn into(self, hist: &mut [u32; HIST_BINS]) {
+        for t in &self.0 {
+            for (h, &l) in hist.iter_mut().zip(t) {
+                *h += l;
+            }
+        }
+    }
+}
+
 #[cfg(target_arch = "x86_64")]
 mod avx2 {
     use std::arch::x86_64::*;
 
-    use super::{portable, Space, HIST_BINS};
+    use super::{count, portable, SmallCounts, Space, HIST_BINS};
 
     /// Loads 32 bytes from the start of `b`.
     #[inline]
@@ -240,41 +329,18 @@ mod avx2 {
         let (head, tail) = coords.split_at(full * S);
         let (head_out, tail_out) = out.split_at_mut(full);
         let qv = query::<S>(q);
-        // The bins counted are below HIST_BINS (L1 ≤ 64 × 255, L2 clamped), so the mask
-        // never changes one; it only lets the compiler drop the bounds check.
-        let mut count = |bins: &[u32]| {
-            for &b in bins {
-                hist[b as usize & (HIST_BINS - 1)] += 1;
-            }
-        };
         match space {
-            Space::L1 => blocks::<S, false>(head, head_out, |c| l1::<S>(c, &qv), &mut count),
+            Space::L1 => {
+                blocks::<S, false>(head, head_out, |c| l1::<S>(c, &qv), |b| count(hist, b))
+            }
             Space::L2 => {
                 let qs = SplitQuery::new(&qv);
-                blocks::<S, true>(head, head_out, |c| l2::<S>(c, &qs), &mut count)
+                blocks::<S, true>(head, head_out, |c| l2::<S>(c, &qs), |b| count(hist, b))
             }
             Space::Linf => {
-                // L∞ scores take few distinct values and neighbouring rows often share one;
-                // four small tables, used in turn, keep increments of one bin from waiting
-                // on each other.
-                let mut local = [[0u32; 256]; 4];
-                blocks::<S, false>(
-                    head,
-                    head_out,
-                    |c| linf::<S>(c, &qv),
-                    |bins| {
-                        for four in bins.chunks_exact(4) {
-                            for (t, &b) in local.iter_mut().zip(four) {
-                                t[b as usize & 255] += 1;
-                            }
-                        }
-                    },
-                );
-                for t in &local {
-                    for (h, &l) in hist.iter_mut().zip(t) {
-                        *h += l;
-                    }
-                }
+                let mut small = SmallCounts::new();
+                blocks::<S, false>(head, head_out, |c| linf::<S>(c, &qv), |b| small.add(b));
+                small.into(hist);
             }
         }
         portable::<S>(tail, q, space, tail_out, hist);
@@ -533,6 +599,239 @@ mod avx2 {
     }
 }
 
+/// The AVX-512 (F, BW) row scan: sixteen rows per step, one 64-byte load covering 64 / S
+/// rows, so that every stride uses whole registers.
+///
+/// Each load is compared with the query tiled to 64 bytes and gives per-row partial results
+/// in consecutive lanes: `vpsadbw` sums of 8 bytes (L1), the byte maxima of absolute
+/// differences (L∞), `vpmaddwd` sums of 4 squared differences (L2). Partial results of the
+/// same row are then added (or maxed) pairwise across registers with two-source permutes
+/// (`vpermt2q` / `vpermt2d`), which keep the rows in order, until one lane per row is left;
+/// the scores of sixteen rows are stored with one store.
+#[cfg(target_arch = "x86_64")]
+mod avx512 {
+    use std::arch::x86_64::*;
+
+    use super::{count, portable, SmallCounts, Space, HIST_BINS};
+
+    /// Rows scored by the vector pass before their scores are counted (as the AVX2 path).
+    const BLOCK: usize = 256;
+
+    /// Loads 64 bytes from the start of `b`.
+    #[inline]
+    #[target_feature(enable = "avx512f,avx512bw,avx512vl,avx2")]
+    fn load(b: &[u8]) -> __m512i {
+        assert!(b.len() >= 64);
+        // SAFETY: `b` has at least 64 readable bytes (asserted above); `loadu` has no
+        // alignment requirement.
+        unsafe { _mm512_loadu_si512(b.as_ptr().cast()) }
+    }
+
+    /// Stores sixteen u32 lanes into `o`.
+    #[inline]
+    #[target_feature(enable = "avx512f,avx512bw,avx512vl,avx2")]
+    fn store(o: &mut [u32; 16], v: __m512i) {
+        // SAFETY: `o` is 64 writable bytes; `storeu` has no alignment requirement.
+        unsafe { _mm512_storeu_si512(o.as_mut_ptr().cast(), v) }
+    }
+
+    /// Lane indices `first, first + 2, first + 4, …` for the two-source permutes.
+    #[inline]
+    #[target_feature(enable = "avx512f,avx512bw,avx512vl,avx2")]
+    fn every_other_64(first: i64) -> __m512i {
+        let i: [i64; 8] = std::array::from_fn(|k| first + 2 * k as i64);
+        _mm512_setr_epi64(i[0], i[1], i[2], i[3], i[4], i[5], i[6], i[7])
+    }
+
+    #[inline]
+    #[target_feature(enable = "avx512f,avx512bw,avx512vl,avx2")]
+    fn every_other_32(first: i32) -> __m512i {
+        let i: [i32; 16] = std::array::from_fn(|k| first + 2 * k as i32);
+        _mm512_setr_epi32(
+            i[0], i[1], i[2], i[3], i[4], i[5], i[6], i[7], i[8], i[9], i[10], i[11], i[12], i[13],
+            i[14], i[15],
+        )
+    }
+
+    /// Neighbouring u64 lanes of `a` then of `b` combined by `op`:
+    /// `[op(a0, a1), op(a2, a3), …, op(b6, b7)]`.
+    #[inline]
+    #[target_feature(enable = "avx512f,avx512bw,avx512vl,avx2")]
+    fn fold64(a: __m512i, b: __m512i, op: impl Fn(__m512i, __m512i) -> __m512i) -> __m512i {
+        op(
+            _mm512_permutex2var_epi64(a, every_other_64(0), b),
+            _mm512_permutex2var_epi64(a, every_other_64(1), b),
+        )
+    }
+
+    /// Neighbouring u32 lanes of `a` then of `b` added: `[a0 + a1, …, b14 + b15]`.
+    #[inline]
+    #[target_feature(enable = "avx512f,avx512bw,avx512vl,avx2")]
+    fn fold32(a: __m512i, b: __m512i) -> __m512i {
+        _mm512_add_epi32(
+            _mm512_permutex2var_epi32(a, every_other_32(0), b),
+            _mm512_permutex2var_epi32(a, every_other_32(1), b),
+        )
+    }
+
+    /// Folds the first `k` registers of `r` pairwise (in order) with `fold` until `until`
+    /// are left.
+    #[inline]
+    #[target_feature(enable = "avx512f,avx512bw,avx512vl,avx2")]
+    fn fold_down(
+        r: &mut [__m512i; 16],
+        mut k: usize,
+        until: usize,
+        fold: impl Fn(__m512i, __m512i) -> __m512i,
+    ) {
+        while k > until {
+            for i in 0..k / 2 {
+                r[i] = fold(r[2 * i], r[2 * i + 1]);
+            }
+            k /= 2;
+        }
+    }
+
+    /// The low u32 of every u64 lane of `a` then of `b`: sixteen rows' scores in order.
+    #[inline]
+    #[target_feature(enable = "avx512f,avx512bw,avx512vl,avx2")]
+    fn low_halves(a: __m512i, b: __m512i) -> __m512i {
+        _mm512_permutex2var_epi32(a, every_other_32(0), b)
+    }
+
+    /// |a − b| per u8 lane.
+    #[inline]
+    #[target_feature(enable = "avx512f,avx512bw,avx512vl,avx2")]
+    fn absdiff(a: __m512i, b: __m512i) -> __m512i {
+        _mm512_sub_epi8(_mm512_max_epu8(a, b), _mm512_min_epu8(a, b))
+    }
+
+    /// One load's partial results per space, `S / 4` loads for sixteen rows.
+    #[inline]
+    #[target_feature(enable = "avx512f,avx512bw,avx512vl,avx2")]
+    fn loads<const S: usize>(c: &[u8], part: impl Fn(__m512i) -> __m512i) -> [__m512i; 16] {
+        let c = &c[..16 * S];
+        let mut r = [_mm512_setzero_si512(); 16];
+        for (k, v) in r.iter_mut().enumerate().take(S / 4) {
+            *v = part(load(&c[64 * k..]));
+        }
+        r
+    }
+
+    /// L1 of sixteen rows (`c` is `16 * S` bytes), as sixteen u32 in row order.
+    #[inline]
+    #[target_feature(enable = "avx512f,avx512bw,avx512vl,avx2")]
+    fn l1<const S: usize>(c: &[u8], q: __m512i) -> __m512i {
+        // u64 sums of 8 bytes: S / 8 per row.
+        let mut r = loads::<S>(c, |v| _mm512_sad_epu8(v, q));
+        fold_down(&mut r, S / 4, 2, |a, b| {
+            fold64(a, b, |x, y| _mm512_add_epi64(x, y))
+        });
+        low_halves(r[0], r[1])
+    }
+
+    /// L∞ of sixteen rows, as sixteen u32 in row order.
+    #[inline]
+    #[target_feature(enable = "avx512f,avx512bw,avx512vl,avx2")]
+    fn linf<const S: usize>(c: &[u8], q: __m512i) -> __m512i {
+        // Byte maxima folded across u64 lanes until each lane holds one row's 8 candidates.
+        let mut r = loads::<S>(c, |v| absdiff(v, q));
+        fold_down(&mut r, S / 4, 2, |a, b| {
+            fold64(a, b, |x, y| _mm512_max_epu8(x, y))
+        });
+        let [a, b] = [r[0], r[1]].map(|v| {
+            let v = _mm512_max_epu8(v, _mm512_srli_epi64::<32>(v));
+            let v = _mm512_max_epu8(v, _mm512_srli_epi64::<16>(v));
+            let v = _mm512_max_epu8(v, _mm512_srli_epi64::<8>(v));
+            _mm512_and_si512(v, _mm512_set1_epi64(0xff))
+        });
+        low_halves(a, b)
+    }
+
+    /// Even and odd bytes of `v` as u16 lanes.
+    #[inline]
+    #[target_feature(enable = "avx512f,avx512bw,avx512vl,avx2")]
+    fn split(v: __m512i) -> [__m512i; 2] {
+        [
+            _mm512_and_si512(v, _mm512_set1_epi16(0xff)),
+            _mm512_srli_epi16::<8>(v),
+        ]
+    }
+
+    /// Squared L2 of sixteen rows, as sixteen u32 in row order. Differences are taken in
+    /// i16 (|a − b| ≤ 255), so `vpmaddwd` squares and adds pairs exactly.
+    #[inline]
+    #[target_feature(enable = "avx512f,avx512bw,avx512vl,avx2")]
+    fn l2<const S: usize>(c: &[u8], q: &[__m512i; 2]) -> __m512i {
+        // i32 sums of 4 squared differences: S / 4 per row.
+        let mut r = loads::<S>(c, |v| {
+            let [even, odd] = split(v);
+            let de = _mm512_sub_epi16(even, q[0]);
+            let d_o = _mm512_sub_epi16(odd, q[1]);
+            _mm512_add_epi32(_mm512_madd_epi16(de, de), _mm512_madd_epi16(d_o, d_o))
+        });
+        fold_down(&mut r, S / 4, 1, |a, b| fold32(a, b));
+        r[0]
+    }
+
+    /// Scores rows of `S` bytes: sixteen at a time with AVX-512, the rest with the portable
+    /// loop.
+    #[target_feature(enable = "avx512f,avx512bw,avx512vl,avx2")]
+    pub(super) fn rows<const S: usize>(
+        coords: &[u8],
+        q: &[u8; 64],
+        space: Space,
+        out: &mut [u32],
+        hist: &mut [u32; HIST_BINS],
+    ) {
+        let full = out.len() / 16 * 16;
+        let (head, tail) = coords.split_at(full * S);
+        let (head_out, tail_out) = out.split_at_mut(full);
+        // The query repeated to fill a 64-byte load of rows.
+        let tiled: [u8; 64] = std::array::from_fn(|i| q[i % S]);
+        let qv = load(&tiled);
+        match space {
+            Space::L1 => blocks::<S, false>(head, head_out, |c| l1::<S>(c, qv), |b| count(hist, b)),
+            Space::L2 => {
+                let qs = split(qv);
+                blocks::<S, true>(head, head_out, |c| l2::<S>(c, &qs), |b| count(hist, b))
+            }
+            Space::Linf => {
+                let mut small = SmallCounts::new();
+                blocks::<S, false>(head, head_out, |c| linf::<S>(c, qv), |b| small.add(b));
+                small.into(hist);
+            }
+        }
+        portable::<S>(tail, q, space, tail_out, hist);
+    }
+
+    /// Runs `score` on each group of sixteen rows (`out.len()` a multiple of 16), stores the
+    /// scores, and calls `count` with each block's bins (clamped to the last bin with
+    /// `CLAMP`), as the AVX2 path's `blocks`.
+    #[inline]
+    #[target_feature(enable = "avx512f,avx512bw,avx512vl,avx2")]
+    fn blocks<const S: usize, const CLAMP: bool>(
+        coords: &[u8],
+        out: &mut [u32],
+        score: impl Fn(&[u8]) -> __m512i,
+        mut count: impl FnMut(&[u32]),
+    ) {
+        let last = _mm512_set1_epi32((HIST_BINS - 1) as i32);
+        let mut clamped = [0u32; BLOCK];
+        for (cb, ob) in coords.chunks(BLOCK * S).zip(out.chunks_mut(BLOCK)) {
+            let groups = cb.chunks_exact(16 * S).zip(ob.chunks_exact_mut(16));
+            for ((c, o), b) in groups.zip(clamped.chunks_exact_mut(16)) {
+                let v = score(c);
+                store(o.try_into().expect("16 scores"), v);
+                if CLAMP {
+                    store(b.try_into().expect("16 bins"), _mm512_min_epu32(v, last));
+                }
+            }
+            count(if CLAMP { &clamped[..ob.len()] } else { ob });
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use rand::{Rng, SeedableRng};
@@ -594,6 +893,19 @@ mod tests {
     type ScoreFn = fn(&[u8], usize, &[u8; 64], Space, &mut [u32], &mut [u32]);
 
     fn check(f: ScoreFn, coords: &[u8], stride: usize, q: &[u8; 64], space: Space, what: &str) {
+        check_with(&f, coords, stride, q, space, what)
+    }
+
+    type DynScore<'a> = &'a dyn Fn(&[u8], usize, &[u8; 64], Space, &mut [u32], &mut [u32]);
+
+    fn check_with(
+        f: DynScore<'_>,
+        coords: &[u8],
+        stride: usize,
+        q: &[u8; 64],
+        space: Space,
+        what: &str,
+    ) {
         let n = coords.len() / stride;
         let want = reference(coords, stride, q, space);
         let mut out = vec![u32::MAX; n];
@@ -609,19 +921,49 @@ mod tests {
         );
     }
 
+    /// Every level this CPU runs, each checked against the definitions (and so against the
+    /// portable form, which is checked the same way).
+    fn check_levels(coords: &[u8], stride: usize, q: &[u8; 64], space: Space) {
+        check(score_rows, coords, stride, q, space, "dispatched");
+        check(score_rows_portable, coords, stride, q, space, "portable");
+        for level in Level::ALL.into_iter().filter(|l| l.available()) {
+            let at = |c: &[u8], s, q: &[u8; 64], sp, o: &mut [u32], h: &mut [u32]| {
+                score_rows_at(level, c, s, q, sp, o, h)
+            };
+            check_with(&at, coords, stride, q, space, level.name());
+        }
+    }
+
     #[test]
     fn matches_the_definitions() {
         let mut rng = ChaCha8Rng::seed_from_u64(7);
         for stride in STRIDES {
             for dim in [stride, stride / 2 + 1, 1] {
-                for n in [0, 1, 7, 8, 9, 16, 23, 1001] {
+                // Row counts around the AVX2 group (8), the AVX-512 group (16) and the
+                // counting block (256), so that every partial register and block is met.
+                for n in [0, 1, 7, 8, 9, 15, 16, 17, 23, 31, 33, 255, 256, 257, 1001] {
                     let (coords, q) = data(&mut rng, n, stride, dim);
                     for space in SPACES {
-                        check(score_rows, &coords, stride, &q, space, "dispatched");
-                        check(score_rows_portable, &coords, stride, &q, space, "portable");
+                        check_levels(&coords, stride, &q, space);
                     }
                 }
             }
+        }
+    }
+
+    proptest::proptest! {
+        /// Any bytes, any row count: every level equals the definitions.
+        #[test]
+        fn every_level_matches_the_definitions_on_any_bytes(
+            stride_at in 0usize..4,
+            space_at in 0usize..3,
+            rows in proptest::collection::vec(proptest::num::u8::ANY, 0..40 * 64),
+            q in proptest::collection::vec(proptest::num::u8::ANY, 64),
+        ) {
+            let stride = STRIDES[stride_at];
+            let n = rows.len() / stride;
+            let q: [u8; 64] = q.try_into().expect("64 bytes");
+            check_levels(&rows[..n * stride], stride, &q, SPACES[space_at]);
         }
     }
 
@@ -640,10 +982,10 @@ mod tests {
                     coords.extend(row);
                 }
             }
-            let q = [0u8; 64];
-            for space in SPACES {
-                check(score_rows, &coords, stride, &q, space, "dispatched");
-                check(score_rows_portable, &coords, stride, &q, space, "portable");
+            for q in [[0u8; 64], [255u8; 64]] {
+                for space in SPACES {
+                    check_levels(&coords, stride, &q, space);
+                }
             }
         }
     }

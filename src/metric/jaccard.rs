@@ -17,6 +17,13 @@
 //! intersection is a merge of two sorted lists. `distance_within` first checks the bound
 //! the set sizes alone give (`|A ∩ B| ≤ min`, `|A ∪ B| ≥ max`), before sorting anything.
 //!
+//! q-grams of `q ≤ 4` of an ASCII item at least `q` long are all exactly `q` bytes, so each
+//! is packed into a `u32` (big-endian, which keeps equality and order; still no collisions):
+//! when both the query and the item are such, the sets are sorted `u32` lists, and the
+//! shared grams are counted from the sorted lists (with AVX-512, each item gram is compared
+//! with sixteen query grams at once). Any other pair takes the byte-string path; both give
+//! the same distance.
+//!
 //! ```
 //! use waymark::metric::{Jaccard, Metric, PreparedQuery, Tokens};
 //!
@@ -34,6 +41,7 @@ use bstr::ByteSlice;
 use serde::{Deserialize, Serialize};
 
 use super::{Metric, MetricError, MetricKind, PreparedQuery};
+use crate::cpu::Level;
 
 /// How items are cut into the elements of their sets.
 #[derive(Clone, Debug, PartialEq, Eq, Serialize, Deserialize)]
@@ -58,6 +66,10 @@ pub struct Jaccard {
 pub struct JaccardQuery {
     tokens: Tokens,
     set: Vec<Vec<u8>>,
+    /// The set as packed grams (sorted), when the query's grams can be packed.
+    packed: Option<Vec<u32>>,
+    /// The kernels that count shared packed grams.
+    level: Level,
 }
 
 impl Jaccard {
@@ -126,14 +138,58 @@ impl Metric for Jaccard {
     }
 
     fn prepare(&self, query: &[u8]) -> JaccardQuery {
+        self.prepare_with_level(query, Level::active())
+    }
+}
+
+impl Jaccard {
+    /// [`Metric::prepare`] for the kernels of `level` (lowered to what this CPU runs). Every
+    /// level gives the same distances; tests and benches use this to run each in one process.
+    pub fn prepare_with_level(&self, query: &[u8], level: Level) -> JaccardQuery {
+        let mut packed = Vec::new();
+        let packed = packed_grams(&self.tokens, query, &mut packed).then_some(packed);
         JaccardQuery {
             tokens: self.tokens.clone(),
             set: set_of(&self.tokens, query)
                 .into_iter()
                 .map(<[u8]>::to_vec)
                 .collect(),
+            packed,
+            level: level.clamped(),
         }
     }
+}
+
+/// The longest q-gram packed into a `u32`.
+const PACK_MAX: usize = 4;
+
+/// The sorted, de-duplicated set of `item`'s q-grams, each packed big-endian into a `u32`,
+/// into `out`; `false` (and `out` unspecified) when they cannot be packed: other tokens,
+/// `q > 4`, an item that is not ASCII or is shorter than `q`.
+fn packed_grams(tokens: &Tokens, item: &[u8], out: &mut Vec<u32>) -> bool {
+    let Tokens::QGrams(q) = *tokens else {
+        return false;
+    };
+    if !(1..=PACK_MAX).contains(&q) || item.len() < q || !item.is_ascii() {
+        return false;
+    }
+    out.clear();
+    // A rolling window: shift the next byte in, keep the low `8q` bits.
+    let keep = if q == 4 {
+        u32::MAX
+    } else {
+        (1u32 << (8 * q)) - 1
+    };
+    let mut w = item[..q - 1]
+        .iter()
+        .fold(0u32, |w, &b| (w << 8) | u32::from(b));
+    out.extend(item[q - 1..].iter().map(|&b| {
+        w = ((w << 8) | u32::from(b)) & keep;
+        w
+    }));
+    out.sort_unstable();
+    out.dedup();
+    true
 }
 
 impl JaccardQuery {
@@ -163,6 +219,17 @@ impl PreparedQuery for JaccardQuery {
         if bound.is_nan() || bound < 0.0 {
             return None;
         }
+        if let Some(packed) = &self.packed {
+            let mut grams = Vec::new();
+            if packed_grams(&self.tokens, item, &mut grams) {
+                let (a, b) = (packed.len(), grams.len());
+                if jaccard(a, b, a.min(b)) > bound {
+                    return None;
+                }
+                let d = jaccard(a, b, shared_at(self.level, packed, &grams));
+                return (d <= bound).then_some(d);
+            }
+        }
         let set = set_of(&self.tokens, item);
         let (a, b) = (self.set.len(), set.len());
         if jaccard(a, b, a.min(b)) > bound {
@@ -182,5 +249,178 @@ impl PreparedQuery for JaccardQuery {
         }
         let d = jaccard(a, b, shared);
         (d <= bound).then_some(d)
+    }
+}
+
+/// The number of values two sorted, de-duplicated lists share, with the kernels of `level`
+/// (already clamped to what the CPU runs).
+fn shared_at(level: Level, a: &[u32], b: &[u32]) -> usize {
+    #[cfg(target_arch = "x86_64")]
+    {
+        if level >= Level::Avx512 && a.len() <= simd::QUERY_MAX {
+            // SAFETY: the level was clamped to what the CPU reports, so it has AVX-512 F,
+            // the kernel's `target_feature`.
+            return unsafe { simd::shared_avx512(a, b) };
+        }
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    let _ = level;
+    shared_merge(a, b)
+}
+
+/// The plain sorted merge.
+fn shared_merge(a: &[u32], b: &[u32]) -> usize {
+    let (mut i, mut j, mut shared) = (0, 0, 0);
+    while i < a.len() && j < b.len() {
+        match a[i].cmp(&b[j]) {
+            std::cmp::Ordering::Less => i += 1,
+            std::cmp::Ordering::Greater => j += 1,
+            std::cmp::Ordering::Equal => {
+                shared += 1;
+                i += 1;
+                j += 1;
+            }
+        }
+    }
+    shared
+}
+
+#[cfg(target_arch = "x86_64")]
+mod simd {
+    use std::arch::x86_64::*;
+
+    /// The most query grams kept in registers (four of sixteen).
+    pub(super) const QUERY_MAX: usize = 64;
+
+    /// Shared values of `a` (at most [`QUERY_MAX`], distinct) and `b` (distinct): every
+    /// value of `b` is compared with all of `a` at once; the query grams hit are the bits
+    /// set in the union of the compare masks.
+    #[target_feature(enable = "avx512f")]
+    pub(super) fn shared_avx512(a: &[u32], b: &[u32]) -> usize {
+        debug_assert!(a.len() <= QUERY_MAX);
+        let mut regs = [_mm512_setzero_si512(); 4];
+        let mut valid = [0 as __mmask16; 4];
+        for (k, (r, v)) in regs.iter_mut().zip(&mut valid).enumerate() {
+            let len = a.len().saturating_sub(16 * k).min(16);
+            *v = ((1u32 << len) - 1) as __mmask16;
+            // SAFETY: the mask selects elements `16k .. 16k + len` of `a`, inside the slice;
+            // masked-off elements are not read and cannot fault (the pointer, made with
+            // `wrapping_add`, is not dereferenced for them).
+            *r = unsafe { _mm512_maskz_loadu_epi32(*v, a.as_ptr().wrapping_add(16 * k).cast()) };
+        }
+        let regs_used = a.len().div_ceil(16);
+        let mut hit = [0 as __mmask16; 4];
+        for &x in b {
+            let x = _mm512_set1_epi32(x as i32);
+            for k in 0..regs_used {
+                hit[k] |= _mm512_mask_cmpeq_epi32_mask(valid[k], regs[k], x);
+            }
+        }
+        hit.iter().map(|h| h.count_ones() as usize).sum()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use std::collections::HashSet;
+
+    use proptest::prelude::*;
+
+    use super::*;
+
+    /// The definition with the standard library's `HashSet` (char q-grams, the short-item
+    /// rule).
+    fn naive(q: usize, a: &str, b: &str) -> f64 {
+        let grams = |s: &str| -> HashSet<String> {
+            let c: Vec<char> = s.chars().collect();
+            if c.is_empty() {
+                HashSet::new()
+            } else if c.len() <= q {
+                HashSet::from([s.to_string()])
+            } else {
+                c.windows(q).map(|w| w.iter().collect()).collect()
+            }
+        };
+        let (x, y) = (grams(a), grams(b));
+        let union = x.union(&y).count();
+        if union == 0 {
+            0.0
+        } else {
+            1.0 - x.intersection(&y).count() as f64 / union as f64
+        }
+    }
+
+    /// Every level, and the byte-string path, give the definition's distance.
+    fn check(q: usize, a: &str, b: &str) {
+        let m = Jaccard::new(Tokens::QGrams(q)).unwrap();
+        let want = naive(q, a, b);
+        let mut bytes = m.prepare_with_level(a.as_bytes(), Level::Portable);
+        bytes.packed = None;
+        assert_eq!(
+            bytes.distance(b.as_bytes()),
+            want,
+            "bytes, q {q}: {a:?} {b:?}"
+        );
+        for level in Level::ALL.into_iter().filter(|l| l.available()) {
+            let p = m.prepare_with_level(a.as_bytes(), level);
+            let what = format!("{}, q {q}: {a:?} {b:?}", level.name());
+            assert_eq!(p.distance(b.as_bytes()), want, "{what}");
+            assert_eq!(p.distance_within(b.as_bytes(), want), Some(want), "{what}");
+            if want > 0.0 {
+                assert_eq!(p.distance_within(b.as_bytes(), want - 1e-9), None, "{what}");
+            }
+        }
+    }
+
+    #[test]
+    fn packs_grams_of_ascii_items_at_least_q_long() {
+        let mut v = Vec::new();
+        assert!(packed_grams(&Tokens::QGrams(2), b"abab", &mut v));
+        assert_eq!(v, [0x6162, 0x6261]);
+        assert!(packed_grams(&Tokens::QGrams(4), b"abcde", &mut v));
+        assert_eq!(v, [0x61626364, 0x62636465]);
+        assert!(!packed_grams(&Tokens::QGrams(3), b"ab", &mut v));
+        assert!(!packed_grams(&Tokens::QGrams(5), b"abcdef", &mut v));
+        assert!(!packed_grams(&Tokens::QGrams(2), "Skär".as_bytes(), &mut v));
+        assert!(!packed_grams(&Tokens::Whitespace, b"a b", &mut v));
+    }
+
+    #[test]
+    fn packed_and_byte_paths_agree_on_edge_cases() {
+        for q in 1..=5 {
+            for (a, b) in [
+                ("", ""),
+                ("", "ab"),
+                ("ab", "ab"),
+                ("abc", "abcd"),
+                ("a\0\0", "a"),
+                ("Skär", "Skar"),
+                ("harbour", "harbor"),
+                (
+                    "ACGTACGTACGTACGTACGTACGTACGTACGTACGTACGTACGTACGTACGTACGTACGTACGTACGTAC",
+                    "ACGT",
+                ),
+            ] {
+                check(q, a, b);
+                check(q, b, a);
+            }
+        }
+    }
+
+    proptest! {
+        #[test]
+        fn every_level_matches_the_definition(
+            q in 1usize..=5,
+            a in "[ab\0c]{0,40}",
+            b in "[abcé]{0,40}",
+        ) {
+            check(q, &a, &b);
+            check(q, &b, &a);
+        }
+
+        #[test]
+        fn long_queries_past_the_registers(q in 1usize..=4, a in "[a-z]{60,120}", b in "[a-z]{0,120}") {
+            check(q, &a, &b);
+        }
     }
 }
