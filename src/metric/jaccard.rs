@@ -195,7 +195,9 @@ impl Jaccard {
     /// (`h`: the standard library's `DefaultHasher` with its fixed keys).
     pub fn sketch(&self, item: &[u8], out: &mut [f64]) {
         let set = set_of(&self.tokens, item);
-        let sig = set.iter().fold(0u64, |m, t| m | 1u64 << (token_hash(t) % 64));
+        let sig = set
+            .iter()
+            .fold(0u64, |m, t| m | 1u64 << (token_hash(t) % 64));
         out[0] = set.len() as f64;
         out[1] = f64::from(sig as u32);
         out[2] = f64::from((sig >> 32) as u32);

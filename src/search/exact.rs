@@ -190,7 +190,7 @@ impl Searcher<'_> {
             .collect()
     }
 
-    /// Every key's sketch, [`AnyMetric::sketch_width`] numbers each (empty when the metric
+    /// Every key's sketch, [`crate::metric::AnyMetric::sketch_width`] numbers each (empty when the metric
     /// has none), made on the first exact query.
     fn sketches(&self) -> &[f64] {
         self.sketches.get_or_init(|| {

@@ -13,8 +13,7 @@ use waymark::eval::brute_force;
 use waymark::index::{BuildOptions, Index};
 use waymark::ingest::Corpus;
 use waymark::metric::{
-    vector_bytes, AnyMetric, CostTable, LevenshteinQuery, Metric, MetricSpec, Norm,
-    Tokens,
+    vector_bytes, AnyMetric, CostTable, LevenshteinQuery, Metric, MetricSpec, Norm, Tokens,
 };
 use waymark::search::{Neighbor, Searcher};
 
@@ -238,7 +237,12 @@ fn build(c: &Corpus, metric: MetricSpec, dim: usize, dir: &tempfile::TempDir) ->
 fn vector_corpus(rows: &[Vec<f32>]) -> Corpus {
     let items: Vec<String> = rows
         .iter()
-        .map(|r| r.iter().map(|v| v.to_string()).collect::<Vec<_>>().join(","))
+        .map(|r| {
+            r.iter()
+                .map(|v| v.to_string())
+                .collect::<Vec<_>>()
+                .join(",")
+        })
         .collect();
     let keys = rows.iter().map(|r| vector_bytes(r)).collect();
     Corpus {
@@ -254,7 +258,11 @@ fn check_against_brute_force(idx: &Index, queries: &[String], k: usize, r: f64) 
     let n = idx.len();
     for q in queries {
         let got = s.search_exact(q, k, &mut Default::default()).unwrap();
-        assert_eq!(got.neighbors, brute_force(idx, q, k).unwrap(), "{q:?} k {k}");
+        assert_eq!(
+            got.neighbors,
+            brute_force(idx, q, k).unwrap(),
+            "{q:?} k {k}"
+        );
         let all = brute_force(idx, q, n).unwrap();
         let want: Vec<Neighbor> = all.into_iter().filter(|x| x.distance <= r).collect();
         let got = s
@@ -264,7 +272,11 @@ fn check_against_brute_force(idx: &Index, queries: &[String], k: usize, r: f64) 
         let top = s
             .search_within(q, r, Some(k), &mut Default::default())
             .unwrap();
-        assert_eq!(top.neighbors[..], want[..want.len().min(k)], "{q:?} within {r} -k {k}");
+        assert_eq!(
+            top.neighbors[..],
+            want[..want.len().min(k)],
+            "{q:?} within {r} -k {k}"
+        );
     }
 }
 
@@ -361,7 +373,9 @@ fn invented_names(n: usize) -> Vec<String> {
     const ONSETS: [&str; 10] = ["", "b", "d", "k", "th", "sk", "br", "hv", "st", "m"];
     const VOWELS: [&str; 7] = ["a", "e", "i", "o", "ø", "å", "ei"];
     const CODAS: [&str; 6] = ["", "n", "r", "ll", "sk", "nd"];
-    const KINDS: [&str; 8] = ["Quay", "Row", "Steps", "Strand", "Reach", "Landing", "Wynd", "Brae"];
+    const KINDS: [&str; 8] = [
+        "Quay", "Row", "Steps", "Strand", "Reach", "Landing", "Wynd", "Brae",
+    ];
     let mut seed = 1729u64;
     let mut next = |m: usize| {
         seed = seed
