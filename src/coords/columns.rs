@@ -17,8 +17,9 @@
 //! bench --bench big`).
 //!
 //! Hand-written: no crate offers a thresholded column-blocked L∞ kernel over u8 columns.
-//! The AVX2 form is chosen at run time; the portable form gives identical results, which
-//! the tests check.
+//! The AVX2 form (one block per register) and the AVX-512 form (two blocks per register)
+//! are chosen at run time through [`crate::cpu::Level`]; the portable form gives identical
+//! results, which the tests check at every level the CPU has.
 
 use rayon::prelude::*;
 
