@@ -27,6 +27,9 @@ const BLOCK: usize = 1024;
 /// The UTF-8 byte-order mark, dropped from the start of a queries file or stdin.
 const BOM: &[u8] = b"\xEF\xBB\xBF";
 
+/// Smallest index for which [`wide_note`] is printed: below it a full scan is cheap anyway.
+const NOTE_MIN_ITEMS: usize = 1000;
+
 /// Size of the read buffer (a pipe gives at most its own size, 64 KiB on Linux, per read).
 const READ_BUFFER: usize = 256 * 1024;
 
@@ -70,6 +73,7 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
     let t0 = Instant::now();
     let (mut answered, mut distances, mut exact_hits, mut refused) = (0usize, 0, 0, 0);
     let mut end = false;
+    let mut noted = false;
     while !end {
         // Lines of this block: the good ones' texts go to the searcher together.
         let mut entries: Vec<Entry> = Vec::new();
@@ -90,11 +94,19 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
                 Err((text, e)) => entries.push(Entry::Bad(line, name, text, e)),
             }
         }
-        let mut answers = match fraction {
+        let answers = match fraction {
             Some(f) => lookup_within(&searcher, &texts, f, a.k),
             None => searcher.answer_many(&texts, &request),
         }
         .into_iter();
+        let answers: Vec<_> = answers.collect();
+        if !noted {
+            if let Some(note) = wide_note(&index, &a, &answers) {
+                eprintln!("{note}");
+                noted = true;
+            }
+        }
+        let mut answers = answers.into_iter();
         let mut texts = texts.into_iter();
         for entry in entries {
             let (line, name, query, result) = match entry {
@@ -150,6 +162,44 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
         );
     }
     Ok(())
+}
+
+/// The note printed once per process when exact or range answers measure more than half of
+/// the items per query (a block's mean, from the certificates): the lower bounds cannot
+/// narrow such a request, and a full scan would cost the same. `None` below that, for
+/// approximate answers, and for indexes of fewer than [`NOTE_MIN_ITEMS`] items.
+fn wide_note(
+    index: &Index,
+    a: &QueryArgs,
+    answers: &[crate::error::Result<crate::search::Found>],
+) -> Option<String> {
+    let n = index.len();
+    if n < NOTE_MIN_ITEMS {
+        return None;
+    }
+    let computed: Vec<usize> = answers
+        .iter()
+        .filter_map(|r| r.as_ref().ok())
+        .filter_map(|f| f.certificate.map(|c| c.computed))
+        .collect();
+    if computed.is_empty() {
+        return None;
+    }
+    let share = computed.iter().sum::<usize>() as f64 / computed.len() as f64 / n as f64;
+    if share <= 0.5 {
+        return None;
+    }
+    let what = match (a.within, a.within_fraction) {
+        (Some(r), _) => format!("--within {r}"),
+        (None, Some(f)) => format!("--within-fraction {f}"),
+        (None, None) => format!("--exact -k {}", a.k.unwrap_or(10)),
+    };
+    Some(format!(
+        "waymark: note: {what} measures {:.0}% of the items per query under {}: the bounds \
+         cannot narrow it; a full scan costs the same",
+        100.0 * share,
+        index.meta().metric.name()
+    ))
 }
 
 /// One line of a block: a query handed to the searcher (its line and record name), or one

@@ -17,8 +17,9 @@
 //! bench --bench big`).
 //!
 //! Hand-written: no crate offers a thresholded column-blocked L∞ kernel over u8 columns.
-//! The AVX2 form is chosen at run time; the portable form gives identical results, which
-//! the tests check.
+//! The AVX2 form (one block per register) and the AVX-512 form (two blocks per register)
+//! are chosen at run time through [`crate::cpu::Level`]; the portable form gives identical
+//! results, which the tests check at every level the CPU has.
 
 use rayon::prelude::*;
 
@@ -285,6 +286,20 @@ impl Columns {
         &self,
         qs: &[Threshold<'_>],
         blocks: std::ops::Range<usize>,
+        found: impl FnMut(usize, u32, u8),
+    ) {
+        self.within_many_at(crate::cpu::Level::active(), qs, blocks, found);
+    }
+
+    /// [`Columns::within_many_in`] with the kernel of `level` (lowered to what the CPU
+    /// runs), whatever `WAYMARK_SIMD` says: the levels give identical results, which tests
+    /// compare in one process. AVX-512 compares two blocks per 64-byte register, AVX2 one
+    /// block per 32-byte register.
+    pub fn within_many_at(
+        &self,
+        level: crate::cpu::Level,
+        qs: &[Threshold<'_>],
+        blocks: std::ops::Range<usize>,
         mut found: impl FnMut(usize, u32, u8),
     ) {
         for t in qs {
@@ -292,11 +307,22 @@ impl Columns {
         }
         let blocks = blocks.start.min(self.blocks)..blocks.end.min(self.blocks);
         #[cfg(target_arch = "x86_64")]
-        if crate::cpu::has_avx2_popcnt() {
-            // SAFETY: the CPU has AVX2 and popcnt, the features the function needs.
-            unsafe { avx2::within_many(self, qs, blocks, &mut found) };
-            return;
+        match level.clamped() {
+            crate::cpu::Level::Avx512 => {
+                // SAFETY: the CPU has AVX-512 F, BW and VL (the level is clamped to what
+                // it runs), and AVX2 and popcnt with them.
+                unsafe { avx512::within_many(self, qs, blocks, &mut found) };
+                return;
+            }
+            crate::cpu::Level::Avx2 => {
+                // SAFETY: the CPU has AVX2 and popcnt, the features the function needs.
+                unsafe { avx2::within_many(self, qs, blocks, &mut found) };
+                return;
+            }
+            crate::cpu::Level::Portable => {}
         }
+        #[cfg(not(target_arch = "x86_64"))]
+        let _ = level;
         self.portable_in(qs, blocks, &mut found);
     }
 
@@ -495,6 +521,128 @@ mod avx2 {
     }
 }
 
+#[cfg(target_arch = "x86_64")]
+mod avx512 {
+    use super::{Columns, Threshold, BLOCK, GROUP, TILE};
+    use std::arch::x86_64::*;
+
+    #[target_feature(enable = "avx2,popcnt,avx512f,avx512bw,avx512vl")]
+    pub(super) fn within_many(
+        c: &Columns,
+        qs: &[Threshold<'_>],
+        range: std::ops::Range<usize>,
+        found: &mut impl FnMut(usize, u32, u8),
+    ) {
+        // Each query's values per group, padded with zeros like the stored columns.
+        let prepared: Vec<Vec<[__m512i; GROUP]>> = qs
+            .iter()
+            .map(|t| {
+                (0..c.groups)
+                    .map(|g| {
+                        std::array::from_fn(|j| {
+                            _mm512_set1_epi8(t.q.get(g * GROUP + j).copied().unwrap_or(0) as i8)
+                        })
+                    })
+                    .collect()
+            })
+            .collect();
+        let mut at = range.start;
+        while at < range.end {
+            let end = (at + TILE).min(range.end);
+            for (j, (t, qv)) in qs.iter().zip(&prepared).enumerate() {
+                blocks(c, qv, t, at..end, &mut |i, b| found(j, i, b));
+            }
+            at = end;
+        }
+    }
+
+    /// Column `j` of blocks `b` (low half) and `b + 1` (high half) of one group.
+    #[inline]
+    #[target_feature(enable = "avx2,avx512f")]
+    fn load_pair(lo: &[u8], hi: &[u8], j: usize) -> __m512i {
+        let (a, b) = (
+            &lo[j * BLOCK..(j + 1) * BLOCK],
+            &hi[j * BLOCK..(j + 1) * BLOCK],
+        );
+        // SAFETY: `a` and `b` are exactly 32 bytes each; the loads are unaligned.
+        let (a, b) = unsafe {
+            (
+                _mm256_loadu_si256(a.as_ptr() as *const __m256i),
+                _mm256_loadu_si256(b.as_ptr() as *const __m256i),
+            )
+        };
+        _mm512_inserti64x4::<1>(_mm512_castsi256_si512(a), b)
+    }
+
+    /// The blocks of `range` two at a time: the same bounds as the AVX2 kernel, in 64
+    /// lanes. A last block without a partner is loaded twice and its copy's lanes ignored.
+    #[inline]
+    #[target_feature(enable = "avx2,popcnt,avx512f,avx512bw,avx512vl")]
+    fn blocks(
+        c: &Columns,
+        qs: &[[__m512i; GROUP]],
+        t: &Threshold<'_>,
+        range: std::ops::Range<usize>,
+        found: &mut impl FnMut(u32, u8),
+    ) {
+        let hi = _mm512_set1_epi8(t.hi as i8);
+        // With `hi` = 255 no lane is ever above it.
+        let bounded = t.hi < u8::MAX;
+        let mut b = range.start;
+        while b < range.end {
+            let pair = b + 1 < range.end;
+            let ignore: u64 = if pair { 0 } else { u64::MAX << 32 };
+            let mut acc = _mm512_setzero_si512();
+            let (mut up, mut down) = (acc, acc);
+            for (g, qg) in qs.iter().enumerate() {
+                let lo_chunk = c.chunk(g, b);
+                let hi_chunk = if pair { c.chunk(g, b + 1) } else { lo_chunk };
+                if g < c.count_groups {
+                    for (j, qv) in qg.iter().enumerate() {
+                        let v = load_pair(lo_chunk, hi_chunk, j);
+                        up = _mm512_adds_epu8(up, _mm512_subs_epu8(v, *qv));
+                        down = _mm512_adds_epu8(down, _mm512_subs_epu8(*qv, v));
+                    }
+                    acc = _mm512_max_epu8(up, down);
+                } else {
+                    for (j, qv) in qg.iter().enumerate() {
+                        let v = load_pair(lo_chunk, hi_chunk, j);
+                        let d = _mm512_or_si512(_mm512_subs_epu8(v, *qv), _mm512_subs_epu8(*qv, v));
+                        acc = _mm512_max_epu8(acc, d);
+                    }
+                }
+                if bounded && _mm512_cmpgt_epu8_mask(acc, hi) | ignore == u64::MAX {
+                    break;
+                }
+            }
+            let mut out = [0u8; 2 * BLOCK];
+            // SAFETY: `out` is 64 bytes; the store is unaligned.
+            unsafe { _mm512_storeu_si512(out.as_mut_ptr() as *mut __m512i, acc) };
+            // Lanes at most `hi`.
+            let lanes = if bounded {
+                !_mm512_cmpgt_epu8_mask(acc, hi)
+            } else {
+                u64::MAX
+            };
+            let (first, second) = out.split_at(BLOCK);
+            if lanes as u32 != 0 {
+                c.report(
+                    b,
+                    first.try_into().expect("32 bytes"),
+                    lanes as u32,
+                    t,
+                    found,
+                );
+            }
+            if pair && (lanes >> 32) as u32 != 0 {
+                let lanes = (lanes >> 32) as u32;
+                c.report(b + 1, second.try_into().expect("32 bytes"), lanes, t, found);
+            }
+            b += 2;
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -658,6 +806,75 @@ mod tests {
                 assert_eq!(two[1], expect);
                 assert_eq!(a, expect, "n {n} dim {dim} lo {lo:?} hi {hi}");
                 assert_eq!(p, expect);
+            }
+        }
+    }
+
+    #[test]
+    fn every_level_finds_what_the_portable_form_finds() {
+        use crate::cpu::Level;
+        let mut next = lcg(4242);
+        // Odd and even numbers of blocks (the AVX-512 kernel takes two at a time), with and
+        // without counts and signatures, thresholds up to 255 (no early exit).
+        for (n, stride, dim, with_counts) in [
+            (1, 8, 3, false),
+            (33, 8, 8, true),
+            (95, 16, 13, true),
+            (700, 64, 64, true),
+            (1000, 8, 6, false),
+            (64 * 9, 32, 20, true),
+        ] {
+            let coords: Vec<u8> = (0..n * stride).map(|_| next() % 9).collect();
+            let counts: Vec<[u8; BINS]> = (0..n)
+                .map(|_| std::array::from_fn(|_| next() % 4))
+                .collect();
+            let sigs: Vec<u64> = (0..n as u64)
+                .map(|i| i.wrapping_mul(0x9E37_79B9_7F4A_7C15))
+                .collect();
+            let cols = Columns::build(Parts {
+                coords: &coords,
+                stride,
+                dim,
+                counts: with_counts.then_some(&counts[..]),
+                sigs: with_counts.then(|| sigs.clone()),
+            });
+            let q: Vec<u8> = (0..cols.cols()).map(|_| next() % 9).collect();
+            let other: Vec<u8> = q.iter().map(|&v| v.saturating_add(2)).collect();
+            for (lo, hi) in [
+                (None, 0u8),
+                (None, 3),
+                (Some(1), 5),
+                (None, 255),
+                (Some(4), 254),
+            ] {
+                let ts = [
+                    Threshold {
+                        q: &q,
+                        lo,
+                        hi,
+                        sig: 0x0F0F_00FF_1234_5678,
+                    },
+                    Threshold {
+                        q: &other,
+                        lo: None,
+                        hi: 2,
+                        sig: 0,
+                    },
+                ];
+                let blocks = cols.blocks();
+                for range in [0..blocks, 1..blocks, 0..blocks.saturating_sub(1), 3..7] {
+                    let mut want = Vec::new();
+                    cols.within_many_at(Level::Portable, &ts, range.clone(), |j, i, b| {
+                        want.push((j, i, b))
+                    });
+                    for level in Level::ALL.into_iter().filter(|l| l.available()) {
+                        let mut got = Vec::new();
+                        cols.within_many_at(level, &ts, range.clone(), |j, i, b| {
+                            got.push((j, i, b))
+                        });
+                        assert_eq!(got, want, "{level:?} n {n} lo {lo:?} hi {hi} {range:?}");
+                    }
+                }
             }
         }
     }

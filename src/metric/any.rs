@@ -247,6 +247,61 @@ impl AnyMetric {
     }
 }
 
+/// Cheap lower bounds from a few numbers per item, its *sketch*: exact and range queries
+/// compare the query's sketch with each item's before measuring the item.
+impl AnyMetric {
+    /// Numbers per item of [`AnyMetric::sketch`]; 0 when the metric has no bound of this
+    /// kind (Levenshtein, Damerau and Hamming are bounded by char counts instead,
+    /// [`Metric::bounded_by_char_counts`]; a graph, a program or a metric of your own by
+    /// nothing but the stored coordinates).
+    pub fn sketch_width(&self) -> usize {
+        match self {
+            AnyMetric::WeightedEdit(_) => super::weighted::WEIGHTED_SKETCH,
+            AnyMetric::Jaccard(_) => super::jaccard::JACCARD_SKETCH,
+            AnyMetric::TokenEdit(_) => 1,
+            AnyMetric::Vector(m) => m.sketch_width(),
+            _ => 0,
+        }
+    }
+
+    /// Writes the sketch of `item` to `out` ([`AnyMetric::sketch_width`] numbers).
+    ///
+    /// ```
+    /// use waymark::metric::{Metric, MetricSpec, PreparedQuery, Tokens};
+    ///
+    /// let m = MetricSpec::Jaccard { tokens: Tokens::Whitespace }.open(None)?;
+    /// let (a, b) = (b"north ferry quay", b"south ferry");
+    /// let mut sa = vec![0.0; m.sketch_width()];
+    /// let mut sb = sa.clone();
+    /// m.sketch(a, &mut sa);
+    /// m.sketch(b, &mut sb);
+    /// assert!(m.sketch_bound(&sa, &sb) <= m.distance(a, b));
+    /// # Ok::<(), waymark::metric::MetricError>(())
+    /// ```
+    pub fn sketch(&self, item: &[u8], out: &mut [f64]) {
+        match self {
+            AnyMetric::WeightedEdit(_) => WeightedEdit::sketch(item, out),
+            AnyMetric::Jaccard(m) => m.sketch(item, out),
+            AnyMetric::TokenEdit(_) => TokenEdit::sketch(item, out),
+            AnyMetric::Vector(m) => m.sketch(item, out),
+            _ => {}
+        }
+    }
+
+    /// A lower bound of the distance between two items from their sketches (0 for a
+    /// metric without them). Each metric's file proves its bound.
+    #[inline]
+    pub fn sketch_bound(&self, a: &[f64], b: &[f64]) -> f64 {
+        match self {
+            AnyMetric::WeightedEdit(m) => m.sketch_bound(a, b),
+            AnyMetric::Jaccard(_) => Jaccard::sketch_bound(a, b),
+            AnyMetric::TokenEdit(_) => TokenEdit::sketch_bound(a, b),
+            AnyMetric::Vector(m) => m.sketch_bound(a, b),
+            _ => 0.0,
+        }
+    }
+}
+
 macro_rules! each_metric {
     ($value:expr, $name:ident => $body:expr) => {
         match $value {

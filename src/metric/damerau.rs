@@ -227,6 +227,13 @@ impl Metric for Damerau {
         MetricKind::Damerau
     }
 
+    /// True: an insertion, deletion or substitution changes each one-sided char-count sum
+    /// (and each side of the signature gap) by at most one, and a transposition changes no
+    /// count; the distance is the fewest such edits (the module documentation).
+    fn bounded_by_char_counts(&self) -> bool {
+        true
+    }
+
     fn prepare(&self, query: &[u8]) -> DamerauQuery {
         DamerauQuery::new(query)
     }

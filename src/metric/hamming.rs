@@ -171,6 +171,13 @@ impl Metric for Hamming {
         MetricKind::Hamming
     }
 
+    /// True: the distance is at least the Levenshtein distance (each differing position
+    /// is one substitution, each position past the shorter string one deletion), which is
+    /// at least the char-count and signature gaps.
+    fn bounded_by_char_counts(&self) -> bool {
+        true
+    }
+
     fn prepare(&self, query: &[u8]) -> HammingQuery {
         HammingQuery::new(query)
     }

@@ -252,6 +252,52 @@ impl PreparedQuery for JaccardQuery {
     }
 }
 
+/// Numbers per item of [`Jaccard::sketch`]: the set size and a 64-bit signature of its
+/// elements, in two halves (each a whole number below 2³², exact in an `f64`).
+pub const JACCARD_SKETCH: usize = 3;
+
+impl Jaccard {
+    /// The sketch of `item` for [`Jaccard::sketch_bound`]: `[|A|, low, high]`, where bit
+    /// `h(t) mod 64` of the signature `high·2³² + low` is set for every element `t` of `A`
+    /// (`h`: the standard library's `DefaultHasher` with its fixed keys).
+    pub fn sketch(&self, item: &[u8], out: &mut [f64]) {
+        let set = set_of(&self.tokens, item);
+        let sig = set
+            .iter()
+            .fold(0u64, |m, t| m | 1u64 << (token_hash(t) % 64));
+        out[0] = set.len() as f64;
+        out[1] = f64::from(sig as u32);
+        out[2] = f64::from((sig >> 32) as u32);
+    }
+
+    /// A lower bound of the distance of two items from their [`Jaccard::sketch`]es.
+    ///
+    /// Proof: a bit set in `A`'s signature and not in `B`'s comes from an element of `A`
+    /// not in `B`, and distinct bits from distinct elements, so `|A ∖ B| ≥ popcount(a & !b)`
+    /// and `|A ∩ B| ≤ s = min(|A| − popcount(a & !b), |B| − popcount(b & !a))`; the distance
+    /// `1 − i / (|A| + |B| − i)` falls as `i` grows, so it is at least its value at `s`
+    /// (with only the sizes, `s = min(|A|, |B|)`: `1 − min/max`). The same float formula
+    /// as the distance, monotone in `i`, keeps the bound below the computed distance.
+    pub fn sketch_bound(a: &[f64], b: &[f64]) -> f64 {
+        let (na, nb) = (a[0] as usize, b[0] as usize);
+        let sig = |s: &[f64]| (s[1] as u64) | ((s[2] as u64) << 32);
+        let (sa, sb) = (sig(a), sig(b));
+        let only_a = (sa & !sb).count_ones() as usize;
+        let only_b = (sb & !sa).count_ones() as usize;
+        let shared = na.saturating_sub(only_a).min(nb.saturating_sub(only_b));
+        jaccard(na, nb, shared)
+    }
+}
+
+/// The hash of one set element for [`Jaccard::sketch`] (the same in every process of one
+/// build of waymark; sketches are never stored).
+fn token_hash(t: &[u8]) -> u64 {
+    use std::hash::{Hash, Hasher};
+    let mut h = std::hash::DefaultHasher::new();
+    t.hash(&mut h);
+    h.finish()
+}
+
 /// The number of values two sorted, de-duplicated lists share, with the kernels of `level`
 /// (already clamped to what the CPU runs).
 fn shared_at(level: Level, a: &[u32], b: &[u32]) -> usize {

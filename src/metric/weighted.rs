@@ -560,13 +560,17 @@ fn build(
 #[derive(Clone, Debug, PartialEq)]
 pub struct WeightedEdit {
     costs: std::sync::Arc<CostTable>,
+    /// [`WeightedEdit::smallest_costs`], found once.
+    smallest: (f64, f64),
 }
 
 impl WeightedEdit {
     /// The metric of a checked cost table.
     pub fn new(costs: CostTable) -> Self {
+        let smallest = smallest_costs(&costs);
         WeightedEdit {
             costs: std::sync::Arc::new(costs),
+            smallest,
         }
     }
 
@@ -662,4 +666,80 @@ impl PreparedQuery for WeightedQuery {
         }
         self.run(item, bound)
     }
+}
+
+/// Numbers per item of [`WeightedEdit::sketch`]: the length in chars, 16 char counts and a
+/// char signature in two halves.
+pub const WEIGHTED_SKETCH: usize = 1 + COUNT_BINS + 2;
+
+/// Bins of the char counts in [`WeightedEdit::sketch`].
+const COUNT_BINS: usize = 16;
+
+impl WeightedEdit {
+    /// The smallest insert (= delete) cost and the smallest cost of substituting one
+    /// symbol by a different one (of any rule, the defaults included).
+    pub fn smallest_costs(&self) -> (f64, f64) {
+        self.smallest
+    }
+
+    /// The sketch of `item` for [`WeightedEdit::sketch_bound`]: its length in chars, how
+    /// many of its chars fall in each of 16 bins (ASCII `c` in bin `c mod 15`, every other
+    /// char in bin 15), and its char signature ([`super::LevenshteinQuery::signature`]) in
+    /// two halves.
+    pub fn sketch(item: &[u8], out: &mut [f64]) {
+        let mut counts = [0u64; COUNT_BINS];
+        let mut len = 0u64;
+        for c in item.chars() {
+            let bin = if c.is_ascii() { c as usize % 15 } else { 15 };
+            counts[bin] += 1;
+            len += 1;
+        }
+        out[0] = len as f64;
+        for (o, &n) in out[1..=COUNT_BINS].iter_mut().zip(&counts) {
+            *o = n as f64;
+        }
+        let sig = super::LevenshteinQuery::signature(item);
+        out[COUNT_BINS + 1] = f64::from(sig as u32);
+        out[COUNT_BINS + 2] = f64::from((sig >> 32) as u32);
+    }
+
+    /// A lower bound of the distance of two items from their [`WeightedEdit::sketch`]es:
+    /// with `L` the difference of lengths and `G` the larger of the char-count gap
+    /// (`max(Σ(A−B)⁺, Σ(B−A)⁺)` over the bins) and the signature gap,
+    /// `L·indel + (G − L)·min(indel, sub)` with the smallest costs
+    /// ([`WeightedEdit::smallest_costs`]).
+    ///
+    /// Proof: an optimal alignment makes `i` insertions or deletions and `s` substitutions
+    /// of different symbols; `i ≥ L` (each changes the length by one) and `i + s ≥ G` (each
+    /// edit changes each one-sided count sum, and each side of the signature gap, by at
+    /// most one), so its cost `i·indel + s·sub` is at least the bound. Shrunk by the
+    /// rounding of a sum of at most `|a| + |b|` costs.
+    pub fn sketch_bound(&self, a: &[f64], b: &[f64]) -> f64 {
+        let (indel, sub) = self.smallest_costs();
+        let len_gap = (a[0] - b[0]).abs();
+        let (mut up, mut down) = (0.0, 0.0);
+        for (x, y) in a[1..=COUNT_BINS].iter().zip(&b[1..=COUNT_BINS]) {
+            up += (x - y).max(0.0);
+            down += (y - x).max(0.0);
+        }
+        let sig = |s: &[f64]| (s[COUNT_BINS + 1] as u64) | ((s[COUNT_BINS + 2] as u64) << 32);
+        let sig_gap = f64::from(super::LevenshteinQuery::signature_gap(sig(a), sig(b)));
+        let g = f64::max(up, down).max(sig_gap);
+        let bound = len_gap * indel + (g - len_gap).max(0.0) * indel.min(sub);
+        let terms = a[0] + b[0] + 2.0;
+        (bound * (1.0 - terms * f64::EPSILON)).max(0.0)
+    }
+}
+
+/// [`WeightedEdit::smallest_costs`] of a table.
+fn smallest_costs(t: &CostTable) -> (f64, f64) {
+    let w = t.symbols.len() + 1;
+    let indel = t.indel.iter().copied().fold(f64::INFINITY, f64::min);
+    // Entry (i, i) of a named symbol is a symbol against itself, never a substitution;
+    // (k, k) is two different symbols without a rule.
+    let sub = (0..w * w)
+        .filter(|&e| e / w != e % w || e / w == w - 1)
+        .map(|e| t.sub[e])
+        .fold(f64::INFINITY, f64::min);
+    (indel, sub)
 }

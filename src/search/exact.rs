@@ -13,6 +13,13 @@
 //! For metrics bounded by char counts ([`crate::metric::Metric::bounded_by_char_counts`],
 //! Levenshtein) the columns start with each key's char counts, and each item's bound is
 //! raised to its char-signature gap.
+//!
+//! Metrics with a sketch ([`crate::metric::AnyMetric::sketch`]: set sizes and signatures
+//! for Jaccard, word counts for token-edit, lengths, char counts and signatures times the
+//! smallest costs for weighted edits, per-part norms for vectors) have every key's sketch
+//! made with the columns; during the visit each item's bound is raised to the sketch bound
+//! against the query's, and an item whose bound then exceeds the k-th distance or the
+//! radius is not measured.
 
 use rayon::prelude::*;
 
@@ -58,6 +65,8 @@ struct ExactRun<'q> {
     group: usize,
     /// The query's char signature, when items are checked against theirs one by one.
     qsig: Option<u64>,
+    /// The query's sketch (empty: the metric has none).
+    qsketch: Vec<f64>,
 }
 
 impl ExactRun<'_> {
@@ -181,6 +190,24 @@ impl Searcher<'_> {
             .collect()
     }
 
+    /// Every key's sketch, [`crate::metric::AnyMetric::sketch_width`] numbers each (empty when the metric
+    /// has none), made on the first exact query.
+    fn sketches(&self) -> &[f64] {
+        self.sketches.get_or_init(|| {
+            let Ok(m) = self.index.metric() else {
+                return Vec::new();
+            };
+            let w = m.sketch_width();
+            let mut all = vec![0.0; self.index.len() * w];
+            if w > 0 {
+                all.par_chunks_mut(w)
+                    .enumerate()
+                    .for_each(|(i, out)| m.sketch(self.keys.get(i), out));
+            }
+            all
+        })
+    }
+
     /// Whether the index's metric is bounded by char counts and signatures
     /// ([`Metric::bounded_by_char_counts`]).
     fn char_bounded(&self) -> bool {
@@ -246,6 +273,11 @@ impl Searcher<'_> {
         // otherwise it is applied item by item.
         let qsig =
             (self.char_bounded() && bins.is_none()).then(|| LevenshteinQuery::signature(&pq.key));
+        let mut qsketch = Vec::new();
+        if let Ok(m) = self.index.metric() {
+            qsketch.resize(m.sketch_width(), 0.0);
+            m.sketch(&pq.key, &mut qsketch);
+        }
         ExactRun {
             q: &pq.q,
             qv,
@@ -269,6 +301,7 @@ impl Searcher<'_> {
             lane_out: Vec::new(),
             group: pq.q.group_size().min(LANE_GROUP),
             qsig,
+            qsketch,
         }
     }
 
@@ -282,6 +315,7 @@ impl Searcher<'_> {
     /// found so far allows (or two more when fewer than k are held).
     fn run_exact(&self, runs: &mut [ExactRun<'_>]) -> Vec<Found> {
         let (cols, _) = self.columns();
+        let sketches = self.sketches();
         // Signatures checked item by item: metrics bounded by char counts whose columns
         // lack them.
         let sigs: &[u64] = match self.char_bounded() && !self.char_filters() {
@@ -320,7 +354,7 @@ impl Searcher<'_> {
                 runs[j].buckets = b;
             }
             for &j in &active {
-                self.visit_round(&mut runs[j], sigs);
+                self.visit_round(&mut runs[j], sigs, sketches);
             }
         }
         runs.iter_mut().map(|run| self.finish_exact(run)).collect()
@@ -335,9 +369,9 @@ impl Searcher<'_> {
     /// measures groups ([`PreparedQuery::group_size`]) gets the rest [`LANE_GROUP`] at a
     /// time, flushed at the end of each bound so the stopping rule sees the true k-th
     /// distance.
-    fn visit_round(&self, run: &mut ExactRun<'_>, sigs: &[u64]) {
+    fn visit_round(&self, run: &mut ExactRun<'_>, sigs: &[u64], sketches: &[f64]) {
         let buckets = std::mem::take(&mut run.buckets);
-        self.visit_buckets(run, &buckets, sigs);
+        self.visit_buckets(run, &buckets, sigs, sketches);
         run.buckets = buckets;
         if run.done {
             return;
@@ -361,8 +395,19 @@ impl Searcher<'_> {
 
     /// The bound-by-bound visit of [`Searcher::visit_round`]; sets `done` when a bound
     /// exceeds what the answer allows.
-    fn visit_buckets(&self, run: &mut ExactRun<'_>, buckets: &[Vec<u32>], sigs: &[u64]) {
+    fn visit_buckets(
+        &self,
+        run: &mut ExactRun<'_>,
+        buckets: &[Vec<u32>],
+        sigs: &[u64],
+        sketches: &[f64],
+    ) {
         let q = run.q;
+        let w = run.qsketch.len();
+        let metric = match self.index.metric() {
+            Ok(m) if w > 0 && sketches.len() == w * self.index.len() => Some(m),
+            _ => None,
+        };
         let from = run.lo.map_or(0, |l| usize::from(l) + 1);
         for (b, items) in buckets
             .iter()
@@ -386,9 +431,13 @@ impl Searcher<'_> {
                 if let Some(qs) = run.qsig {
                     let sig = sigs.get(i as usize).copied().unwrap_or(u64::MAX);
                     item_lb = item_lb.max(f64::from(LevenshteinQuery::signature_gap(qs, sig)));
-                    if item_lb > limit {
-                        continue;
-                    }
+                }
+                if let Some(m) = metric {
+                    let at = i as usize * w;
+                    item_lb = item_lb.max(m.sketch_bound(&run.qsketch, &sketches[at..at + w]));
+                }
+                if item_lb > limit {
+                    continue;
                 }
                 if item_lb >= kth {
                     // Equal bound and k-th distance: at best a tie, which only an

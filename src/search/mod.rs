@@ -72,6 +72,9 @@ pub struct Searcher<'a> {
     /// Every key's char signature, made on the first exact query of an index whose metric
     /// is bounded by char counts but whose column blocks do not hold them.
     sigs: OnceLock<Vec<u64>>,
+    /// Every key's sketch ([`crate::metric::AnyMetric::sketch`], its width per item), made
+    /// on the first exact query of an index whose metric has them.
+    sketches: OnceLock<Vec<f64>>,
     /// The coordinates in column blocks for exact queries, made on the first one, with the
     /// char bins of their count columns when they have them.
     columns: OnceLock<(Columns, Option<CharBins>)>,
@@ -101,6 +104,7 @@ impl<'a> Searcher<'a> {
             keys: index.keys(),
             bound: index.bound(),
             sigs: OnceLock::new(),
+            sketches: OnceLock::new(),
             columns: OnceLock::new(),
         }
     }

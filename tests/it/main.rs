@@ -5,6 +5,7 @@
 
 mod util;
 
+mod bounds;
 mod cli;
 mod embed;
 mod eval;
