@@ -13,6 +13,20 @@ use super::scan::HIST_BINS;
 /// up to it collects the candidates already in order, in one more pass and without a heap.
 /// Scores above the histogram's range share its last bin, which is sorted when it is used.
 pub fn select_best(scores: &[u32], c: usize, hist: &[u32], picked: &mut Vec<(u32, u32)>) {
+    select_best_mapped(scores, c, hist, picked, None::<fn(u32) -> u32>);
+}
+
+/// [`select_best`] for scores of rows stored in another order than the items: `item` maps a
+/// score's index to its item, and the `c` smallest scores are picked by (score, item), so
+/// that the same candidates come out as from scores in item order. The result is ordered
+/// by score (equal scores below the last one picked in index order).
+pub fn select_best_mapped(
+    scores: &[u32],
+    c: usize,
+    hist: &[u32],
+    picked: &mut Vec<(u32, u32)>,
+    item: Option<impl Fn(u32) -> u32>,
+) {
     picked.clear();
     if c == 0 || scores.is_empty() {
         return;
@@ -35,6 +49,7 @@ pub fn select_best(scores: &[u32], c: usize, hist: &[u32], picked: &mut Vec<(u32
     }
     picked.resize(acc as usize, (0, 0));
     let last_bin = (HIST_BINS - 1) as u32;
+    let cut_bin = cut;
     let cut = cut as u32;
     for (i, &sc) in scores.iter().enumerate() {
         let b = sc.min(last_bin);
@@ -44,9 +59,18 @@ pub fn select_best(scores: &[u32], c: usize, hist: &[u32], picked: &mut Vec<(u32
             *slot += 1;
         }
     }
+    let from = acc as usize - hist[cut_bin] as usize;
+    if let Some(item) = item {
+        for p in picked.iter_mut() {
+            p.1 = item(p.1);
+        }
+        // The last bin is cut by item: order it so.
+        if picked.len() > c {
+            picked[from..].sort_unstable();
+        }
+    }
     if cut == last_bin {
         // The overflow bin holds different scores: order it.
-        let from = acc as usize - hist[last_bin as usize] as usize;
         picked[from..].sort_unstable();
     }
     picked.truncate(c);

@@ -1,7 +1,14 @@
-//! The kd-tree over the f32 landmark coordinates, stored as a zero-copy kiddo archive.
+//! The kd-tree, stored as a zero-copy kiddo archive.
+//!
+//! In format version 2 it holds the first [`prefix_dims`] coordinates of each item's u8
+//! row (at most [`TREE_PREFIX`]), as f32: small (36 bytes an item) and, since a distance
+//! over a prefix of the coordinates is at most the distance over all of them in L1, L2
+//! and L∞, a filter from which the search finds the exact best rows
+//! (`search/candidates.rs`). In version 1 it held every unquantised coordinate (260 bytes
+//! an item at 64 coordinates), which files of that version still carry.
 //!
 //! kiddo's dimension is a compile-time constant, so the tree is built for the smallest size
-//! in [`TREE_DIMS`] that holds the embedding and the extra coordinates are zero, which
+//! in [`TREE_DIMS`] that holds its coordinates and the extra coordinates are zero, which
 //! changes no L1, L2 or L∞ distance.
 
 use std::num::NonZeroUsize;
@@ -14,7 +21,16 @@ use crate::coords::Space;
 /// The dimensions a tree can be compiled for.
 pub const TREE_DIMS: [usize; 6] = [2, 4, 8, 16, 32, 64];
 
-/// The tree dimension used for an embedding of dimension `dim`.
+/// Most coordinates a format version 2 tree holds.
+pub const TREE_PREFIX: usize = 8;
+
+/// The coordinates a format version 2 tree holds for an embedding of dimension `dim`: the
+/// first `min(dim, TREE_PREFIX)`.
+pub fn prefix_dims(dim: usize) -> usize {
+    dim.min(TREE_PREFIX)
+}
+
+/// The tree dimension used for `dim` coordinates.
 pub fn tree_dim(dim: usize) -> usize {
     TREE_DIMS
         .into_iter()
@@ -210,9 +226,18 @@ fn usize_of(v: &rkyv::primitive::ArchivedUsize) -> usize {
     v.to_native() as usize
 }
 
-/// Checks an archived tree of dimension `K` for an index of `n` items whose embedding has
-/// `dim` coordinates (the rest are zero). See the comment above `Layout`.
-fn check_k<const K: usize>(bytes: &[u8], dim: usize, n: usize) -> Result<(), String> {
+/// The row of each item, whose first coordinates a tree's points must equal.
+pub type RowOf<'r> = &'r dyn Fn(usize) -> &'r [u8];
+
+/// Checks an archived tree of dimension `K` for an index of `n` items whose tree holds
+/// `dim` coordinates (the rest are zero); with `rows`, every point's coordinates must be
+/// its item's row's first `dim` bytes. See the comment above `Layout`.
+fn check_k<const K: usize>(
+    bytes: &[u8],
+    dim: usize,
+    n: usize,
+    rows: Option<RowOf<'_>>,
+) -> Result<(), String> {
     use kiddo::kd_tree::KdTreeAccessor;
 
     let t =
@@ -340,6 +365,19 @@ fn check_k<const K: usize>(bytes: &[u8], dim: usize, n: usize) -> Result<(), Str
                     return Err(format!("leaf {leaf}: item {item} has coordinate {d} = {x}"));
                 }
             }
+            if let Some(row_of) = rows {
+                let row = row_of(item);
+                let same = row.len() >= dim
+                    && row[..dim]
+                        .iter()
+                        .zip(point.iter())
+                        .all(|(&r, &x)| f32::from(r) == x);
+                if !same {
+                    return Err(format!(
+                        "leaf {leaf}: item {item}'s point is not the first {dim} coordinates of its row"
+                    ));
+                }
+            }
             // The path from the root: level v splits on coordinate v mod K at stem
             // (leaves + leaf) >> (depth - v); bit depth - 1 - v of `leaf` says right.
             for v in 0..depth {
@@ -378,16 +416,23 @@ fn check_k<const K: usize>(bytes: &[u8], dim: usize, n: usize) -> Result<(), Str
 
 impl<'a> TreeView<'a> {
     /// Validates the archive (rkyv's bytecheck, then every field kiddo's queries trust; see
-    /// the comment above `Layout`) for an index of `n` items and returns a view.
-    pub fn open(bytes: &'a [u8], dim: usize, n: usize) -> Result<TreeView<'a>, String> {
+    /// the comment above `Layout`) for an index of `n` items whose tree holds `dim`
+    /// coordinates and returns a view; with `rows` (a format version 2 tree), every point
+    /// must also be the first `dim` bytes of its item's row.
+    pub fn open(
+        bytes: &'a [u8],
+        dim: usize,
+        n: usize,
+        rows: Option<RowOf<'_>>,
+    ) -> Result<TreeView<'a>, String> {
         let tree_dim = tree_dim(dim);
         match tree_dim {
-            2 => check_k::<2>(bytes, dim, n),
-            4 => check_k::<4>(bytes, dim, n),
-            8 => check_k::<8>(bytes, dim, n),
-            16 => check_k::<16>(bytes, dim, n),
-            32 => check_k::<32>(bytes, dim, n),
-            _ => check_k::<64>(bytes, dim, n),
+            2 => check_k::<2>(bytes, dim, n, rows),
+            4 => check_k::<4>(bytes, dim, n, rows),
+            8 => check_k::<8>(bytes, dim, n, rows),
+            16 => check_k::<16>(bytes, dim, n, rows),
+            32 => check_k::<32>(bytes, dim, n, rows),
+            _ => check_k::<64>(bytes, dim, n, rows),
         }?;
         Ok(TreeView {
             bytes,
@@ -624,13 +669,13 @@ mod tests {
                 let bytes = build(&coords, dim).expect("build");
                 let mut aligned = rkyv::util::AlignedVec::<128>::new();
                 aligned.extend_from_slice(&bytes);
-                let view = TreeView::open(&aligned, dim, n)
+                let view = TreeView::open(&aligned, dim, n, None)
                     .unwrap_or_else(|e| panic!("n = {n}, dim = {dim}: {e}"));
                 let mut out = Vec::new();
                 view.nearest(&coords[..dim], n.min(5), Space::L2, &mut out);
                 assert_eq!(out.len(), n.min(5));
                 assert_eq!(out[0].1, 0.0, "the first point is its own nearest");
-                assert!(TreeView::open(&aligned, dim, n + 1).is_err());
+                assert!(TreeView::open(&aligned, dim, n + 1, None).is_err());
             }
         }
     }
