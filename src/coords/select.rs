@@ -75,3 +75,39 @@ pub fn select_best_mapped(
     }
     picked.truncate(c);
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::coords::scan::HIST_BINS;
+
+    /// Scores stored in a permuted order, selected with the permutation, pick the same
+    /// candidates as the scores in item order (ties at the cut by item), whatever the count.
+    #[test]
+    fn mapped_selection_picks_what_selection_in_item_order_picks() {
+        let n = 3000u32;
+        // Few distinct scores, so that the cut falls inside a bin of many ties; some past
+        // the histogram's last bin.
+        let by_item: Vec<u32> = (0..n)
+            .map(|i| match i % 11 {
+                10 => HIST_BINS as u32 + (i * 7) % 5,
+                r => (i * 31 + r) % 9,
+            })
+            .collect();
+        // Position p holds item members[p].
+        let members: Vec<u32> = (0..n).map(|p| (p * 1237 + 11) % n).collect();
+        let stored: Vec<u32> = members.iter().map(|&m| by_item[m as usize]).collect();
+        let mut hist = vec![0u32; HIST_BINS];
+        for &s in &by_item {
+            hist[(s as usize).min(HIST_BINS - 1)] += 1;
+        }
+        for c in [1, 5, 333, 334, 2700, 2999, 3000, 5000] {
+            let (mut want, mut got) = (Vec::new(), Vec::new());
+            select_best(&by_item, c, &hist, &mut want);
+            select_best_mapped(&stored, c, &hist, &mut got, Some(|p: u32| members[p as usize]));
+            want.sort_unstable();
+            got.sort_unstable();
+            assert_eq!(got, want, "c = {c}");
+        }
+    }
+}

@@ -189,15 +189,39 @@ pub fn check_positions(view: &CellsView<'_>, positions: &[u8], n: usize) -> Resu
     Ok(())
 }
 
-/// The size a cells section must have for `n` items of `stride` bytes, from the cell count
-/// in its header; `None` when the header names no possible count or stride.
-pub fn expected_len(bytes: &[u8], n: usize, stride: usize) -> Option<usize> {
-    let k = u32_at(bytes, 0) as usize;
-    if bytes.len() < HEAD || u32_at(bytes, 1) as usize != stride || k == 0 || k > MAX_CELLS.min(n)
-    {
-        return None;
+/// Checks the header of a cells section for `n` items of `stride` bytes and that the
+/// section has the size its cell count gives; returns the count and the parts. A pass that
+/// does not grow with `n` (the file's open runs it on a version 2 file).
+fn head(bytes: &[u8], n: usize, stride: usize) -> Result<(usize, Parts), String> {
+    if bytes.len() < HEAD {
+        return Err(format!("{} bytes, shorter than its header", bytes.len()));
     }
-    parts(k, n, stride).map(|p| p.rows.end)
+    let k = u32_at(bytes, 0) as usize;
+    let s = u32_at(bytes, 1) as usize;
+    if s != stride {
+        return Err(format!("stride {s}, the index's is {stride}"));
+    }
+    if k == 0 || k > MAX_CELLS || k > n {
+        return Err(format!("{k} cells for {n} items"));
+    }
+    if bytes[8..HEAD].iter().any(|&b| b != 0) {
+        return Err("header bytes past the stride are not zero".into());
+    }
+    let p = parts(k, n, stride).ok_or("sizes overflow")?;
+    if bytes.len() != p.rows.end {
+        return Err(format!(
+            "{} bytes; {k} cells of {n} items need {}",
+            bytes.len(),
+            p.rows.end
+        ));
+    }
+    Ok((k, p))
+}
+
+/// Checks the header and size of a cells section for `n` items of `stride` bytes, in time
+/// that does not grow with `n`.
+pub fn check_len(bytes: &[u8], n: usize, stride: usize) -> Result<(), String> {
+    head(bytes, n, stride).map(|_| ())
 }
 
 /// A checked view of a cells section inside a mapped index.
@@ -229,28 +253,7 @@ impl<'a> CellsView<'a> {
         stride: usize,
         coords: Option<&[u8]>,
     ) -> Result<Self, String> {
-        if bytes.len() < HEAD {
-            return Err(format!("{} bytes, shorter than its header", bytes.len()));
-        }
-        let k = u32_at(bytes, 0) as usize;
-        let s = u32_at(bytes, 1) as usize;
-        if s != stride {
-            return Err(format!("stride {s}, the index's is {stride}"));
-        }
-        if k == 0 || k > MAX_CELLS || k > n {
-            return Err(format!("{k} cells for {n} items"));
-        }
-        if bytes[8..HEAD].iter().any(|&b| b != 0) {
-            return Err("header bytes past the stride are not zero".into());
-        }
-        let p = parts(k, n, stride).ok_or("sizes overflow")?;
-        if bytes.len() != p.rows.end {
-            return Err(format!(
-                "{} bytes; {k} cells of {n} items need {}",
-                bytes.len(),
-                p.rows.end
-            ));
-        }
+        let (k, p) = head(bytes, n, stride)?;
         let view = CellsView {
             k,
             stride,
@@ -430,6 +433,31 @@ mod tests {
                 .expect("refused");
             assert!(e.contains(want), "{e:?} should mention {want:?}");
         }
+    }
+
+    #[test]
+    fn positions_are_the_inverse_of_the_members_and_a_wrong_table_is_refused() {
+        let (n, stride) = (500, 8);
+        let coords = rows(n, stride);
+        let bytes = build(&coords, stride, 2);
+        let view = CellsView::open(&bytes, n, stride, None).expect("valid");
+        let pos = positions(view.members());
+        check_positions(&view, &pos, n).expect("the inverse");
+        for i in 0..n {
+            let p = u32_at(&pos, i) as usize;
+            assert_eq!(view.member(p) as usize, i);
+            assert_eq!(view.rows(p..p + 1), &coords[i * stride..(i + 1) * stride]);
+        }
+        // Two entries swapped: still a permutation, no longer the inverse.
+        let mut bad = pos.clone();
+        bad.copy_within(0..4, 8);
+        bad[0..4].copy_from_slice(&pos[8..12]);
+        let e = check_positions(&view, &bad, n).unwrap_err();
+        assert!(e.contains("is recorded at position"), "{e}");
+        let e = check_positions(&view, &pos[4..], n).unwrap_err();
+        assert!(e.contains("bytes for 500 items"), "{e}");
+        check_len(&bytes, n, stride).expect("its size");
+        assert!(check_len(&bytes, n, 16).is_err(), "another stride");
     }
 
     #[test]

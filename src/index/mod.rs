@@ -443,11 +443,8 @@ impl Index {
                 ));
             }
             let c = need(SectionKind::Cells)?;
-            expect_len(
-                SectionKind::Cells,
-                &c,
-                cells::expected_len(&map[c.clone()], n, stride),
-            )?;
+            cells::check_len(&map[c.clone()], n, stride)
+                .map_err(|e| corrupt(format!("section cells is refused: {e}")))?;
             let p = need(SectionKind::Positions)?;
             expect_len(SectionKind::Positions, &p, n.checked_mul(4))?;
             (None, Some(p))

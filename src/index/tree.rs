@@ -365,19 +365,7 @@ fn check_k<const K: usize>(
                     return Err(format!("leaf {leaf}: item {item} has coordinate {d} = {x}"));
                 }
             }
-            if let Some(row_of) = rows {
-                let row = row_of(item);
-                let same = row.len() >= dim
-                    && row[..dim]
-                        .iter()
-                        .zip(point.iter())
-                        .all(|(&r, &x)| f32::from(r) == x);
-                if !same {
-                    return Err(format!(
-                        "leaf {leaf}: item {item}'s point is not the first {dim} coordinates of its row"
-                    ));
-                }
-            }
+
             // The path from the root: level v splits on coordinate v mod K at stem
             // (leaves + leaf) >> (depth - v); bit depth - 1 - v of `leaf` says right.
             for v in 0..depth {
@@ -410,6 +398,28 @@ fn check_k<const K: usize>(
             "it records {} points in its longest leaf, which has {longest}",
             usize_of(&l.max_leaf_len)
         ));
+    }
+    // Last, on a tree whose shape holds: each point is its item's row's first coordinates.
+    if let Some(row_of) = rows {
+        for (leaf, e) in extents.iter().enumerate() {
+            let (offset, len) = (usize_of(&e.0), usize_of(&e.1));
+            let end = offset + leaf_bytes_len(len, K).expect("checked above");
+            for_each_point::<K>(&arena[offset..end], len, |item, point| {
+                let row = row_of(item);
+                let same = row.len() >= dim
+                    && row[..dim]
+                        .iter()
+                        .zip(point.iter())
+                        .all(|(&r, &x)| f32::from(r) == x);
+                if same {
+                    Ok(())
+                } else {
+                    Err(format!(
+                        "leaf {leaf}: item {item}'s point is not the first {dim} coordinates of its row"
+                    ))
+                }
+            })?;
+        }
     }
     Ok(())
 }
@@ -652,6 +662,36 @@ mod tests {
                 }
             }
         }
+    }
+
+    /// A tree over the rows' first coordinates passes the check against those rows, and is
+    /// refused against rows that differ in one byte of the prefix (not past it).
+    #[test]
+    fn a_tree_is_checked_against_the_rows_it_was_built_from() {
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(5);
+        let (n, stride) = (300, 16);
+        let mut rows: Vec<u8> = (0..n * stride).map(|_| rng.gen_range(0..=255)).collect();
+        let dim = prefix_dims(12);
+        let pre: Vec<f32> = rows
+            .chunks_exact(stride)
+            .flat_map(|r| r[..dim].iter().map(|&b| f32::from(b)))
+            .collect();
+        let bytes = build(&pre, dim).expect("build");
+        let mut aligned = rkyv::util::AlignedVec::<128>::new();
+        aligned.extend_from_slice(&bytes);
+        let check = |rows: &[u8]| {
+            let row = |i: usize| &rows[i * stride..(i + 1) * stride];
+            TreeView::open(&aligned, dim, n, Some(&row)).map(|_| ())
+        };
+        check(&rows).expect("the rows it was built from");
+        rows[7 * stride + dim] ^= 1;
+        check(&rows).expect("a byte past the prefix is not in the tree");
+        rows[7 * stride + 3] ^= 1;
+        let e = check(&rows).unwrap_err();
+        assert!(
+            e.contains("item 7's point is not the first 8 coordinates of its row"),
+            "{e}"
+        );
     }
 
     /// Trees kiddo builds pass the check, whatever n, dimension and duplicates.

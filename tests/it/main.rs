@@ -10,6 +10,7 @@ mod embed;
 mod eval;
 mod eval_scan;
 mod exact;
+mod format;
 mod hardening;
 mod ingest;
 mod layout;
