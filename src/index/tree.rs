@@ -482,17 +482,30 @@ impl<'a> TreeView<'a> {
     /// The `count` nearest points to `query` (length `dim`) in `space`, as item indices
     /// with the embedded distance (squared for L2), nearest first.
     pub fn nearest(&self, query: &[f32], count: usize, space: Space, out: &mut Vec<(u32, f32)>) {
+        self.nearest_within(query, count, None, space, out)
+    }
+
+    /// [`TreeView::nearest`], keeping only points at distance at most `radius` (squared for
+    /// L2) when one is given: kiddo's same nearest-n search, bounded.
+    pub fn nearest_within(
+        &self,
+        query: &[f32],
+        count: usize,
+        radius: Option<f32>,
+        space: Space,
+        out: &mut Vec<(u32, f32)>,
+    ) {
         out.clear();
         let Some(count) = NonZeroUsize::new(count) else {
             return;
         };
         match self.tree_dim {
-            2 => self.nearest_k::<2>(query, count, space, out),
-            4 => self.nearest_k::<4>(query, count, space, out),
-            8 => self.nearest_k::<8>(query, count, space, out),
-            16 => self.nearest_k::<16>(query, count, space, out),
-            32 => self.nearest_k::<32>(query, count, space, out),
-            _ => self.nearest_k::<64>(query, count, space, out),
+            2 => self.nearest_k::<2>(query, count, radius, space, out),
+            4 => self.nearest_k::<4>(query, count, radius, space, out),
+            8 => self.nearest_k::<8>(query, count, radius, space, out),
+            16 => self.nearest_k::<16>(query, count, radius, space, out),
+            32 => self.nearest_k::<32>(query, count, radius, space, out),
+            _ => self.nearest_k::<64>(query, count, radius, space, out),
         }
     }
 
@@ -500,6 +513,7 @@ impl<'a> TreeView<'a> {
         &self,
         query: &[f32],
         count: NonZeroUsize,
+        radius: Option<f32>,
         space: Space,
         out: &mut Vec<(u32, f32)>,
     ) {
@@ -511,13 +525,30 @@ impl<'a> TreeView<'a> {
         let mut q = [0f32; K];
         let d = self.dim.min(K).min(query.len());
         q[..d].copy_from_slice(&query[..d]);
-        let res = match space {
-            Space::L1 => t.query(&q).nearest_n::<Manhattan<f32>>(count).execute(),
-            Space::L2 => t
+        // A bounded nearest-n runs the same search as an unbounded one (kiddo's nearest_n is
+        // nearest_n_within with the largest radius).
+        let res = match (space, radius) {
+            (Space::L1, None) => t.query(&q).nearest_n::<Manhattan<f32>>(count).execute(),
+            (Space::L1, Some(r)) => t
+                .query(&q)
+                .nearest_n::<Manhattan<f32>>(count)
+                .within::<Manhattan<f32>>(r)
+                .execute(),
+            (Space::L2, None) => t
                 .query(&q)
                 .nearest_n::<SquaredEuclidean<f32>>(count)
                 .execute(),
-            Space::Linf => t.query(&q).nearest_n::<Chebyshev<f32>>(count).execute(),
+            (Space::L2, Some(r)) => t
+                .query(&q)
+                .nearest_n::<SquaredEuclidean<f32>>(count)
+                .within::<SquaredEuclidean<f32>>(r)
+                .execute(),
+            (Space::Linf, None) => t.query(&q).nearest_n::<Chebyshev<f32>>(count).execute(),
+            (Space::Linf, Some(r)) => t
+                .query(&q)
+                .nearest_n::<Chebyshev<f32>>(count)
+                .within::<Chebyshev<f32>>(r)
+                .execute(),
         };
         out.extend(res.into_iter().map(|r| (r.item, r.distance)));
     }

@@ -142,11 +142,12 @@ impl Searcher<'_> {
     /// The `c` candidates of the kd-tree, into `scratch.picked` in order.
     ///
     /// A format version 2 tree holds the first coordinates of the rows (`small`): a score over
-    /// them is at most the score over the whole row in L1, squared L2 and L∞, so the `m`
-    /// nearest by the prefix, scored whole, hold the `c` best rows once the m-th prefix score
-    /// exceeds the c-th best whole score (m grows fourfold until it does). The candidates
-    /// are then the scan's: the `c` best rows by (score, item). A version 1 tree gives the
-    /// `c` nearest by the query's unquantised coordinates `exact`.
+    /// them is at most the score over the whole row in L1, squared L2 and L∞. The `m`
+    /// nearest by the prefix (m = max(2c, 64)) are scored whole; unless the m-th prefix score
+    /// already exceeds the c-th best whole score S, every point within S by the prefix is
+    /// taken and scored whole (an item farther than S by the prefix is farther than S
+    /// whole). The candidates are then the scan's: the `c` best rows by (score, item). A
+    /// version 1 tree gives the `c` nearest by the query's unquantised coordinates `exact`.
     pub(super) fn tree_candidates(
         &self,
         small: &[u8; 64],
@@ -170,9 +171,12 @@ impl Searcher<'_> {
         }
         let rows = self.index.rows();
         let q: Vec<f32> = small[..dim].iter().map(|&b| f32::from(b)).collect();
-        let mut m = c.saturating_mul(2).max(64).min(n);
+        let m = c.saturating_mul(2).max(64).min(n);
+        let mut radius = None;
         loop {
-            tree.nearest(&q, m, space, &mut s.tree_out);
+            // Within a radius, every point inside it.
+            let count = if radius.is_some() { n } else { m };
+            tree.nearest_within(&q, count, radius, space, &mut s.tree_out);
             s.picked.clear();
             s.picked.extend(
                 s.tree_out
@@ -189,10 +193,10 @@ impl Searcher<'_> {
             // Prefix scores are whole numbers below 2^24 (at most 8 · 255² in L2), exact in
             // f32; an item not returned has a prefix score at least the m-th's.
             let last = s.tree_out.last().map_or(f32::INFINITY, |&(_, d)| d);
-            if m >= n || last > kth as f32 {
+            if m >= n || radius.is_some() || last > kth as f32 {
                 break;
             }
-            m = m.saturating_mul(4).min(n);
+            radius = Some(kth as f32);
         }
         s.picked.sort_unstable();
         Ok(())
