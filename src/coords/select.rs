@@ -104,7 +104,13 @@ mod tests {
         for c in [1, 5, 333, 334, 2700, 2999, 3000, 5000] {
             let (mut want, mut got) = (Vec::new(), Vec::new());
             select_best(&by_item, c, &hist, &mut want);
-            select_best_mapped(&stored, c, &hist, &mut got, Some(|p: u32| members[p as usize]));
+            select_best_mapped(
+                &stored,
+                c,
+                &hist,
+                &mut got,
+                Some(|p: u32| members[p as usize]),
+            );
             want.sort_unstable();
             got.sort_unstable();
             assert_eq!(got, want, "c = {c}");

@@ -394,9 +394,7 @@ impl Index {
                 Some(strings(SectionKind::IdOffsets, SectionKind::IdBytes)?),
             ),
             (IdKind::Text, Some(_)) => {
-                return Err(corrupt(
-                    "text ids recorded as consecutive integers".into(),
-                ))
+                return Err(corrupt("text ids recorded as consecutive integers".into()))
             }
         };
         let dim = meta.dim as usize;
@@ -669,7 +667,7 @@ impl Index {
         Ok(())
     }
 
-    /// Bytes per row of [`Index::coords`].
+    /// Bytes per coordinate row ([`Index::rows`]).
     pub fn stride(&self) -> usize {
         self.meta.stride as usize
     }

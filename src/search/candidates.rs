@@ -69,7 +69,14 @@ impl Searcher<'_> {
     pub(super) fn scan_candidates(&self, q: &[u8; 64], c: usize, space: Space, s: &mut Scratch) {
         s.reset(self.index.len());
         let rows = self.index.rows();
-        score_rows(rows.stored(), rows.stride(), q, space, &mut s.scores, &mut s.hist);
+        score_rows(
+            rows.stored(),
+            rows.stride(),
+            q,
+            space,
+            &mut s.scores,
+            &mut s.hist,
+        );
         s.select(c, &rows);
     }
 
@@ -114,13 +121,7 @@ impl Searcher<'_> {
                 break;
             }
         }
-        select_best_mapped(
-            &s.scores,
-            c,
-            &s.hist,
-            &mut s.picked,
-            None::<fn(u32) -> u32>,
-        );
+        select_best_mapped(&s.scores, c, &s.hist, &mut s.picked, None::<fn(u32) -> u32>);
         // Scores are numbered in visiting order: back to cell positions, then to items
         // (the member table is read at scattered places: positions are made first and
         // fetched ahead).

@@ -14,9 +14,25 @@ use crate::util::{build_in, corpus, first_words, repo_file, section, Dir};
 
 /// The queries of the fixture and how each recorded answer file was asked.
 const ASKED: [(&str, &[&str]); 5] = [
-    ("scan", &["-k", "5", "--candidates", "20", "--candidates-from", "scan"]),
-    ("cells", &["-k", "5", "--candidates", "20", "--candidates-from", "cells"]),
-    ("tree", &["-k", "5", "--candidates", "20", "--candidates-from", "tree"]),
+    (
+        "scan",
+        &["-k", "5", "--candidates", "20", "--candidates-from", "scan"],
+    ),
+    (
+        "cells",
+        &[
+            "-k",
+            "5",
+            "--candidates",
+            "20",
+            "--candidates-from",
+            "cells",
+        ],
+    ),
+    (
+        "tree",
+        &["-k", "5", "--candidates", "20", "--candidates-from", "tree"],
+    ),
     ("exact", &["-k", "5", "--exact"]),
     ("within", &["--within", "3"]),
 ];
@@ -41,7 +57,11 @@ fn answers(d: &Dir, index: &std::path::Path, args: &[&str]) -> String {
         .args(args)
         .output()
         .unwrap();
-    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
     String::from_utf8(out.stdout).unwrap()
 }
 
@@ -56,7 +76,15 @@ fn a_version_1_file_made_by_the_previous_writer_opens_and_answers_as_it_did() {
     let sections: Vec<&str> = index.sections().map(|(name, _)| name).collect();
     assert_eq!(
         sections,
-        ["meta", "item-offsets", "items", "ids", "coordinates", "cells", "kd-tree"]
+        [
+            "meta",
+            "item-offsets",
+            "items",
+            "ids",
+            "coordinates",
+            "cells",
+            "kd-tree"
+        ]
     );
     for (kind, args) in ASKED {
         assert_eq!(answers(&d, &v1, args), recorded(kind), "{kind}");
@@ -66,7 +94,9 @@ fn a_version_1_file_made_by_the_previous_writer_opens_and_answers_as_it_did() {
         .assert()
         .success()
         .stdout(contains("waymark index, version 1"))
-        .stdout(contains("kd-tree of dimension 16 (f32) over every coordinate"));
+        .stdout(contains(
+            "kd-tree of dimension 16 (f32) over every coordinate",
+        ));
 }
 
 #[test]
@@ -82,7 +112,14 @@ fn a_version_2_file_holds_each_row_once_and_answers_as_the_version_1_file() {
     let names: Vec<&str> = sizes.iter().map(|s| s.0).collect();
     assert_eq!(
         names,
-        ["meta", "item-offsets", "items", "cells", "positions", "kd-tree"],
+        [
+            "meta",
+            "item-offsets",
+            "items",
+            "cells",
+            "positions",
+            "kd-tree"
+        ],
         "no coordinates section, no ids section"
     );
     assert!(sizes.contains(&("positions", 4 * n)));
@@ -108,19 +145,28 @@ fn a_version_2_file_holds_each_row_once_and_answers_as_the_version_1_file() {
         .assert()
         .success()
         .stdout(contains("waymark index, version 2"))
-        .stdout(contains("ids           Int, consecutive from 0 (not stored)"))
-        .stdout(contains("kd-tree of dimension 8 (f32) over the first 8 coordinates"));
+        .stdout(contains(
+            "ids           Int, consecutive from 0 (not stored)",
+        ))
+        .stdout(contains(
+            "kd-tree of dimension 8 (f32) over the first 8 coordinates",
+        ));
 }
 
 #[test]
 fn ids_that_are_not_consecutive_are_stored() {
     let d = Dir::new();
     // A blank record: the ids (record numbers) skip 1.
-    let input = d.write("quays.txt", "Orvane Quay\n\nKeth Landing\nMirrow Steps\n".as_bytes());
+    let input = d.write(
+        "quays.txt",
+        "Orvane Quay\n\nKeth Landing\nMirrow Steps\n".as_bytes(),
+    );
     let idx = d.build(&input, "q.wmk", &["--dim", "2", "-q"]);
     let index = Index::open(&idx).unwrap();
     assert_eq!(index.meta().ids_from, None);
-    assert!(index.sections().any(|(name, bytes)| name == "ids" && bytes == 3 * 8));
+    assert!(index
+        .sections()
+        .any(|(name, bytes)| name == "ids" && bytes == 3 * 8));
     let ids: Vec<_> = (0..3).map(|i| index.id(i)).collect();
     use waymark::index::IdRef::Int;
     assert_eq!(ids, [Int(0), Int(2), Int(3)]);

@@ -944,9 +944,10 @@ fn bad_input_crafted_cells_sections_are_refused_by_query_and_verify() {
                 put_u32(c, m.members, m1);
                 put_u32(c, m.members + 4, m0 as u32)
             }),
-            format!("item {} is recorded at position 1, but its row is at position 0", {
-                u32_at(&cells, m.members + 4)
-            }),
+            format!(
+                "item {} is recorded at position 1, but its row is at position 0",
+                { u32_at(&cells, m.members + 4) }
+            ),
         ),
         (
             "a section one byte short",
