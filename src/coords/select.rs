@@ -13,7 +13,14 @@ use super::scan::HIST_BINS;
 /// up to it collects the candidates already in order, in one more pass and without a heap.
 /// Scores above the histogram's range share its last bin, which is sorted when it is used.
 pub fn select_best(scores: &[u32], c: usize, hist: &[u32], picked: &mut Vec<(u32, u32)>) {
-    select_best_mapped(scores, c, hist, picked, None::<fn(u32) -> u32>);
+    let Some((from, overflow)) = up_to_cut(scores, c, hist, picked) else {
+        return;
+    };
+    if overflow {
+        // The overflow bin holds different scores: order it.
+        picked[from..].sort_unstable();
+    }
+    picked.truncate(c);
 }
 
 /// [`select_best`] for scores of rows stored in another order than the items: `item` maps a
@@ -25,11 +32,35 @@ pub fn select_best_mapped(
     c: usize,
     hist: &[u32],
     picked: &mut Vec<(u32, u32)>,
-    item: Option<impl Fn(u32) -> u32>,
+    item: impl Fn(u32) -> u32,
 ) {
+    let Some((from, overflow)) = up_to_cut(scores, c, hist, picked) else {
+        return;
+    };
+    for p in picked.iter_mut() {
+        p.1 = item(p.1);
+    }
+    // The last bin is cut by item (and the overflow bin holds different scores): order it.
+    if overflow || picked.len() > c {
+        picked[from..].sort_unstable();
+    }
+    picked.truncate(c);
+}
+
+/// Every score in the bins up to the one holding the `c`-th smallest, into `picked` as
+/// (score, index), ordered by bin, in index order within a bin; returns where the last bin
+/// starts in `picked` and whether it is the overflow bin (`None` when nothing is picked).
+/// The one pass over every score: kept out of line, so that both callers run the same code.
+#[inline(never)]
+fn up_to_cut(
+    scores: &[u32],
+    c: usize,
+    hist: &[u32],
+    picked: &mut Vec<(u32, u32)>,
+) -> Option<(usize, bool)> {
     picked.clear();
     if c == 0 || scores.is_empty() {
-        return;
+        return None;
     }
     let mut seen = 0usize;
     let mut cut = HIST_BINS - 1;
@@ -49,31 +80,27 @@ pub fn select_best_mapped(
     }
     picked.resize(acc as usize, (0, 0));
     let last_bin = (HIST_BINS - 1) as u32;
-    let cut_bin = cut;
+    let from = acc as usize - hist[cut] as usize;
     let cut = cut as u32;
-    for (i, &sc) in scores.iter().enumerate() {
-        let b = sc.min(last_bin);
-        if b <= cut {
-            let slot = &mut start[b as usize];
-            picked[*slot as usize] = (sc, i as u32);
-            *slot += 1;
+    // Few scores are taken: runs of 16 with none are skipped on one vector comparison (the
+    // test compiles to SIMD), so the branch per score runs only in runs that hold one.
+    // Below the overflow bin, a score's bin is at most the cut exactly when the score is.
+    const RUN: usize = 16;
+    let overflow = cut == last_bin;
+    for (r, run) in scores.chunks(RUN).enumerate() {
+        if !overflow && !run.iter().fold(false, |any, &sc| any | (sc <= cut)) {
+            continue;
+        }
+        for (j, &sc) in run.iter().enumerate() {
+            let b = sc.min(last_bin);
+            if b <= cut {
+                let slot = &mut start[b as usize];
+                picked[*slot as usize] = (sc, (r * RUN + j) as u32);
+                *slot += 1;
+            }
         }
     }
-    let from = acc as usize - hist[cut_bin] as usize;
-    if let Some(item) = item {
-        for p in picked.iter_mut() {
-            p.1 = item(p.1);
-        }
-        // The last bin is cut by item: order it so.
-        if picked.len() > c {
-            picked[from..].sort_unstable();
-        }
-    }
-    if cut == last_bin {
-        // The overflow bin holds different scores: order it.
-        picked[from..].sort_unstable();
-    }
-    picked.truncate(c);
+    Some((from, overflow))
 }
 
 #[cfg(test)]
@@ -104,13 +131,7 @@ mod tests {
         for c in [1, 5, 333, 334, 2700, 2999, 3000, 5000] {
             let (mut want, mut got) = (Vec::new(), Vec::new());
             select_best(&by_item, c, &hist, &mut want);
-            select_best_mapped(
-                &stored,
-                c,
-                &hist,
-                &mut got,
-                Some(|p: u32| members[p as usize]),
-            );
+            select_best_mapped(&stored, c, &hist, &mut got, |p: u32| members[p as usize]);
             want.sort_unstable();
             got.sort_unstable();
             assert_eq!(got, want, "c = {c}");

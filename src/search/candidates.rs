@@ -18,7 +18,7 @@
 
 use super::Searcher;
 use crate::coords::scan::{score_rows, HIST_BINS};
-use crate::coords::select::select_best_mapped;
+use crate::coords::select::{select_best, select_best_mapped};
 use crate::coords::Space;
 use crate::error::Result;
 use crate::index::Rows;
@@ -58,8 +58,12 @@ impl Scratch {
     /// Picks the `c` best scored rows of a pass over `rows` (in their storage order) into
     /// `picked` as (score, item), by (score, item).
     pub(super) fn select(&mut self, c: usize, rows: &Rows<'_>) {
-        let item = (!rows.in_order()).then_some(|p| rows.item_at(p));
-        select_best_mapped(&self.scores, c, &self.hist, &mut self.picked, item);
+        if rows.in_order() {
+            select_best(&self.scores, c, &self.hist, &mut self.picked);
+        } else {
+            let item = |p| rows.item_at(p);
+            select_best_mapped(&self.scores, c, &self.hist, &mut self.picked, item);
+        }
     }
 }
 
@@ -121,7 +125,7 @@ impl Searcher<'_> {
                 break;
             }
         }
-        select_best_mapped(&s.scores, c, &s.hist, &mut s.picked, None::<fn(u32) -> u32>);
+        select_best(&s.scores, c, &s.hist, &mut s.picked);
         // Scores are numbered in visiting order: back to cell positions, then to items
         // (the member table is read at scattered places: positions are made first and
         // fetched ahead).

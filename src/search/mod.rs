@@ -192,7 +192,8 @@ impl<'a> Searcher<'a> {
     }
 
     /// Checks that `req` can be answered on this index (parameters in range, a lower bound
-    /// for exact requests), without running a query.
+    /// for exact requests, and, once per index, the tables that map items to their
+    /// coordinate rows: [`Index::check_rows`]), without running a query.
     pub fn check(&self, req: &Request) -> Result<()> {
         let k = match *req {
             Request::Approximate(p) => {
