@@ -48,7 +48,7 @@ pub(super) fn inspect(a: InspectArgs) -> anyhow::Result<()> {
     if a.json {
         let obj = serde_json::json!({
             "path": a.index.display().to_string(),
-            "format_version": crate::index::file::FORMAT_VERSION,
+            "format_version": index.format_version(),
             "file_bytes": index.file_len(),
             "meta": m,
             "landmark_items": landmarks,
@@ -66,7 +66,7 @@ pub(super) fn inspect(a: InspectArgs) -> anyhow::Result<()> {
     writeln!(
         out,
         "format        waymark index, version {}",
-        crate::index::file::FORMAT_VERSION
+        index.format_version()
     )?;
     writeln!(out, "written by    {}", esc(&m.written_by))?;
     writeln!(
@@ -77,7 +77,13 @@ pub(super) fn inspect(a: InspectArgs) -> anyhow::Result<()> {
         m.records,
         m.blank_skipped
     )?;
-    writeln!(out, "ids           {:?}", m.ids)?;
+    match m.ids_from {
+        Some(from) => writeln!(
+            out,
+            "ids           Int, consecutive from {from} (not stored)"
+        )?,
+        None => writeln!(out, "ids           {:?}", m.ids)?,
+    }
     let params = match &m.metric_spec {
         MetricSpec::Hamming { length } => format!(" ({length} characters per item)"),
         MetricSpec::WeightedEdit { costs } => format!(
@@ -134,8 +140,14 @@ pub(super) fn inspect(a: InspectArgs) -> anyhow::Result<()> {
     writeln!(out, "references    {}", esc(&landmarks.join(" | ")))?;
     writeln!(
         out,
-        "coordinates   u8, {} bytes per item; kd-tree of dimension {} (f32)",
-        m.stride, m.tree_dim
+        "coordinates   u8, {} bytes per item; kd-tree of dimension {} (f32) over {}",
+        m.stride,
+        m.tree_dim,
+        if index.tree_holds_rows() {
+            format!("the first {} coordinates", index.tree_dims())
+        } else {
+            "every coordinate, unquantised".to_string()
+        }
     )?;
     writeln!(
         out,

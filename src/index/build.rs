@@ -369,12 +369,33 @@ fn write_index(
     }
     progress.stage(BuildStage::TreeAndCells);
     let t1 = Instant::now();
-    let f32s: Vec<f32> = coords.iter().map(|&x| x as f32).collect();
-    let tree_bytes = tree::build(&f32s, dim)
+    // The tree holds the first coordinates of the u8 rows (see `tree.rs`).
+    let prefix = tree::prefix_dims(dim);
+    let f32s: Vec<f32> = small
+        .chunks_exact(stride)
+        .flat_map(|row| row[..prefix].iter().map(|&b| f32::from(b)))
+        .collect();
+    let tree_bytes = tree::build(&f32s, prefix)
         .map_err(|e| Error::refused(dest, format!("building the kd-tree failed: {e}")))?;
     drop(f32s);
+    // The cells section keeps the only copy of the rows, in cell order; the positions
+    // section maps each item to its row.
     let cells_bytes = cells::build(&small, stride, opts.seed);
+    drop(small);
+    let positions = cells::CellsView::open_unchecked(&cells_bytes, n, stride)
+        .map(|v| cells::positions(v.members()))
+        .ok_or_else(|| Error::refused(dest, "the cells built do not fit their layout"))?;
     let tree_seconds = t1.elapsed().as_secs_f64();
+    // Integer ids that count up by one from the first (the default record numbers of an
+    // input without blank records) are not stored.
+    let ids_from = match &corpus.ids {
+        Ids::Int(v) => v.first().copied().filter(|&first| {
+            v.iter()
+                .enumerate()
+                .all(|(i, &id)| first.checked_add(i as i64) == Some(id))
+        }),
+        Ids::Text(_) => None,
+    };
 
     progress.stage(BuildStage::Write);
     let t2 = Instant::now();
@@ -385,7 +406,7 @@ fn write_index(
         normalize: opts.normalize,
         dim: dim as u32,
         stride: stride as u32,
-        tree_dim: tree::tree_dim(dim) as u32,
+        tree_dim: tree::tree_dim(prefix) as u32,
         embedding: embedded.embedding.clone(),
         scale,
         seed: opts.seed,
@@ -394,6 +415,7 @@ fn write_index(
             Ids::Int(_) => IdKind::Int,
             Ids::Text(_) => IdKind::Text,
         },
+        ids_from,
         candidates: match opts.candidates {
             0 => super::default_candidates(n),
             c => c,
@@ -416,6 +438,7 @@ fn write_index(
         writer.add(SectionKind::KeyBytes, &b)?;
     }
     match &corpus.ids {
+        Ids::Int(_) if ids_from.is_some() => {}
         Ids::Int(v) => {
             let bytes: Vec<u8> = v.iter().flat_map(|x| x.to_le_bytes()).collect();
             writer.add(SectionKind::IdInts, &bytes)?;
@@ -429,8 +452,8 @@ fn write_index(
     if let (MetricSpec::Graph, Some(g)) = (spec, &opts.graph) {
         writer.add(SectionKind::Graph, g.to_edge_list().as_bytes())?;
     }
-    writer.add(SectionKind::Coords, &small)?;
     writer.add(SectionKind::Cells, &cells_bytes)?;
+    writer.add(SectionKind::Positions, &positions)?;
     writer.add_aligned(SectionKind::Tree, &tree_bytes, super::file::TREE_ALIGN)?;
     writer.finish()?;
     let file_len = std::fs::metadata(dest).map(|m| m.len()).unwrap_or(0);

@@ -6,8 +6,10 @@
 //! sample, each row assigned to the centre nearest in L1, centres the rounded means), with
 //! about `1.25·√n` cells. A query ranks the cell centres by squared L2 distance to its own
 //! coordinates and visits cells nearest first until a given number of rows has been
-//! compared ([`CellsView::visit_order`]); the section holds a copy of the coordinate rows in
-//! cell order, so each visited cell is one contiguous slice.
+//! compared ([`CellsView::visit_order`]); the section holds the coordinate rows in cell
+//! order, so each visited cell is one contiguous slice. In format version 2 these rows are
+//! the only copy of the coordinates (the positions section maps each item to its row); in
+//! version 1 they repeat the coordinates section.
 //!
 //! `benches/big.rs` measures the trade: on 663,473 words it reaches the recall of the full
 //! scan while comparing about a tenth of the rows (README).
@@ -27,6 +29,9 @@
 //!          members: n u32, the item at each position
 //!          rows: n × stride u8, the coordinate row of each position's item
 //! ```
+//!
+//! The members are the permutation from positions to items; [`positions`] makes its
+//! inverse, which a version 2 file stores as the positions section.
 
 use rand::seq::SliceRandom;
 use rand::{Rng, SeedableRng};
@@ -151,6 +156,74 @@ pub fn build(coords: &[u8], stride: usize, seed: u64) -> Vec<u8> {
     out
 }
 
+/// The positions section of a cells section's members: `n` u32, the position of each item
+/// (the inverse permutation of the members).
+pub fn positions(members: &[u8]) -> Vec<u8> {
+    let n = members.len() / 4;
+    let mut out = vec![0u8; n * 4];
+    for pos in 0..n {
+        let m = u32_at(members, pos) as usize;
+        if let Some(b) = out.get_mut(m * 4..m * 4 + 4) {
+            b.copy_from_slice(&(pos as u32).to_le_bytes());
+        }
+    }
+    out
+}
+
+/// Checks that `positions` (`n` u32) is the inverse of the members of a checked view: the
+/// position of the item at each position is that position. With the members a permutation
+/// (checked by [`CellsView::open`]), this makes `positions` one too.
+pub fn check_positions(view: &CellsView<'_>, positions: &[u8], n: usize) -> Result<(), String> {
+    if positions.len() != n * 4 {
+        return Err(format!("{} bytes for {n} items", positions.len()));
+    }
+    for pos in 0..n {
+        let m = view.member(pos) as usize;
+        let p = u32_at(positions, m) as usize;
+        if p != pos {
+            return Err(format!(
+                "item {m} is recorded at position {p}, but its row is at position {pos}"
+            ));
+        }
+    }
+    Ok(())
+}
+
+/// Checks the header of a cells section for `n` items of `stride` bytes and that the
+/// section has the size its cell count gives; returns the count and the parts. A pass that
+/// does not grow with `n` (the file's open runs it on a version 2 file).
+fn head(bytes: &[u8], n: usize, stride: usize) -> Result<(usize, Parts), String> {
+    if bytes.len() < HEAD {
+        return Err(format!("{} bytes, shorter than its header", bytes.len()));
+    }
+    let k = u32_at(bytes, 0) as usize;
+    let s = u32_at(bytes, 1) as usize;
+    if s != stride {
+        return Err(format!("stride {s}, the index's is {stride}"));
+    }
+    if k == 0 || k > MAX_CELLS || k > n {
+        return Err(format!("{k} cells for {n} items"));
+    }
+    if bytes[8..HEAD].iter().any(|&b| b != 0) {
+        return Err("header bytes past the stride are not zero".into());
+    }
+    let p = parts(k, n, stride).ok_or("sizes overflow")?;
+    if bytes.len() != p.rows.end {
+        return Err(format!(
+            "{} bytes; {k} cells of {n} items need {}",
+            bytes.len(),
+            p.rows.end
+        ));
+    }
+    Ok((k, p))
+}
+
+/// Checks the header and size of a cells section for `n` items of `stride` bytes, in time
+/// that does not grow with `n`.
+pub fn check_len(bytes: &[u8], n: usize, stride: usize) -> Result<(), String> {
+    head(bytes, n, stride).map(|_| ())
+}
+
 /// A checked view of a cells section inside a mapped index.
 #[derive(Clone, Copy)]
 pub struct CellsView<'a> {
@@ -169,34 +242,18 @@ fn u32_at(b: &[u8], i: usize) -> u32 {
 }
 
 impl<'a> CellsView<'a> {
-    /// Checks a cells section against the index it belongs to (`n` items, `stride`, and the
-    /// coordinate rows `coords`) and returns its view. Every field is checked: the sizes,
-    /// that cell starts rise from 0 to n, that members are every item exactly once, and
-    /// that each stored row equals its item's coordinate row. The pass is linear in the
-    /// section's size.
-    pub fn open(bytes: &'a [u8], n: usize, stride: usize, coords: &[u8]) -> Result<Self, String> {
-        if bytes.len() < HEAD {
-            return Err(format!("{} bytes, shorter than its header", bytes.len()));
-        }
-        let k = u32_at(bytes, 0) as usize;
-        let s = u32_at(bytes, 1) as usize;
-        if s != stride {
-            return Err(format!("stride {s}, the index's is {stride}"));
-        }
-        if k == 0 || k > MAX_CELLS || k > n {
-            return Err(format!("{k} cells for {n} items"));
-        }
-        if bytes[8..HEAD].iter().any(|&b| b != 0) {
-            return Err("header bytes past the stride are not zero".into());
-        }
-        let p = parts(k, n, stride).ok_or("sizes overflow")?;
-        if bytes.len() != p.rows.end {
-            return Err(format!(
-                "{} bytes; {k} cells of {n} items need {}",
-                bytes.len(),
-                p.rows.end
-            ));
-        }
+    /// Checks a cells section against the index it belongs to (`n` items, `stride`, and in
+    /// a version 1 file the coordinate rows `coords` it repeats) and returns its view. Every
+    /// field is checked: the sizes, that cell starts rise from 0 to n, that members are
+    /// every item exactly once, and, given `coords`, that each stored row equals its item's
+    /// coordinate row. The pass is linear in the section's size.
+    pub fn open(
+        bytes: &'a [u8],
+        n: usize,
+        stride: usize,
+        coords: Option<&[u8]>,
+    ) -> Result<Self, String> {
+        let (k, p) = head(bytes, n, stride)?;
         let view = CellsView {
             k,
             stride,
@@ -221,6 +278,9 @@ impl<'a> CellsView<'a> {
                 Some(_) => return Err(format!("item {m} is in more than one cell")),
                 None => return Err(format!("position {pos} names item {m}, past the last")),
             }
+            let Some(coords) = coords else {
+                continue;
+            };
             let want = coords.get(m * stride..(m + 1) * stride);
             if want != Some(&view.rows[pos * stride..(pos + 1) * stride]) {
                 return Err(format!(
@@ -247,6 +307,16 @@ impl<'a> CellsView<'a> {
             members: &bytes[p.members],
             rows: &bytes[p.rows],
         })
+    }
+
+    /// The member table: `n` u32, the item at each position.
+    pub(crate) fn members(&self) -> &'a [u8] {
+        self.members
+    }
+
+    /// Every coordinate row, in position order (`n × stride` bytes).
+    pub(crate) fn all_rows(&self) -> &'a [u8] {
+        self.rows
     }
 
     /// Number of cells.
@@ -319,7 +389,7 @@ mod tests {
         for (n, stride) in [(1, 8), (15, 8), (16, 16), (500, 32), (3000, 64)] {
             let coords = rows(n, stride);
             let bytes = build(&coords, stride, 7);
-            let view = CellsView::open(&bytes, n, stride, &coords).expect("valid");
+            let view = CellsView::open(&bytes, n, stride, Some(&coords)).expect("valid");
             assert_eq!(view.len(), cell_count(n));
             let mut all: Vec<u32> = (0..n).map(|p| view.member(p)).collect();
             all.sort_unstable();
@@ -358,7 +428,7 @@ mod tests {
         b[p.rows.start] ^= 1;
         cases.push((b, "is not item"));
         for (bytes, want) in cases {
-            let e = CellsView::open(&bytes, n, stride, &coords)
+            let e = CellsView::open(&bytes, n, stride, Some(&coords))
                 .err()
                 .expect("refused");
             assert!(e.contains(want), "{e:?} should mention {want:?}");
@@ -366,11 +436,36 @@ mod tests {
     }
 
     #[test]
+    fn positions_are_the_inverse_of_the_members_and_a_wrong_table_is_refused() {
+        let (n, stride) = (500, 8);
+        let coords = rows(n, stride);
+        let bytes = build(&coords, stride, 2);
+        let view = CellsView::open(&bytes, n, stride, None).expect("valid");
+        let pos = positions(view.members());
+        check_positions(&view, &pos, n).expect("the inverse");
+        for i in 0..n {
+            let p = u32_at(&pos, i) as usize;
+            assert_eq!(view.member(p) as usize, i);
+            assert_eq!(view.rows(p..p + 1), &coords[i * stride..(i + 1) * stride]);
+        }
+        // Two entries swapped: still a permutation, no longer the inverse.
+        let mut bad = pos.clone();
+        bad.copy_within(0..4, 8);
+        bad[0..4].copy_from_slice(&pos[8..12]);
+        let e = check_positions(&view, &bad, n).unwrap_err();
+        assert!(e.contains("is recorded at position"), "{e}");
+        let e = check_positions(&view, &pos[4..], n).unwrap_err();
+        assert!(e.contains("bytes for 500 items"), "{e}");
+        check_len(&bytes, n, stride).expect("its size");
+        assert!(check_len(&bytes, n, 16).is_err(), "another stride");
+    }
+
+    #[test]
     fn visit_order_is_by_centre_distance() {
         let (n, stride) = (2000, 8);
         let coords = rows(n, stride);
         let bytes = build(&coords, stride, 3);
-        let view = CellsView::open(&bytes, n, stride, &coords).unwrap();
+        let view = CellsView::open(&bytes, n, stride, Some(&coords)).unwrap();
         let mut q = [0u8; 64];
         q[..8].copy_from_slice(&coords[..8]);
         let mut order = Vec::new();

@@ -35,8 +35,11 @@ use crate::error::{Error, Result};
 
 /// Magic number at the start of every index file.
 pub const MAGIC: &[u8; 8] = b"WAYMARK\0";
-/// The format version this build writes and reads.
-pub const FORMAT_VERSION: u32 = 1;
+/// The format version this build writes.
+pub const FORMAT_VERSION: u32 = 2;
+/// The oldest format version this build reads (version 1: coordinates stored twice, ids
+/// always stored, the kd-tree over every coordinate; see DEVELOPERS.md).
+pub const OLDEST_FORMAT_VERSION: u32 = 1;
 /// Size of the fixed header.
 pub const HEADER_LEN: usize = 64;
 /// Number of slots in the section table.
@@ -68,19 +71,23 @@ pub enum SectionKind {
     IdOffsets = 7,
     /// Text ids, back to back.
     IdBytes = 8,
-    /// `n × stride` u8 landmark coordinates, saturated at 255.
+    /// `n × stride` u8 landmark coordinates in item order, saturated at 255 (format
+    /// version 1 only; version 2 keeps the rows once, in the cells section).
     Coords = 9,
     /// The kd-tree over the f32 coordinates, as a zero-copy archive.
     Tree = 10,
     /// The graph of a graph-metric index, as an edge list (`a b weight` lines, UTF-8).
     Graph = 11,
     /// The items partitioned into cells by their coordinates, each cell's rows together
-    /// (`index/cells.rs`); absent in files written before it existed.
+    /// (`index/cells.rs`); absent in version 1 files written before it existed. In version
+    /// 2 its rows are the only copy of the coordinates.
     Cells = 12,
+    /// `n` u32: the position of each item's row in the cells section (format version 2).
+    Positions = 13,
 }
 
 impl SectionKind {
-    const ALL: [SectionKind; 12] = [
+    const ALL: [SectionKind; 13] = [
         SectionKind::Meta,
         SectionKind::ItemOffsets,
         SectionKind::ItemBytes,
@@ -93,6 +100,7 @@ impl SectionKind {
         SectionKind::Tree,
         SectionKind::Graph,
         SectionKind::Cells,
+        SectionKind::Positions,
     ];
 
     fn from_u32(v: u32) -> Option<SectionKind> {
@@ -114,6 +122,7 @@ impl SectionKind {
             SectionKind::Tree => "kd-tree",
             SectionKind::Graph => "graph",
             SectionKind::Cells => "cells",
+            SectionKind::Positions => "positions",
         }
     }
 
@@ -440,13 +449,14 @@ fn remove_stale_partials(dir: &Path, dest_name: &str, own: &Path) {
     }
 }
 
-/// Reads and checks the header and section table of `bytes` (a whole index file).
+/// Reads and checks the header and section table of `bytes` (a whole index file); returns
+/// the file's format version and its sections.
 ///
-/// Checks the magic number, version, recorded length, both checksums, that every section
+/// Checks the magic number, version (from [`OLDEST_FORMAT_VERSION`] to [`FORMAT_VERSION`]), recorded length, both checksums, that every section
 /// lies inside the file on its alignment without overlapping another, that no kind appears
 /// twice, and the checksum of the small sections. Large sections are checked by
 /// [`verify_sections`] (`waymark inspect --verify`).
-pub fn read_table(path: &Path, bytes: &[u8]) -> Result<Vec<Section>> {
+pub fn read_table(path: &Path, bytes: &[u8]) -> Result<(u32, Vec<Section>)> {
     let bad = |reason: String| Error::refused(path, reason);
     let corrupt = |reason: String| Error::corrupt(path, reason);
     if bytes.len() < 8 || &bytes[0..8] != MAGIC {
@@ -463,9 +473,9 @@ pub fn read_table(path: &Path, bytes: &[u8]) -> Result<Vec<Section>> {
     let u32_at = |o: usize| u32::from_le_bytes(bytes[o..o + 4].try_into().expect("4 bytes"));
     let u64_at = |o: usize| u64::from_le_bytes(bytes[o..o + 8].try_into().expect("8 bytes"));
     let version = u32_at(8);
-    if version != FORMAT_VERSION {
+    if !(OLDEST_FORMAT_VERSION..=FORMAT_VERSION).contains(&version) {
         return Err(bad(format!(
-            "index format version {version} is not supported: this waymark reads version {FORMAT_VERSION}; rebuild the index with `waymark build`"
+            "index format version {version} is not supported: this waymark reads versions {OLDEST_FORMAT_VERSION} to {FORMAT_VERSION}; rebuild the index with `waymark build`"
         )));
     }
     let mut header = [0u8; HEADER_LEN];
@@ -525,7 +535,7 @@ pub fn read_table(path: &Path, bytes: &[u8]) -> Result<Vec<Section>> {
         }
         sections.push(s);
     }
-    Ok(sections)
+    Ok((version, sections))
 }
 
 fn check_crc(path: &Path, bytes: &[u8], s: &Section) -> Result<()> {

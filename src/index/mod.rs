@@ -18,6 +18,7 @@ mod build;
 pub mod cells;
 pub mod file;
 mod install;
+pub mod rows;
 pub mod tree;
 
 use std::fs::File;
@@ -34,6 +35,7 @@ pub use build::{
 };
 use file::{Section, SectionKind};
 pub use install::install_index;
+pub use rows::Rows;
 
 pub use crate::coords::coord_stride;
 
@@ -83,7 +85,8 @@ pub struct IndexMeta {
     pub dim: u32,
     /// Bytes per item in the coordinate section (`dim` rounded up for SIMD).
     pub stride: u32,
-    /// Dimension the kd-tree was compiled for (`dim` padded with zeros).
+    /// Dimension the kd-tree was compiled for: in format version 2 the first
+    /// [`tree::prefix_dims`] coordinates, in version 1 all `dim`, padded with zeros.
     pub tree_dim: u32,
     /// How coordinates were made (method and its reference items).
     pub embedding: crate::embed::Embedding,
@@ -95,6 +98,11 @@ pub struct IndexMeta {
     pub sample: u64,
     /// How ids are typed.
     pub ids: IdKind,
+    /// Integer ids that are consecutive are not stored (format version 2): item `i`'s id is
+    /// `ids_from + i` (for the default ids, the 0-based record numbers, `0`). Absent when the
+    /// ids are stored.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub ids_from: Option<i64>,
     /// Default number of candidates re-ranked per query.
     pub candidates: u32,
     /// Default space in which candidates are ranked.
@@ -122,16 +130,22 @@ pub enum IdRef<'a> {
 pub struct Index {
     path: PathBuf,
     map: Mmap,
+    version: u32,
     meta: IndexMeta,
     sections: Vec<Section>,
     items: Strings,
     keys: Option<Strings>,
     id_ints: Option<Range<usize>>,
     id_text: Option<Strings>,
-    coords: Range<usize>,
+    /// The coordinates section (format version 1).
+    coords: Option<Range<usize>>,
+    /// The positions section (format version 2).
+    positions: Option<Range<usize>>,
     tree: Range<usize>,
     tree_checked: OnceLock<std::result::Result<(), String>>,
     cells: Option<Range<usize>>,
+    /// The first-use check of the cells (and in version 2 of the positions: the layout of
+    /// the rows).
     cells_checked: OnceLock<std::result::Result<(), String>>,
     graph: Option<Range<usize>>,
     metric: OnceLock<Result<AnyMetric>>,
@@ -309,7 +323,7 @@ impl Index {
             path: path.to_path_buf(),
             source,
         })?;
-        let sections = file::read_table(path, &map)?;
+        let (version, sections) = file::read_table(path, &map)?;
         let corrupt = |reason: String| Error::corrupt(path, reason);
         let find = |k: SectionKind| {
             sections
@@ -351,16 +365,37 @@ impl Index {
             Some(_) => Some(strings(SectionKind::KeyOffsets, SectionKind::KeyBytes)?),
             None => None,
         };
-        let (id_ints, id_text) = match meta.ids {
-            IdKind::Int => {
+        let (id_ints, id_text) = match (meta.ids, meta.ids_from) {
+            (IdKind::Int, None) => {
                 let r = need(SectionKind::IdInts)?;
                 expect_len(SectionKind::IdInts, &r, n.checked_mul(8))?;
                 (Some(r), None)
             }
-            IdKind::Text => (
+            (IdKind::Int, Some(from)) => {
+                if version < 2 {
+                    return Err(corrupt(format!(
+                        "ids recorded as consecutive from {from}, which format version {version} does not have"
+                    )));
+                }
+                if find(SectionKind::IdInts).is_some() {
+                    return Err(corrupt(format!(
+                        "ids recorded as consecutive from {from}, but an ids section is stored too"
+                    )));
+                }
+                if from.checked_add(meta.n as i64 - 1).is_none() {
+                    return Err(corrupt(format!(
+                        "ids consecutive from {from} pass the largest id for {n} items"
+                    )));
+                }
+                (None, None)
+            }
+            (IdKind::Text, None) => (
                 None,
                 Some(strings(SectionKind::IdOffsets, SectionKind::IdBytes)?),
             ),
+            (IdKind::Text, Some(_)) => {
+                return Err(corrupt("text ids recorded as consecutive integers".into()))
+            }
         };
         let dim = meta.dim as usize;
         if dim == 0 || dim > crate::embed::MAX_DIM || meta.embedding.dim() != dim {
@@ -381,8 +416,13 @@ impl Index {
                 "coordinate scale {scale} is not a positive number of at most {MAX_SCALE:e}"
             )));
         }
+        let tree_dims = if version >= 2 {
+            tree::prefix_dims(dim)
+        } else {
+            dim
+        };
         if meta.stride as usize != coord_stride(dim)
-            || meta.tree_dim as usize != tree::tree_dim(dim)
+            || meta.tree_dim as usize != tree::tree_dim(tree_dims)
         {
             return Err(corrupt(
                 "coordinate layout does not match its dimension".into(),
@@ -391,12 +431,31 @@ impl Index {
         meta.embedding
             .check(meta.n)
             .map_err(|m| corrupt(format!("embedding: {m}")))?;
-        let coords = need(SectionKind::Coords)?;
-        expect_len(
-            SectionKind::Coords,
-            &coords,
-            n.checked_mul(meta.stride as usize),
-        )?;
+        let stride = meta.stride as usize;
+        let cells = find(SectionKind::Cells);
+        let (coords, positions) = if version >= 2 {
+            // The rows live in the cells section, mapped by the positions section.
+            if find(SectionKind::Coords).is_some() {
+                return Err(corrupt(
+                    "a coordinates section in a format version 2 file, whose rows are in the cells section".into(),
+                ));
+            }
+            let c = need(SectionKind::Cells)?;
+            cells::check_len(&map[c.clone()], n, stride)
+                .map_err(|e| corrupt(format!("section cells is refused: {e}")))?;
+            let p = need(SectionKind::Positions)?;
+            expect_len(SectionKind::Positions, &p, n.checked_mul(4))?;
+            (None, Some(p))
+        } else {
+            if find(SectionKind::Positions).is_some() {
+                return Err(corrupt(
+                    "a positions section in a format version 1 file".into(),
+                ));
+            }
+            let coords = need(SectionKind::Coords)?;
+            expect_len(SectionKind::Coords, &coords, n.checked_mul(stride))?;
+            (Some(coords), None)
+        };
         let tree = need(SectionKind::Tree)?;
         if meta.metric_spec.kind() != meta.metric {
             return Err(corrupt(format!(
@@ -407,7 +466,6 @@ impl Index {
         }
         check_metric_spec(&meta, &map, &items, keys.as_ref()).map_err(corrupt)?;
         let graph = find(SectionKind::Graph);
-        let cells = find(SectionKind::Cells);
         if (meta.metric == MetricKind::Graph) != graph.is_some() {
             return Err(corrupt(
                 "a graph section belongs to graph-metric indexes only".into(),
@@ -416,6 +474,7 @@ impl Index {
         Ok(Index {
             path: path.to_path_buf(),
             map,
+            version,
             meta,
             sections,
             items,
@@ -423,6 +482,7 @@ impl Index {
             id_ints,
             id_text,
             coords,
+            positions,
             tree,
             tree_checked: OnceLock::new(),
             cells,
@@ -508,6 +568,11 @@ impl Index {
         self.meta.n == 0
     }
 
+    /// The format version of the file (1 or 2; see [`file::FORMAT_VERSION`]).
+    pub fn format_version(&self) -> u32 {
+        self.version
+    }
+
     /// Size of the file in bytes.
     pub fn file_len(&self) -> usize {
         self.map.len()
@@ -522,6 +587,7 @@ impl Index {
     pub fn verify(&self) -> Result<()> {
         file::verify_sections(&self.path, &self.map, &self.sections)?;
         self.cells()?;
+        self.check_rows()?;
         self.tree().map(|_| ())
     }
 
@@ -564,16 +630,44 @@ impl Index {
         } else if let Some(t) = &self.id_text {
             IdRef::Text(self.string(t, i))
         } else {
-            IdRef::Int(i as i64)
+            // Checked at open: `ids_from + i` fits for every item.
+            IdRef::Int(self.meta.ids_from.unwrap_or(0).wrapping_add(i as i64))
         }
     }
 
-    /// The u8 coordinates, `len() × stride` bytes, row-major.
-    pub fn coords(&self) -> &[u8] {
-        &self.map[self.coords.clone()]
+    /// The u8 coordinate rows (`stride` bytes per item), as the file keeps them; see
+    /// [`Rows`]. Not checked by this call: [`Index::check_rows`] checks the tables that map
+    /// items to rows (every access is bounds-checked either way, so a damaged table gives
+    /// wrong rows, never a crash).
+    pub fn rows(&self) -> Rows<'_> {
+        if let Some(c) = &self.coords {
+            return Rows::in_item_order(&self.map[c.clone()], self.stride());
+        }
+        let (n, stride) = (self.len(), self.stride());
+        let cells = self
+            .cells
+            .as_ref()
+            .and_then(|r| cells::CellsView::open_unchecked(&self.map[r.clone()], n, stride));
+        let positions = self.positions.as_ref().map(|r| &self.map[r.clone()]);
+        match (cells, positions) {
+            (Some(c), Some(p)) => Rows::permuted(c.all_rows(), stride, c.members(), p),
+            // Not reached: open requires both in a version 2 file.
+            _ => Rows::in_item_order(&[], stride),
+        }
     }
 
-    /// Bytes per row of [`Index::coords`].
+    /// Checks, once, the tables through which [`Index::rows`] finds an item's row: in a
+    /// format version 2 file the cells section and the positions section (checksums, the
+    /// members a permutation of the items, the positions its inverse); nothing to check in
+    /// a version 1 file. Every query checks this first.
+    pub fn check_rows(&self) -> Result<()> {
+        if self.version >= 2 {
+            self.cells()?;
+        }
+        Ok(())
+    }
+
+    /// Bytes per coordinate row ([`Index::rows`]).
     pub fn stride(&self) -> usize {
         self.meta.stride as usize
     }
@@ -668,8 +762,20 @@ impl Index {
         let bytes = &self.map[range];
         let (n, stride) = (self.len(), self.stride());
         let checked = self.cells_checked.get_or_init(|| {
+            let coords = self.coords.as_ref().map(|c| &self.map[c.clone()]);
+            let Some(positions) = self.positions.clone() else {
+                return self.check_section(SectionKind::Cells, bytes, || {
+                    cells::CellsView::open(bytes, n, stride, coords).map(|_| ())
+                });
+            };
+            let positions = &self.map[positions];
             self.check_section(SectionKind::Cells, bytes, || {
-                cells::CellsView::open(bytes, n, stride, self.coords()).map(|_| ())
+                cells::CellsView::open(bytes, n, stride, None).map(|_| ())
+            })?;
+            self.check_section(SectionKind::Positions, positions, || {
+                let view = cells::CellsView::open_unchecked(bytes, n, stride)
+                    .ok_or("the cells section does not fit")?;
+                cells::check_positions(&view, positions, n)
             })
         });
         self.checked(checked)?;
@@ -702,10 +808,16 @@ impl Index {
     /// every field kiddo's queries trust (see `tree.rs`), a pass linear in the tree's size.
     pub fn tree(&self) -> Result<tree::TreeView<'_>> {
         let bytes = &self.map[self.tree.clone()];
-        let dim = self.meta.dim as usize;
+        let dim = self.tree_dims();
+        // A version 2 tree holds the rows' first coordinates: the rows are checked first,
+        // then every point against its item's row.
+        self.check_rows()?;
         let checked = self.tree_checked.get_or_init(|| {
             self.check_section(SectionKind::Tree, bytes, || {
-                tree::TreeView::open(bytes, dim, self.len()).map(|_| ())
+                let rows = self.rows();
+                let row = |i: usize| rows.row(i);
+                let points: Option<tree::RowOf<'_>> = (self.version >= 2).then_some(&row);
+                tree::TreeView::open(bytes, dim, self.len(), points).map(|_| ())
             })
         });
         self.checked(checked)?;
@@ -713,6 +825,23 @@ impl Index {
         // with this `dim` and `len()`: `self.tree`, `meta` and the read-only mapping are fixed
         // when the index is opened and never change, so they are the bytes it checked.
         Ok(unsafe { tree::TreeView::validated(bytes, dim, self.len()) })
+    }
+
+    /// The coordinates the kd-tree holds: the first [`tree::prefix_dims`] of the u8 rows in
+    /// a format version 2 file, every coordinate unquantised (f32) in a version 1 file.
+    pub fn tree_dims(&self) -> usize {
+        let dim = self.meta.dim as usize;
+        if self.version >= 2 {
+            tree::prefix_dims(dim)
+        } else {
+            dim
+        }
+    }
+
+    /// Whether the kd-tree holds the rows' first coordinates (format version 2) rather than
+    /// the unquantised ones (version 1).
+    pub fn tree_holds_rows(&self) -> bool {
+        self.version >= 2
     }
 }
 

@@ -1,7 +1,14 @@
-//! The kd-tree over the f32 landmark coordinates, stored as a zero-copy kiddo archive.
+//! The kd-tree, stored as a zero-copy kiddo archive.
+//!
+//! In format version 2 it holds the first [`prefix_dims`] coordinates of each item's u8
+//! row (at most [`TREE_PREFIX`]), as f32: small (36 bytes an item) and, since a distance
+//! over a prefix of the coordinates is at most the distance over all of them in L1, L2
+//! and L∞, a filter from which the search finds the exact best rows
+//! (`search/candidates.rs`). In version 1 it held every unquantised coordinate (260 bytes
+//! an item at 64 coordinates), which files of that version still carry.
 //!
 //! kiddo's dimension is a compile-time constant, so the tree is built for the smallest size
-//! in [`TREE_DIMS`] that holds the embedding and the extra coordinates are zero, which
+//! in [`TREE_DIMS`] that holds its coordinates and the extra coordinates are zero, which
 //! changes no L1, L2 or L∞ distance.
 
 use std::num::NonZeroUsize;
@@ -14,7 +21,16 @@ use crate::coords::Space;
 /// The dimensions a tree can be compiled for.
 pub const TREE_DIMS: [usize; 6] = [2, 4, 8, 16, 32, 64];
 
-/// The tree dimension used for an embedding of dimension `dim`.
+/// Most coordinates a format version 2 tree holds.
+pub const TREE_PREFIX: usize = 8;
+
+/// The coordinates a format version 2 tree holds for an embedding of dimension `dim`: the
+/// first `min(dim, TREE_PREFIX)`.
+pub fn prefix_dims(dim: usize) -> usize {
+    dim.min(TREE_PREFIX)
+}
+
+/// The tree dimension used for `dim` coordinates.
 pub fn tree_dim(dim: usize) -> usize {
     TREE_DIMS
         .into_iter()
@@ -210,9 +226,18 @@ fn usize_of(v: &rkyv::primitive::ArchivedUsize) -> usize {
     v.to_native() as usize
 }
 
-/// Checks an archived tree of dimension `K` for an index of `n` items whose embedding has
-/// `dim` coordinates (the rest are zero). See the comment above `Layout`.
-fn check_k<const K: usize>(bytes: &[u8], dim: usize, n: usize) -> Result<(), String> {
+/// The row of each item, whose first coordinates a tree's points must equal.
+pub type RowOf<'r> = &'r dyn Fn(usize) -> &'r [u8];
+
+/// Checks an archived tree of dimension `K` for an index of `n` items whose tree holds
+/// `dim` coordinates (the rest are zero); with `rows`, every point's coordinates must be
+/// its item's row's first `dim` bytes. See the comment above `Layout`.
+fn check_k<const K: usize>(
+    bytes: &[u8],
+    dim: usize,
+    n: usize,
+    rows: Option<RowOf<'_>>,
+) -> Result<(), String> {
     use kiddo::kd_tree::KdTreeAccessor;
 
     let t =
@@ -340,6 +365,7 @@ fn check_k<const K: usize>(bytes: &[u8], dim: usize, n: usize) -> Result<(), Str
                     return Err(format!("leaf {leaf}: item {item} has coordinate {d} = {x}"));
                 }
             }
+
             // The path from the root: level v splits on coordinate v mod K at stem
             // (leaves + leaf) >> (depth - v); bit depth - 1 - v of `leaf` says right.
             for v in 0..depth {
@@ -373,21 +399,50 @@ fn check_k<const K: usize>(bytes: &[u8], dim: usize, n: usize) -> Result<(), Str
             usize_of(&l.max_leaf_len)
         ));
     }
+    // Last, on a tree whose shape holds: each point is its item's row's first coordinates.
+    if let Some(row_of) = rows {
+        for (leaf, e) in extents.iter().enumerate() {
+            let (offset, len) = (usize_of(&e.0), usize_of(&e.1));
+            let end = offset + leaf_bytes_len(len, K).expect("checked above");
+            for_each_point::<K>(&arena[offset..end], len, |item, point| {
+                let row = row_of(item);
+                let same = row.len() >= dim
+                    && row[..dim]
+                        .iter()
+                        .zip(point.iter())
+                        .all(|(&r, &x)| f32::from(r) == x);
+                if same {
+                    Ok(())
+                } else {
+                    Err(format!(
+                        "leaf {leaf}: item {item}'s point is not the first {dim} coordinates of its row"
+                    ))
+                }
+            })?;
+        }
+    }
     Ok(())
 }
 
 impl<'a> TreeView<'a> {
     /// Validates the archive (rkyv's bytecheck, then every field kiddo's queries trust; see
-    /// the comment above `Layout`) for an index of `n` items and returns a view.
-    pub fn open(bytes: &'a [u8], dim: usize, n: usize) -> Result<TreeView<'a>, String> {
+    /// the comment above `Layout`) for an index of `n` items whose tree holds `dim`
+    /// coordinates and returns a view; with `rows` (a format version 2 tree), every point
+    /// must also be the first `dim` bytes of its item's row.
+    pub fn open(
+        bytes: &'a [u8],
+        dim: usize,
+        n: usize,
+        rows: Option<RowOf<'_>>,
+    ) -> Result<TreeView<'a>, String> {
         let tree_dim = tree_dim(dim);
         match tree_dim {
-            2 => check_k::<2>(bytes, dim, n),
-            4 => check_k::<4>(bytes, dim, n),
-            8 => check_k::<8>(bytes, dim, n),
-            16 => check_k::<16>(bytes, dim, n),
-            32 => check_k::<32>(bytes, dim, n),
-            _ => check_k::<64>(bytes, dim, n),
+            2 => check_k::<2>(bytes, dim, n, rows),
+            4 => check_k::<4>(bytes, dim, n, rows),
+            8 => check_k::<8>(bytes, dim, n, rows),
+            16 => check_k::<16>(bytes, dim, n, rows),
+            32 => check_k::<32>(bytes, dim, n, rows),
+            _ => check_k::<64>(bytes, dim, n, rows),
         }?;
         Ok(TreeView {
             bytes,
@@ -427,17 +482,30 @@ impl<'a> TreeView<'a> {
     /// The `count` nearest points to `query` (length `dim`) in `space`, as item indices
     /// with the embedded distance (squared for L2), nearest first.
     pub fn nearest(&self, query: &[f32], count: usize, space: Space, out: &mut Vec<(u32, f32)>) {
+        self.nearest_within(query, count, None, space, out)
+    }
+
+    /// [`TreeView::nearest`], keeping only points at distance at most `radius` (squared for
+    /// L2) when one is given: kiddo's same nearest-n search, bounded.
+    pub fn nearest_within(
+        &self,
+        query: &[f32],
+        count: usize,
+        radius: Option<f32>,
+        space: Space,
+        out: &mut Vec<(u32, f32)>,
+    ) {
         out.clear();
         let Some(count) = NonZeroUsize::new(count) else {
             return;
         };
         match self.tree_dim {
-            2 => self.nearest_k::<2>(query, count, space, out),
-            4 => self.nearest_k::<4>(query, count, space, out),
-            8 => self.nearest_k::<8>(query, count, space, out),
-            16 => self.nearest_k::<16>(query, count, space, out),
-            32 => self.nearest_k::<32>(query, count, space, out),
-            _ => self.nearest_k::<64>(query, count, space, out),
+            2 => self.nearest_k::<2>(query, count, radius, space, out),
+            4 => self.nearest_k::<4>(query, count, radius, space, out),
+            8 => self.nearest_k::<8>(query, count, radius, space, out),
+            16 => self.nearest_k::<16>(query, count, radius, space, out),
+            32 => self.nearest_k::<32>(query, count, radius, space, out),
+            _ => self.nearest_k::<64>(query, count, radius, space, out),
         }
     }
 
@@ -445,6 +513,7 @@ impl<'a> TreeView<'a> {
         &self,
         query: &[f32],
         count: NonZeroUsize,
+        radius: Option<f32>,
         space: Space,
         out: &mut Vec<(u32, f32)>,
     ) {
@@ -456,13 +525,30 @@ impl<'a> TreeView<'a> {
         let mut q = [0f32; K];
         let d = self.dim.min(K).min(query.len());
         q[..d].copy_from_slice(&query[..d]);
-        let res = match space {
-            Space::L1 => t.query(&q).nearest_n::<Manhattan<f32>>(count).execute(),
-            Space::L2 => t
+        // A bounded nearest-n runs the same search as an unbounded one (kiddo's nearest_n is
+        // nearest_n_within with the largest radius).
+        let res = match (space, radius) {
+            (Space::L1, None) => t.query(&q).nearest_n::<Manhattan<f32>>(count).execute(),
+            (Space::L1, Some(r)) => t
+                .query(&q)
+                .nearest_n::<Manhattan<f32>>(count)
+                .within::<Manhattan<f32>>(r)
+                .execute(),
+            (Space::L2, None) => t
                 .query(&q)
                 .nearest_n::<SquaredEuclidean<f32>>(count)
                 .execute(),
-            Space::Linf => t.query(&q).nearest_n::<Chebyshev<f32>>(count).execute(),
+            (Space::L2, Some(r)) => t
+                .query(&q)
+                .nearest_n::<SquaredEuclidean<f32>>(count)
+                .within::<SquaredEuclidean<f32>>(r)
+                .execute(),
+            (Space::Linf, None) => t.query(&q).nearest_n::<Chebyshev<f32>>(count).execute(),
+            (Space::Linf, Some(r)) => t
+                .query(&q)
+                .nearest_n::<Chebyshev<f32>>(count)
+                .within::<Chebyshev<f32>>(r)
+                .execute(),
         };
         out.extend(res.into_iter().map(|r| (r.item, r.distance)));
     }
@@ -609,6 +695,36 @@ mod tests {
         }
     }
 
+    /// A tree over the rows' first coordinates passes the check against those rows, and is
+    /// refused against rows that differ in one byte of the prefix (not past it).
+    #[test]
+    fn a_tree_is_checked_against_the_rows_it_was_built_from() {
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(5);
+        let (n, stride) = (300, 16);
+        let mut rows: Vec<u8> = (0..n * stride).map(|_| rng.gen_range(0..=255)).collect();
+        let dim = prefix_dims(12);
+        let pre: Vec<f32> = rows
+            .chunks_exact(stride)
+            .flat_map(|r| r[..dim].iter().map(|&b| f32::from(b)))
+            .collect();
+        let bytes = build(&pre, dim).expect("build");
+        let mut aligned = rkyv::util::AlignedVec::<128>::new();
+        aligned.extend_from_slice(&bytes);
+        let check = |rows: &[u8]| {
+            let row = |i: usize| &rows[i * stride..(i + 1) * stride];
+            TreeView::open(&aligned, dim, n, Some(&row)).map(|_| ())
+        };
+        check(&rows).expect("the rows it was built from");
+        rows[7 * stride + dim] ^= 1;
+        check(&rows).expect("a byte past the prefix is not in the tree");
+        rows[7 * stride + 3] ^= 1;
+        let e = check(&rows).unwrap_err();
+        assert!(
+            e.contains("item 7's point is not the first 8 coordinates of its row"),
+            "{e}"
+        );
+    }
+
     /// Trees kiddo builds pass the check, whatever n, dimension and duplicates.
     #[test]
     fn every_tree_kiddo_builds_passes_the_check() {
@@ -624,13 +740,13 @@ mod tests {
                 let bytes = build(&coords, dim).expect("build");
                 let mut aligned = rkyv::util::AlignedVec::<128>::new();
                 aligned.extend_from_slice(&bytes);
-                let view = TreeView::open(&aligned, dim, n)
+                let view = TreeView::open(&aligned, dim, n, None)
                     .unwrap_or_else(|e| panic!("n = {n}, dim = {dim}: {e}"));
                 let mut out = Vec::new();
                 view.nearest(&coords[..dim], n.min(5), Space::L2, &mut out);
                 assert_eq!(out.len(), n.min(5));
                 assert_eq!(out[0].1, 0.0, "the first point is its own nearest");
-                assert!(TreeView::open(&aligned, dim, n + 1).is_err());
+                assert!(TreeView::open(&aligned, dim, n + 1, None).is_err());
             }
         }
     }

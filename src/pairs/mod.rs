@@ -130,7 +130,8 @@ impl<'a> SelfJoin<'a> {
         let keys = index.keys();
         let n = index.len();
         let (stride, dim) = (index.stride(), index.meta().dim as usize);
-        let coords = index.coords();
+        index.check_rows()?;
+        let coords = index.rows().in_item_order_table();
         let by_length = metric.bounded_by_char_counts();
         let with_counts = by_length && bound.whole;
         let lens: Vec<u32> = (0..n)

@@ -8,7 +8,9 @@
 //!   [`super::SearchParams::visit`] rows are compared;
 //! - **scan**: one pass over every item's u8 coordinates ([`crate::coords::scan`]); many
 //!   queries share the pass tile by tile ([`Searcher::score_block`]);
-//! - **tree**: kiddo's exact `nearest_n` on the stored kd-tree over the f32 coordinates.
+//! - **tree**: the same candidates as the scan, found through the stored kd-tree over the
+//!   rows' first coordinates ([`crate::index::tree`]; an index of format version 1: kiddo's
+//!   exact `nearest_n` over its f32 coordinates).
 //!
 //! The scan and the cells pick the best `C` off the counting histogram filled in the same
 //! pass ([`crate::coords::select`]), not with a heap: coordinates are small integers, so
@@ -16,9 +18,10 @@
 
 use super::Searcher;
 use crate::coords::scan::{score_rows, HIST_BINS};
-use crate::coords::select::select_best;
+use crate::coords::select::{select_best, select_best_mapped};
 use crate::coords::Space;
 use crate::error::Result;
+use crate::index::Rows;
 
 /// Queries whose coordinates are scored together, tile by tile, in one pass over the stored
 /// rows ([`Searcher::search_many`], [`Searcher::answer_many`]).
@@ -52,9 +55,15 @@ impl Scratch {
         self.hist.resize(HIST_BINS, 0);
     }
 
-    /// Picks the `c` best scored rows into `picked`.
-    pub(super) fn select(&mut self, c: usize) {
-        select_best(&self.scores, c, &self.hist, &mut self.picked);
+    /// Picks the `c` best scored rows of a pass over `rows` (in their storage order) into
+    /// `picked` as (score, item), by (score, item).
+    pub(super) fn select(&mut self, c: usize, rows: &Rows<'_>) {
+        if rows.in_order() {
+            select_best(&self.scores, c, &self.hist, &mut self.picked);
+        } else {
+            let item = |p| rows.item_at(p);
+            select_best_mapped(&self.scores, c, &self.hist, &mut self.picked, item);
+        }
     }
 }
 
@@ -63,9 +72,16 @@ impl Searcher<'_> {
     /// nearest first, in `scratch.picked` as (score, item).
     pub(super) fn scan_candidates(&self, q: &[u8; 64], c: usize, space: Space, s: &mut Scratch) {
         s.reset(self.index.len());
-        let (coords, stride) = (self.index.coords(), self.index.stride());
-        score_rows(coords, stride, q, space, &mut s.scores, &mut s.hist);
-        s.select(c);
+        let rows = self.index.rows();
+        score_rows(
+            rows.stored(),
+            rows.stride(),
+            q,
+            space,
+            &mut s.scores,
+            &mut s.hist,
+        );
+        s.select(c, &rows);
     }
 
     /// Scores the rows of the cells nearest the query (cells in increasing distance of their
@@ -109,7 +125,7 @@ impl Searcher<'_> {
                 break;
             }
         }
-        s.select(c);
+        select_best(&s.scores, c, &s.hist, &mut s.picked);
         // Scores are numbered in visiting order: back to cell positions, then to items
         // (the member table is read at scattered places: positions are made first and
         // fetched ahead).
@@ -128,20 +144,66 @@ impl Searcher<'_> {
         Ok(())
     }
 
-    /// The `c` items nearest the query's exact coordinates by the kd-tree, into
-    /// `scratch.picked` in order.
+    /// The `c` candidates of the kd-tree, into `scratch.picked` in order.
+    ///
+    /// A format version 2 tree holds the first coordinates of the rows (`small`): a score over
+    /// them is at most the score over the whole row in L1, squared L2 and L∞. The `m`
+    /// nearest by the prefix (m = max(2c, 64)) are scored whole; unless the m-th prefix score
+    /// already exceeds the c-th best whole score S, every point within S by the prefix is
+    /// taken and scored whole (an item farther than S by the prefix is farther than S
+    /// whole). The candidates are then the scan's: the `c` best rows by (score, item). A
+    /// version 1 tree gives the `c` nearest by the query's unquantised coordinates `exact`.
     pub(super) fn tree_candidates(
         &self,
+        small: &[u8; 64],
         exact: &[f32; 64],
         c: usize,
         space: Space,
         s: &mut Scratch,
     ) -> Result<()> {
         let tree = self.index.tree()?;
-        let dim = self.index.meta().dim as usize;
-        tree.nearest(&exact[..dim], c, space, &mut s.tree_out);
+        let dim = self.index.tree_dims();
         s.picked.clear();
-        s.picked.extend(s.tree_out.iter().map(|&(i, _)| (0, i)));
+        if !self.index.tree_holds_rows() {
+            tree.nearest(&exact[..dim], c, space, &mut s.tree_out);
+            s.picked.extend(s.tree_out.iter().map(|&(i, _)| (0, i)));
+            return Ok(());
+        }
+        let n = self.index.len();
+        let c = c.min(n);
+        if c == 0 {
+            return Ok(());
+        }
+        let rows = self.index.rows();
+        let q: Vec<f32> = small[..dim].iter().map(|&b| f32::from(b)).collect();
+        let m = c.saturating_mul(2).max(64).min(n);
+        let mut radius = None;
+        loop {
+            // Within a radius, every point inside it.
+            let count = if radius.is_some() { n } else { m };
+            tree.nearest_within(&q, count, radius, space, &mut s.tree_out);
+            s.picked.clear();
+            s.picked.extend(
+                s.tree_out
+                    .iter()
+                    .map(|&(i, _)| (crate::coords::score(rows.row(i as usize), small, space), i)),
+            );
+            let kth = if s.picked.len() > c {
+                s.picked.select_nth_unstable(c - 1);
+                s.picked.truncate(c);
+                s.picked[c - 1].0
+            } else {
+                s.picked.iter().map(|p| p.0).max().unwrap_or(0)
+            };
+            // Prefix scores are whole numbers below 2^24 (at most 8 · 255² in L2), exact in
+            // f32; an item not returned has a prefix score at least the m-th's.
+            let last = s.tree_out.last().map_or(f32::INFINITY, |&(_, d)| d);
+            if m >= n || radius.is_some() || last > kth as f32 {
+                break;
+            }
+            radius = Some(kth as f32);
+        }
+        s.picked.sort_unstable();
         Ok(())
     }
 
@@ -153,8 +215,8 @@ impl Searcher<'_> {
     /// [`score_rows`] call per query, the coordinate table is read once per block.
     pub(super) fn score_block(&self, qs: &[[u8; 64]], space: Space, s: &mut [Scratch]) {
         let n = self.index.len();
-        let coords = self.index.coords();
-        let stride = self.index.stride();
+        let rows = self.index.rows();
+        let (coords, stride) = (rows.stored(), rows.stride());
         for sc in s.iter_mut().take(qs.len()) {
             sc.reset(n);
         }

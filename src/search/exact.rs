@@ -238,8 +238,9 @@ impl Searcher<'_> {
                     .map(|i| b.counts(self.keys.get(i)))
                     .collect()
             });
+            let rows = self.index.rows().in_item_order_table();
             let cols = Columns::build(columns::Parts {
-                coords: self.index.coords(),
+                coords: &rows,
                 stride: self.index.stride(),
                 dim: self.index.meta().dim as usize,
                 counts: counts.as_deref(),

@@ -167,7 +167,9 @@ impl<'a> Searcher<'a> {
             CandidateSource::Cells => {
                 self.cells_candidates(&pq.small, c, p.visit, p.space, scratch)?
             }
-            CandidateSource::Tree => self.tree_candidates(&exact, c, p.space, scratch)?,
+            CandidateSource::Tree => {
+                self.tree_candidates(&pq.small, &exact, c, p.space, scratch)?
+            }
         }
         self.rerank(&pq, p.k, &scratch.picked)
     }
@@ -194,7 +196,8 @@ impl<'a> Searcher<'a> {
     }
 
     /// Checks that `req` can be answered on this index (parameters in range, a lower bound
-    /// for exact requests), without running a query.
+    /// for exact requests, and, once per index, the tables that map items to their
+    /// coordinate rows: [`Index::check_rows`]), without running a query.
     pub fn check(&self, req: &Request) -> Result<()> {
         let k = match *req {
             Request::Approximate(p) => {
@@ -223,7 +226,8 @@ impl<'a> Searcher<'a> {
         if !matches!(req, Request::Approximate(_)) {
             self.require_bound()?;
         }
-        Ok(())
+        // The tables that map items to their coordinate rows, checked once.
+        self.index.check_rows()
     }
 
     /// Answers one request.
@@ -310,7 +314,7 @@ impl<'a> Searcher<'a> {
             .iter()
             .zip(s.iter_mut())
             .map(|(pq, sc)| {
-                sc.select(c);
+                sc.select(c, &self.index.rows());
                 self.rerank(pq, p.k, &sc.picked)
             })
             .collect()
@@ -328,9 +332,9 @@ impl<'a> Searcher<'a> {
         }
         let key = self.keys.get(i).to_vec();
         let q = self.index.metric()?.prepare(&key);
-        let (stride, dim) = (self.index.stride(), self.index.meta().dim as usize);
+        let dim = self.index.meta().dim as usize;
         let mut small = [0u8; 64];
-        let row = self.index.coords().get(i * stride..i * stride + dim);
+        let row = self.index.rows().row(i).get(..dim);
         small[..dim].copy_from_slice(row.unwrap_or(&[0; 64][..dim]));
         Ok(Prepared { key, q, small })
     }
@@ -404,7 +408,7 @@ impl<'a> Searcher<'a> {
             .map(|(pq, sc)| {
                 let pq = pq?;
                 match p.source {
-                    CandidateSource::Scan => sc.select(c),
+                    CandidateSource::Scan => sc.select(c, &self.index.rows()),
                     _ => self.cells_candidates(&pq.small, c, p.visit, p.space, sc)?,
                 }
                 self.rerank(&pq, p.k, &sc.picked)

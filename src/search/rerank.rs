@@ -83,8 +83,7 @@ impl Searcher<'_> {
     /// Measures the candidates one at a time, in the order given, skipping those whose
     /// lower bound exceeds the k-th distance held.
     fn rerank_each(&self, q: &AnyQuery, small: &[u8; 64], k: usize, cands: &[(u32, u32)]) -> Found {
-        let stride = self.index.stride();
-        let coords = self.index.coords();
+        let rows = self.index.rows();
         let bound = self.bound;
         let mut best: Vec<Neighbor> = Vec::with_capacity(k + 1);
         let mut distances = 0;
@@ -95,12 +94,13 @@ impl Searcher<'_> {
         for (j, &(_, i)) in cands.iter().enumerate() {
             if let Some(&(_, f)) = cands.get(j + 2 * AHEAD) {
                 self.keys.prefetch_offsets(f as usize);
-                if let Some(r) = coords.get(f as usize * stride..) {
-                    crate::cpu::prefetch(r.as_ptr());
-                }
+                rows.prefetch_position(f as usize);
             }
             if let Some(&(_, f)) = cands.get(j + AHEAD) {
                 self.keys.prefetch_bytes(f as usize);
+                if !rows.in_order() {
+                    rows.prefetch_row(f as usize);
+                }
             }
             let iu = i as usize;
             let full = best.len() == k;
@@ -110,7 +110,7 @@ impl Searcher<'_> {
                 f64::INFINITY
             };
             if let (true, Some(b)) = (full, bound) {
-                let row = coords.get(iu * stride..iu * stride + stride).unwrap_or(&[]);
+                let row = rows.row(iu);
                 let diff = score(row, small, Space::Linf).min(255) as u8;
                 if b.lower(diff) > kth {
                     pruned += 1;

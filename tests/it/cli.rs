@@ -201,7 +201,7 @@ fn inspect_reports_what_the_index_holds_and_verifies() {
     assert_eq!(v["meta"]["seed"], 9);
     assert_eq!(v["meta"]["metric"], "levenshtein");
     assert_eq!(v["meta"]["blank_skipped"], 1);
-    assert_eq!(v["format_version"], 1);
+    assert_eq!(v["format_version"], 2);
     assert_eq!(v["verified"], true);
     d.cmd()
         .arg("inspect")
@@ -424,16 +424,16 @@ fn refused_index_files_exit_3_with_the_reason() {
         .code(3)
         .stderr(predicates::str::contains("truncated"));
 
-    let mut v2 = good.clone();
-    v2[8..12].copy_from_slice(&2u32.to_le_bytes());
-    let v2p = d.write("v2.wmk", &v2);
+    let mut v3 = good.clone();
+    v3[8..12].copy_from_slice(&3u32.to_le_bytes());
+    let v3p = d.write("v3.wmk", &v3);
     d.cmd()
         .arg("inspect")
-        .arg(&v2p)
+        .arg(&v3p)
         .assert()
         .code(3)
         .stderr(predicates::str::contains(
-            "index format version 2 is not supported: this waymark reads version 1; rebuild the index with `waymark build`",
+            "index format version 3 is not supported: this waymark reads versions 1 to 2; rebuild the index with `waymark build`",
         ));
 
     // A flipped byte in the item text is found by --verify.

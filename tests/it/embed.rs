@@ -227,11 +227,11 @@ fn stored_coordinates_are_reproduced_from_reference_distances() {
                 "FastMap coordinates are real: scaled to the u8 range"
             );
         }
-        let stride = index.stride();
+        let rows = index.rows();
         let mut used = 0u8;
         for (i, item) in items.iter().enumerate() {
             let c = embed_one(&Levenshtein, &items, &meta.embedding, item.as_bytes());
-            let row = &index.coords()[i * stride..i * stride + meta.dim as usize];
+            let row = &rows.row(i)[..meta.dim as usize];
             let again: Vec<u8> = c.iter().map(|&x| quantize(x, meta.scale)).collect();
             assert_eq!(row, &again[..], "{method}, item {i}");
             used = used.max(*row.iter().max().unwrap());

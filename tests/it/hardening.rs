@@ -862,22 +862,18 @@ fn bad_input_crafted_cells_sections_are_refused_by_query_and_verify() {
     let cells = good[sec.clone()].to_vec();
     let m = map_cells(&cells, n, stride);
     // The layout read above is the one the file holds: it fills the section exactly, the
-    // stride is the index's, starts run from 0 to n, and each stored row is its member's
-    // row in the coordinate section (kind 9), read independently of the cells.
+    // stride is the index's, starts run from 0 to n, and the positions section (kind 13),
+    // read independently of the cells, is the inverse of the members.
     assert_eq!(m.end, cells.len(), "the section is exactly its parts");
     assert_eq!(u32_at(&cells, 4) as usize, stride);
     assert!(m.k >= 2, "{} cells", m.k);
     assert_eq!(u32_at(&cells, m.starts), 0);
     assert_eq!(u32_at(&cells, m.starts + 4 * m.k) as usize, n);
-    let coords = &good[section(&good, 9)];
+    let positions = &good[section(&good, 13)];
     let member = |c: &[u8], pos: usize| u32_at(c, m.members + 4 * pos) as usize;
     for pos in 0..n {
         let i = member(&cells, pos);
-        assert_eq!(
-            cells[m.rows + pos * stride..][..stride],
-            coords[i * stride..][..stride],
-            "position {pos}"
-        );
+        assert_eq!(u32_at(positions, 4 * i) as usize, pos, "position {pos}");
     }
     let m0 = member(&cells, 0);
     let start = |c: usize| u32_at(&cells, m.starts + 4 * c);
@@ -942,9 +938,16 @@ fn bad_input_crafted_cells_sections_are_refused_by_query_and_verify() {
             format!("position 0 names item {n}, past the last"),
         ),
         (
-            "a stored row that is not its item's coordinates",
-            Box::new(move |c, _| c[m.rows] ^= 1),
-            format!("the row stored at position 0 is not item {m0}'s coordinates"),
+            "two members swapped (the positions no longer their inverse)",
+            Box::new(move |c, _| {
+                let m1 = u32_at(c, m.members + 4);
+                put_u32(c, m.members, m1);
+                put_u32(c, m.members + 4, m0 as u32)
+            }),
+            format!(
+                "item {} is recorded at position 1, but its row is at position 0",
+                { u32_at(&cells, m.members + 4) }
+            ),
         ),
         (
             "a section one byte short",
@@ -984,25 +987,40 @@ fn bad_input_crafted_cells_sections_are_refused_by_query_and_verify() {
         bytes[len_at..len_at + 8].copy_from_slice(&len.to_le_bytes());
         fix_checksums(&mut bytes);
         std::fs::write(&probe, &bytes).unwrap();
-        assert_refused(&d, "cells", "cells", what, message);
-        // The scan reads the coordinate section, never the cells: it still answers, and
-        // finds the word itself (query, rank, id, item, distance; the first word of
-        // Debian's list is "A", record 0).
-        d.cmd()
-            .args([
-                "query",
-                "crafted.wmk",
-                "--candidates-from",
-                "scan",
-                "-k",
-                "1",
-            ])
-            .args(["--format", "tsv"])
-            .write_stdin("abandon\nA\n")
-            .assert()
-            .success()
-            .stdout(contains("A\t1\t0\tA\t0\n"));
+        // The rows of a version 2 file are in the cells section: every source, the scan
+        // too, and the exact path refuse it.
+        let section = if message.contains("is recorded at position") {
+            "positions"
+        } else {
+            "cells"
+        };
+        for source in ["cells", "scan", "tree"] {
+            assert_refused(&d, section, source, what, message);
+        }
+        let out = d
+            .cmd()
+            .args(["query", "crafted.wmk", "--exact", "-k", "1"])
+            .write_stdin("A\n")
+            .output()
+            .unwrap();
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(3), "{what}: {err}");
+        assert!(err.contains(message.as_str()), "{what}: {err}");
     }
+    // A changed byte of a row with the checksums recomputed changes a coordinate, which no
+    // check can tell from a real one: the file answers (the word still finds itself, at
+    // distance 0; query, rank, id, item, distance; the first word of Debian's list is "A",
+    // record 0).
+    let mut bytes = good.clone();
+    bytes[sec.start + m.rows + stride - 1] ^= 1;
+    fix_checksums(&mut bytes);
+    std::fs::write(&probe, &bytes).unwrap();
+    d.cmd()
+        .args(["query", "crafted.wmk", "-k", "1", "--format", "tsv"])
+        .write_stdin("A\n")
+        .assert()
+        .success()
+        .stdout(contains("A\t1\t0\tA\t0\n"));
     // A changed byte without its checksum recomputed is caught by the checksum first.
     let mut bytes = good.clone();
     bytes[sec.start + m.rows] ^= 1;
@@ -1432,6 +1450,129 @@ fn with_meta(bytes: &[u8], change: impl Fn(&mut serde_json::Value)) -> Vec<u8> {
     out
 }
 
+/// The positions section of a version 2 file (item → position of its row in the cells
+/// section) crafted with its checksums recomputed: refused by every query and by
+/// `inspect --verify`, never used; a row changed under the kd-tree is refused by the tree.
+#[test]
+fn bad_input_crafted_positions_and_tree_points_are_refused_by_query_and_verify() {
+    let d = Dir::new();
+    let list = first_words(400).join("\n");
+    let input = d.write("words.txt", list.as_bytes());
+    let idx = d.build(&input, "w.wmk", &["--dim", "8", "--seed", "4", "-q"]);
+    let good = std::fs::read(&idx).unwrap();
+    let n = 400u32;
+    let sec = section(&good, 13);
+    assert_eq!(sec.len(), 4 * n as usize, "one u32 per item");
+    let pos = |i: usize| u32_at(&good, sec.start + 4 * i);
+    let len_at = entry(&good, 13) + 16;
+    let probe = d.path("crafted.wmk");
+    type Craft = Box<dyn Fn(&mut Vec<u8>)>;
+    let at = sec.start;
+    let cases: Vec<(&str, Craft, String)> = vec![
+        (
+            "two items' positions swapped",
+            Box::new(move |b| {
+                let (p0, p1) = (u32_at(b, at), u32_at(b, at + 4));
+                put_u32(b, at, p1);
+                put_u32(b, at + 4, p0)
+            }),
+            "is recorded at position".into(),
+        ),
+        (
+            "a position past the last",
+            Box::new(move |b| put_u32(b, at, n + 5)),
+            format!(
+                "item 0 is recorded at position {}, but its row is at position {}",
+                n + 5,
+                pos(0)
+            ),
+        ),
+        (
+            "every item at position 0",
+            Box::new(move |b| b[at..at + 4 * n as usize].fill(0)),
+            "is recorded at position 0, but its row is at position".into(),
+        ),
+    ];
+    for (what, craft, message) in &cases {
+        let mut bytes = good.clone();
+        craft(&mut bytes);
+        assert_ne!(bytes, good, "{what}");
+        fix_checksums(&mut bytes);
+        std::fs::write(&probe, &bytes).unwrap();
+        for source in ["scan", "cells", "tree"] {
+            assert_refused(&d, "positions", source, what, message);
+        }
+        for extra in [&["--exact"][..], &["--within", "1"][..]] {
+            let out = d
+                .cmd()
+                .args(["query", "crafted.wmk"])
+                .args(extra)
+                .write_stdin("A\n")
+                .output()
+                .unwrap();
+            let err = String::from_utf8_lossy(&out.stderr);
+            assert_eq!(out.status.code(), Some(3), "{what}: {extra:?}: {err}");
+            assert!(err.contains(message.as_str()), "{what}: {extra:?}: {err}");
+        }
+        let out = d
+            .cmd()
+            .args(["pairs", "crafted.wmk", "--within", "1"])
+            .output()
+            .unwrap();
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(3), "{what}: pairs: {err}");
+        assert!(err.contains(message.as_str()), "{what}: pairs: {err}");
+    }
+    // A section one entry short is refused at open, by every command.
+    let mut bytes = good.clone();
+    let short = (sec.len() - 4) as u64;
+    bytes[len_at..len_at + 8].copy_from_slice(&short.to_le_bytes());
+    bytes[sec.end - 4..sec.end].fill(0);
+    fix_checksums(&mut bytes);
+    std::fs::write(&probe, &bytes).unwrap();
+    d.cmd()
+        .args(["inspect", "crafted.wmk"])
+        .assert()
+        .code(3)
+        .stderr(contains(format!(
+            "crafted.wmk: corrupt index: section positions has {short} bytes, expected {}",
+            4 * n
+        )));
+    // A row's first coordinate changed (checksums recomputed): the rows still map to the
+    // items, so the scan answers, but the kd-tree's point for that item no longer is the
+    // row's prefix, and the tree is refused.
+    let cells = section(&good, 12);
+    let m = map_cells(&good[cells.clone()], n as usize, 8);
+    let item = u32_at(&good, cells.start + m.members);
+    let mut bytes = good.clone();
+    bytes[cells.start + m.rows] ^= 0x10;
+    fix_checksums(&mut bytes);
+    std::fs::write(&probe, &bytes).unwrap();
+    assert_refused(
+        &d,
+        "kd-tree",
+        "tree",
+        "a row under the tree",
+        &format!("item {item}'s point is not the first 8 coordinates of its row"),
+    );
+    d.cmd()
+        .args(["query", "crafted.wmk", "-k", "1", "--format", "tsv"])
+        .write_stdin("A\n")
+        .assert()
+        .success()
+        .stdout(contains("A\t1\t0\tA\t0\n"));
+    // The untouched file answers through every source.
+    for source in ["scan", "cells", "tree"] {
+        d.cmd()
+            .args(["query", "w.wmk", "-k", "1", "--format", "tsv"])
+            .args(["--candidates-from", source])
+            .write_stdin("A\n")
+            .assert()
+            .success()
+            .stdout(contains("A\t1\t0\tA\t0\n"));
+    }
+}
+
 #[test]
 fn bad_input_crafted_meta_fields_are_refused_at_open() {
     let d = Dir::new();
@@ -1455,6 +1596,7 @@ fn bad_input_crafted_meta_fields_are_refused_at_open() {
     let vc = std::fs::read(d.build(&vec, "v.wmk", &["-q", "--metric", "l2"])).unwrap();
     let ham = d.write("h.txt", b"abc\nabd\nxyz\n");
     let hm = std::fs::read(d.build(&ham, "h.wmk", &["-q", "--metric", "hamming"])).unwrap();
+    let v1 = std::fs::read(crate::util::repo_file("tests/it/data/v1-names.wmk")).unwrap();
     type Change = Box<dyn Fn(&mut serde_json::Value)>;
     let set = |k: &'static str, v: serde_json::Value| -> Change {
         Box::new(move |m: &mut serde_json::Value| m[k] = v.clone())
@@ -1550,6 +1692,30 @@ fn bad_input_crafted_meta_fields_are_refused_at_open() {
                 m["metric_spec"] = json!({"kind": "external", "command": ["x"], "timeout_ms": 0});
             }),
             "time limit",
+        ),
+        (
+            "ids consecutive past the largest id",
+            &lev,
+            set("ids_from", json!(i64::MAX)),
+            "ids consecutive from 9223372036854775807 pass the largest id for 3000 items",
+        ),
+        (
+            "ids no longer consecutive, none stored",
+            &lev,
+            set("ids_from", serde_json::Value::Null),
+            "missing section ids",
+        ),
+        (
+            "text ids recorded as consecutive",
+            &lev,
+            set("ids", json!("text")),
+            "text ids recorded as consecutive integers",
+        ),
+        (
+            "consecutive ids in a version 1 file",
+            &v1,
+            set("ids_from", json!(0)),
+            "ids recorded as consecutive from 0, which format version 1 does not have",
         ),
     ];
     for (what, good, change, says) in &cases {

@@ -11,6 +11,7 @@ mod embed;
 mod eval;
 mod eval_scan;
 mod exact;
+mod format;
 mod hardening;
 mod ingest;
 mod layout;
