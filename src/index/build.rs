@@ -404,6 +404,7 @@ fn write_index(
         records: corpus.records as u64,
         blank_skipped: corpus.blank_skipped as u64,
         written_by: format!("waymark {}", env!("CARGO_PKG_VERSION")),
+        calibration: None,
     };
     let meta_json = serde_json::to_vec_pretty(&meta).expect("metadata serialises");
     writer.add(SectionKind::Meta, &meta_json)?;
@@ -442,6 +443,59 @@ fn write_index(
         write_seconds: t2.elapsed().as_secs_f64(),
         axioms: None,
     })
+}
+
+/// Stores `calibration` in the metadata of the index at `path` (replacing any curve there),
+/// by writing a new file through the same temporary file, lock and rename as a build: the
+/// other sections are copied byte for byte at their alignment, readers that have the old
+/// file open keep reading it, and a failure leaves the old file as it was. Returns the new
+/// file's length. `expect` is the metadata the caller read: a file whose metadata has changed
+/// since (another build in between) is refused rather than overwritten with old contents.
+pub fn store_calibration(
+    path: &Path,
+    expect: &IndexMeta,
+    calibration: Option<super::Calibration>,
+) -> Result<u64> {
+    let io = |source| Error::Io {
+        path: path.to_path_buf(),
+        source,
+    };
+    let file = std::fs::File::open(path).map_err(io)?;
+    // SAFETY: read-only; the file is replaced by rename, never written in place.
+    let map = unsafe { memmap2::Mmap::map(&file) }.map_err(io)?;
+    let mut sections = super::file::read_table(path, &map)?;
+    sections.sort_by_key(|s| s.range.start);
+    let meta_range = sections
+        .iter()
+        .find(|s| s.kind == SectionKind::Meta)
+        .map(|s| s.range.clone())
+        .ok_or_else(|| Error::corrupt(path, "missing section meta"))?;
+    let mut meta: IndexMeta = serde_json::from_slice(&map[meta_range])
+        .map_err(|e| Error::corrupt(path, format!("metadata does not parse: {e}")))?;
+    let unchanged = IndexMeta {
+        calibration: expect.calibration.clone(),
+        ..meta.clone()
+    };
+    if serde_json::to_value(&unchanged).ok() != serde_json::to_value(expect).ok() {
+        return Err(Error::refused(
+            path,
+            "the file changed while it was being calibrated (another build?); nothing was written",
+        ));
+    }
+    meta.calibration = calibration;
+    let meta_json = serde_json::to_vec_pretty(&meta).expect("metadata serialises");
+    let mut writer = ContainerWriter::create(path, &[])?;
+    for s in &sections {
+        // Each section keeps the largest power-of-two alignment its start had (64 to 4096).
+        let align = 1usize << s.range.start.trailing_zeros().clamp(6, 12);
+        if s.kind == SectionKind::Meta {
+            writer.add_aligned(s.kind, &meta_json, align)?;
+        } else {
+            writer.add_aligned(s.kind, &map[s.range.clone()], align)?;
+        }
+    }
+    writer.finish()?;
+    Ok(std::fs::metadata(path).map(|m| m.len()).unwrap_or(0))
 }
 
 #[cfg(test)]
