@@ -85,18 +85,26 @@ fn level(base: &SearchParams, c: usize, n: usize) -> SearchParams {
     }
 }
 
-/// Runs the ladder: `answer(params)` answers every calibration query, `score(j, found)` is
-/// the recall of query j's answer. Stops at [`STOP_RECALL`] or once the candidates reach n.
+/// Runs the ladder: `answer(params, js)` answers the calibration queries numbered `js`,
+/// `score(j, found)` is the recall of query j's answer. Stops at [`STOP_RECALL`] or once the
+/// candidates reach n.
+///
+/// A query whose answer is complete (recall 1) at one level is counted complete at the
+/// larger ones without being asked again: a larger level compares a superset of the rows
+/// (a longer prefix of the same cell order, or every row) and keeps more candidates, so it
+/// loses a neighbour found before only when more than the extra candidates outrank it in
+/// coordinates. This keeps the costly levels to the few queries still missing neighbours.
 fn ladder(
     index: &Index,
     k: usize,
     queries: usize,
-    answer: impl Fn(&SearchParams) -> Vec<Result<Found>>,
+    answer: impl Fn(&SearchParams, &[usize]) -> Vec<Result<Found>>,
     score: impl Fn(usize, &Found) -> f64 + Sync,
 ) -> Result<Vec<CalibrationPoint>> {
     let n = index.len();
     let base = SearchParams::from_index(index, k);
     let mut points = Vec::new();
+    let mut complete = vec![false; queries];
     for &c in LADDER.iter() {
         let c = c.min(n);
         if points
@@ -106,10 +114,13 @@ fn ladder(
             break;
         }
         let p = level(&base, c, n);
-        let found = answer(&p);
-        let mut sum = 0.0;
-        for (j, f) in found.into_iter().enumerate() {
-            sum += score(j, &f?);
+        let open: Vec<usize> = (0..queries).filter(|&j| !complete[j]).collect();
+        let found = answer(&p, &open);
+        let mut sum = (queries - open.len()) as f64;
+        for (&j, f) in open.iter().zip(found) {
+            let r = score(j, &f?);
+            complete[j] = r >= 1.0;
+            sum += r;
         }
         let recall = sum / queries.max(1) as f64;
         points.push(CalibrationPoint {
@@ -213,9 +224,10 @@ pub fn calibrate_from_items(index: &Index, opts: &CalibrateOptions) -> Result<Op
         index,
         k,
         picked.len(),
-        |p| {
+        |p, js| {
             let p = SearchParams { k: k + 1, ..*p };
-            searcher.answer_stored(&picked, &Request::Approximate(p))
+            let items: Vec<u32> = js.iter().map(|&j| picked[j]).collect();
+            searcher.answer_stored(&items, &Request::Approximate(p))
         },
         |j, f| {
             let found = without(f.neighbors.clone(), picked[j], k);
@@ -256,7 +268,10 @@ pub fn calibrate_from_queries(
         index,
         k,
         queries.len(),
-        |p| searcher.search_many(queries, p),
+        |p, js| {
+            let qs: Vec<String> = js.iter().map(|&j| queries[j].clone()).collect();
+            searcher.search_many(&qs, p)
+        },
         |j, f| threshold_recall(&dists[j], &pairs(&f.neighbors), k),
     )?;
     Ok(Calibration {

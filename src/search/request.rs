@@ -5,7 +5,7 @@ use serde::{Deserialize, Serialize};
 use super::order::Neighbor;
 use crate::coords::Space;
 use crate::error::{Error, Param, Result};
-use crate::index::{Index, RecallChoice};
+use crate::index::{Calibration, Index, RecallChoice};
 
 /// The smallest index whose default candidate source is its cells ([`CandidateSource::Cells`]).
 /// Below it the scan of every row is cheap, and cells of a few dozen items group little;
@@ -112,6 +112,18 @@ impl SearchParams {
                 index.path().display()
             ))
         })?;
+        Self::recall_choice_on(index, k, cal, recall)
+    }
+
+    /// [`SearchParams::recall_choice`] with a curve given here rather than the index's
+    /// (for instance one measured on other queries, [`crate::eval::calibrate_from_queries`]).
+    pub fn recall_choice_on(
+        index: &Index,
+        k: usize,
+        cal: &Calibration,
+        recall: f64,
+    ) -> Result<(SearchParams, RecallChoice)> {
+        check_recall(recall)?;
         cal.check()
             .map_err(|m| Error::corrupt(index.path(), format!("metadata: {m}")))?;
         let choice = cal.choose(recall, index.len());
