@@ -20,8 +20,9 @@
 //! family, on the held-out set: the defaults' recall and q/s; for each asked recall (0.9,
 //! 0.95, 0.99) the candidates the build's curve (from the index's own items) chose and the
 //! recall reached; the same with the curve measured on the calibration set
-//! (`eval --calibrate`). With `WAYMARK_FAMILIES_ALT=1`, also the alternative landmark rule
-//! (farthest-first from a trimmed sample) beside today's.
+//! (`eval --calibrate`). Beside today's landmarks (farthest-first from a sample), the
+//! defaults' recall and q/s with the alternative rule (farthest-first from the sample
+//! without its outliers, `build --landmark-rule trimmed`), on an index of its own.
 //!
 //! Run with `cargo bench --bench families`. Settings through the environment:
 //! - `WAYMARK_FAMILIES` comma-separated family names [all whose lists are installed]
@@ -32,6 +33,7 @@
 use std::path::{Path, PathBuf};
 use std::time::Instant;
 
+use waymark::embed::LandmarkRule;
 use waymark::eval::{
     calibrate_from_items, calibrate_from_queries, edit_queries, measure_recall, scan_many,
     variants_missing_from, CalibrateOptions, Scan, Truth,
@@ -160,56 +162,71 @@ fn main() {
     );
     let dir = tempfile::tempdir().expect("temp dir");
     let mut table = Vec::new();
-    let mut built: Option<(PathBuf, PathBuf)> = None;
+    // Families on one list share its indexes: today's landmarks and the alternative rule.
+    let mut built: Option<(PathBuf, PathBuf, PathBuf)> = None;
     for f in &fams {
-        let path = dir.path().join(format!("{}.wmk", f.name));
-        // Families on one list share its index.
-        let path = match &built {
-            Some((list, p)) if *list == f.list => p.clone(),
+        let (path, alt) = match &built {
+            Some((list, p, a)) if *list == f.list => (p.clone(), a.clone()),
             _ => {
                 let corpus = read_corpus(&f.list, &IngestOptions::default()).expect("list reads");
-                let t = Instant::now();
-                build_index(
-                    &corpus,
-                    &f.list.display().to_string(),
-                    &BuildOptions::default(),
-                    &path,
-                    &|_| {},
-                )
-                .expect("build");
-                let built_s = t.elapsed().as_secs_f64();
-                let t = Instant::now();
-                let index = Index::open(&path).expect("open");
-                let cal = calibrate_from_items(&index, &CalibrateOptions::default())
-                    .expect("calibration")
-                    .expect("items enough");
-                let meta = index.meta().clone();
-                drop(index);
-                store_calibration(&path, &meta, Some(cal)).expect("store");
-                println!(
-                    "{}: {} items; build {built_s:.2} s, recall curve {:.2} s (measure and store)",
-                    f.list.display(),
-                    corpus.items.len(),
-                    t.elapsed().as_secs_f64()
-                );
-                built = Some((f.list.clone(), path.clone()));
-                path
+                let mut paths = Vec::new();
+                for rule in [LandmarkRule::Farthest, LandmarkRule::Trimmed] {
+                    let path = dir.path().join(format!("{}-{rule:?}.wmk", f.name));
+                    let t = Instant::now();
+                    build_index(
+                        &corpus,
+                        &f.list.display().to_string(),
+                        &BuildOptions {
+                            landmark_rule: rule,
+                            ..BuildOptions::default()
+                        },
+                        &path,
+                        &|_| {},
+                    )
+                    .expect("build");
+                    let built_s = t.elapsed().as_secs_f64();
+                    let t = Instant::now();
+                    let index = Index::open(&path).expect("open");
+                    let cal = calibrate_from_items(&index, &CalibrateOptions::default())
+                        .expect("calibration")
+                        .expect("items enough");
+                    let meta = index.meta().clone();
+                    drop(index);
+                    store_calibration(&path, &meta, Some(cal)).expect("store");
+                    println!(
+                        "{} ({rule:?} landmarks): {} items; build {built_s:.2} s, recall curve {:.2} s (measure and store)",
+                        f.list.display(),
+                        corpus.items.len(),
+                        t.elapsed().as_secs_f64()
+                    );
+                    paths.push(path);
+                }
+                built = Some((f.list.clone(), paths[0].clone(), paths[1].clone()));
+                (paths[0].clone(), paths[1].clone())
             }
         };
         let index = Index::open(&path).expect("open");
+        let alt = Index::open(&alt).expect("open");
         let t = Instant::now();
         let held_truth = truth(&index, &f.heldout);
         let cal_truth = truth(&index, &f.calibration);
         let scan_s = t.elapsed().as_secs_f64();
         let default = SearchParams::from_index(&index, K);
         let row = measure_recall(&index, &f.heldout, &held_truth, &default).expect("measure");
+        let alt_row = measure_recall(
+            &alt,
+            &f.heldout,
+            &held_truth,
+            &SearchParams::from_index(&alt, K),
+        )
+        .expect("measure");
         let mut cells = vec![
             f.name.to_string(),
             index.len().to_string(),
             f.heldout.len().to_string(),
             format!("{}", default.candidates),
-            format!("{:.4}", row.recall),
-            format!("{:.0}", row.qps),
+            format!("{:.4}, {:.0}", row.recall, row.qps),
+            format!("{:.4}, {:.0}", alt_row.recall, alt_row.qps),
         ];
         let from_queries =
             calibrate_from_queries(&index, &f.calibration, &cal_truth, K, "calibration set")
@@ -226,17 +243,19 @@ fn main() {
             ));
         }
         println!(
-            "{}: {} + {} queries, brute force {scan_s:.1} s; defaults {:.4} at {:.0} q/s",
+            "{}: {} + {} queries, brute force {scan_s:.1} s; defaults {:.4} at {:.0} q/s, trimmed landmarks {:.4} at {:.0} q/s",
             f.name,
             f.calibration.len(),
             f.heldout.len(),
             row.recall,
-            row.qps
+            row.qps,
+            alt_row.recall,
+            alt_row.qps
         );
         table.push(cells);
     }
     println!();
-    println!("| family | items | held-out queries | default C | recall@10 | q/s | R = 0.9: C, recall (items curve / queries curve) | R = 0.95 | R = 0.99 |");
+    println!("| family | items | held-out queries | default C | today: recall@10, q/s | trimmed landmarks: recall@10, q/s | R = 0.9: C, recall (items curve / queries curve) | R = 0.95 | R = 0.99 |");
     println!("|---|---:|---:|---:|---:|---:|---:|---:|---:|");
     for c in table {
         println!("| {} |", c.join(" | "));

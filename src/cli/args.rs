@@ -318,6 +318,10 @@ pub(super) struct BuildArgs {
     /// Number of items landmarks and FastMap pivots are chosen from.
     #[arg(long = "landmark-sample", value_name = "N", default_value_t = 4096)]
     pub landmark_sample: usize,
+    /// Which sampled items may become landmarks: any (farthest-first takes the sample's
+    /// outliers first), or all but the 20% farthest on average from the others.
+    #[arg(long = "landmark-rule", value_enum, default_value = "farthest")]
+    pub landmark_rule: crate::embed::LandmarkRule,
     /// Do not measure the recall curve that `query --recall` uses (the build samples a few
     /// hundred of its items as queries and stores the curve in the index).
     #[arg(long = "no-calibration")]

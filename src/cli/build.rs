@@ -17,6 +17,7 @@ pub(super) fn build(a: BuildArgs) -> anyhow::Result<()> {
         seed: a.seed,
         sample: a.landmark_sample,
         pool: a.pool,
+        landmark_rule: a.landmark_rule,
         candidates: a.candidates.map_or(0, |c| c as usize),
         space: a.space.into(),
         normalize: a.input.normalize(),

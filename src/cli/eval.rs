@@ -8,8 +8,7 @@ use super::output::counting_bar;
 use super::query::{at_query_line, read_query_file};
 use crate::error::Error;
 use crate::eval::{
-    calibrate_from_queries, load_or_compute_truth, measure_distortion, measure_recall,
-    TruthSource,
+    calibrate_from_queries, load_or_compute_truth, measure_distortion, measure_recall, TruthSource,
 };
 use crate::index::{store_calibration, Index, RecallChoice};
 use crate::search::{CandidateSource, Request, SearchParams, Searcher, Space};
@@ -40,20 +39,24 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
     }
     let space: Space = a.space.map_or(index.meta().space, Into::into);
     // One setting per candidate count, checked (k, candidates) before any answer is computed.
-    let settings: Vec<SearchParams> = if a.recall.is_empty() { &a.candidates[..] } else { &[] }
-        .iter()
-        .map(|&c| {
-            let mut params = SearchParams {
-                space,
-                ..SearchParams::from_index(&index, a.k).with_candidates(c)
-            };
-            if let Some(v) = a.visit {
-                params.visit = v;
-            }
-            params.source = a.candidates_from.map_or(params.source, Into::into);
-            params
-        })
-        .collect();
+    let settings: Vec<SearchParams> = if a.recall.is_empty() {
+        &a.candidates[..]
+    } else {
+        &[]
+    }
+    .iter()
+    .map(|&c| {
+        let mut params = SearchParams {
+            space,
+            ..SearchParams::from_index(&index, a.k).with_candidates(c)
+        };
+        if let Some(v) = a.visit {
+            params.visit = v;
+        }
+        params.source = a.candidates_from.map_or(params.source, Into::into);
+        params
+    })
+    .collect();
     let searcher = Searcher::new(&index);
     for &params in &settings {
         searcher.check(&Request::Approximate(params))?;

@@ -174,8 +174,7 @@ pub fn calibrate_from_items(index: &Index, opts: &CalibrateOptions) -> Result<Op
         return Ok(None);
     }
     let k = opts.k.min(n - 1);
-    let refs: std::collections::HashSet<u64> =
-        index.meta().embedding.refs().into_iter().collect();
+    let refs: std::collections::HashSet<u64> = index.meta().embedding.refs().into_iter().collect();
     let others = n - refs.len().min(n);
     let take = opts.queries.min(others);
     if take == 0 {

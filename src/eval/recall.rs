@@ -64,7 +64,10 @@ pub fn edit_queries<T: AsRef<str>>(items: &[T], count: usize, seed: u64) -> Vec<
         let w = items[letters.gen_range(0..items.len())].as_ref();
         let n = w.chars().count();
         if n > 0 {
-            break w.chars().nth(letters.gen_range(0..n)).expect("within the item");
+            break w
+                .chars()
+                .nth(letters.gen_range(0..n))
+                .expect("within the item");
         }
     };
     edited(items, count, seed, &mut other)

@@ -30,6 +30,8 @@ pub struct BuildOptions {
     pub sample: usize,
     /// Size of the reference-set pool (the reference-set method's cost per query).
     pub pool: usize,
+    /// Which sampled items may be landmarks.
+    pub landmark_rule: crate::embed::LandmarkRule,
     /// Default candidates per query stored in the index; 0 (the default) stores
     /// [`super::default_candidates`] of the number of items.
     pub candidates: usize,
@@ -52,6 +54,7 @@ impl Default for BuildOptions {
             seed: 0,
             sample: 4096,
             pool: crate::embed::DEFAULT_POOL,
+            landmark_rule: crate::embed::LandmarkRule::default(),
             candidates: 0,
             space: Space::default(),
             normalize: Normalize::default(),
@@ -216,6 +219,7 @@ fn build(
             sample: opts.sample,
             pool: opts.pool,
             seed: opts.seed,
+            rule: opts.landmark_rule,
         },
         &|n| progress.embedded(n),
     );

@@ -33,8 +33,8 @@ pub use build::{
     build_index, build_index_from, build_index_with, build_index_with_metric, open_metric,
     store_calibration, BuildOptions, BuildProgress, BuildReport, BuildStage, AXIOM_SAMPLE,
 };
-use file::{Section, SectionKind};
 pub use calibration::{Calibration, CalibrationPoint, RecallChoice};
+use file::{Section, SectionKind};
 pub use install::install_index;
 
 pub use crate::coords::coord_stride;

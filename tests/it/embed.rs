@@ -84,6 +84,7 @@ fn every_point_a_landmark_is_an_isometry_into_linf() {
             sample: n,
             pool: n,
             seed,
+            ..Default::default()
         };
         let e = embed_items(&m, &its, &opts, &|_| {});
         assert_eq!(e.dim(), n, "every point is chosen as a landmark");
@@ -124,6 +125,7 @@ fn no_method_embeds_the_four_cycle_into_l2_below_sqrt_2() {
                     sample: 4,
                     pool: 4,
                     seed,
+                    ..Default::default()
                 };
                 let e = embed_items(&m, &its, &opts, &|_| {});
                 let r = measure_distortion(&m, &its, &e.embedding, 100, 0);
@@ -155,6 +157,7 @@ fn reference_sets_distortion_stays_below_c_log2_n() {
             sample: n,
             pool: n,
             seed,
+            ..Default::default()
         };
         let e = embed_items(&m, &its, &opts, &|_| {});
         let r = measure_distortion(&m, &its, &e.embedding, 1 << 20, 0);
@@ -255,6 +258,7 @@ fn a_prefix_of_an_embedding_is_the_smaller_embedding() {
             sample: 200,
             pool: 16,
             seed: 3,
+            ..Default::default()
         };
         let big = embed_items(&Levenshtein, &items, &opts(16), &|_| {});
         let small = embed_items(&Levenshtein, &items, &opts(6), &|_| {});
