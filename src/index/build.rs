@@ -460,6 +460,10 @@ pub fn store_calibration(
     expect: &IndexMeta,
     calibration: Option<super::Calibration>,
 ) -> Result<u64> {
+    if let Some(c) = &calibration {
+        c.check()
+            .map_err(|m| Error::Usage(format!("{}: not stored: {m}", path.display())))?;
+    }
     let io = |source| Error::Io {
         path: path.to_path_buf(),
         source,
