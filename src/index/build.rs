@@ -494,8 +494,12 @@ pub fn store_calibration(
     let meta_json = serde_json::to_vec_pretty(&meta).expect("metadata serialises");
     let mut writer = ContainerWriter::create(path, &[])?;
     for s in &sections {
-        // Each section keeps the largest power-of-two alignment its start had (64 to 4096).
-        let align = 1usize << s.range.start.trailing_zeros().clamp(6, 12);
+        // The alignments of a build (`write_index`), so that the same contents give the
+        // same bytes: the kd-tree on its page boundary, every other section on 64 bytes.
+        let align = match s.kind {
+            SectionKind::Tree => super::file::TREE_ALIGN,
+            _ => super::file::ALIGN,
+        };
         if s.kind == SectionKind::Meta {
             writer.add_aligned(s.kind, &meta_json, align)?;
         } else {
