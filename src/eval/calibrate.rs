@@ -16,9 +16,10 @@
 //! - [`calibrate_from_queries`]: a user's queries with their exact answers (`waymark eval
 //!   --queries FILE --calibrate`), for curves that hold on queries of that kind.
 //!
-//! Each level runs every query with the index's default space and candidate source, the
+//! Each level runs the queries with the index's default space and candidate source, the
 //! candidates of the ladder and, with cells, [`crate::search::VISIT_PER_CANDIDATE`] rows per
-//! candidate (every row once that reaches n). The ladder stops once the mean recall reaches
+//! candidate (every row once that reaches n); a query already complete at a smaller level
+//! is not asked again (see `ladder`). The ladder stops once the mean recall reaches
 //! [`STOP_RECALL`] or the candidates reach n: cheap points first, a few hundred queries.
 
 use std::path::Path;

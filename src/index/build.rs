@@ -154,7 +154,9 @@ fn string_sections(strings: impl ExactSizeIterator<Item = impl AsRef<[u8]>>) -> 
 /// Builds an index of `corpus` at `dest`, atomically replacing any file there.
 ///
 /// `progress` is called with the number of items embedded since the last call; see
-/// [`build_index_with`] for the stages too.
+/// [`build_index_with`] for the stages too. The index carries no recall curve (the curve is
+/// measured by searching, a layer above this one): `waymark build` adds it with
+/// `waymark::eval::calibrate_file`, which a library user can call too.
 pub fn build_index(
     corpus: &Corpus,
     source: &str,
