@@ -38,9 +38,9 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
         let (p, choice) = SearchParams::recall_choice(&index, params.k, r)?;
         if !choice.reached {
             eprintln!(
-                "waymark: warning: {}: the index's recall curve reaches {:.3} at most (with {} \
-                 candidates, used here), below the {r} asked; ask --exact for every true \
-                 neighbour",
+                "waymark: warning: {}: the index's recall curve stops at {:.3} ({} candidates, \
+                 used here), below the {r} asked; give more --candidates for more, or ask \
+                 --exact for every true neighbour",
                 a.index.display(),
                 choice.expected,
                 choice.candidates
