@@ -301,3 +301,63 @@ fn malformed_embeddings_are_refused() {
     };
     assert!(ok.check(10).is_ok());
 }
+
+#[test]
+fn trimmed_landmarks_leave_the_outliers_that_farthest_first_takes() {
+    use waymark::embed::{choose_landmarks_by, LandmarkOptions, LandmarkRule};
+    // 400 of Debian's wamerican words and 10 invented strings of 40 letters: the long ones
+    // are the sample's outliers (a word of L letters is at least 40 − L edits from them).
+    let mut items: Vec<String> = crate::util::word_list()
+        .lines()
+        .step_by(250)
+        .take(400)
+        .map(String::from)
+        .collect();
+    let long: Vec<String> = (0..10u8)
+        .map(|i| {
+            (0..40u8)
+                .map(|j| char::from(b'a' + (i * 7 + j * 3) % 26))
+                .collect()
+        })
+        .collect();
+    items.extend(long.iter().cloned());
+    let is_long = |l: usize| l >= 400;
+    let opts = LandmarkOptions {
+        dim: 8,
+        sample: items.len(),
+        seed: 5,
+    };
+    let far = choose_landmarks_by(&Levenshtein, &items, &opts, LandmarkRule::Farthest);
+    let trim = choose_landmarks_by(&Levenshtein, &items, &opts, LandmarkRule::Trimmed);
+    assert!(
+        far.iter().any(|&l| is_long(l)),
+        "farthest-first takes an outlier: {far:?}"
+    );
+    assert!(
+        trim.iter().all(|&l| !is_long(l)),
+        "the trimmed sample has no outlier: {trim:?}"
+    );
+    assert_eq!(trim.len(), 8);
+    // The build records what it chose: an index built with the rule has those landmarks.
+    let dir = tempfile::tempdir().unwrap();
+    let index = build_in(
+        dir.path(),
+        "t.wmk",
+        &corpus(&items),
+        &BuildOptions {
+            dim: 8,
+            sample: items.len(),
+            seed: 5,
+            landmark_rule: LandmarkRule::Trimmed,
+            ..BuildOptions::default()
+        },
+    );
+    let refs: Vec<usize> = index
+        .meta()
+        .embedding
+        .refs()
+        .iter()
+        .map(|&r| r as usize)
+        .collect();
+    assert_eq!(refs, trim);
+}
