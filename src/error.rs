@@ -141,6 +141,8 @@ pub enum Param {
     SweepAxes,
     /// The items landmarks and pivots are chosen from ([`crate::index::BuildOptions::sample`]).
     Sample,
+    /// An asked recall ([`crate::search::SearchParams::for_recall`]).
+    Recall,
 }
 
 impl Param {
@@ -156,6 +158,7 @@ impl Param {
             Param::Dims => "dims",
             Param::SweepAxes => "the sweep's methods, dimensions and spaces",
             Param::Sample => "sample",
+            Param::Recall => "recall",
         }
     }
 }

@@ -318,6 +318,14 @@ pub(super) struct BuildArgs {
     /// Number of items landmarks and FastMap pivots are chosen from.
     #[arg(long = "landmark-sample", value_name = "N", default_value_t = 4096)]
     pub landmark_sample: usize,
+    /// Which sampled items may become landmarks: any (farthest-first takes the sample's
+    /// outliers first), or all but the 20% farthest on average from the others.
+    #[arg(long = "landmark-rule", value_enum, default_value = "farthest")]
+    pub landmark_rule: crate::embed::LandmarkRule,
+    /// Do not measure the recall curve that `query --recall` uses (the build samples a few
+    /// hundred of its items as queries and stores the curve in the index).
+    #[arg(long = "no-calibration")]
+    pub no_calibration: bool,
     /// Print nothing on success.
     #[arg(short, long)]
     pub quiet: bool,
@@ -362,6 +370,11 @@ pub(super) struct QueryArgs {
     /// [default: 12 per candidate]; 0 compares every row.
     #[arg(long, value_name = "N", conflicts_with_all = ["exact", "within"])]
     pub visit: Option<usize>,
+    /// Ask for a threshold recall@k (between 0 and 1) instead of a candidate count: the
+    /// candidates and rows visited come from the recall curve stored in the index.
+    #[arg(long, value_name = "R", allow_negative_numbers = true,
+          conflicts_with_all = ["exact", "within", "within_fraction", "candidates", "space", "candidates_from", "visit"])]
+    pub recall: Option<f64>,
     /// Read queries from this file instead of stdin, one per line (FASTA/FASTQ records for
     /// .fa, .fasta, .fna, .fq, .fastq, also with .gz).
     #[arg(long, value_name = "FILE")]
@@ -580,6 +593,17 @@ pub(super) struct EvalArgs {
     /// row.
     #[arg(long, value_name = "N")]
     pub visit: Option<usize>,
+    /// Asked recalls to measure instead of candidate counts, comma-separated (each between
+    /// 0 and 1): each row shows the setting the index's recall curve chose and the recall
+    /// the queries got.
+    #[arg(long, value_name = "R,...", value_delimiter = ',', allow_negative_numbers = true,
+          conflicts_with_all = ["candidates", "space", "candidates_from", "visit"])]
+    pub recall: Vec<f64>,
+    /// Measure the index's recall curve on these queries (needs --queries) and store it in
+    /// the index, replacing the one there: a new file is written beside it and renamed over
+    /// it, as a build does.
+    #[arg(long, requires = "queries")]
+    pub calibrate: bool,
     /// Report the distortion of the embedding on a sample of item pairs.
     #[arg(long)]
     pub distortion: bool,
@@ -700,6 +724,7 @@ pub(super) fn flag(p: crate::error::Param) -> &'static str {
         Param::Dims => "--dims",
         Param::SweepAxes => "--embeddings, --dims and --spaces",
         Param::Sample => "--landmark-sample",
+        Param::Recall => "--recall",
     }
 }
 

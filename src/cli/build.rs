@@ -17,6 +17,7 @@ pub(super) fn build(a: BuildArgs) -> anyhow::Result<()> {
         seed: a.seed,
         sample: a.landmark_sample,
         pool: a.pool,
+        landmark_rule: a.landmark_rule,
         candidates: a.candidates.map_or(0, |c| c as usize),
         space: a.space.into(),
         normalize: a.input.normalize(),
@@ -69,6 +70,20 @@ pub(super) fn build(a: BuildArgs) -> anyhow::Result<()> {
             eprintln!("waymark: warning:   {l}");
         }
     }
+    let t_cal = Instant::now();
+    let calibration = if a.no_calibration {
+        None
+    } else {
+        crate::eval::calibrate_file(
+            &a.output,
+            &crate::eval::CalibrateOptions {
+                seed: a.seed,
+                ..Default::default()
+            },
+        )?
+    };
+    let calibrate_seconds = t_cal.elapsed().as_secs_f64();
+    let file_len = std::fs::metadata(&a.output).map_or(report.file_len, |m| m.len());
     if !a.quiet {
         let m = &report.meta;
         let mut out = std::io::stdout().lock();
@@ -81,7 +96,7 @@ pub(super) fn build(a: BuildArgs) -> anyhow::Result<()> {
             m.metric,
             m.dim,
             m.embedding.name(),
-            report.file_len as f64 / 1e6,
+            file_len as f64 / 1e6,
             t0.elapsed().as_secs_f64()
         )?;
         if m.blank_skipped > 0 {
@@ -94,10 +109,33 @@ pub(super) fn build(a: BuildArgs) -> anyhow::Result<()> {
                 m.dim, a.dim
             )?;
         }
+        if let Some(c) = &calibration {
+            let at = |r: f64| {
+                let ch = c.choose(r, n);
+                if ch.reached {
+                    ch.candidates.to_string()
+                } else {
+                    format!("{}+", ch.candidates)
+                }
+            };
+            writeln!(
+                out,
+                "recall curve: {} items as queries, k = {}: candidates for recall 0.9 / 0.95 / 0.99: {} / {} / {}",
+                c.queries,
+                c.k,
+                at(0.9),
+                at(0.95),
+                at(0.99)
+            )?;
+        }
         writeln!(
             out,
-            "time: read {:.2} s, embed {:.2} s, tree and cells {:.2} s, write {:.2} s",
-            read_seconds, report.embed_seconds, report.tree_seconds, report.write_seconds
+            "time: read {:.2} s, embed {:.2} s, tree and cells {:.2} s, write {:.2} s, recall curve {:.2} s",
+            read_seconds,
+            report.embed_seconds,
+            report.tree_seconds,
+            report.write_seconds,
+            calibrate_seconds
         )?;
     }
     Ok(())

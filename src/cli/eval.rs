@@ -7,8 +7,10 @@ use super::args::EvalArgs;
 use super::output::counting_bar;
 use super::query::{at_query_line, read_query_file};
 use crate::error::Error;
-use crate::eval::{load_or_compute_truth, measure_distortion, measure_recall, TruthSource};
-use crate::index::Index;
+use crate::eval::{
+    calibrate_from_queries, load_or_compute_truth, measure_distortion, measure_recall, TruthSource,
+};
+use crate::index::{store_calibration, Index, RecallChoice};
 use crate::search::{CandidateSource, Request, SearchParams, Searcher, Space};
 
 pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
@@ -24,23 +26,37 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
         crate::resources::check_distortion(index.len(), a.pairs, index.meta().dim as usize)?;
     }
     super::announce_program(&index, a.quiet_metric);
+    // Asked recalls are checked, and an index without a curve refused, before any work
+    // (unless --calibrate is to make the curve).
+    for &r in &a.recall {
+        crate::search::check_recall(r)?;
+    }
+    if !a.recall.is_empty() && a.k == 0 {
+        return Err(Error::parameter(crate::error::Param::K, "must be at least 1").into());
+    }
+    if let (Some(&r), false) = (a.recall.first(), a.calibrate) {
+        SearchParams::recall_choice(&index, a.k.max(1), r)?;
+    }
     let space: Space = a.space.map_or(index.meta().space, Into::into);
     // One setting per candidate count, checked (k, candidates) before any answer is computed.
-    let settings: Vec<SearchParams> = a
-        .candidates
-        .iter()
-        .map(|&c| {
-            let mut params = SearchParams {
-                space,
-                ..SearchParams::from_index(&index, a.k).with_candidates(c)
-            };
-            if let Some(v) = a.visit {
-                params.visit = v;
-            }
-            params.source = a.candidates_from.map_or(params.source, Into::into);
-            params
-        })
-        .collect();
+    let settings: Vec<SearchParams> = if a.recall.is_empty() {
+        &a.candidates[..]
+    } else {
+        &[]
+    }
+    .iter()
+    .map(|&c| {
+        let mut params = SearchParams {
+            space,
+            ..SearchParams::from_index(&index, a.k).with_candidates(c)
+        };
+        if let Some(v) = a.visit {
+            params.visit = v;
+        }
+        params.source = a.candidates_from.map_or(params.source, Into::into);
+        params
+    })
+    .collect();
     let searcher = Searcher::new(&index);
     for &params in &settings {
         searcher.check(&Request::Approximate(params))?;
@@ -97,15 +113,50 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
                 )
             }
         };
+        let qname = qpath.display().to_string();
+        let calibrated = if a.calibrate {
+            let cal = calibrate_from_queries(&index, &queries, &truth, a.k, &qname)?;
+            store_calibration(&a.index, index.meta(), Some(cal.clone()))?;
+            Some(cal)
+        } else {
+            None
+        };
+        // The file now holds the new curve: the measures below read it from there.
+        let reopened;
+        let index: &Index = if calibrated.is_some() {
+            reopened = Index::open(&a.index)?;
+            &reopened
+        } else {
+            &index
+        };
+        let mut asked: Vec<(f64, RecallChoice)> = Vec::new();
+        let mut settings = settings;
+        for &r in &a.recall {
+            let (p, choice) = SearchParams::recall_choice(index, a.k, r)?;
+            asked.push((r, choice));
+            settings.push(p);
+        }
         let mut rows = Vec::new();
         for params in &settings {
-            rows.push(measure_recall(&index, &queries, &truth, params)?);
+            rows.push(measure_recall(index, &queries, &truth, params)?);
         }
         if a.json {
             json["queries"] = queries.len().into();
             json["k"] = a.k.into();
             json["ground_truth"] = truth_json;
-            json["recall"] = serde_json::to_value(&rows)?;
+            let mut values = serde_json::to_value(&rows)?;
+            if let Some(list) = values.as_array_mut() {
+                for (v, (r, c)) in list.iter_mut().zip(&asked) {
+                    v["asked_recall"] = (*r).into();
+                    v["expected_recall"] = c.expected.into();
+                    v["curve_reaches"] = c.reached.into();
+                }
+            }
+            json["recall"] = values;
+            if let Some(c) = &calibrated {
+                json["calibration"] = serde_json::to_value(c)?;
+                json["calibration_stored"] = a.index.display().to_string().into();
+            }
         } else {
             writeln!(
                 out,
@@ -131,6 +182,23 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
                 }
             )?;
             writeln!(out, "{truth_note}")?;
+            if let Some(c) = &calibrated {
+                writeln!(
+                    out,
+                    "recall curve measured on these {} queries (k = {}) and stored in {} (a new file renamed over it): {}",
+                    c.queries,
+                    c.k,
+                    a.index.display(),
+                    c.points
+                        .iter()
+                        .map(|p| format!("{} → {:.4}", p.candidates, p.recall))
+                        .collect::<Vec<_>>()
+                        .join(", ")
+                )?;
+            }
+            if !asked.is_empty() {
+                write!(out, "{:>7} {:>8} ", "asked", "expected")?;
+            }
             writeln!(
                 out,
                 "{:>10} {:>9} {:>9} {:>11} {:>8} {:>9} {:>8} {:>8} {:>8}",
@@ -144,7 +212,12 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
                 "p95 ms",
                 "p99 ms"
             )?;
-            for r in &rows {
+            for (j, r) in rows.iter().enumerate() {
+                if let Some((asked, c)) = asked.get(j) {
+                    let mark = if c.reached { "" } else { "<" };
+                    write!(out, "{asked:>7} {:>8}", format!("{mark}{:.4}", c.expected))?;
+                    write!(out, " ")?;
+                }
                 writeln!(
                     out,
                     "{:>10} {:>9.4} {:>9.4} {:>11.1} {:>7.2}% {:>9.0} {:>8.3} {:>8.3} {:>8.3}",

@@ -37,6 +37,20 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
     let index = Index::open(&a.index)?;
     super::announce_program(&index, a.quiet_metric);
     let mut params = SearchParams::from_index(&index, a.k.unwrap_or(10));
+    if let Some(r) = a.recall {
+        let (p, choice) = SearchParams::recall_choice(&index, params.k, r)?;
+        if !choice.reached {
+            eprintln!(
+                "waymark: warning: {}: the index's recall curve stops at {:.3} ({} candidates, \
+                 used here), below the {r} asked; give more --candidates for more, or ask \
+                 --exact for every true neighbour",
+                a.index.display(),
+                choice.expected,
+                choice.candidates
+            );
+        }
+        params = p;
+    }
     if let Some(c) = a.candidates {
         params = params.with_candidates(c);
     }

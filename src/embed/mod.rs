@@ -65,6 +65,53 @@ pub struct LandmarkOptions {
     pub seed: u64,
 }
 
+/// Which sample items farthest-first may take as landmarks.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[cfg_attr(feature = "cli", derive(clap::ValueEnum))]
+#[serde(rename_all = "lowercase")]
+pub enum LandmarkRule {
+    /// Every sampled item: farthest-first takes the outliers of the sample first.
+    #[default]
+    Farthest,
+    /// Sampled items whose mean distance to [`TRIM_PROBES`] other sampled items is not among
+    /// the largest [`TRIM_SHARE`] (outliers dropped), then farthest-first among them.
+    Trimmed,
+}
+
+/// Sampled items each item is compared with to find the outliers of a sample
+/// ([`LandmarkRule::Trimmed`]).
+pub const TRIM_PROBES: usize = 16;
+
+/// Share of a sample dropped as outliers by [`LandmarkRule::Trimmed`].
+pub const TRIM_SHARE: f64 = 0.2;
+
+/// The sample without its outliers: the items whose mean distance to [`TRIM_PROBES`] random
+/// members of the sample is among the smallest `1 − TRIM_SHARE`, in the sample's order.
+fn trimmed<M: Metric, T: AsRef<[u8]> + Sync>(
+    metric: &M,
+    items: &[T],
+    pool: &[usize],
+    rng: &mut ChaCha8Rng,
+) -> Vec<usize> {
+    let probes: Vec<usize> = sample(rng, pool.len(), TRIM_PROBES.min(pool.len())).into_vec();
+    let all: Vec<&[u8]> = pool.iter().map(|&i| items[i].as_ref()).collect();
+    let mut mean = vec![0.0; pool.len()];
+    for &p in &probes {
+        let q = metric.prepare(all[p]);
+        let mut d = vec![0.0; all.len()];
+        q.distances(&all, &mut d);
+        for (m, d) in mean.iter_mut().zip(d) {
+            *m += d;
+        }
+    }
+    let keep = ((pool.len() as f64) * (1.0 - TRIM_SHARE)).ceil().max(1.0) as usize;
+    let mut order: Vec<usize> = (0..pool.len()).collect();
+    order.sort_by(|&a, &b| mean[a].total_cmp(&mean[b]).then(a.cmp(&b)));
+    order.truncate(keep);
+    order.sort_unstable();
+    order.into_iter().map(|j| pool[j]).collect()
+}
+
 /// Chooses `opts.dim` landmarks farthest-first from a seeded sample of `items`.
 ///
 /// Returns item indices, in the order chosen. Fewer than `dim` are returned only when the
@@ -74,6 +121,16 @@ pub fn choose_landmarks<M: Metric, T: AsRef<[u8]> + Sync>(
     metric: &M,
     items: &[T],
     opts: &LandmarkOptions,
+) -> Vec<usize> {
+    choose_landmarks_by(metric, items, opts, LandmarkRule::Farthest)
+}
+
+/// [`choose_landmarks`] with the sample items it may take given by `rule`.
+pub fn choose_landmarks_by<M: Metric, T: AsRef<[u8]> + Sync>(
+    metric: &M,
+    items: &[T],
+    opts: &LandmarkOptions,
+    rule: LandmarkRule,
 ) -> Vec<usize> {
     let n = items.len();
     if n == 0 || opts.dim == 0 {
@@ -85,6 +142,9 @@ pub fn choose_landmarks<M: Metric, T: AsRef<[u8]> + Sync>(
     // Sorted so that ties between equally far candidates go to the lowest item index,
     // independent of the sampler's internal order.
     pool.sort_unstable();
+    if rule == LandmarkRule::Trimmed {
+        pool = trimmed(metric, items, &pool, &mut rng);
+    }
     let first = pool[(opts.seed as usize) % pool.len()];
     let mut chosen = vec![first];
     let mut nearest = vec![f64::INFINITY; pool.len()];
@@ -308,6 +368,8 @@ pub struct EmbedOptions {
     pub pool: usize,
     /// Seed of every random choice.
     pub seed: u64,
+    /// Which sampled items may be landmarks ([`Method::Landmarks`]).
+    pub rule: LandmarkRule,
 }
 
 impl Default for EmbedOptions {
@@ -318,6 +380,7 @@ impl Default for EmbedOptions {
             sample: 4096,
             pool: DEFAULT_POOL,
             seed: 0,
+            rule: LandmarkRule::default(),
         }
     }
 }
@@ -427,7 +490,7 @@ impl Embedded {
 ///
 /// let items = ["quay", "quays", "strand", "orvane", "orvanes", "kaldrith"];
 /// for method in Method::ALL {
-///     let opts = EmbedOptions { method, dim: 3, sample: 100, pool: 4, seed: 1 };
+///     let opts = EmbedOptions { method, dim: 3, sample: 100, pool: 4, seed: 1, ..Default::default() };
 ///     let e = embed_items(&Levenshtein, &items, &opts, &|_| {});
 ///     assert_eq!(e.coords.len(), items.len() * e.dim());
 ///     assert_eq!(e.embedding.contractive(), method != Method::FastMap);
@@ -442,7 +505,7 @@ pub fn embed_items<M: Metric, T: AsRef<[u8]> + Sync>(
     let dim = opts.dim.min(MAX_DIM);
     let embedding = match opts.method {
         Method::Landmarks => {
-            let landmarks = choose_landmarks(
+            let landmarks = choose_landmarks_by(
                 metric,
                 items,
                 &LandmarkOptions {
@@ -450,6 +513,7 @@ pub fn embed_items<M: Metric, T: AsRef<[u8]> + Sync>(
                     sample: opts.sample,
                     seed: opts.seed,
                 },
+                opts.rule,
             );
             Embedding::Landmarks {
                 landmarks: landmarks.iter().map(|&l| l as u64).collect(),

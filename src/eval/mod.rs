@@ -20,6 +20,7 @@
 //! ```
 
 mod brute;
+pub mod calibrate;
 pub mod distortion;
 mod measure;
 #[cfg(feature = "charts")]
@@ -30,8 +31,14 @@ pub mod sweep;
 pub mod truth;
 
 pub use brute::brute_force;
+pub use calibrate::{
+    calibrate_file, calibrate_from_items, calibrate_from_queries, CalibrateOptions,
+};
 pub use distortion::{measure_distortion, DistortionReport};
 pub use measure::{measure_recall, RecallRow};
-pub use recall::{plain_recall, threshold_recall, typo_queries, RECALL_EPSILON};
+pub use recall::{
+    edit_queries, plain_recall, threshold_recall, typo_queries, variants_missing_from,
+    RECALL_EPSILON,
+};
 pub use scan::{best_scan, full_scan, scan_many, Scan};
 pub use truth::{load_or_compute_truth, Truth, TruthSource};

@@ -251,6 +251,7 @@ pub fn run_sweep(
                 sample: opts.sample,
                 pool: opts.pool,
                 seed: opts.seed,
+                rule: Default::default(),
             },
             &|_| {},
         );

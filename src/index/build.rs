@@ -30,6 +30,8 @@ pub struct BuildOptions {
     pub sample: usize,
     /// Size of the reference-set pool (the reference-set method's cost per query).
     pub pool: usize,
+    /// Which sampled items may be landmarks.
+    pub landmark_rule: crate::embed::LandmarkRule,
     /// Default candidates per query stored in the index; 0 (the default) stores
     /// [`super::default_candidates`] of the number of items.
     pub candidates: usize,
@@ -52,6 +54,7 @@ impl Default for BuildOptions {
             seed: 0,
             sample: 4096,
             pool: crate::embed::DEFAULT_POOL,
+            landmark_rule: crate::embed::LandmarkRule::default(),
             candidates: 0,
             space: Space::default(),
             normalize: Normalize::default(),
@@ -151,7 +154,9 @@ fn string_sections(strings: impl ExactSizeIterator<Item = impl AsRef<[u8]>>) -> 
 /// Builds an index of `corpus` at `dest`, atomically replacing any file there.
 ///
 /// `progress` is called with the number of items embedded since the last call; see
-/// [`build_index_with`] for the stages too.
+/// [`build_index_with`] for the stages too. The index carries no recall curve (the curve is
+/// measured by searching, a layer above this one): `waymark build` adds it with
+/// `waymark::eval::calibrate_file`, which a library user can call too.
 pub fn build_index(
     corpus: &Corpus,
     source: &str,
@@ -216,6 +221,7 @@ fn build(
             sample: opts.sample,
             pool: opts.pool,
             seed: opts.seed,
+            rule: opts.landmark_rule,
         },
         &|n| progress.embedded(n),
     );
@@ -426,6 +432,7 @@ fn write_index(
         records: corpus.records as u64,
         blank_skipped: corpus.blank_skipped as u64,
         written_by: format!("waymark {}", env!("CARGO_PKG_VERSION")),
+        calibration: None,
     };
     let meta_json = serde_json::to_vec_pretty(&meta).expect("metadata serialises");
     writer.add(SectionKind::Meta, &meta_json)?;
@@ -465,6 +472,79 @@ fn write_index(
         write_seconds: t2.elapsed().as_secs_f64(),
         axioms: None,
     })
+}
+
+/// Stores `calibration` in the metadata of the index at `path` (replacing any curve there),
+/// by writing a new file through the same temporary file, lock and rename as a build: the
+/// other sections are copied byte for byte at their alignment, readers that have the old
+/// file open keep reading it, and a failure leaves the old file as it was. Returns the new
+/// file's length. `expect` is the metadata the caller read: a file whose metadata has changed
+/// since (another build in between) is refused rather than overwritten with old contents.
+pub fn store_calibration(
+    path: &Path,
+    expect: &IndexMeta,
+    calibration: Option<super::Calibration>,
+) -> Result<u64> {
+    if let Some(c) = &calibration {
+        c.check()
+            .map_err(|m| Error::Usage(format!("{}: not stored: {m}", path.display())))?;
+    }
+    let io = |source| Error::Io {
+        path: path.to_path_buf(),
+        source,
+    };
+    let file = std::fs::File::open(path).map_err(io)?;
+    // SAFETY: read-only; the file is replaced by rename, never written in place.
+    let map = unsafe { memmap2::Mmap::map(&file) }.map_err(io)?;
+    let (version, mut sections) = super::file::read_table(path, &map)?;
+    if version != super::file::FORMAT_VERSION {
+        // The writer writes the current version's header, whose sections differ (version 1
+        // stores the coordinates twice and has no positions): copying them would mislabel
+        // the file.
+        return Err(Error::refused(
+            path,
+            format!(
+                "a recall curve is stored only in index format version {}; this file is version {version}: rebuild it with `waymark build`",
+                super::file::FORMAT_VERSION
+            ),
+        ));
+    }
+    sections.sort_by_key(|s| s.range.start);
+    let meta_range = sections
+        .iter()
+        .find(|s| s.kind == SectionKind::Meta)
+        .map(|s| s.range.clone())
+        .ok_or_else(|| Error::corrupt(path, "missing section meta"))?;
+    let mut meta: IndexMeta = serde_json::from_slice(&map[meta_range])
+        .map_err(|e| Error::corrupt(path, format!("metadata does not parse: {e}")))?;
+    let unchanged = IndexMeta {
+        calibration: expect.calibration.clone(),
+        ..meta.clone()
+    };
+    if serde_json::to_value(&unchanged).ok() != serde_json::to_value(expect).ok() {
+        return Err(Error::refused(
+            path,
+            "the file changed while it was being calibrated (another build?); nothing was written",
+        ));
+    }
+    meta.calibration = calibration;
+    let meta_json = serde_json::to_vec_pretty(&meta).expect("metadata serialises");
+    let mut writer = ContainerWriter::create(path, &[])?;
+    for s in &sections {
+        // The alignments of a build (`write_index`), so that the same contents give the
+        // same bytes: the kd-tree on its page boundary, every other section on 64 bytes.
+        let align = match s.kind {
+            SectionKind::Tree => super::file::TREE_ALIGN,
+            _ => super::file::ALIGN,
+        };
+        if s.kind == SectionKind::Meta {
+            writer.add_aligned(s.kind, &meta_json, align)?;
+        } else {
+            writer.add_aligned(s.kind, &map[s.range.clone()], align)?;
+        }
+    }
+    writer.finish()?;
+    Ok(std::fs::metadata(path).map(|m| m.len()).unwrap_or(0))
 }
 
 #[cfg(test)]

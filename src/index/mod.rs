@@ -15,6 +15,7 @@
 //! ```
 
 mod build;
+pub mod calibration;
 pub mod cells;
 pub mod file;
 mod install;
@@ -31,8 +32,9 @@ use serde::{Deserialize, Serialize};
 
 pub use build::{
     build_index, build_index_from, build_index_with, build_index_with_metric, open_metric,
-    BuildOptions, BuildProgress, BuildReport, BuildStage, AXIOM_SAMPLE,
+    store_calibration, BuildOptions, BuildProgress, BuildReport, BuildStage, AXIOM_SAMPLE,
 };
+pub use calibration::{Calibration, CalibrationPoint, RecallChoice};
 use file::{Section, SectionKind};
 pub use install::install_index;
 pub use rows::Rows;
@@ -115,6 +117,10 @@ pub struct IndexMeta {
     pub blank_skipped: u64,
     /// The waymark version that wrote the file.
     pub written_by: String,
+    /// The recall curve measured on this index (see [`calibration`]); absent in files
+    /// written before it existed or built without it.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub calibration: Option<Calibration>,
 }
 
 /// An id as stored: typed as in the input.

@@ -49,7 +49,7 @@ use rayon::prelude::*;
 pub use self::candidates::Scratch;
 pub use self::order::Neighbor;
 pub use self::request::{
-    CandidateSource, Certificate, Found, Request, SearchParams, CELLS_MIN_ITEMS,
+    check_recall, CandidateSource, Certificate, Found, Request, SearchParams, CELLS_MIN_ITEMS,
     VISIT_PER_CANDIDATE,
 };
 pub use crate::coords::Space;

@@ -4,7 +4,8 @@ use serde::{Deserialize, Serialize};
 
 use super::order::Neighbor;
 use crate::coords::Space;
-use crate::index::Index;
+use crate::error::{Error, Param, Result};
+use crate::index::{Calibration, Index, RecallChoice};
 
 /// The smallest index whose default candidate source is its cells ([`CandidateSource::Cells`]).
 /// Below it the scan of every row is cheap, and cells of a few dozen items group little;
@@ -68,6 +69,79 @@ impl SearchParams {
         }
     }
 
+    /// The index's defaults (as [`SearchParams::from_index`]) with the candidate count and
+    /// visit budget that its recall calibration says reach threshold recall@k `recall`
+    /// ([`crate::index::Calibration::choose`]; when the curve does not reach it, its largest
+    /// setting). `recall` must lie strictly between 0 and 1 ([`check_recall`]).
+    ///
+    /// Refused (a usage error, with advice) when the index carries no calibration, and as a
+    /// corrupt index when its curve is malformed. The curve was measured for its own `k`
+    /// (10 unless calibrated otherwise): recall at another `k` may differ, and on queries
+    /// unlike the calibration's (the build uses the index's own items) it can fall short;
+    /// `waymark eval --queries FILE --recall R` shows what it achieves.
+    ///
+    /// ```no_run
+    /// use waymark::index::Index;
+    /// use waymark::search::{SearchParams, Searcher};
+    ///
+    /// let index = Index::open("words.wmk".as_ref())?;
+    /// let params = SearchParams::for_recall(&index, 10, 0.95)?;
+    /// let found = Searcher::new(&index).search("harbuor", &params, &mut Default::default())?;
+    /// # Ok::<(), waymark::Error>(())
+    /// ```
+    pub fn for_recall(index: &Index, k: usize, recall: f64) -> Result<SearchParams> {
+        Ok(Self::recall_choice(index, k, recall)?.0)
+    }
+
+    /// [`SearchParams::for_recall`] with what the curve chose (the recall it predicts, and
+    /// whether it reaches the asked one).
+    pub fn recall_choice(
+        index: &Index,
+        k: usize,
+        recall: f64,
+    ) -> Result<(SearchParams, RecallChoice)> {
+        check_recall(recall)?;
+        let cal = index.meta().calibration.as_ref().ok_or_else(|| {
+            Error::Usage(format!(
+                "{}: the index carries no recall calibration (it was written before waymark \
+                 calibrated indexes, or built with --no-calibration), so it cannot choose \
+                 candidates for a recall; rebuild it with `waymark build`, calibrate it from \
+                 queries with `waymark eval {} --queries FILE --calibrate`, or give \
+                 --candidates",
+                index.path().display(),
+                index.path().display()
+            ))
+        })?;
+        Self::recall_choice_on(index, k, cal, recall)
+    }
+
+    /// [`SearchParams::recall_choice`] with a curve given here rather than the index's
+    /// (for instance one measured on other queries, [`crate::eval::calibrate_from_queries`]).
+    pub fn recall_choice_on(
+        index: &Index,
+        k: usize,
+        cal: &Calibration,
+        recall: f64,
+    ) -> Result<(SearchParams, RecallChoice)> {
+        check_recall(recall)?;
+        cal.check()
+            .map_err(|m| Error::corrupt(index.path(), format!("metadata: {m}")))?;
+        let choice = cal.choose(recall, index.len());
+        let p = SearchParams::from_index(index, k);
+        let visit = match p.source {
+            CandidateSource::Cells => choice.visit,
+            _ => choice.candidates.saturating_mul(VISIT_PER_CANDIDATE),
+        };
+        Ok((
+            SearchParams {
+                candidates: choice.candidates,
+                visit,
+                ..p
+            },
+            choice,
+        ))
+    }
+
     /// These parameters with `candidates` and the matching default `visit`.
     pub fn with_candidates(self, candidates: usize) -> SearchParams {
         SearchParams {
@@ -76,6 +150,32 @@ impl SearchParams {
             ..self
         }
     }
+}
+
+/// Checks an asked recall: a number strictly between 0 and 1 (1 is what an exact query
+/// gives: `--exact`).
+///
+/// ```
+/// use waymark::search::check_recall;
+///
+/// assert!(check_recall(0.95).is_ok());
+/// for bad in [0.0, 1.0, 1.5, -0.1, f64::NAN, f64::INFINITY] {
+///     assert!(check_recall(bad).is_err());
+/// }
+/// ```
+pub fn check_recall(recall: f64) -> Result<()> {
+    if recall > 0.0 && recall < 1.0 {
+        return Ok(());
+    }
+    let advice = if recall == 1.0 {
+        " (every true neighbour is what an exact query gives: ask for it instead)"
+    } else {
+        ""
+    };
+    Err(Error::parameter(
+        Param::Recall,
+        format!("must be a number strictly between 0 and 1, not {recall}{advice}"),
+    ))
 }
 
 /// The answer to one query.

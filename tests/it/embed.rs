@@ -84,6 +84,7 @@ fn every_point_a_landmark_is_an_isometry_into_linf() {
             sample: n,
             pool: n,
             seed,
+            ..Default::default()
         };
         let e = embed_items(&m, &its, &opts, &|_| {});
         assert_eq!(e.dim(), n, "every point is chosen as a landmark");
@@ -124,6 +125,7 @@ fn no_method_embeds_the_four_cycle_into_l2_below_sqrt_2() {
                     sample: 4,
                     pool: 4,
                     seed,
+                    ..Default::default()
                 };
                 let e = embed_items(&m, &its, &opts, &|_| {});
                 let r = measure_distortion(&m, &its, &e.embedding, 100, 0);
@@ -155,6 +157,7 @@ fn reference_sets_distortion_stays_below_c_log2_n() {
             sample: n,
             pool: n,
             seed,
+            ..Default::default()
         };
         let e = embed_items(&m, &its, &opts, &|_| {});
         let r = measure_distortion(&m, &its, &e.embedding, 1 << 20, 0);
@@ -255,6 +258,7 @@ fn a_prefix_of_an_embedding_is_the_smaller_embedding() {
             sample: 200,
             pool: 16,
             seed: 3,
+            ..Default::default()
         };
         let big = embed_items(&Levenshtein, &items, &opts(16), &|_| {});
         let small = embed_items(&Levenshtein, &items, &opts(6), &|_| {});
@@ -296,4 +300,64 @@ fn malformed_embeddings_are_refused() {
         sets: vec![vec![0, 1], vec![1]],
     };
     assert!(ok.check(10).is_ok());
+}
+
+#[test]
+fn trimmed_landmarks_leave_the_outliers_that_farthest_first_takes() {
+    use waymark::embed::{choose_landmarks_by, LandmarkOptions, LandmarkRule};
+    // 400 of Debian's wamerican words and 10 invented strings of 40 letters: the long ones
+    // are the sample's outliers (a word of L letters is at least 40 − L edits from them).
+    let mut items: Vec<String> = crate::util::word_list()
+        .lines()
+        .step_by(250)
+        .take(400)
+        .map(String::from)
+        .collect();
+    let long: Vec<String> = (0..10u8)
+        .map(|i| {
+            (0..40u8)
+                .map(|j| char::from(b'a' + (i * 7 + j * 3) % 26))
+                .collect()
+        })
+        .collect();
+    items.extend(long.iter().cloned());
+    let is_long = |l: usize| l >= 400;
+    let opts = LandmarkOptions {
+        dim: 8,
+        sample: items.len(),
+        seed: 5,
+    };
+    let far = choose_landmarks_by(&Levenshtein, &items, &opts, LandmarkRule::Farthest);
+    let trim = choose_landmarks_by(&Levenshtein, &items, &opts, LandmarkRule::Trimmed);
+    assert!(
+        far.iter().any(|&l| is_long(l)),
+        "farthest-first takes an outlier: {far:?}"
+    );
+    assert!(
+        trim.iter().all(|&l| !is_long(l)),
+        "the trimmed sample has no outlier: {trim:?}"
+    );
+    assert_eq!(trim.len(), 8);
+    // The build records what it chose: an index built with the rule has those landmarks.
+    let dir = tempfile::tempdir().unwrap();
+    let index = build_in(
+        dir.path(),
+        "t.wmk",
+        &corpus(&items),
+        &BuildOptions {
+            dim: 8,
+            sample: items.len(),
+            seed: 5,
+            landmark_rule: LandmarkRule::Trimmed,
+            ..BuildOptions::default()
+        },
+    );
+    let refs: Vec<usize> = index
+        .meta()
+        .embedding
+        .refs()
+        .iter()
+        .map(|&r| r as usize)
+        .collect();
+    assert_eq!(refs, trim);
 }

@@ -244,3 +244,27 @@ fn a_version_2_file_without_its_rows_or_their_positions_is_refused_at_open() {
         );
     }
 }
+
+#[test]
+fn bad_input_a_version_1_file_is_not_calibrated_and_is_left_as_it_was() {
+    let d = Dir::new();
+    let before = std::fs::read(data("v1-names.wmk")).unwrap();
+    let v1 = d.write("v1.wmk", &before);
+    d.cmd()
+        .arg("eval")
+        .arg(&v1)
+        .arg("--calibrate")
+        .arg("--queries")
+        .arg(data("v1-lookups.txt"))
+        .assert()
+        .code(3)
+        .stderr(contains("version 1"))
+        .stderr(contains("rebuild it with `waymark build`"));
+    assert_eq!(std::fs::read(&v1).unwrap(), before);
+    let leftovers: Vec<_> = std::fs::read_dir(d.path("."))
+        .unwrap()
+        .filter_map(|e| e.ok())
+        .filter(|e| e.file_name().to_string_lossy().contains("partial"))
+        .collect();
+    assert!(leftovers.is_empty(), "{leftovers:?}");
+}

@@ -30,6 +30,7 @@ mod metric_weighted;
 mod names;
 mod pairs;
 mod permissions;
+mod recall;
 mod search;
 mod sequences;
 mod vector_digits;

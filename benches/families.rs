@@ -1,0 +1,263 @@
+//! Recall and speed per query family, at the default settings and at asked recalls.
+//!
+//! Families (each queried against an index of its own list, k = 10, threshold recall@10
+//! against the full scan):
+//!
+//! - `edits-1`, `edits-2`, `edits-3`: 1–3 random edits of random words of Debian's
+//!   wamerican-insane list (663,473 words) in the list's own alphabet
+//!   ([`waymark::eval::edit_queries`]), three independent seeds;
+//! - `british`: words of Debian's wbritish that wamerican lacks (natural spelling variants),
+//!   against wamerican (104,334 words);
+//! - `french`, `german`: edits of words of Debian's wfrench and wngerman in their own
+//!   (accented) alphabets, against those lists;
+//! - `register`: the demo register's misspelt look-ups (`demo-data/lookups.txt`, multi-word
+//!   names) against `demo-data/names.txt`;
+//! - `barcodes`: reads with errors (`demo-data/barcode-reads.txt`) against
+//!   `demo-data/barcodes.txt`.
+//!
+//! Every family has two query sets: a calibration set and a held-out set (independent
+//! seeds; the british, register and barcode queries split in two at random). Printed per
+//! family, on the held-out set: the defaults' recall and q/s; for each asked recall (0.9,
+//! 0.95, 0.99) the candidates the build's curve (from the index's own items) chose and the
+//! recall reached; the same with the curve measured on the calibration set
+//! (`eval --calibrate`). Beside today's landmarks (farthest-first from a sample), the
+//! defaults' recall and q/s with the alternative rule (farthest-first from the sample
+//! without its outliers, `build --landmark-rule trimmed`), on an index of its own.
+//!
+//! Run with `cargo bench --bench families`. Settings through the environment:
+//! - `WAYMARK_FAMILIES` comma-separated family names [all whose lists are installed]
+//! - `WAYMARK_FAMILIES_QUERIES` queries per set for generated families [500]
+//!
+//! Missing lists: `apt-get install -y wamerican wamerican-insane wbritish wfrench wngerman`.
+
+use std::path::{Path, PathBuf};
+use std::time::Instant;
+
+use waymark::embed::LandmarkRule;
+use waymark::eval::{
+    calibrate_from_items, calibrate_from_queries, edit_queries, measure_recall, scan_many,
+    variants_missing_from, CalibrateOptions, Scan, Truth,
+};
+use waymark::index::{build_index, store_calibration, BuildOptions, Index};
+use waymark::ingest::{read_corpus, IngestOptions};
+use waymark::search::SearchParams;
+
+const K: usize = 10;
+const ASKED: [f64; 3] = [0.9, 0.95, 0.99];
+
+struct Family {
+    name: &'static str,
+    list: PathBuf,
+    calibration: Vec<String>,
+    heldout: Vec<String>,
+}
+
+fn lines(path: &Path) -> Option<Vec<String>> {
+    let text = std::fs::read_to_string(path).ok()?;
+    Some(
+        text.lines()
+            .filter(|l| !l.is_empty())
+            .map(String::from)
+            .collect(),
+    )
+}
+
+/// Splits `qs` in two at random (seeded), keeping each half in input order.
+fn halves(qs: Vec<String>, seed: u64) -> (Vec<String>, Vec<String>) {
+    use rand::{Rng, SeedableRng};
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+    let (mut a, mut b) = (Vec::new(), Vec::new());
+    for q in qs {
+        if rng.gen_bool(0.5) {
+            a.push(q);
+        } else {
+            b.push(q);
+        }
+    }
+    (a, b)
+}
+
+fn families(nq: usize, wanted: &Option<Vec<String>>) -> Vec<Family> {
+    let want = |name: &str| wanted.as_ref().is_none_or(|w| w.iter().any(|x| x == name));
+    let dict = |name: &str| PathBuf::from("/usr/share/dict").join(name);
+    let demo = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("demo-data");
+    let mut out = Vec::new();
+    let insane = dict("american-english-insane");
+    if let Some(words) = lines(&insane) {
+        for (name, seed) in [("edits-1", 101), ("edits-2", 202), ("edits-3", 303)] {
+            if want(name) {
+                out.push(Family {
+                    name,
+                    list: insane.clone(),
+                    calibration: edit_queries(&words, nq, seed + 1),
+                    heldout: edit_queries(&words, nq, seed),
+                });
+            }
+        }
+    }
+    let american = dict("american-english");
+    if let (true, Some(us), Some(gb)) = (
+        want("british"),
+        lines(&american),
+        lines(&dict("british-english")),
+    ) {
+        let (a, b) = halves(variants_missing_from(&us, &gb, usize::MAX, 0), 7);
+        out.push(Family {
+            name: "british",
+            list: american,
+            calibration: a,
+            heldout: b,
+        });
+    }
+    for (name, file, seed) in [("french", "french", 401), ("german", "ngerman", 501)] {
+        if let (true, Some(words)) = (want(name), lines(&dict(file))) {
+            out.push(Family {
+                name,
+                list: dict(file),
+                calibration: edit_queries(&words, nq, seed + 1),
+                heldout: edit_queries(&words, nq, seed),
+            });
+        }
+    }
+    for (name, list, queries) in [
+        ("register", "names.txt", "lookups.txt"),
+        ("barcodes", "barcodes.txt", "barcode-reads.txt"),
+    ] {
+        if let (true, Some(qs)) = (want(name), lines(&demo.join(queries))) {
+            let (a, b) = halves(qs, 11);
+            out.push(Family {
+                name,
+                list: demo.join(list),
+                calibration: a,
+                heldout: b,
+            });
+        }
+    }
+    out
+}
+
+fn truth(index: &Index, queries: &[String]) -> Truth {
+    Truth {
+        k: K,
+        answers: scan_many(index, queries, K, Scan::Full).expect("k > 0"),
+    }
+}
+
+fn main() {
+    let nq: usize = std::env::var("WAYMARK_FAMILIES_QUERIES")
+        .ok()
+        .and_then(|v| v.parse().ok())
+        .unwrap_or(500);
+    let wanted: Option<Vec<String>> = std::env::var("WAYMARK_FAMILIES")
+        .ok()
+        .map(|v| v.split(',').map(|s| s.trim().to_string()).collect());
+    let fams = families(nq, &wanted);
+    if fams.is_empty() {
+        eprintln!("no family to run: install the word lists (see the top of benches/families.rs)");
+        return;
+    }
+    println!(
+        "k = {K}; threshold recall@{K} and q/s on each family's held-out queries; {} threads",
+        rayon::current_num_threads()
+    );
+    let dir = tempfile::tempdir().expect("temp dir");
+    let mut table = Vec::new();
+    // Families on one list share its indexes: today's landmarks and the alternative rule.
+    let mut built: Option<(PathBuf, PathBuf, PathBuf)> = None;
+    for f in &fams {
+        let (path, alt) = match &built {
+            Some((list, p, a)) if *list == f.list => (p.clone(), a.clone()),
+            _ => {
+                let corpus = read_corpus(&f.list, &IngestOptions::default()).expect("list reads");
+                let mut paths = Vec::new();
+                for rule in [LandmarkRule::Farthest, LandmarkRule::Trimmed] {
+                    let path = dir.path().join(format!("{}-{rule:?}.wmk", f.name));
+                    let t = Instant::now();
+                    build_index(
+                        &corpus,
+                        &f.list.display().to_string(),
+                        &BuildOptions {
+                            landmark_rule: rule,
+                            ..BuildOptions::default()
+                        },
+                        &path,
+                        &|_| {},
+                    )
+                    .expect("build");
+                    let built_s = t.elapsed().as_secs_f64();
+                    let t = Instant::now();
+                    let index = Index::open(&path).expect("open");
+                    let cal = calibrate_from_items(&index, &CalibrateOptions::default())
+                        .expect("calibration")
+                        .expect("items enough");
+                    let meta = index.meta().clone();
+                    drop(index);
+                    store_calibration(&path, &meta, Some(cal)).expect("store");
+                    println!(
+                        "{} ({rule:?} landmarks): {} items; build {built_s:.2} s, recall curve {:.2} s (measure and store)",
+                        f.list.display(),
+                        corpus.items.len(),
+                        t.elapsed().as_secs_f64()
+                    );
+                    paths.push(path);
+                }
+                built = Some((f.list.clone(), paths[0].clone(), paths[1].clone()));
+                (paths[0].clone(), paths[1].clone())
+            }
+        };
+        let index = Index::open(&path).expect("open");
+        let alt = Index::open(&alt).expect("open");
+        let t = Instant::now();
+        let held_truth = truth(&index, &f.heldout);
+        let cal_truth = truth(&index, &f.calibration);
+        let scan_s = t.elapsed().as_secs_f64();
+        let default = SearchParams::from_index(&index, K);
+        let row = measure_recall(&index, &f.heldout, &held_truth, &default).expect("measure");
+        let alt_row = measure_recall(
+            &alt,
+            &f.heldout,
+            &held_truth,
+            &SearchParams::from_index(&alt, K),
+        )
+        .expect("measure");
+        let mut cells = vec![
+            f.name.to_string(),
+            index.len().to_string(),
+            f.heldout.len().to_string(),
+            format!("{}", default.candidates),
+            format!("{:.4}, {:.0}", row.recall, row.qps),
+            format!("{:.4}, {:.0}", alt_row.recall, alt_row.qps),
+        ];
+        let from_queries =
+            calibrate_from_queries(&index, &f.calibration, &cal_truth, K, "calibration set")
+                .expect("calibration from queries");
+        for r in ASKED {
+            let (p, _) = SearchParams::recall_choice(&index, K, r).expect("curve");
+            let got = measure_recall(&index, &f.heldout, &held_truth, &p).expect("measure");
+            let (pq, _) =
+                SearchParams::recall_choice_on(&index, K, &from_queries, r).expect("curve");
+            let gq = measure_recall(&index, &f.heldout, &held_truth, &pq).expect("measure");
+            cells.push(format!(
+                "{} {:.4} / {} {:.4}",
+                p.candidates, got.recall, pq.candidates, gq.recall
+            ));
+        }
+        println!(
+            "{}: {} + {} queries, brute force {scan_s:.1} s; defaults {:.4} at {:.0} q/s, trimmed landmarks {:.4} at {:.0} q/s",
+            f.name,
+            f.calibration.len(),
+            f.heldout.len(),
+            row.recall,
+            row.qps,
+            alt_row.recall,
+            alt_row.qps
+        );
+        table.push(cells);
+    }
+    println!();
+    println!("| family | items | held-out queries | default C | today: recall@10, q/s | trimmed landmarks: recall@10, q/s | R = 0.9: C, recall (items curve / queries curve) | R = 0.95 | R = 0.99 |");
+    println!("|---|---:|---:|---:|---:|---:|---:|---:|---:|");
+    for c in table {
+        println!("| {} |", c.join(" | "));
+    }
+}
