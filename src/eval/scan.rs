@@ -6,7 +6,7 @@ use rayon::prelude::*;
 
 use crate::error::{Error, Result};
 use crate::index::Index;
-use crate::metric::{Levenshtein, LevenshteinQuery, Metric, MetricKind};
+use crate::metric::{Levenshtein, LevenshteinLanes, LevenshteinQuery, Metric, MetricKind};
 use crate::search::order::{keep_best, Neighbor};
 
 /// `k` as a count of at least one neighbour, or the error that refuses `k = 0`.
@@ -174,7 +174,10 @@ pub fn scan_many(
             .map(|q| super::brute::brute_force_k(index, q, k))
             .collect());
     }
-    let ascii = scan == Scan::Best && all_ascii(index);
+    if scan == Scan::Full {
+        return Ok(full_scan_lanes(index, queries, k, LevenshteinLanes::new));
+    }
+    let ascii = all_ascii(index);
     Ok(queries
         .par_iter()
         .map(|q| match scan {
@@ -182,6 +185,84 @@ pub fn scan_many(
             Scan::Best => best_scan_with(index, q, k, ascii),
         })
         .collect())
+}
+
+/// Items per task of [`full_scan_lanes`]: enough to amortise a group's table, few enough
+/// that the tasks of a handful of groups still spread over every core.
+const LANE_BLOCK: usize = 8192;
+
+/// [`full_scan_k`] of every query of a Levenshtein index at once, answers in input order:
+/// the queries go in vector lanes ([`LevenshteinLanes`], made by `lanes`), and each group
+/// of them streams each block of items once, the (group, block) tasks on all cores. The
+/// empty query and queries over 64 chars take [`full_scan_k`]. Answers equal those of
+/// [`full_scan_k`] (each lane keeps its best with [`keep_best`], whose order is total, so
+/// merging the blocks' answers gives the same list whatever the split).
+pub(super) fn full_scan_lanes(
+    index: &Index,
+    queries: &[String],
+    k: NonZeroUsize,
+    lanes: impl Fn(&[&[u8]]) -> LevenshteinLanes,
+) -> Vec<Vec<Neighbor>> {
+    let k_all = k;
+    // No more answers than items: a k above n means every item, never an allocation of k.
+    let k = k.get().min(index.len().max(1));
+    let normalize = &index.meta().normalize;
+    let keys: Vec<String> = queries
+        .iter()
+        .map(|q| normalize.apply(q).into_owned())
+        .collect();
+    let bytes: Vec<&[u8]> = keys.iter().map(|q| q.as_bytes()).collect();
+    let lanes = lanes(&bytes);
+    let items = index.keys();
+    let n = index.len();
+    let tasks: Vec<(usize, usize)> = (0..lanes.groups())
+        .flat_map(|g| (0..n.div_ceil(LANE_BLOCK).max(1)).map(move |b| (g, b)))
+        .collect();
+    let found: Vec<(usize, Vec<Vec<Neighbor>>)> = tasks
+        .into_par_iter()
+        .map(|(g, b)| {
+            let members = lanes.members(g);
+            let mut best: Vec<Vec<Neighbor>> = vec![Vec::with_capacity(k + 1); members.len()];
+            let mut bounds = vec![u32::MAX; members.len()];
+            let block = (b * LANE_BLOCK).min(n)..((b + 1) * LANE_BLOCK).min(n);
+            let stream = block.map(|i| (i as u32, items.get(i)));
+            lanes.scan_group(g, stream, &mut bounds, |lane, i, d| {
+                let best = &mut best[lane];
+                keep_best(
+                    index,
+                    best,
+                    k,
+                    Neighbor {
+                        index: i,
+                        distance: f64::from(d),
+                    },
+                );
+                if best.len() == k {
+                    best[k - 1].distance as u32
+                } else {
+                    u32::MAX
+                }
+            });
+            (g, best)
+        })
+        .collect();
+    let mut answers: Vec<Vec<Neighbor>> = vec![Vec::new(); queries.len()];
+    for (g, best) in found {
+        for (&q, found) in lanes.members(g).iter().zip(best) {
+            for cand in found {
+                keep_best(index, &mut answers[q], k, cand);
+            }
+        }
+    }
+    let rest: Vec<(usize, Vec<Neighbor>)> = lanes
+        .rest()
+        .par_iter()
+        .map(|&q| (q, full_scan_k(index, &queries[q], k_all)))
+        .collect();
+    for (q, found) in rest {
+        answers[q] = found;
+    }
+    answers
 }
 
 /// Prepares `query` for the Levenshtein kernel, normalised as the index's items were.
