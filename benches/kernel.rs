@@ -8,8 +8,10 @@
 //!   brute-force scan and of re-ranking with a running k-th best distance.
 //! * With `WAYMARK_BENCH_SCANS=1`: instead of the above, the brute forces of `eval`
 //!   (full scan and best scan through `scan_many`, both cores) on the whole word list with
-//!   typo queries, in pairs per second by wall time and by CPU time; `=kernel` runs only the
-//!   one-thread comparison of `dist` with `dist_batch`.
+//!   typo queries, in pairs per second by wall time and by CPU time; also the full scan with
+//!   the queries in vector lanes (`scan_many`) against one query at a time (`full_scan` per
+//!   query, all cores), in one run. `=kernel` runs only the one-thread comparison of `dist`
+//!   with `dist_batch`.
 //! * `levels`: `dist_batch` of one query against the word list at every dispatch level this
 //!   CPU runs (`portable`, `avx2`, `avx512`; see `waymark::cpu::Level`), with queries of 8,
 //!   9, 20 and 40 chars: the AVX-512 lane widths 8, 16, 32 and 64 bits (AVX2 takes 32-bit
@@ -218,6 +220,7 @@ fn brute_force() {
         let full = answers.pop().expect("two scans");
         assert_eq!(full, best, "the full scan and the best scan disagree");
     }
+    lanes_against_one_by_one(&index, &queries, pairs, rounds);
     println!(
         "fastest: full scan {:.1} M pairs/s ({:.0} q/s), best scan {:.1} M pairs/s ({:.0} q/s), best/full {:.2}x",
         pairs / fastest[0] / 1e6,
@@ -232,6 +235,46 @@ fn brute_force() {
         pairs / fastest_cpu[0] * threads / 1e6,
         pairs / fastest_cpu[1] * threads / 1e6,
         fastest_cpu[0] / fastest_cpu[1]
+    );
+}
+
+/// The full scan of many queries with the queries in vector lanes (`scan_many`, `Scan::Full`)
+/// against the same scan one query at a time (`full_scan` per query on all cores, which is
+/// what `scan_many` ran before), in one run; answers must compare equal.
+fn lanes_against_one_by_one(
+    index: &waymark::index::Index,
+    queries: &[String],
+    pairs: f64,
+    rounds: usize,
+) {
+    use rayon::prelude::*;
+    use waymark::eval::{full_scan, scan_many, Scan};
+
+    let mut fastest = [f64::INFINITY; 2];
+    for round in 0..rounds {
+        let t = std::time::Instant::now();
+        let one: Vec<_> = queries
+            .par_iter()
+            .map(|q| full_scan(index, q, 10).expect("k > 0"))
+            .collect();
+        let s_one = t.elapsed().as_secs_f64();
+        let t = std::time::Instant::now();
+        let lanes = scan_many(index, queries, 10, Scan::Full).expect("k > 0");
+        let s_lanes = t.elapsed().as_secs_f64();
+        assert_eq!(one, lanes, "queries in lanes and one by one disagree");
+        fastest[0] = fastest[0].min(s_one);
+        fastest[1] = fastest[1].min(s_lanes);
+        println!(
+            "round {round} full scan: one query at a time {:.1} M pairs/s, queries in lanes {:.1} M pairs/s",
+            pairs / s_one / 1e6,
+            pairs / s_lanes / 1e6
+        );
+    }
+    println!(
+        "fastest full scan: one query at a time {:.1} M pairs/s, queries in lanes {:.1} M pairs/s, lanes/one {:.2}x",
+        pairs / fastest[0] / 1e6,
+        pairs / fastest[1] / 1e6,
+        fastest[0] / fastest[1]
     );
 }
 
