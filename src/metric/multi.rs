@@ -444,7 +444,10 @@ mod tests {
         for g in 0..lanes.groups() {
             let members = lanes.members(g);
             let mut bounds = vec![u32::MAX; members.len()];
-            let stream = items.iter().enumerate().map(|(i, x)| (i as u32, x.as_slice()));
+            let stream = items
+                .iter()
+                .enumerate()
+                .map(|(i, x)| (i as u32, x.as_slice()));
             lanes.scan_group(g, stream, &mut bounds, |lane, i, d| {
                 let slot = &mut got[members[lane]][i as usize];
                 assert!(slot.is_none(), "item {i} visited twice");
