@@ -186,7 +186,13 @@ pub fn scan_many(
             let ascii = all_ascii(index);
             Ok(vec![best_scan_with(index, &queries[0], k, ascii)])
         }
-        _ => Ok(full_scan_lanes(index, queries, k, LevenshteinLanes::new)),
+        _ => Ok(full_scan_lanes(
+            index,
+            queries,
+            k,
+            LevenshteinLanes::new,
+            LANE_BLOCK,
+        )),
     }
 }
 
@@ -196,7 +202,7 @@ const LANE_BLOCK: usize = 8192;
 
 /// [`full_scan_k`] of every query of a Levenshtein index at once, answers in input order:
 /// the queries go in vector lanes ([`LevenshteinLanes`], made by `lanes`), and each group
-/// of them streams each block of items once, the (group, block) tasks on all cores. The
+/// of them streams each block of `block` items once, the (group, block) tasks on all cores. The
 /// empty query and queries over 64 chars take [`full_scan_k`]. Answers equal those of
 /// [`full_scan_k`] (each lane keeps its best with [`keep_best`], whose order is total, so
 /// merging the blocks' answers gives the same list whatever the split).
@@ -205,7 +211,9 @@ pub(super) fn full_scan_lanes(
     queries: &[String],
     k: NonZeroUsize,
     lanes: impl Fn(&[&[u8]]) -> LevenshteinLanes,
+    block: usize,
 ) -> Vec<Vec<Neighbor>> {
+    let block_len = block.max(1);
     let k_all = k;
     // No more answers than items: a k above n means every item, never an allocation of k.
     let k = k.get().min(index.len().max(1));
@@ -219,7 +227,7 @@ pub(super) fn full_scan_lanes(
     let items = index.keys();
     let n = index.len();
     let tasks: Vec<(usize, usize)> = (0..lanes.groups())
-        .flat_map(|g| (0..n.div_ceil(LANE_BLOCK).max(1)).map(move |b| (g, b)))
+        .flat_map(|g| (0..n.div_ceil(block_len).max(1)).map(move |b| (g, b)))
         .collect();
     let found: Vec<(usize, Vec<Vec<Neighbor>>)> = tasks
         .into_par_iter()
@@ -227,7 +235,7 @@ pub(super) fn full_scan_lanes(
             let members = lanes.members(g);
             let mut best: Vec<Vec<Neighbor>> = vec![Vec::with_capacity(k + 1); members.len()];
             let mut bounds = vec![u32::MAX; members.len()];
-            let block = (b * LANE_BLOCK).min(n)..((b + 1) * LANE_BLOCK).min(n);
+            let block = (b * block_len).min(n)..((b + 1) * block_len).min(n);
             let stream = block.map(|i| (i as u32, items.get(i)));
             lanes.scan_group(g, stream, &mut bounds, |lane, i, d| {
                 let best = &mut best[lane];
@@ -337,8 +345,11 @@ mod tests {
     fn lanes_answer_as_the_one_query_scan() {
         use crate::cpu::Level;
         let dir = tempfile::tempdir().unwrap();
-        let corpus =
+        let mut corpus =
             read_corpus_from(HARBOURS.as_bytes(), "test", &IngestOptions::default()).unwrap();
+        // Ids against the item order, so that ties are broken by id, not by scan order.
+        let n = corpus.items.len() as i64;
+        corpus.ids = crate::ingest::Ids::Int((0..n).map(|i| (i * 7) % n).rev().collect());
         let dest = dir.path().join("harbours.wmk");
         let opts = BuildOptions {
             dim: 2,
@@ -357,11 +368,14 @@ mod tests {
         for level in Level::ALL.into_iter().filter(|l| l.available()) {
             for k in [1, 3, 15, 40] {
                 let k = NonZeroUsize::new(k).unwrap();
-                let got = full_scan_lanes(&idx, &queries, k, |q| {
-                    LevenshteinLanes::with_level(q, level)
-                });
-                for (q, got) in queries.iter().zip(&got) {
-                    assert_eq!(got, &full_scan_k(&idx, q, k), "{level:?}, k = {k}, {q:?}");
+                // Blocks of one item, of four (a partial last one) and one block.
+                for block in [1, 4, LANE_BLOCK] {
+                    let lanes = |q: &[&[u8]]| LevenshteinLanes::with_level(q, level);
+                    let got = full_scan_lanes(&idx, &queries, k, lanes, block);
+                    for (q, got) in queries.iter().zip(&got) {
+                        let want = full_scan_k(&idx, q, k);
+                        assert_eq!(got, &want, "{level:?}, k = {k}, block {block}, {q:?}");
+                    }
                 }
             }
         }
