@@ -159,10 +159,9 @@ pub enum Scan {
 
 /// Runs a brute force for many queries on all cores, answers in input order. An index of
 /// another metric than Levenshtein gets [`super::brute_force`] for either scan. For a
-/// Levenshtein index, both scans put the queries in vector lanes
-/// ([`crate::metric::LevenshteinLanes`]) whenever there is more than one, which is faster
-/// than either scan one query at a time; the answers are those of [`full_scan`] (and so of
-/// [`best_scan`]). Refuses `k = 0` with [`Error::Usage`].
+/// Levenshtein index, [`Scan::Full`] puts the queries in vector lanes
+/// ([`crate::metric::LevenshteinLanes`]), with the answers of [`full_scan`] query by query;
+/// [`Scan::Best`] runs [`best_scan`] for each query. Refuses `k = 0` with [`Error::Usage`].
 pub fn scan_many(
     index: &Index,
     queries: &[String],
@@ -177,23 +176,32 @@ pub fn scan_many(
             .map(|q| super::brute::brute_force_k(index, q, k))
             .collect());
     }
-    // Both scans give the same answers; with many queries, the one with the queries in
-    // vector lanes is the faster (several times the length-filtered scan one query at a
-    // time, measured by `benches/kernel.rs`), so both take it. A single query (or one left
-    // over by the lanes) keeps its own scan.
-    match (scan, queries.len()) {
-        (Scan::Best, 1) => {
-            let ascii = all_ascii(index);
-            Ok(vec![best_scan_with(index, &queries[0], k, ascii)])
-        }
-        _ => Ok(full_scan_lanes(
-            index,
-            queries,
-            k,
-            LevenshteinLanes::new,
-            LANE_BLOCK,
-        )),
+    if scan == Scan::Full {
+        return Ok(full_scan_lanes_all(index, queries, k, &|_| {}));
     }
+    let ascii = all_ascii(index);
+    Ok(queries
+        .par_iter()
+        .map(|q| best_scan_with(index, q, k, ascii))
+        .collect())
+}
+
+/// [`full_scan_lanes`] with the kernels of the active level and blocks of [`LANE_BLOCK`]
+/// items, for a Levenshtein index: the ground truth of `eval`.
+pub(super) fn full_scan_lanes_all(
+    index: &Index,
+    queries: &[String],
+    k: NonZeroUsize,
+    progress: &(dyn Fn(usize) + Sync),
+) -> Vec<Vec<Neighbor>> {
+    full_scan_lanes(
+        index,
+        queries,
+        k,
+        LevenshteinLanes::new,
+        LANE_BLOCK,
+        progress,
+    )
 }
 
 /// Items per task of [`full_scan_lanes`]: enough to amortise a group's table, few enough
@@ -212,6 +220,7 @@ pub(super) fn full_scan_lanes(
     k: NonZeroUsize,
     lanes: impl Fn(&[&[u8]]) -> LevenshteinLanes,
     block: usize,
+    progress: &(dyn Fn(usize) + Sync),
 ) -> Vec<Vec<Neighbor>> {
     let block_len = block.max(1);
     let k_all = k;
@@ -228,6 +237,11 @@ pub(super) fn full_scan_lanes(
     let n = index.len();
     let tasks: Vec<(usize, usize)> = (0..lanes.groups())
         .flat_map(|g| (0..n.div_ceil(block_len).max(1)).map(move |b| (g, b)))
+        .collect();
+    let blocks = n.div_ceil(block_len).max(1);
+    // Blocks finished per group: a group's queries are done with its last block.
+    let done: Vec<std::sync::atomic::AtomicUsize> = (0..lanes.groups())
+        .map(|_| std::sync::atomic::AtomicUsize::new(0))
         .collect();
     let found: Vec<(usize, Vec<Vec<Neighbor>>)> = tasks
         .into_par_iter()
@@ -254,6 +268,10 @@ pub(super) fn full_scan_lanes(
                     u32::MAX
                 }
             });
+            let finished = done[g].fetch_add(1, std::sync::atomic::Ordering::Relaxed) + 1;
+            if finished == blocks {
+                progress(members.len());
+            }
             (g, best)
         })
         .collect();
@@ -268,7 +286,11 @@ pub(super) fn full_scan_lanes(
     let rest: Vec<(usize, Vec<Neighbor>)> = lanes
         .rest()
         .par_iter()
-        .map(|&q| (q, full_scan_k(index, &queries[q], k_all)))
+        .map(|&q| {
+            let found = full_scan_k(index, &queries[q], k_all);
+            progress(1);
+            (q, found)
+        })
         .collect();
     for (q, found) in rest {
         answers[q] = found;
@@ -371,7 +393,7 @@ mod tests {
                 // Blocks of one item, of four (a partial last one) and one block.
                 for block in [1, 4, LANE_BLOCK] {
                     let lanes = |q: &[&[u8]]| LevenshteinLanes::with_level(q, level);
-                    let got = full_scan_lanes(&idx, &queries, k, lanes, block);
+                    let got = full_scan_lanes(&idx, &queries, k, lanes, block, &|_| {});
                     for (q, got) in queries.iter().zip(&got) {
                         let want = full_scan_k(&idx, q, k);
                         assert_eq!(got, &want, "{level:?}, k = {k}, block {block}, {q:?}");
