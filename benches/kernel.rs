@@ -8,9 +8,10 @@
 //!   brute-force scan and of re-ranking with a running k-th best distance.
 //! * With `WAYMARK_BENCH_SCANS=1`: instead of the above, the brute forces of `eval`
 //!   (full scan and best scan through `scan_many`, both cores) on the whole word list with
-//!   typo queries, in pairs per second by wall time and by CPU time (both scans put the
-//!   queries in vector lanes there); and in the same run `scan_many` against the full and
-//!   best scans one query at a time (`full_scan`, `best_scan` per query, all cores). `=kernel` runs only the one-thread comparison of `dist`
+//!   typo queries, in pairs per second by wall time and by CPU time (the full scan puts the
+//!   queries in vector lanes, the best scan runs one query at a time); and in the same run
+//!   `scan_many`'s full scan against the full and best scans one query at a time
+//!   (`full_scan`, `best_scan` per query, all cores). `=kernel` runs only the one-thread comparison of `dist`
 //!   with `dist_batch`.
 //! * `levels`: `dist_batch` of one query against the word list at every dispatch level this
 //!   CPU runs (`portable`, `avx2`, `avx512`; see `waymark::cpu::Level`), with queries of 8,
@@ -238,8 +239,8 @@ fn brute_force() {
     );
 }
 
-/// The brute force of many queries with the queries in vector lanes (`scan_many`, which
-/// both scans now take) against the two scans one query at a time on all cores (`full_scan`
+/// The brute force of many queries with the queries in vector lanes (`scan_many`'s full
+/// scan) against the two scans one query at a time on all cores (`full_scan`
 /// and `best_scan` per query, what `scan_many` ran before), in one run; answers must compare
 /// equal.
 fn lanes_against_one_by_one(
