@@ -47,9 +47,10 @@
 //!             u32::MAX
 //!         });
 //! }
-//! assert_eq!(got[0], [(0, 2), (1, 5), (2, 13)]);
-//! assert_eq!(got[1], [(0, 4), (1, 2), (2, 13)]);
-//! assert_eq!(got[2][2], (2, 1));
+//! // The plain dynamic program by hand: ferry → fairy 2, ferry → key 3, quay → key 3, ...
+//! assert_eq!(got[0], [(0, 2), (1, 3), (2, 11)]);
+//! assert_eq!(got[1], [(0, 4), (1, 3), (2, 11)]);
+//! assert_eq!(got[2], [(0, 12), (1, 13), (2, 1)]);
 //! ```
 
 use std::ops::{BitAnd, BitOr, BitXor, Not};
