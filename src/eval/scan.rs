@@ -186,31 +186,28 @@ pub fn scan_many(
         .collect())
 }
 
-/// [`full_scan_lanes`] with the kernels of the active level and blocks of [`LANE_BLOCK`]
-/// items, for a Levenshtein index: the ground truth of `eval`.
+/// [`full_scan_lanes`] with the kernels of the active level, for a Levenshtein index: the
+/// ground truth of `eval`.
+///
+/// Tasks are whole groups when there are enough of them to keep every core busy; with few
+/// groups, each is split into item blocks (at least [`LANE_BLOCK`] items), about four tasks
+/// per core in all. Each block keeps up to `k` answers per query until the merge, so the
+/// answers held stay within a few times `queries × k`.
 pub(super) fn full_scan_lanes_all(
     index: &Index,
     queries: &[String],
     k: NonZeroUsize,
     progress: &(dyn Fn(usize) + Sync),
 ) -> Vec<Vec<Neighbor>> {
-    full_scan_lanes(
-        index,
-        queries,
-        k,
-        LevenshteinLanes::new,
-        LANE_BLOCK,
-        progress,
-    )
+    full_scan_lanes(index, queries, k, LevenshteinLanes::new, None, progress)
 }
 
-/// Items per task of [`full_scan_lanes`]: enough to amortise a group's table, few enough
-/// that the tasks of a handful of groups still spread over every core.
+/// Fewest items per block of [`full_scan_lanes_all`]: enough to amortise a group's table.
 const LANE_BLOCK: usize = 8192;
 
 /// [`full_scan_k`] of every query of a Levenshtein index at once, answers in input order:
 /// the queries go in vector lanes ([`LevenshteinLanes`], made by `lanes`), and each group
-/// of them streams each block of `block` items once, the (group, block) tasks on all cores. The
+/// of them streams each block of `block` items once (`None`: see [`full_scan_lanes_all`]), the (group, block) tasks on all cores. The
 /// empty query and queries over 64 chars take [`full_scan_k`]. Answers equal those of
 /// [`full_scan_k`] (each lane keeps its best with [`keep_best`], whose order is total, so
 /// merging the blocks' answers gives the same list whatever the split).
@@ -219,10 +216,9 @@ pub(super) fn full_scan_lanes(
     queries: &[String],
     k: NonZeroUsize,
     lanes: impl Fn(&[&[u8]]) -> LevenshteinLanes,
-    block: usize,
+    block: Option<usize>,
     progress: &(dyn Fn(usize) + Sync),
 ) -> Vec<Vec<Neighbor>> {
-    let block_len = block.max(1);
     let k_all = k;
     // No more answers than items: a k above n means every item, never an allocation of k.
     let k = k.get().min(index.len().max(1));
@@ -235,6 +231,14 @@ pub(super) fn full_scan_lanes(
     let lanes = lanes(&bytes);
     let items = index.keys();
     let n = index.len();
+    let block_len = match block {
+        Some(b) => b.max(1),
+        None => {
+            // About four tasks per core, whole groups when there are enough of them.
+            let want = (4 * rayon::current_num_threads()).div_ceil(lanes.groups().max(1));
+            n.div_ceil(want.min(n.div_ceil(LANE_BLOCK)).max(1)).max(1)
+        }
+    };
     let tasks: Vec<(usize, usize)> = (0..lanes.groups())
         .flat_map(|g| (0..n.div_ceil(block_len).max(1)).map(move |b| (g, b)))
         .collect();
@@ -391,12 +395,12 @@ mod tests {
             for k in [1, 3, 15, 40] {
                 let k = NonZeroUsize::new(k).unwrap();
                 // Blocks of one item, of four (a partial last one) and one block.
-                for block in [1, 4, LANE_BLOCK] {
+                for block in [Some(1), Some(4), None] {
                     let lanes = |q: &[&[u8]]| LevenshteinLanes::with_level(q, level);
                     let got = full_scan_lanes(&idx, &queries, k, lanes, block, &|_| {});
                     for (q, got) in queries.iter().zip(&got) {
                         let want = full_scan_k(&idx, q, k);
-                        assert_eq!(got, &want, "{level:?}, k = {k}, block {block}, {q:?}");
+                        assert_eq!(got, &want, "{level:?}, k = {k}, block {block:?}, {q:?}");
                     }
                 }
             }
