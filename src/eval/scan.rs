@@ -6,7 +6,7 @@ use rayon::prelude::*;
 
 use crate::error::{Error, Result};
 use crate::index::Index;
-use crate::metric::{Levenshtein, LevenshteinQuery, Metric, MetricKind};
+use crate::metric::{Levenshtein, LevenshteinLanes, LevenshteinQuery, Metric, MetricKind};
 use crate::search::order::{keep_best, Neighbor};
 
 /// `k` as a count of at least one neighbour, or the error that refuses `k = 0`.
@@ -158,8 +158,10 @@ pub enum Scan {
 }
 
 /// Runs a brute force for many queries on all cores, answers in input order. An index of
-/// another metric than Levenshtein gets [`super::brute_force`] for either scan. Refuses
-/// `k = 0` with [`Error::Usage`].
+/// another metric than Levenshtein gets [`super::brute_force`] for either scan. For a
+/// Levenshtein index, [`Scan::Full`] puts the queries in vector lanes
+/// ([`crate::metric::LevenshteinLanes`]), with the answers of [`full_scan`] query by query;
+/// [`Scan::Best`] runs [`best_scan`] for each query. Refuses `k = 0` with [`Error::Usage`].
 pub fn scan_many(
     index: &Index,
     queries: &[String],
@@ -174,14 +176,130 @@ pub fn scan_many(
             .map(|q| super::brute::brute_force_k(index, q, k))
             .collect());
     }
-    let ascii = scan == Scan::Best && all_ascii(index);
+    if scan == Scan::Full {
+        return Ok(full_scan_lanes_all(index, queries, k, &|_| {}));
+    }
+    let ascii = all_ascii(index);
     Ok(queries
         .par_iter()
-        .map(|q| match scan {
-            Scan::Full => full_scan_k(index, q, k),
-            Scan::Best => best_scan_with(index, q, k, ascii),
-        })
+        .map(|q| best_scan_with(index, q, k, ascii))
         .collect())
+}
+
+/// [`full_scan_lanes`] with the kernels of the active level, for a Levenshtein index: the
+/// ground truth of `eval`.
+///
+/// Tasks are whole groups when there are enough of them to keep every core busy; with few
+/// groups, each is split into item blocks (at least [`LANE_BLOCK`] items), about four tasks
+/// per core in all. Each block keeps up to `k` answers per query until the merge, so the
+/// answers held stay within a few times `queries × k`.
+pub(super) fn full_scan_lanes_all(
+    index: &Index,
+    queries: &[String],
+    k: NonZeroUsize,
+    progress: &(dyn Fn(usize) + Sync),
+) -> Vec<Vec<Neighbor>> {
+    full_scan_lanes(index, queries, k, LevenshteinLanes::new, None, progress)
+}
+
+/// Fewest items per block of [`full_scan_lanes_all`]: enough to amortise a group's table.
+const LANE_BLOCK: usize = 8192;
+
+/// [`full_scan_k`] of every query of a Levenshtein index at once, answers in input order:
+/// the queries go in vector lanes ([`LevenshteinLanes`], made by `lanes`), and each group
+/// of them streams each block of `block` items once (`None`: see [`full_scan_lanes_all`]), the (group, block) tasks on all cores. The
+/// empty query and queries over 64 chars take [`full_scan_k`]. Answers equal those of
+/// [`full_scan_k`] (each lane keeps its best with [`keep_best`], whose order is total, so
+/// merging the blocks' answers gives the same list whatever the split).
+pub(super) fn full_scan_lanes(
+    index: &Index,
+    queries: &[String],
+    k: NonZeroUsize,
+    lanes: impl Fn(&[&[u8]]) -> LevenshteinLanes,
+    block: Option<usize>,
+    progress: &(dyn Fn(usize) + Sync),
+) -> Vec<Vec<Neighbor>> {
+    let k_all = k;
+    // No more answers than items: a k above n means every item, never an allocation of k.
+    let k = k.get().min(index.len().max(1));
+    let normalize = &index.meta().normalize;
+    let keys: Vec<String> = queries
+        .iter()
+        .map(|q| normalize.apply(q).into_owned())
+        .collect();
+    let bytes: Vec<&[u8]> = keys.iter().map(|q| q.as_bytes()).collect();
+    let lanes = lanes(&bytes);
+    let items = index.keys();
+    let n = index.len();
+    let block_len = match block {
+        Some(b) => b.max(1),
+        None => {
+            // About four tasks per core, whole groups when there are enough of them.
+            let want = (4 * rayon::current_num_threads()).div_ceil(lanes.groups().max(1));
+            n.div_ceil(want.min(n.div_ceil(LANE_BLOCK)).max(1)).max(1)
+        }
+    };
+    let tasks: Vec<(usize, usize)> = (0..lanes.groups())
+        .flat_map(|g| (0..n.div_ceil(block_len).max(1)).map(move |b| (g, b)))
+        .collect();
+    let blocks = n.div_ceil(block_len).max(1);
+    // Blocks finished per group: a group's queries are done with its last block.
+    let done: Vec<std::sync::atomic::AtomicUsize> = (0..lanes.groups())
+        .map(|_| std::sync::atomic::AtomicUsize::new(0))
+        .collect();
+    let found: Vec<(usize, Vec<Vec<Neighbor>>)> = tasks
+        .into_par_iter()
+        .map(|(g, b)| {
+            let members = lanes.members(g);
+            let mut best: Vec<Vec<Neighbor>> = vec![Vec::with_capacity(k + 1); members.len()];
+            let mut bounds = vec![u32::MAX; members.len()];
+            let block = (b * block_len).min(n)..((b + 1) * block_len).min(n);
+            let stream = block.map(|i| (i as u32, items.get(i)));
+            lanes.scan_group(g, stream, &mut bounds, |lane, i, d| {
+                let best = &mut best[lane];
+                keep_best(
+                    index,
+                    best,
+                    k,
+                    Neighbor {
+                        index: i,
+                        distance: f64::from(d),
+                    },
+                );
+                if best.len() == k {
+                    best[k - 1].distance as u32
+                } else {
+                    u32::MAX
+                }
+            });
+            let finished = done[g].fetch_add(1, std::sync::atomic::Ordering::Relaxed) + 1;
+            if finished == blocks {
+                progress(members.len());
+            }
+            (g, best)
+        })
+        .collect();
+    let mut answers: Vec<Vec<Neighbor>> = vec![Vec::new(); queries.len()];
+    for (g, best) in found {
+        for (&q, found) in lanes.members(g).iter().zip(best) {
+            for cand in found {
+                keep_best(index, &mut answers[q], k, cand);
+            }
+        }
+    }
+    let rest: Vec<(usize, Vec<Neighbor>)> = lanes
+        .rest()
+        .par_iter()
+        .map(|&q| {
+            let found = full_scan_k(index, &queries[q], k_all);
+            progress(1);
+            (q, found)
+        })
+        .collect();
+    for (q, found) in rest {
+        answers[q] = found;
+    }
+    answers
 }
 
 /// Prepares `query` for the Levenshtein kernel, normalised as the index's items were.
@@ -237,6 +355,60 @@ mod tests {
         let one = full_scan(&lev, &q[0], 1).unwrap();
         assert_eq!((one[0].index, one[0].distance), (0, 0.0));
         assert_eq!(best_scan(&lev, &q[0], 1).unwrap(), one);
+    }
+
+    /// Invented Vessmark harbour names with accents, lengths around every lane boundary of
+    /// the many-query kernel, and duplicates (ties broken by id, then item number).
+    const HARBOURS: &str = "Keth\nKeth\nKéth\nØstvik\nØstvík Ferry Landing\nHolbre Quay\n\
+        Stothisen North Pier\nVessa\nVessa Pier and Old Customs House at Stothisen Harbour\n\
+        Skerrøy\nSkerrøy Light\nLanding\nLandings\nØ\nHolbrekvåg Fish Market East Wharf Gate\n";
+
+    /// The full scan with the queries in lanes, at every level this CPU runs, gives the
+    /// answers of the one-query full scan (`full_scan_k`): the same items, distances and
+    /// order, for queries at every lane boundary (8/9, 16/17, 32/33, 64/65 chars), accented
+    /// and empty queries, group sizes that leave partial registers, and k above n.
+    #[test]
+    fn lanes_answer_as_the_one_query_scan() {
+        use crate::cpu::Level;
+        let dir = tempfile::tempdir().unwrap();
+        let mut corpus =
+            read_corpus_from(HARBOURS.as_bytes(), "test", &IngestOptions::default()).unwrap();
+        // Ids against the item order, so that ties are broken by id, not by scan order.
+        let n = corpus.items.len() as i64;
+        corpus.ids = crate::ingest::Ids::Int((0..n).map(|i| (i * 7) % n).rev().collect());
+        let dest = dir.path().join("harbours.wmk");
+        let opts = BuildOptions {
+            dim: 2,
+            ..BuildOptions::default()
+        };
+        build_index(&corpus, "test", &opts, &dest, &|_| {}).unwrap();
+        let idx = Index::open(&dest).unwrap();
+        let mut queries: Vec<String> = vec![String::new(), "Kéth".into(), "Østvík".into()];
+        for m in [1usize, 7, 8, 9, 15, 16, 17, 31, 32, 33, 63, 64, 65, 70] {
+            let base = "Vessa Pier and Old Customs House at Stothisen Harbour, Skerrøy Light";
+            queries.push(base.chars().take(m).collect());
+            queries.push(base.chars().rev().take(m).collect());
+        }
+        // 70 short queries: a full 64-lane group and a partial one (or three 32-lane ones).
+        queries.extend((0..70).map(|i| format!("Ke{}", char::from(b'a' + (i % 26) as u8))));
+        for level in Level::ALL.into_iter().filter(|l| l.available()) {
+            for k in [1, 3, 15, 40] {
+                let k = NonZeroUsize::new(k).unwrap();
+                // Blocks of one item, of four (a partial last one) and one block.
+                for block in [Some(1), Some(4), None] {
+                    let lanes = |q: &[&[u8]]| LevenshteinLanes::with_level(q, level);
+                    let got = full_scan_lanes(&idx, &queries, k, lanes, block, &|_| {});
+                    for (q, got) in queries.iter().zip(&got) {
+                        let want = full_scan_k(&idx, q, k);
+                        assert_eq!(got, &want, "{level:?}, k = {k}, block {block:?}, {q:?}");
+                    }
+                }
+            }
+        }
+        assert_eq!(
+            scan_many(&idx, &queries, 4, Scan::Full).unwrap(),
+            scan_many(&idx, &queries, 4, Scan::Best).unwrap()
+        );
     }
 
     #[test]

@@ -1367,6 +1367,11 @@ fn char_len(bytes: &[u8]) -> usize {
     Chars::new(bytes).count()
 }
 
+/// The chars of `bytes`, each invalid sequence one U+FFFD (as [`String::from_utf8_lossy`]).
+pub(super) fn lossy_chars(bytes: &[u8]) -> impl Iterator<Item = char> + '_ {
+    Chars::new(bytes)
+}
+
 /// Lossy char iterator over bytes: one U+FFFD per invalid sequence.
 struct Chars<'a> {
     rest: &'a [u8],

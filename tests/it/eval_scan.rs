@@ -119,3 +119,28 @@ fn scans_agree_with_non_ascii_and_long_items() {
     .collect();
     check(&items, &queries);
 }
+
+#[test]
+fn many_queries_in_lanes_agree_with_strsim() {
+    // `scan_many`'s full scan puts the queries in vector lanes, grouped by length class:
+    // queries at every lane boundary (8/9, 16/17, 32/33, 64/65 chars), accented ones, the
+    // empty query, more short queries than one register holds (a partial second group), and
+    // k above the number of items; checked against strsim's dynamic program (naive scan).
+    let text = word_list();
+    let mut items: Vec<String> = text.lines().step_by(500).map(str::to_string).collect();
+    items.extend(["Skärvik", "Östra Holm", "Färjeläge", "Bøje 7", "中島"].map(String::from));
+    let mut queries = typo_queries(&items, 80, 11);
+    let long = "Vessmark ferry route by Skärvik and Östra Holm to the old Färjeläge pier";
+    for m in [8usize, 9, 16, 17, 32, 33, 64, 65] {
+        queries.push(long.chars().take(m).collect());
+    }
+    queries.extend(["", "Skarvik", "ÖstraHolm", "Bøje", "中"].map(String::from));
+    let dir = tempfile::tempdir().unwrap();
+    let index = build(&items, &dir);
+    for k in [3, items.len() + 5] {
+        let got = scan_many(&index, &queries, k, Scan::Full).unwrap();
+        for (q, got) in queries.iter().zip(&got) {
+            assert_eq!(got, &naive(&index, &items, q, k), "query {q:?}, k = {k}");
+        }
+    }
+}
