@@ -239,10 +239,10 @@ pub(super) fn full_scan_lanes(
             n.div_ceil(want.min(n.div_ceil(LANE_BLOCK)).max(1)).max(1)
         }
     };
-    let tasks: Vec<(usize, usize)> = (0..lanes.groups())
-        .flat_map(|g| (0..n.div_ceil(block_len).max(1)).map(move |b| (g, b)))
-        .collect();
     let blocks = n.div_ceil(block_len).max(1);
+    let tasks: Vec<(usize, usize)> = (0..lanes.groups())
+        .flat_map(|g| (0..blocks).map(move |b| (g, b)))
+        .collect();
     // Blocks finished per group: a group's queries are done with its last block.
     let done: Vec<std::sync::atomic::AtomicUsize> = (0..lanes.groups())
         .map(|_| std::sync::atomic::AtomicUsize::new(0))
