@@ -155,10 +155,14 @@ impl CharBins {
 
 /// What [`Columns::build`] lays out: the stored coordinates, and for strings under
 /// Levenshtein whose coordinates are whole distances, char counts and signatures.
-#[derive(Clone, Debug)]
+#[derive(Clone)]
 pub struct Parts<'a> {
-    /// The coordinate rows, `stride` bytes each.
+    /// The coordinate rows, `stride` bytes each: in item order, or in any order that
+    /// [`Parts::positions`] maps items into (the rows are then read in place, not copied).
     pub coords: &'a [u8],
+    /// Where item `i`'s row is in [`Parts::coords`] (its row number), when the rows are not
+    /// in item order; `None`: row `i` is item `i`'s.
+    pub positions: Option<&'a (dyn Fn(usize) -> usize + Sync)>,
     /// Bytes per row.
     pub stride: usize,
     /// Coordinates used per row (the first `dim`).
@@ -202,6 +206,7 @@ impl Columns {
     pub fn build(parts: Parts<'_>) -> Columns {
         let Parts {
             coords,
+            positions,
             stride,
             dim,
             counts,
@@ -213,24 +218,51 @@ impl Columns {
         let groups = cols.div_ceil(GROUP);
         let blocks = n.div_ceil(BLOCK);
         let mut data = vec![0u8; groups * blocks * CHUNK];
-        let column = |j: usize, i: usize| -> u8 {
-            match counts {
-                Some(c) if j < BINS => c[i][j],
-                _ => coords[i * stride + j - count_cols],
-            }
+        // Item `i`'s row. A row number out of range (a damaged positions table, which
+        // `Index::check_rows` refuses before any query) reads as an empty row, whose
+        // values read as 0: never a panic.
+        let row = |i: usize| -> &[u8] {
+            let p = positions.map_or(i, |p| p(i));
+            p.checked_mul(stride)
+                .and_then(|at| coords.get(at..at.checked_add(stride)?))
+                .unwrap_or(&[])
         };
-        data.par_chunks_mut(CHUNK)
+        // Tiles of blocks, each with its share of every group: a tile's items are read
+        // row by row, each row once (rows stored in another order than the items' are
+        // scattered, so one pass per group would fetch each of them once per group).
+        const TILE_BLOCKS: usize = 64;
+        let tiles = blocks.div_ceil(TILE_BLOCKS);
+        let mut per_tile: Vec<Vec<&mut [u8]>> =
+            (0..tiles).map(|_| Vec::with_capacity(groups)).collect();
+        if blocks > 0 {
+            for group in data.chunks_mut(blocks * CHUNK) {
+                for (t, share) in group.chunks_mut(TILE_BLOCKS * CHUNK).enumerate() {
+                    per_tile[t].push(share);
+                }
+            }
+        }
+        per_tile
+            .into_par_iter()
             .enumerate()
-            .for_each(|(at, chunk)| {
-                let (g, b) = (at / blocks, at % blocks);
-                for c in 0..GROUP {
-                    let j = g * GROUP + c;
-                    if j >= cols {
-                        break;
-                    }
-                    for lane in 0..BLOCK {
-                        let i = b * BLOCK + lane;
-                        chunk[c * BLOCK + lane] = if i < n { column(j, i) } else { 255 };
+            .for_each(|(t, mut shares)| {
+                let first = t * TILE_BLOCKS * BLOCK;
+                let len = shares.first().map_or(0, |s| s.len() / CHUNK * BLOCK);
+                for at in 0..len {
+                    let (i, lb, lane) = (first + at, at / BLOCK, at % BLOCK);
+                    let r = if i < n { row(i) } else { &[] };
+                    for (g, share) in shares.iter_mut().enumerate() {
+                        let width = GROUP.min(cols - g * GROUP);
+                        for c in 0..width {
+                            let j = g * GROUP + c;
+                            share[lb * CHUNK + c * BLOCK + lane] = if i >= n {
+                                255
+                            } else {
+                                match counts {
+                                    Some(k) if j < BINS => k[i][j],
+                                    _ => r.get(j - count_cols).copied().unwrap_or(0),
+                                }
+                            };
+                        }
                     }
                 }
             });
@@ -684,6 +716,49 @@ mod tests {
     }
 
     #[test]
+    fn rows_read_through_positions_lay_out_as_rows_in_item_order() {
+        let mut next = lcg(777);
+        // Three tiles of blocks, the last one partial.
+        let (n, stride, dim) = (2 * 64 * BLOCK + 45, 8, 6);
+        let in_order: Vec<u8> = (0..n * stride).map(|_| next() % 13).collect();
+        // Row p of `stored` is item `members[p]`'s (a fixed permutation); `at[i]` is item
+        // i's row number.
+        let members: Vec<usize> = (0..n).map(|p| (p * 37 + 11) % n).collect();
+        let mut at = vec![0; n];
+        for (p, &i) in members.iter().enumerate() {
+            at[i] = p;
+        }
+        let stored: Vec<u8> = members
+            .iter()
+            .flat_map(|&i| in_order[i * stride..(i + 1) * stride].to_vec())
+            .collect();
+        let position = |i: usize| at[i];
+        let plain = Columns::build(Parts {
+            coords: &in_order,
+            positions: None,
+            stride,
+            dim,
+            counts: None,
+            sigs: None,
+        });
+        let mapped = Columns::build(Parts {
+            coords: &stored,
+            positions: Some(&position),
+            stride,
+            dim,
+            counts: None,
+            sigs: None,
+        });
+        assert_eq!(plain.data, mapped.data);
+        let q = [3u8, 1, 4, 1, 5, 9];
+        let (mut a, mut b) = (Vec::new(), Vec::new());
+        plain.within(&q, None, 6, |i, d| a.push((i, d)));
+        mapped.within(&q, None, 6, |i, d| b.push((i, d)));
+        assert!(!a.is_empty());
+        assert_eq!(a, b);
+    }
+
+    #[test]
     fn signatures_raise_bounds_to_their_gap() {
         let (n, stride, dim) = (300, 8, 5);
         let coords: Vec<u8> = (0..n * stride).map(|i| (i * 7 % 5) as u8).collect();
@@ -695,6 +770,7 @@ mod tests {
             .collect();
         let parts = Parts {
             coords: &coords,
+            positions: None,
             stride,
             dim,
             counts: Some(&counts),
@@ -750,6 +826,7 @@ mod tests {
             let counts = with_counts.then_some(&counts[..]);
             let cols = Columns::build(Parts {
                 coords: &coords,
+                positions: None,
                 stride,
                 dim,
                 counts,
@@ -833,6 +910,7 @@ mod tests {
                 .collect();
             let cols = Columns::build(Parts {
                 coords: &coords,
+                positions: None,
                 stride,
                 dim,
                 counts: with_counts.then_some(&counts[..]),
@@ -886,6 +964,7 @@ mod tests {
         let coords: Vec<u8> = (0..n * stride).map(|_| next() % 7).collect();
         let cols = Columns::build(Parts {
             coords: &coords,
+            positions: None,
             stride,
             dim,
             counts: None,

@@ -178,6 +178,7 @@ impl<'a> SelfJoin<'a> {
         };
         let cols = Columns::build(columns::Parts {
             coords: &sorted,
+            positions: None,
             stride,
             dim,
             counts: counts.as_deref(),

@@ -224,8 +224,8 @@ impl Searcher<'_> {
     }
 
     /// The stored coordinates in column blocks ([`Columns`]), made on the first
-    /// exact query (a copy of the coordinate section, plus 16 bytes of char counts per
-    /// item for Levenshtein), with the char bins of the counts.
+    /// exact query (as many bytes as the coordinate section, plus 16 bytes of char counts
+    /// per item for Levenshtein), with the char bins of the counts.
     fn columns(&self) -> &(Columns, Option<CharBins>) {
         self.columns.get_or_init(|| {
             let n = self.index.len();
@@ -238,9 +238,14 @@ impl Searcher<'_> {
                     .map(|i| b.counts(self.keys.get(i)))
                     .collect()
             });
-            let rows = self.index.rows().in_item_order_table();
+            // The rows are read where they are stored (in cell order in a version 2 file),
+            // through the positions table: no copy of the coordinate section.
+            let rows = self.index.rows();
+            let position = |i: usize| rows.position(i);
             let cols = Columns::build(columns::Parts {
-                coords: &rows,
+                coords: rows.stored(),
+                positions: (!rows.in_order())
+                    .then_some(&position as &(dyn Fn(usize) -> usize + Sync)),
                 stride: self.index.stride(),
                 dim: self.index.meta().dim as usize,
                 counts: counts.as_deref(),
