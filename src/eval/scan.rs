@@ -189,10 +189,8 @@ pub fn scan_many(
 /// [`full_scan_lanes`] with the kernels of the active level, for a Levenshtein index: the
 /// ground truth of `eval`.
 ///
-/// Tasks are whole groups when there are enough of them to keep every core busy; with few
-/// groups, each is split into item blocks (at least [`LANE_BLOCK`] items), about four tasks
-/// per core in all. Each block keeps up to `k` answers per query until the merge, so the
-/// answers held stay within a few times `queries × k`.
+/// Tasks are whole groups when there are enough of them to keep every core busy, else
+/// groups split into item blocks ([`crate::search::lanes::scan`]).
 pub(super) fn full_scan_lanes_all(
     index: &Index,
     queries: &[String],
@@ -202,15 +200,10 @@ pub(super) fn full_scan_lanes_all(
     full_scan_lanes(index, queries, k, LevenshteinLanes::new, None, progress)
 }
 
-/// Fewest items per block of [`full_scan_lanes_all`]: enough to amortise a group's table.
-const LANE_BLOCK: usize = 8192;
-
 /// [`full_scan_k`] of every query of a Levenshtein index at once, answers in input order:
-/// the queries go in vector lanes ([`LevenshteinLanes`], made by `lanes`), and each group
-/// of them streams each block of `block` items once (`None`: see [`full_scan_lanes_all`]), the (group, block) tasks on all cores. The
-/// empty query and queries over 64 chars take [`full_scan_k`]. Answers equal those of
-/// [`full_scan_k`] (each lane keeps its best with [`keep_best`], whose order is total, so
-/// merging the blocks' answers gives the same list whatever the split).
+/// the queries in vector lanes ([`crate::search::lanes::scan`], made by `lanes`, item
+/// blocks of `block` items or `None` for its default split); the empty query and queries
+/// over 64 chars take [`full_scan_k`]. Answers equal those of [`full_scan_k`].
 pub(super) fn full_scan_lanes(
     index: &Index,
     queries: &[String],
@@ -219,84 +212,16 @@ pub(super) fn full_scan_lanes(
     block: Option<usize>,
     progress: &(dyn Fn(usize) + Sync),
 ) -> Vec<Vec<Neighbor>> {
-    let k_all = k;
-    // No more answers than items: a k above n means every item, never an allocation of k.
-    let k = k.get().min(index.len().max(1));
-    let normalize = &index.meta().normalize;
-    let keys: Vec<String> = queries
-        .iter()
-        .map(|q| normalize.apply(q).into_owned())
-        .collect();
-    let bytes: Vec<&[u8]> = keys.iter().map(|q| q.as_bytes()).collect();
-    let lanes = lanes(&bytes);
-    let items = index.keys();
-    let n = index.len();
-    let block_len = match block {
-        Some(b) => b.max(1),
-        None => {
-            // About four tasks per core, whole groups when there are enough of them.
-            let want = (4 * rayon::current_num_threads()).div_ceil(lanes.groups().max(1));
-            n.div_ceil(want.min(n.div_ceil(LANE_BLOCK)).max(1)).max(1)
-        }
-    };
-    let blocks = n.div_ceil(block_len).max(1);
-    let tasks: Vec<(usize, usize)> = (0..lanes.groups())
-        .flat_map(|g| (0..blocks).map(move |b| (g, b)))
-        .collect();
-    // Blocks finished per group: a group's queries are done with its last block.
-    let done: Vec<std::sync::atomic::AtomicUsize> = (0..lanes.groups())
-        .map(|_| std::sync::atomic::AtomicUsize::new(0))
-        .collect();
-    let found: Vec<(usize, Vec<Vec<Neighbor>>)> = tasks
-        .into_par_iter()
-        .map(|(g, b)| {
-            let members = lanes.members(g);
-            let mut best: Vec<Vec<Neighbor>> = vec![Vec::with_capacity(k + 1); members.len()];
-            let mut bounds = vec![u32::MAX; members.len()];
-            let block = (b * block_len).min(n)..((b + 1) * block_len).min(n);
-            let stream = block.map(|i| (i as u32, items.get(i)));
-            lanes.scan_group(g, stream, &mut bounds, |lane, i, d| {
-                let best = &mut best[lane];
-                keep_best(
-                    index,
-                    best,
-                    k,
-                    Neighbor {
-                        index: i,
-                        distance: f64::from(d),
-                    },
-                );
-                if best.len() == k {
-                    best[k - 1].distance as u32
-                } else {
-                    u32::MAX
-                }
-            });
-            let finished = done[g].fetch_add(1, std::sync::atomic::Ordering::Relaxed) + 1;
-            if finished == blocks {
-                progress(members.len());
-            }
-            (g, best)
-        })
-        .collect();
-    let mut answers: Vec<Vec<Neighbor>> = vec![Vec::new(); queries.len()];
-    for (g, best) in found {
-        for (&q, found) in lanes.members(g).iter().zip(best) {
-            for cand in found {
-                keep_best(index, &mut answers[q], k, cand);
-            }
-        }
-    }
-    let rest: Vec<(usize, Vec<Neighbor>)> = lanes
-        .rest()
+    let (mut answers, rest) = crate::search::lanes::scan(index, queries, k, lanes, block, progress);
+    let found: Vec<(usize, Vec<Neighbor>)> = rest
         .par_iter()
         .map(|&q| {
-            let found = full_scan_k(index, &queries[q], k_all);
+            let found = full_scan_k(index, &queries[q], k);
             progress(1);
             (q, found)
         })
         .collect();
-    for (q, found) in rest {
+    for (q, found) in found {
         answers[q] = found;
     }
     answers

@@ -38,6 +38,7 @@
 
 mod candidates;
 mod exact;
+pub(crate) mod lanes;
 pub mod order;
 mod request;
 mod rerank;
@@ -54,6 +55,12 @@ pub use self::request::{
 };
 pub use crate::coords::Space;
 pub use crate::index::{default_candidates, DEFAULT_CANDIDATES, DEFAULT_DIM};
+
+/// Fewest queries in one [`Searcher::answer_many`] call for which exact k-NN on a
+/// Levenshtein index is answered by the brute force with the queries in vector lanes
+/// instead of the index's exact path. Measured at 663,473 words, 1,000 typo queries, the
+/// lanes answered 1,393 queries/s and the exact path 609 (`cargo bench --bench big`).
+pub const LANES_MIN_QUERIES: usize = 256;
 
 use crate::coords::columns::{CharBins, Columns};
 use crate::embed::Bound;
@@ -278,11 +285,62 @@ impl<'a> Searcher<'a> {
                 .map_init(Scratch::default, |s, q| self.answer(q, req, s))
                 .collect();
         }
+        if let (Some(k), None) = (k, radius) {
+            if let Some(found) = self.exact_by_lanes(queries, k) {
+                return found;
+            }
+        }
         let blocks: Vec<Vec<Result<Found>>> = queries
             .par_chunks(candidates::QUERY_BLOCK)
             .map(|block| self.exact_block(block, k, radius))
             .collect();
         blocks.into_iter().flatten().collect()
+    }
+
+    /// Exact k-NN of a large batch of queries on a Levenshtein index by brute force with
+    /// the queries in vector lanes ([`lanes::scan`]), or `None` when the batch is too small
+    /// for the lanes to pay ([`LANES_MIN_QUERIES`]) or the metric is not Levenshtein. The
+    /// answers are the exact path's (same order, ties included); each query's certificate
+    /// says that every item was measured. Queries no lane takes (the empty query, over 64
+    /// chars) go through the exact path.
+    fn exact_by_lanes(&self, queries: &[String], k: usize) -> Option<Vec<Result<Found>>> {
+        let meta = self.index.meta();
+        if queries.len() < LANES_MIN_QUERIES
+            || meta.metric != crate::metric::MetricKind::Levenshtein
+            || !matches!(meta.metric_spec, crate::metric::MetricSpec::Levenshtein)
+        {
+            return None;
+        }
+        let kk = std::num::NonZeroUsize::new(k)?;
+        let (answers, rest) = lanes::scan(
+            self.index,
+            queries,
+            kk,
+            crate::metric::LevenshteinLanes::new,
+            None,
+            &|_| {},
+        );
+        let n = self.index.len();
+        let mut found: Vec<Result<Found>> = answers
+            .into_iter()
+            .map(|neighbors| {
+                Ok(Found {
+                    neighbors,
+                    distances: n,
+                    pruned: 0,
+                    certificate: Some(Certificate {
+                        examined: n,
+                        computed: n,
+                        bound: None,
+                    }),
+                })
+            })
+            .collect();
+        let others: Vec<String> = rest.iter().map(|&q| queries[q].clone()).collect();
+        for (q, f) in rest.iter().zip(self.exact_block(&others, Some(k), None)) {
+            found[*q] = f;
+        }
+        Some(found)
     }
 
     /// Approximate answers for a block of queries (scan source): candidates from one tiled

@@ -167,6 +167,38 @@ fn exact_and_range_on_a_word_list_sample() {
     }
 }
 
+/// A batch of at least `LANES_MIN_QUERIES` exact queries goes through the brute force with
+/// the queries in vector lanes: the answers (ties included) must equal strsim's brute force
+/// (a reference crate) and the one-query exact path, on every 13th word of Debian's
+/// `wamerican` list; the empty query and one over 64 chars take the exact path.
+#[test]
+fn a_large_exact_batch_answers_as_the_brute_force() {
+    let all = read_corpus(word_list_path(), &IngestOptions::default()).unwrap();
+    let items: Vec<String> = all.items.iter().step_by(13).cloned().collect();
+    let dir = tempfile::tempdir().unwrap();
+    let idx = build(&corpus(&items), 32, &dir);
+    let s = Searcher::new(&idx);
+    let mut queries = waymark::eval::typo_queries(&items, waymark::search::LANES_MIN_QUERIES, 9);
+    queries.push(String::new());
+    queries.push("pneumonoultramicroscopicsilicovolcanoconiosis-and-more-than-sixty-four".into());
+    queries.push("café naïve".into());
+    let k = 7;
+    let many = s.answer_many(&queries, &waymark::search::Request::Exact { k });
+    let mut scratch = Default::default();
+    for (q, got) in queries.iter().zip(many) {
+        let got = got.unwrap();
+        let mut want = within_by_strsim(&idx, q, usize::MAX);
+        want.truncate(k);
+        assert_eq!(got.neighbors, want, "query {q:?}");
+        assert_eq!(
+            got.neighbors,
+            s.search_exact(q, k, &mut scratch).unwrap().neighbors,
+            "query {q:?}"
+        );
+        check_certificate(&idx, &got, Some(k), None);
+    }
+}
+
 #[test]
 fn without_a_lower_bound_exact_queries_are_refused() {
     let dir = tempfile::tempdir().unwrap();
