@@ -41,6 +41,7 @@ mod exact;
 pub mod order;
 mod request;
 mod rerank;
+mod variants;
 
 use std::sync::OnceLock;
 
@@ -236,10 +237,16 @@ impl<'a> Searcher<'a> {
             Request::Approximate(p) => self.search(query, &p, scratch),
             Request::Exact { k } => {
                 self.check(req)?;
+                if let Some(found) = self.variant_answer(query, Some(k), None, scratch) {
+                    return found;
+                }
                 self.exact(query, Some(k), None)
             }
             Request::Within { radius, k } => {
                 self.check(req)?;
+                if let Some(found) = self.variant_answer(query, k, Some(radius), scratch) {
+                    return found;
+                }
                 self.exact(query, k, Some(radius))
             }
         }
@@ -271,8 +278,11 @@ impl<'a> Searcher<'a> {
             Request::Exact { k } => (Some(k), None),
             Request::Within { radius, k } => (k, Some(radius)),
         };
-        if self.check(req).is_err() {
-            // Every query gets the same error, as from one call each.
+        // A request the deletion-variant table can answer goes query by query (each
+        // falling back to the column blocks if the table cannot give its answer), as does
+        // one that fails its check: every query then gets the same error, as from one call
+        // each.
+        if self.check(req).is_err() || !matches!(self.variant_radius(radius), Ok(None)) {
             return queries
                 .par_iter()
                 .map_init(Scratch::default, |s, q| self.answer(q, req, s))
