@@ -278,21 +278,45 @@ impl<'a> Searcher<'a> {
             Request::Exact { k } => (Some(k), None),
             Request::Within { radius, k } => (k, Some(radius)),
         };
-        // A request the deletion-variant table can answer goes query by query (each
-        // falling back to the column blocks if the table cannot give its answer), as does
-        // one that fails its check: every query then gets the same error, as from one call
-        // each.
-        if self.check(req).is_err() || !matches!(self.variant_radius(radius), Ok(None)) {
+        // A request that fails its check goes query by query: every query then gets the
+        // same error, as from one call each.
+        if self.check(req).is_err() || self.variant_radius(radius).is_err() {
             return queries
                 .par_iter()
                 .map_init(Scratch::default, |s, q| self.answer(q, req, s))
                 .collect();
         }
-        let blocks: Vec<Vec<Result<Found>>> = queries
+        // The deletion-variant table first, where it can answer; the queries it cannot
+        // (an exact k-NN query with fewer than k items within its radius) go on to the
+        // column blocks, in blocks that share passes.
+        let mut answers: Vec<Option<Result<Found>>> = match self.variant_radius(radius) {
+            Ok(Some(_)) => queries
+                .par_iter()
+                .map_init(Scratch::default, |s, q| self.variant_answer(q, k, radius, s))
+                .collect(),
+            _ => queries.iter().map(|_| None).collect(),
+        };
+        let rest: Vec<usize> = (0..queries.len())
+            .filter(|&i| answers[i].is_none())
+            .collect();
+        let texts: Vec<String>;
+        let todo: &[String] = if rest.len() == queries.len() {
+            queries
+        } else {
+            texts = rest.iter().map(|&i| queries[i].clone()).collect();
+            &texts
+        };
+        let blocks: Vec<Vec<Result<Found>>> = todo
             .par_chunks(candidates::QUERY_BLOCK)
             .map(|block| self.exact_block(block, k, radius))
             .collect();
-        blocks.into_iter().flatten().collect()
+        for (i, found) in rest.into_iter().zip(blocks.into_iter().flatten()) {
+            answers[i] = Some(found);
+        }
+        answers
+            .into_iter()
+            .map(|a| a.expect("every query answered"))
+            .collect()
     }
 
     /// Approximate answers for a block of queries (scan source): candidates from one tiled
