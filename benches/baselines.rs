@@ -299,14 +299,26 @@ fn run_list(path: &str, seed: u64, nq: usize, radii: &[u32], tune: usize) {
             tbytes as f64 / entries as f64
         );
         let ss = Searcher::new(&sidx);
-        let _ = ss.answer_many(&queries[..1], &Request::Within { radius: 1.0, k: None });
+        let _ = ss.answer_many(
+            &queries[..1],
+            &Request::Within {
+                radius: 1.0,
+                k: None,
+            },
+        );
         for (j, (&r, b)) in radii.iter().zip(&brute).enumerate() {
             if r > rs {
                 continue;
             }
             let t = Instant::now();
             let found: Vec<Found> = ss
-                .answer_many(&queries, &Request::Within { radius: f64::from(r), k: None })
+                .answer_many(
+                    &queries,
+                    &Request::Within {
+                        radius: f64::from(r),
+                        k: None,
+                    },
+                )
                 .into_iter()
                 .map(|f| f.expect("query"))
                 .collect();
@@ -314,7 +326,10 @@ fn run_list(path: &str, seed: u64, nq: usize, radii: &[u32], tune: usize) {
             for (q, (f, b)) in found.iter().zip(b).enumerate() {
                 let mut got: Vec<u32> = f.neighbors.iter().map(|nb| nb.index).collect();
                 got.sort_unstable();
-                assert_eq!(&got, b, "waymark --within {r} with the table differs on query {q}");
+                assert_eq!(
+                    &got, b,
+                    "waymark --within {r} with the table differs on query {q}"
+                );
             }
             rows.push(Row {
                 mode: format!("range R={r}"),

@@ -406,7 +406,13 @@ fn main() {
             let ss = Searcher::new(&sidx);
             // The table's first-use check, kept out of the timed rows.
             let t = Instant::now();
-            let _ = ss.answer_many(&queries[..1], &Request::Within { radius: 1.0, k: None });
+            let _ = ss.answer_many(
+                &queries[..1],
+                &Request::Within {
+                    radius: 1.0,
+                    k: None,
+                },
+            );
             println!(
                 "first query of a process with the table: {:.0} ms (checks the table)",
                 t.elapsed().as_secs_f64() * 1e3

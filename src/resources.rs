@@ -88,7 +88,10 @@ pub fn check_input(source: &str, file_bytes: u64) -> Result<()> {
 pub fn check_build(source: &str, n: usize, bytes: usize, dim: usize, extra: u64) -> Result<()> {
     let need = build_estimate(n, bytes, dim).saturating_add(extra);
     let table = if extra > 0 {
-        format!(" with a deletion-variant table ({:.1} GB of it)", extra as f64 / 1e9)
+        format!(
+            " with a deletion-variant table ({:.1} GB of it)",
+            extra as f64 / 1e9
+        )
     } else {
         String::new()
     };

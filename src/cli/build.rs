@@ -141,7 +141,10 @@ pub(super) fn build(a: BuildArgs) -> anyhow::Result<()> {
             )?;
         }
         let variants = match a.small_radius {
-            Some(r) => format!(", deletion variants (R = {r}) {:.2} s", report.variants_seconds),
+            Some(r) => format!(
+                ", deletion variants (R = {r}) {:.2} s",
+                report.variants_seconds
+            ),
             None => String::new(),
         };
         writeln!(

@@ -88,7 +88,9 @@ impl BuildOptions {
             if !(1..=super::variants::MAX_RADIUS).contains(&r) {
                 return Err(Error::parameter(
                     Param::SmallRadius,
-                    format!("must be 1 or 2, not {r} (the table grows with the length to the power R)"),
+                    format!(
+                        "must be 1 or 2, not {r} (the table grows with the length to the power R)"
+                    ),
                 ));
             }
             if !super::variants::supports(&self.metric) {

@@ -106,7 +106,10 @@ fn hash_finish(mut h: u64, len: usize) -> u64 {
 
 /// The hash of `chars` as the table stores it.
 pub fn hash_chars(chars: &[char]) -> u64 {
-    hash_finish(chars.iter().fold(HASH_SEED, |h, &c| hash_step(h, c)), chars.len())
+    hash_finish(
+        chars.iter().fold(HASH_SEED, |h, &c| hash_step(h, c)),
+        chars.len(),
+    )
 }
 
 /// Working memory of look-ups and builds (reused across calls).
@@ -137,7 +140,9 @@ impl Scratch {
         out.push((hash_finish(self.prefix[len], len), 0));
         if r >= 1 {
             for i in 0..len {
-                let h = c[i + 1..].iter().fold(self.prefix[i], |h, &x| hash_step(h, x));
+                let h = c[i + 1..]
+                    .iter()
+                    .fold(self.prefix[i], |h, &x| hash_step(h, x));
                 out.push((hash_finish(h, len - 1), 1));
             }
         }
@@ -293,38 +298,41 @@ impl VariantTable {
             slices.push((b0, mine));
             rest = tail;
         }
-        slices.into_par_iter().enumerate().for_each(|(p, (b0, out))| {
-            let b1 = nb * (p + 1) / parts;
-            let base = starts[b0];
-            let mut cursor: Vec<u32> = starts[b0..b1].iter().map(|&s| s - base).collect();
-            let mut s = Scratch::default();
-            for (i, k) in keys.iter().enumerate() {
-                for &(h, del) in s.variants(k, r) {
-                    let b = (h >> shift) as usize;
-                    if (b0..b1).contains(&b) {
-                        let at = cursor[b - b0] as usize * ENTRY_BYTES;
-                        cursor[b - b0] += 1;
-                        out[at..at + ENTRY_BYTES]
-                            .copy_from_slice(&entry(h, del, i as u32).to_le_bytes());
+        slices
+            .into_par_iter()
+            .enumerate()
+            .for_each(|(p, (b0, out))| {
+                let b1 = nb * (p + 1) / parts;
+                let base = starts[b0];
+                let mut cursor: Vec<u32> = starts[b0..b1].iter().map(|&s| s - base).collect();
+                let mut s = Scratch::default();
+                for (i, k) in keys.iter().enumerate() {
+                    for &(h, del) in s.variants(k, r) {
+                        let b = (h >> shift) as usize;
+                        if (b0..b1).contains(&b) {
+                            let at = cursor[b - b0] as usize * ENTRY_BYTES;
+                            cursor[b - b0] += 1;
+                            out[at..at + ENTRY_BYTES]
+                                .copy_from_slice(&entry(h, del, i as u32).to_le_bytes());
+                        }
                     }
                 }
-            }
-            // Each bucket's entries in rising order.
-            let mut buf: Vec<u64> = Vec::new();
-            for b in b0..b1 {
-                let (s0, s1) = ((starts[b] - base) as usize, (starts[b + 1] - base) as usize);
-                if s1 - s0 < 2 {
-                    continue;
+                // Each bucket's entries in rising order.
+                let mut buf: Vec<u64> = Vec::new();
+                for b in b0..b1 {
+                    let (s0, s1) = ((starts[b] - base) as usize, (starts[b + 1] - base) as usize);
+                    if s1 - s0 < 2 {
+                        continue;
+                    }
+                    let run = &mut out[s0 * ENTRY_BYTES..s1 * ENTRY_BYTES];
+                    buf.clear();
+                    buf.extend(run.chunks_exact(8).map(read_u64));
+                    buf.sort_unstable();
+                    for (o, e) in run.chunks_exact_mut(8).zip(&buf) {
+                        o.copy_from_slice(&e.to_le_bytes());
+                    }
                 }
-                let run = &mut out[s0 * ENTRY_BYTES..s1 * ENTRY_BYTES];
-                buf.clear();
-                buf.extend(run.chunks_exact(8).map(read_u64));
-                buf.sort_unstable();
-                for (o, e) in run.chunks_exact_mut(8).zip(&buf) {
-                    o.copy_from_slice(&e.to_le_bytes());
-                }
-            }
-        });
+            });
         Ok(VariantTable { bytes })
     }
 
@@ -456,9 +464,7 @@ impl<'a> Variants<'a> {
                     ));
                 }
                 if prev.is_some_and(|p| p >= e) {
-                    return Err(format!(
-                        "bucket {b}: entry {j} is out of order or repeated"
-                    ));
+                    return Err(format!("bucket {b}: entry {j} is out of order or repeated"));
                 }
                 prev = Some(e);
             }

@@ -292,7 +292,9 @@ impl<'a> Searcher<'a> {
         let mut answers: Vec<Option<Result<Found>>> = match self.variant_radius(radius) {
             Ok(Some(_)) => queries
                 .par_iter()
-                .map_init(Scratch::default, |s, q| self.variant_answer(q, k, radius, s))
+                .map_init(Scratch::default, |s, q| {
+                    self.variant_answer(q, k, radius, s)
+                })
                 .collect(),
             _ => queries.iter().map(|_| None).collect(),
         };

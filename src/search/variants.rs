@@ -78,7 +78,10 @@ impl Searcher<'_> {
             .filter_map(|&i| {
                 q.distance_within(self.keys.get(i as usize), limit)
                     .filter(|&d| d <= limit)
-                    .map(|d| Neighbor { index: i, distance: d })
+                    .map(|d| Neighbor {
+                        index: i,
+                        distance: d,
+                    })
             })
             .collect();
         metric.check()?;

@@ -164,11 +164,19 @@ fn pairs_through_a_table_are_the_pairs_of_the_column_blocks_in_the_same_order() 
         &corpus(&words),
         &opts(MetricSpec::Levenshtein, Some(2)),
     );
-    for r in [Radius::Fixed(0.0), Radius::Fixed(1.0), Radius::Fixed(2.0), Radius::Fraction(0.2)] {
+    for r in [
+        Radius::Fixed(0.0),
+        Radius::Fixed(1.0),
+        Radius::Fixed(2.0),
+        Radius::Fraction(0.2),
+    ] {
         let (want, path) = join(&plain, r, JoinBy::Columns);
         assert_eq!(path, JoinPath::Columns);
         let (built, path) = join(&plain, r, JoinBy::Auto);
-        assert!(matches!(path, JoinPath::BuiltVariants { .. }), "{r:?}: {path:?}");
+        assert!(
+            matches!(path, JoinPath::BuiltVariants { .. }),
+            "{r:?}: {path:?}"
+        );
         assert_eq!(built, want, "{r:?}: built in memory");
         let (from_file, path) = join(&stored, r, JoinBy::Auto);
         assert_eq!(path, JoinPath::StoredVariants, "{r:?}");
@@ -196,7 +204,9 @@ fn the_command_line_builds_shows_and_uses_the_table() {
         .arg(&small)
         .assert()
         .success()
-        .stdout(contains("deletion-variant table, exact range queries and pairs up to 2"))
+        .stdout(contains(
+            "deletion-variant table, exact range queries and pairs up to 2",
+        ))
         .stdout(contains("section     deletion-variants"));
     d.cmd()
         .args(["inspect", "--verify"])
@@ -222,7 +232,9 @@ fn the_command_line_builds_shows_and_uses_the_table() {
                 .unwrap();
             assert!(out.status.success());
             let v: Vec<serde_json::Value> = crate::util::json_lines(&out.stdout);
-            v.into_iter().map(|a| a["neighbors"].clone()).collect::<Vec<_>>()
+            v.into_iter()
+                .map(|a| a["neighbors"].clone())
+                .collect::<Vec<_>>()
         };
         assert_eq!(run(&small), run(&plain), "{args:?}");
     }
@@ -249,8 +261,14 @@ fn bad_input_small_radius_out_of_range_or_on_another_metric_is_refused() {
     let d = Dir::new();
     let input = d.write("w.txt", b"quay\nkey\nstrand\n");
     for (extra, msg) in [
-        (&["--small-radius", "3"][..], "--small-radius must be 1 or 2, not 3"),
-        (&["--small-radius", "0"], "--small-radius must be 1 or 2, not 0"),
+        (
+            &["--small-radius", "3"][..],
+            "--small-radius must be 1 or 2, not 3",
+        ),
+        (
+            &["--small-radius", "0"],
+            "--small-radius must be 1 or 2, not 0",
+        ),
         (
             &["--small-radius", "1", "--metric", "jaccard"],
             "needs the levenshtein, damerau or hamming metric",
@@ -328,7 +346,11 @@ fn bad_input_a_table_beyond_the_memory_budget_is_refused_before_the_build() {
     // entry: 0.8 GB), while the index itself needs some 20 MB.
     let d = Dir::new();
     let items: Vec<String> = (0..200)
-        .map(|i| (0..1000).map(|j| char::from(b'a' + ((i * 7 + j * 13) % 26) as u8)).collect())
+        .map(|i| {
+            (0..1000)
+                .map(|j| char::from(b'a' + ((i * 7 + j * 13) % 26) as u8))
+                .collect()
+        })
         .collect();
     let input = d.write("long.txt", items.join("\n").as_bytes());
     d.cmd()
