@@ -265,9 +265,8 @@ impl<'a> SelfJoin<'a> {
         lens: &[u32],
         need: f64,
     ) -> Result<Option<(Table<'a>, JoinPath)>> {
-        if !variants::supports(&index.meta().metric_spec)
-            || !(need >= 0.0 && need.floor() <= f64::from(variants::MAX_RADIUS))
-        {
+        let small = need >= 0.0 && need.floor() <= f64::from(variants::MAX_RADIUS);
+        if !(small && variants::supports(&index.meta().metric_spec)) {
             return Ok(None);
         }
         let r = need as u32;

@@ -278,7 +278,10 @@ fn a_deletion_variant_table_is_one_more_section_and_leaves_the_others_as_they_we
         "s.wmk",
         &["--dim", "12", "-q", "--small-radius", "2"],
     );
-    let (p, s) = (std::fs::read(&plain).unwrap(), std::fs::read(&small).unwrap());
+    let (p, s) = (
+        std::fs::read(&plain).unwrap(),
+        std::fs::read(&small).unwrap(),
+    );
     // Every section of the file without the table, byte for byte in the one with it.
     for kind in [1, 2, 3, 12, 13, 10] {
         assert_eq!(
