@@ -19,6 +19,10 @@
 //! - `WAYMARK_BASE_QUERIES` typo queries per list [1000]
 //! - `WAYMARK_BASE_RADII` radii of the range queries [1,2]
 //! - `WAYMARK_BASE_TUNE` bisection steps of the budget search [4]
+//! - `WAYMARK_BASE_SMALL` radius of waymark's own deletion-variant table (`build
+//!   --small-radius`), built as a second index whose `--within` rows run beside the
+//!   others; the deletion neighbourhood's "waymark ÷ this" is then against them [2;
+//!   empty: none]
 
 use std::path::PathBuf;
 use std::time::Instant;
@@ -267,6 +271,77 @@ fn run_list(path: &str, seed: u64, nq: usize, radii: &[u32], tune: usize) {
         });
         range_qps.push(qps);
     }
+    // waymark with its deletion-variant table, on a second index.
+    let mut table_qps: Vec<Option<f64>> = vec![None; radii.len()];
+    if let Some(&rs) = env_list::<u32>("WAYMARK_BASE_SMALL", "2").first() {
+        let corpus = read_corpus(&words_path, &IngestOptions::default()).expect("word list reads");
+        let spath = dir.path().join("small.wmk");
+        let t = Instant::now();
+        let rep = build_index(
+            &corpus,
+            "bench",
+            &BuildOptions {
+                small_radius: Some(rs),
+                ..BuildOptions::default()
+            },
+            &spath,
+            &|_| {},
+        )
+        .expect("build with a table");
+        let sidx = Index::open(&spath).expect("open");
+        let (_, entries, tbytes) = sidx.variants_summary().expect("a table");
+        println!(
+            "waymark build --small-radius {rs}: {:.2} s (table {:.2} s), {:.1} MB, of which the table {:.1} MB ({entries} entries, {:.2} bytes each)",
+            t.elapsed().as_secs_f64(),
+            rep.variants_seconds,
+            rep.file_len as f64 / 1e6,
+            tbytes as f64 / 1e6,
+            tbytes as f64 / entries as f64
+        );
+        let ss = Searcher::new(&sidx);
+        let _ = ss.answer_many(
+            &queries[..1],
+            &Request::Within {
+                radius: 1.0,
+                k: None,
+            },
+        );
+        for (j, (&r, b)) in radii.iter().zip(&brute).enumerate() {
+            if r > rs {
+                continue;
+            }
+            let t = Instant::now();
+            let found: Vec<Found> = ss
+                .answer_many(
+                    &queries,
+                    &Request::Within {
+                        radius: f64::from(r),
+                        k: None,
+                    },
+                )
+                .into_iter()
+                .map(|f| f.expect("query"))
+                .collect();
+            let qps = nq as f64 / t.elapsed().as_secs_f64();
+            for (q, (f, b)) in found.iter().zip(b).enumerate() {
+                let mut got: Vec<u32> = f.neighbors.iter().map(|nb| nb.index).collect();
+                got.sort_unstable();
+                assert_eq!(
+                    &got, b,
+                    "waymark --within {r} with the table differs on query {q}"
+                );
+            }
+            rows.push(Row {
+                mode: format!("range R={r}"),
+                method: format!("waymark --within {r}, table R={rs}"),
+                qps,
+                dists: wm_dists(&found),
+                recall: None,
+                waymark_qps: None,
+            });
+            table_qps[j] = Some(qps);
+        }
+    }
 
     // The trees.
     let t = Instant::now();
@@ -364,7 +439,8 @@ fn run_list(path: &str, seed: u64, nq: usize, radii: &[u32], tune: usize) {
     }
 
     // Deletion neighbourhood, R ≤ 2.
-    for ((&r, b), &wq) in radii.iter().zip(&brute).zip(&range_qps) {
+    for (((&r, b), &wq), tq) in radii.iter().zip(&brute).zip(&range_qps).zip(&table_qps) {
+        let wq = tq.unwrap_or(wq);
         if r > 2 {
             continue;
         }

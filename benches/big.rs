@@ -18,6 +18,9 @@
 //! - `WAYMARK_BIG_DIM` embedding dimension of the index [the default]
 //! - `WAYMARK_BIG_PROFILE` `approx`, `exact` or `range`: run only that mode, three times,
 //!   without brute forces or checks (for a profiler) [unset]
+//! - `WAYMARK_BIG_SMALL` radii of deletion-variant tables (`build --small-radius`): for
+//!   each, a second index is built with the table, and range R = 1, R = 2 and exact
+//!   queries run on it, checked against brute force [2; empty: none]
 
 use std::path::{Path, PathBuf};
 use std::time::Instant;
@@ -344,6 +347,98 @@ fn main() {
     r.recall = 1.0; // checked equal to the brute force above; recall@k does not apply
     rows.push(r);
 
+    // Range R = 1 on the default index, then the same modes on indexes with a table.
+    let brute_within = |radius: f64| -> Vec<Vec<u32>> {
+        brute
+            .iter()
+            .map(|b| {
+                b.iter()
+                    .filter(|n| n.distance <= radius)
+                    .map(|n| n.index)
+                    .collect()
+            })
+            .collect()
+    };
+    let check_range = |found: &[Found], radius: f64| {
+        for (f, want) in found.iter().zip(brute_within(radius)) {
+            let mut got: Vec<u32> = f.neighbors.iter().map(|n| n.index).collect();
+            got.sort_unstable();
+            assert_eq!(got, want, "range answer differs from the brute force");
+        }
+    };
+    let (qps, found) = run(&Request::Within {
+        radius: 1.0,
+        k: None,
+    });
+    check_range(&found, 1.0);
+    let mut r = summarise("range R=1".into(), qps, &found);
+    r.recall = 1.0;
+    rows.push(r);
+    let small: Vec<u32> = env_list("WAYMARK_BIG_SMALL", "2");
+    let mut small_paths = Vec::new();
+    if !small.is_empty() {
+        let corpus = read_corpus(&words, &IngestOptions::default()).expect("word list reads");
+        for &rs in &small {
+            let spath = dir.path().join(format!("small{rs}.wmk"));
+            let t = Instant::now();
+            let rep = build_index(
+                &corpus,
+                "bench",
+                &BuildOptions {
+                    dim,
+                    small_radius: Some(rs),
+                    ..BuildOptions::default()
+                },
+                &spath,
+                &|_| {},
+            )
+            .expect("build with a table");
+            let secs = t.elapsed().as_secs_f64();
+            let sidx = Index::open(&spath).expect("open");
+            let (tr, entries, tbytes) = sidx.variants_summary().expect("a table");
+            println!(
+                "build with --small-radius {rs}: {secs:.2} s (table {:.2} s); index {:.1} MB, of which the table {:.1} MB: {entries} entries, {:.2} bytes per entry (radius {tr})",
+                rep.variants_seconds,
+                rep.file_len as f64 / 1e6,
+                tbytes as f64 / 1e6,
+                tbytes as f64 / entries as f64
+            );
+            let ss = Searcher::new(&sidx);
+            // The table's first-use check, kept out of the timed rows.
+            let t = Instant::now();
+            let _ = ss.answer_many(
+                &queries[..1],
+                &Request::Within {
+                    radius: 1.0,
+                    k: None,
+                },
+            );
+            println!(
+                "first query of a process with the table: {:.0} ms (checks the table)",
+                t.elapsed().as_secs_f64() * 1e3
+            );
+            for radius in [1.0, 2.0] {
+                let (qps, found) = run_on(&ss, &Request::Within { radius, k: None });
+                check_range(&found, radius);
+                let mut r = summarise(format!("range R={radius}, table R={rs}"), qps, &found);
+                r.recall = 1.0;
+                rows.push(r);
+            }
+            let (qps, found) = run_on(&ss, &Request::Exact { k });
+            for (f, t) in found.iter().zip(&truth) {
+                assert_eq!(&f.neighbors, t, "exact answer differs from the brute force");
+            }
+            let through = found
+                .iter()
+                .filter(|f| f.certificate.is_some_and(|c| c.computed == f.distances))
+                .count();
+            // Through the table no landmark distance is computed.
+            println!("exact k={k} with the table: {through} of {nq} answered through it");
+            rows.push(summarise(format!("exact k={k}, table R={rs}"), qps, &found));
+            small_paths.push((rs, spath));
+        }
+    }
+
     // Peak memory of a query process answering every query (default, exact, range).
     let qfile = dir.path().join("queries.txt");
     std::fs::write(&qfile, queries.join("\n") + "\n").expect("write queries");
@@ -360,6 +455,20 @@ fn main() {
                 limit_kb as f64 * 1024.0 / 1e6
             ),
             None => println!("peak RSS ({name}): /usr/bin/time -v unavailable"),
+        }
+    }
+
+    for (rs, spath) in &small_paths {
+        for (name, extra) in [
+            ("range R=1", &["--within", "1"][..]),
+            ("range R=2", &["--within", "2"][..]),
+        ] {
+            if let Some(kb) = query_peak_rss(spath, &qfile, extra) {
+                println!(
+                    "peak RSS of `waymark query` ({name}, table R={rs}, {nq} queries): {:.1} MB",
+                    kb as f64 * 1024.0 / 1e6
+                );
+            }
         }
     }
 

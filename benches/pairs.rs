@@ -16,6 +16,9 @@
 //! - `WAYMARK_PAIRS_VISIT` rows visited per item with cells [12 per candidate]
 //! - `WAYMARK_PAIRS_ROUNDS` refinement rounds by neighbours of neighbours [3]
 //! - `WAYMARK_PAIRS_ONLY` `within` or `nearest`: run only that part [both]
+//! - `WAYMARK_PAIRS_JOIN` how the exact joins find near items: `columns` (the column
+//!   blocks), `variants` (a deletion-variant table built in memory, the default path for
+//!   R ≤ 2), or both, whose pairs are then checked equal [columns,variants]
 
 use std::path::PathBuf;
 use std::time::Instant;
@@ -28,7 +31,7 @@ use rand::SeedableRng;
 use waymark::eval::{scan_many, threshold_recall, Scan};
 use waymark::index::{build_index, BuildOptions, Index};
 use waymark::ingest::{read_corpus, IngestOptions};
-use waymark::pairs::{NearestJoin, Radius, SelfJoin};
+use waymark::pairs::{JoinBy, JoinPath, NearestJoin, Pair, Radius, SelfJoin};
 use waymark::search::{SearchParams, Searcher};
 
 fn env_list<T: std::str::FromStr>(name: &str, default: &str) -> Vec<T> {
@@ -119,13 +122,45 @@ fn main() {
 
     if only != "nearest" {
         let searcher = Searcher::new(&index);
-        for &r in &radii {
+        let mut previous: Vec<(u64, Vec<Pair>)> = Vec::new();
+        let joins: Vec<String> = std::env::var("WAYMARK_PAIRS_JOIN")
+            .unwrap_or_else(|_| "columns,variants".into())
+            .split(',')
+            .map(|s| s.trim().to_string())
+            .filter(|s| !s.is_empty())
+            .collect();
+        for (&r, by) in radii
+            .iter()
+            .flat_map(|r| joins.iter().map(move |j| (r, j.clone())))
+        {
+            let how = if by == "columns" {
+                JoinBy::Columns
+            } else {
+                JoinBy::Auto
+            };
             let t = Instant::now();
-            let (pairs, stats) = SelfJoin::new(&index, Radius::Fixed(r))
-                .expect("join")
-                .collect_all()
-                .expect("pairs");
+            let join = SelfJoin::with(&index, Radius::Fixed(r), how).expect("join");
+            let path = join.path();
+            let (pairs, stats) = join.collect_all().expect("pairs");
             let secs = t.elapsed().as_secs_f64();
+            let path = match path {
+                JoinPath::Columns => "through the column blocks".to_string(),
+                JoinPath::StoredVariants => "through the index's table".to_string(),
+                JoinPath::BuiltVariants {
+                    radius,
+                    bytes,
+                    seconds,
+                } => format!(
+                    "through a table of radius {radius} built in memory ({:.1} MB, {seconds:.2} s of the total)",
+                    bytes as f64 / 1e6
+                ),
+            };
+            println!("within R = {r}, {path}:");
+            let key = r.to_bits();
+            match previous.iter().find(|(k, _)| *k == key) {
+                Some((_, p)) => assert!(p == &pairs, "the two joins at R = {r} differ"),
+                None => previous.push((key, pairs.clone())),
+            }
             // Exactness on the sample: each sampled item's pairs equal its range query's
             // answer (itself left out).
             let mut mine: Vec<Vec<u32>> = vec![Vec::new(); n];

@@ -143,6 +143,8 @@ pub enum Param {
     Sample,
     /// An asked recall ([`crate::search::SearchParams::for_recall`]).
     Recall,
+    /// The radius of a build's deletion-variant table ([`crate::index::BuildOptions::small_radius`]).
+    SmallRadius,
 }
 
 impl Param {
@@ -159,6 +161,7 @@ impl Param {
             Param::SweepAxes => "the sweep's methods, dimensions and spaces",
             Param::Sample => "sample",
             Param::Recall => "recall",
+            Param::SmallRadius => "small radius",
         }
     }
 }

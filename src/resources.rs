@@ -83,15 +83,38 @@ pub fn check_input(source: &str, file_bytes: u64) -> Result<()> {
     }
 }
 
-/// Refuses a build whose estimated peak memory ([`build_estimate`]) exceeds the budget.
-pub fn check_build(source: &str, n: usize, bytes: usize, dim: usize) -> Result<()> {
-    let need = build_estimate(n, bytes, dim);
+/// Refuses a build whose estimated peak memory ([`build_estimate`], plus `extra` bytes: a
+/// deletion-variant table's, `index::variants::build_estimate`) exceeds the budget.
+pub fn check_build(source: &str, n: usize, bytes: usize, dim: usize, extra: u64) -> Result<()> {
+    let need = build_estimate(n, bytes, dim).saturating_add(extra);
+    let table = if extra > 0 {
+        format!(
+            " with a deletion-variant table ({:.1} GB of it)",
+            extra as f64 / 1e9
+        )
+    } else {
+        String::new()
+    };
     match budget()? {
         Some(have) if need > have => Err(refuse(
-            &format!("building an index of {n} items from {source} at dimension {dim}"),
+            &format!("building an index of {n} items from {source} at dimension {dim}{table}"),
             need,
             have,
         )),
+        _ => Ok(()),
+    }
+}
+
+/// Whether `need` bytes fit in the budget (`true` when the system tells no budget); a
+/// `WAYMARK_MEMORY_BUDGET` that is not a number is an error.
+pub fn fits(need: u64) -> Result<bool> {
+    Ok(budget()?.is_none_or(|have| need <= have))
+}
+
+/// Refuses `what` when `need` bytes exceed the budget.
+pub fn check_need(what: &str, need: u64) -> Result<()> {
+    match budget()? {
+        Some(have) if need > have => Err(refuse(what, need, have)),
         _ => Ok(()),
     }
 }

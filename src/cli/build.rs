@@ -22,6 +22,7 @@ pub(super) fn build(a: BuildArgs) -> anyhow::Result<()> {
         space: a.space.into(),
         normalize: a.input.normalize(),
         inputs: a.input.files(),
+        small_radius: a.small_radius,
         ..BuildOptions::default()
     };
     // Refuse impossible options before reading a large input.
@@ -45,7 +46,18 @@ pub(super) fn build(a: BuildArgs) -> anyhow::Result<()> {
             .keys
             .as_ref()
             .map_or(0, |k| k.iter().map(Vec::len).sum());
-    crate::resources::check_build(&source, n, text_bytes, a.dim)?;
+    let table = match a.small_radius {
+        Some(r) => {
+            let keys = corpus.key_bytes();
+            crate::index::variants::build_estimate(
+                keys.iter()
+                    .map(|k| String::from_utf8_lossy(k).chars().count()),
+                r,
+            )
+        }
+        None => 0,
+    };
+    crate::resources::check_build(&source, n, text_bytes, a.dim, table)?;
     let bars = BuildBars::new(n, !a.quiet);
     let report = build_index_with(
         &corpus,
@@ -128,9 +140,16 @@ pub(super) fn build(a: BuildArgs) -> anyhow::Result<()> {
                 at(0.99)
             )?;
         }
+        let variants = match a.small_radius {
+            Some(r) => format!(
+                ", deletion variants (R = {r}) {:.2} s",
+                report.variants_seconds
+            ),
+            None => String::new(),
+        };
         writeln!(
             out,
-            "time: read {:.2} s, embed {:.2} s, tree and cells {:.2} s, write {:.2} s, recall curve {:.2} s",
+            "time: read {:.2} s, embed {:.2} s, tree and cells {:.2} s{variants}, write {:.2} s, recall curve {:.2} s",
             read_seconds,
             report.embed_seconds,
             report.tree_seconds,

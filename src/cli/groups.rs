@@ -10,7 +10,7 @@ use super::output::{counting_bar, id_json, id_text, tsv_field};
 use super::pairs::radius_of;
 use crate::error::Error;
 use crate::index::Index;
-use crate::pairs::{group, SelfJoin};
+use crate::pairs::{group, JoinBy, SelfJoin};
 
 pub(super) fn groups(a: GroupsArgs) -> anyhow::Result<()> {
     let Some(radius) = radius_of(a.within, a.within_fraction) else {
@@ -22,7 +22,12 @@ pub(super) fn groups(a: GroupsArgs) -> anyhow::Result<()> {
     let index = Index::open(&a.index)?;
     super::announce_program(&index, a.quiet_metric);
     let t0 = Instant::now();
-    let mut join = SelfJoin::new(&index, radius)?;
+    let by = if a.no_variant_table {
+        JoinBy::Columns
+    } else {
+        JoinBy::Auto
+    };
+    let mut join = SelfJoin::with(&index, radius, by)?;
     let bar = counting_bar(index.len() as u64, "items", !a.quiet);
     let mut pairs = Vec::new();
     while let Some(batch) = join.next_batch() {

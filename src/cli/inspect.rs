@@ -53,6 +53,7 @@ pub(super) fn inspect(a: InspectArgs) -> anyhow::Result<()> {
             "meta": m,
             "landmark_items": landmarks,
             "sections": sections.iter().map(|(k, l)| serde_json::json!({"name": k, "bytes": l})).collect::<Vec<_>>(),
+            "small_radius": index.variants_summary().map(|(r, e, b)| serde_json::json!({"radius": r, "entries": e, "bytes": b})),
             "verified": verified.is_some(),
         });
         writeln!(
@@ -155,6 +156,14 @@ pub(super) fn inspect(a: InspectArgs) -> anyhow::Result<()> {
         m.candidates,
         m.space.name()
     )?;
+    match index.variants_summary() {
+        Some((r, entries, bytes)) => writeln!(
+            out,
+            "small radius  deletion-variant table, exact range queries and pairs up to {r}: {entries} entries, {bytes} bytes ({:.2} per entry)",
+            bytes as f64 / entries.max(1) as f64
+        )?,
+        None => writeln!(out, "small radius  no deletion-variant table (build --small-radius R)")?,
+    }
     writeln!(out, "file size     {} bytes", index.file_len())?;
     for (name, len) in &sections {
         writeln!(out, "  section     {:<14} {len:>12} bytes", esc(name))?;

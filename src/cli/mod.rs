@@ -143,6 +143,8 @@ fn too_large_hint(what: &str) -> &'static str {
         "ask for fewer --pairs"
     } else if what.starts_with("checking the metric") {
         "use a smaller --sample"
+    } else if what.contains("deletion-variant table") {
+        "leave out --small-radius or use --small-radius 1"
     } else {
         "build a smaller input (split it), use a lower --dim"
     }

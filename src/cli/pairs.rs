@@ -11,7 +11,7 @@ use super::output::{counting_bar, distance_json, id_json, id_text, tsv_field};
 use super::query::{at_query_line, read_query_file};
 use crate::error::Error;
 use crate::index::Index;
-use crate::pairs::{lookup_within, NearestJoin, Pair, Radius, SelfJoin};
+use crate::pairs::{lookup_within, JoinBy, JoinPath, NearestJoin, Pair, Radius, SelfJoin};
 use crate::search::{Found, Request, SearchParams, Searcher};
 
 /// Queries looked up per block of `--queries`.
@@ -61,12 +61,17 @@ pub(super) fn pairs(a: PairsArgs) -> anyhow::Result<()> {
     };
     let bar = counting_bar(index.len() as u64, "items", !a.quiet);
     let computed = if let Some(r) = radius {
-        let mut join = SelfJoin::new(&index, r)?;
+        let by = if a.no_variant_table {
+            JoinBy::Columns
+        } else {
+            JoinBy::Auto
+        };
+        let mut join = SelfJoin::with(&index, r, by)?;
         while let Some(batch) = join.next_batch() {
             write(&mut out, &batch?)?;
             bar.set_position(join.done() as u64);
         }
-        Some(join.stats().computed)
+        Some((join.stats().computed, join.path()))
     } else {
         let k = a.k.expect("-k or a radius, checked above");
         let mut join = NearestJoin::new(&index, k, params)?.refine(a.refine_rounds);
@@ -79,7 +84,21 @@ pub(super) fn pairs(a: PairsArgs) -> anyhow::Result<()> {
     bar.finish_and_clear();
     if a.summary {
         let secs = t0.elapsed().as_secs_f64();
-        let computed = computed.map_or(String::new(), |c| format!("; {c} distances computed"));
+        let computed = computed.map_or(String::new(), |(c, path)| {
+            let how = match path {
+                JoinPath::Columns => "the column blocks".to_string(),
+                JoinPath::StoredVariants => "the index's deletion-variant table".to_string(),
+                JoinPath::BuiltVariants {
+                    radius,
+                    bytes,
+                    seconds,
+                } => format!(
+                    "a deletion-variant table of radius {radius} built in memory ({:.1} MB, {seconds:.2} s)",
+                    bytes as f64 / 1e6
+                ),
+            };
+            format!("; {c} distances computed; near items found through {how}")
+        });
         eprintln!(
             "{count} pairs among {} items in {secs:.3} s ({:.0} items/s){computed}",
             index.len(),

@@ -84,10 +84,13 @@ pub enum SectionKind {
     Cells = 12,
     /// `n` u32: the position of each item's row in the cells section (format version 2).
     Positions = 13,
+    /// The deletion-variant table of small-radius range queries (`index/variants.rs`),
+    /// only in indexes built with it (`--small-radius`).
+    Variants = 14,
 }
 
 impl SectionKind {
-    const ALL: [SectionKind; 13] = [
+    const ALL: [SectionKind; 14] = [
         SectionKind::Meta,
         SectionKind::ItemOffsets,
         SectionKind::ItemBytes,
@@ -101,6 +104,7 @@ impl SectionKind {
         SectionKind::Graph,
         SectionKind::Cells,
         SectionKind::Positions,
+        SectionKind::Variants,
     ];
 
     fn from_u32(v: u32) -> Option<SectionKind> {
@@ -123,6 +127,7 @@ impl SectionKind {
             SectionKind::Graph => "graph",
             SectionKind::Cells => "cells",
             SectionKind::Positions => "positions",
+            SectionKind::Variants => "deletion-variants",
         }
     }
 

@@ -21,6 +21,7 @@ pub mod file;
 mod install;
 pub mod rows;
 pub mod tree;
+pub mod variants;
 
 use std::fs::File;
 use std::ops::Range;
@@ -154,6 +155,9 @@ pub struct Index {
     /// the rows).
     cells_checked: OnceLock<std::result::Result<(), String>>,
     graph: Option<Range<usize>>,
+    /// The deletion-variant table (`--small-radius`), if the file has one.
+    variants: Option<Range<usize>>,
+    variants_checked: OnceLock<std::result::Result<(), String>>,
     metric: OnceLock<Result<AnyMetric>>,
 }
 
@@ -477,6 +481,22 @@ impl Index {
                 "a graph section belongs to graph-metric indexes only".into(),
             ));
         }
+        let variant_section = find(SectionKind::Variants);
+        if let Some(r) = &variant_section {
+            if version < 2 {
+                return Err(corrupt(format!(
+                    "a deletion-variants section in a format version {version} file"
+                )));
+            }
+            if !variants::supports(&meta.metric_spec) {
+                return Err(corrupt(format!(
+                    "a deletion-variants section in an index of the {} metric, for which it is not exact",
+                    meta.metric
+                )));
+            }
+            variants::Variants::open(&map[r.clone()], n)
+                .map_err(|e| corrupt(format!("section deletion-variants is refused: {e}")))?;
+        }
         Ok(Index {
             path: path.to_path_buf(),
             map,
@@ -494,6 +514,8 @@ impl Index {
             cells,
             cells_checked: OnceLock::new(),
             graph,
+            variants: variant_section,
+            variants_checked: OnceLock::new(),
             metric: OnceLock::new(),
         })
     }
@@ -594,7 +616,50 @@ impl Index {
         file::verify_sections(&self.path, &self.map, &self.sections)?;
         self.cells()?;
         self.check_rows()?;
-        self.tree().map(|_| ())
+        self.tree()?;
+        if let (Some(v), Some(r)) = (self.variants()?, &self.variants) {
+            // The table is built again from the keys and compared whole: an entry left
+            // out (which no field check can see) would lose answers.
+            let keys = self.keys();
+            let all: Vec<&[u8]> = (0..self.len()).map(|i| keys.get(i)).collect();
+            if !variants::Variants::same_as_built(&self.map[r.clone()], &all, v.radius()) {
+                return Err(Error::corrupt(
+                    &self.path,
+                    "section deletion-variants is refused: it is not the table of the index's keys",
+                ));
+            }
+        }
+        Ok(())
+    }
+
+    /// The deletion-variant table of small-radius range queries, or `None` for a file
+    /// without one; checked on first use (its checksum, then every field, one pass).
+    pub fn variants(&self) -> Result<Option<variants::Variants<'_>>> {
+        let Some(range) = self.variants.clone() else {
+            return Ok(None);
+        };
+        let bytes = &self.map[range];
+        let n = self.len();
+        let checked = self.variants_checked.get_or_init(|| {
+            self.check_section(SectionKind::Variants, bytes, || {
+                variants::Variants::open(bytes, n)?.check(bytes, n)
+            })
+        });
+        self.checked(checked)?;
+        Ok(variants::Variants::open(bytes, n).ok())
+    }
+
+    /// Whether the file has a deletion-variant table (not checked by this call).
+    pub fn has_variants(&self) -> bool {
+        self.variants.is_some()
+    }
+
+    /// The deletion-variant table's radius, entries and bytes, from its header (checked at
+    /// open; the rest is not read by this call), for `inspect`.
+    pub fn variants_summary(&self) -> Option<(u32, u64, usize)> {
+        let r = self.variants.clone()?;
+        let v = variants::Variants::open(&self.map[r.clone()], self.len()).ok()?;
+        Some((v.radius(), v.entries(), r.len()))
     }
 
     fn table(&self, table: &Strings) -> StrTable<'_> {

@@ -44,6 +44,7 @@ pub use self::radius::{lookup_within, Radius};
 use crate::coords::columns::{self, CharBins, Columns, Threshold};
 use crate::embed::Bound;
 use crate::error::{Error, Result};
+use crate::index::variants::{self, VariantTable, Variants};
 use crate::index::{Index, StrTable};
 use crate::metric::{AnyMetric, LevenshteinQuery, Metric, PreparedQuery};
 use crate::search::order::{self, Neighbor};
@@ -79,6 +80,71 @@ pub struct JoinStats {
     pub pairs: u64,
 }
 
+/// How a [`SelfJoin`] finds the items near each item.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub enum JoinBy {
+    /// Through a deletion-variant table ([`crate::index::variants`]) when the radius is at
+    /// most 2 and the metric is one it is exact for: the index's own table when its radius
+    /// covers the join's, else one built in memory when its estimate
+    /// ([`variants::build_estimate`]) fits the memory budget; otherwise the column blocks.
+    #[default]
+    Auto,
+    /// Through the column blocks of the stored coordinates (and char counts) only.
+    Columns,
+}
+
+/// Which way a [`SelfJoin`] took.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub enum JoinPath {
+    /// The column blocks.
+    Columns,
+    /// The index's deletion-variant table.
+    StoredVariants,
+    /// A deletion-variant table of this radius built in memory, in this many seconds.
+    BuiltVariants {
+        /// The table's radius.
+        radius: u32,
+        /// Its size in bytes.
+        bytes: usize,
+        /// Seconds spent building it.
+        seconds: f64,
+    },
+}
+
+/// The deletion-variant table a join reads.
+enum Table<'a> {
+    Stored(Variants<'a>),
+    Built(VariantTable),
+}
+
+impl Table<'_> {
+    fn view(&self, n: usize) -> Option<Variants<'_>> {
+        match self {
+            Table::Stored(v) => Some(*v),
+            Table::Built(t) => Variants::open(t.bytes(), n).ok(),
+        }
+    }
+}
+
+/// The column blocks of a join through them.
+struct ColumnsJoin {
+    cols: Columns,
+    bins: Option<CharBins>,
+    /// The column values of each position (counts, then coordinates), `cols` bytes each.
+    values: Vec<u8>,
+    sigs: Vec<u64>,
+}
+
+/// What a join reads to find each item's near items.
+enum Finder<'a> {
+    Columns(ColumnsJoin),
+    Variants {
+        table: Table<'a>,
+        /// Each item's position in the join's order.
+        pos: Vec<u32>,
+    },
+}
+
 /// Every pair of distinct items within a [`Radius`], exactly, batch by batch
 /// ([`SelfJoin::next_batch`]).
 ///
@@ -106,11 +172,8 @@ pub struct SelfJoin<'a> {
     by_length: bool,
     /// The longest item, in chars.
     longest: u32,
-    cols: Columns,
-    bins: Option<CharBins>,
-    /// The column values of each position (counts, then coordinates), `cols` bytes each.
-    values: Vec<u8>,
-    sigs: Vec<u64>,
+    finder: Finder<'a>,
+    path: JoinPath,
     /// The next position to answer.
     next: usize,
     stats: JoinStats,
@@ -121,6 +184,12 @@ impl<'a> SelfJoin<'a> {
     /// their char counts) in column blocks. Refused with [`Error::NoLowerBound`] when the
     /// index's embedding gives no lower bound, and for a radius out of range.
     pub fn new(index: &'a Index, radius: Radius) -> Result<SelfJoin<'a>> {
+        Self::with(index, radius, JoinBy::Auto)
+    }
+
+    /// [`SelfJoin::new`], choosing how near items are found ([`JoinBy`]); the pairs and
+    /// their order are the same either way.
+    pub fn with(index: &'a Index, radius: Radius, by: JoinBy) -> Result<SelfJoin<'a>> {
         radius.check(index)?;
         let bound = index.bound().ok_or_else(|| Error::NoLowerBound {
             path: index.path().to_path_buf(),
@@ -129,28 +198,111 @@ impl<'a> SelfJoin<'a> {
         let metric = index.metric()?;
         let keys = index.keys();
         let n = index.len();
-        let (stride, dim) = (index.stride(), index.meta().dim as usize);
         index.check_rows()?;
-        let coords = index.rows().in_item_order_table();
+        let rows = index.rows();
         let by_length = metric.bounded_by_char_counts();
-        let with_counts = by_length && bound.whole;
         let lens: Vec<u32> = (0..n)
             .into_par_iter()
             .map(|i| LevenshteinQuery::item_len(keys.get(i)).min(u32::MAX as usize) as u32)
             .collect();
         let longest = lens.iter().copied().max().unwrap_or(0);
+        let first = |i: usize| rows.row(i).first().copied().unwrap_or(0);
         let key_of = |i: usize| -> u32 {
             if by_length {
                 lens[i]
             } else {
-                u32::from(coords.get(i * stride).copied().unwrap_or(0))
+                u32::from(first(i))
             }
         };
-        let first = |i: usize| coords.get(i * stride).copied().unwrap_or(0);
         let mut order: Vec<u32> = (0..n as u32).collect();
         order.par_sort_unstable_by_key(|&i| (key_of(i as usize), first(i as usize), i));
         let sort_key: Vec<u32> = order.iter().map(|&i| key_of(i as usize)).collect();
         let first_coord: Vec<u8> = order.iter().map(|&i| first(i as usize)).collect();
+        // The deletions a lookup needs: the widest reach, in whole edits.
+        let need = radius.widened(longest, by_length, longest);
+        let table = match by {
+            JoinBy::Columns => None,
+            JoinBy::Auto => Self::table_for(index, &lens, need)?,
+        };
+        let (finder, path) = match table {
+            Some((table, path)) => {
+                let mut pos = vec![0u32; n];
+                for (p, &i) in order.iter().enumerate() {
+                    pos[i as usize] = p as u32;
+                }
+                (Finder::Variants { table, pos }, path)
+            }
+            None => (
+                Finder::Columns(Self::columns_for(index, &order, bound, by_length)),
+                JoinPath::Columns,
+            ),
+        };
+        Ok(SelfJoin {
+            index,
+            metric,
+            keys,
+            bound,
+            radius,
+            order,
+            lens,
+            sort_key,
+            first_coord,
+            by_length,
+            longest,
+            finder,
+            path,
+            next: 0,
+            stats: JoinStats::default(),
+        })
+    }
+
+    /// The deletion-variant table a join within `need` can use: the index's, when its
+    /// radius covers `need`; else one built in memory, when the metric allows one, `need`
+    /// is at most 2 and the table's estimate fits the memory budget. `None`: the column
+    /// blocks.
+    fn table_for(
+        index: &'a Index,
+        lens: &[u32],
+        need: f64,
+    ) -> Result<Option<(Table<'a>, JoinPath)>> {
+        let small = need >= 0.0 && need.floor() <= f64::from(variants::MAX_RADIUS);
+        if !(small && variants::supports(&index.meta().metric_spec)) {
+            return Ok(None);
+        }
+        let r = need as u32;
+        if let Some(v) = index.variants()? {
+            if r <= v.radius() {
+                return Ok(Some((Table::Stored(v), JoinPath::StoredVariants)));
+            }
+        }
+        let r = r.max(1);
+        let estimate = variants::build_estimate(lens.iter().map(|&l| l as usize), r);
+        if !crate::resources::fits(estimate)? {
+            return Ok(None);
+        }
+        let t0 = std::time::Instant::now();
+        let keys = index.keys();
+        let all: Vec<&[u8]> = (0..index.len()).map(|i| keys.get(i)).collect();
+        let Ok(table) = VariantTable::try_build(&all, r) else {
+            return Ok(None);
+        };
+        let path = JoinPath::BuiltVariants {
+            radius: r,
+            bytes: table.len(),
+            seconds: t0.elapsed().as_secs_f64(),
+        };
+        Ok(Some((Table::Built(table), path)))
+    }
+
+    /// The column blocks of a join through them: the items' coordinates (and for
+    /// Levenshtein with whole coordinates their char counts and signatures) in the join's
+    /// order.
+    fn columns_for(index: &Index, order: &[u32], bound: Bound, by_length: bool) -> ColumnsJoin {
+        let keys = index.keys();
+        let n = index.len();
+        let (stride, dim) = (index.stride(), index.meta().dim as usize);
+        let coords = index.rows().in_item_order_table();
+        let with_counts = by_length && bound.whole;
         let mut sorted = vec![0u8; n * stride];
         sorted
             .par_chunks_mut(stride.max(1))
@@ -161,6 +313,7 @@ impl<'a> SelfJoin<'a> {
                     row.copy_from_slice(r);
                 }
             });
+        drop(coords);
         let bins = with_counts.then(|| CharBins::fit((0..n).map(|i| keys.get(i))));
         let counts: Option<Vec<[u8; columns::BINS]>> = bins.as_ref().map(|b| {
             order
@@ -197,25 +350,17 @@ impl<'a> SelfJoin<'a> {
                 }
                 v[at..at + dim].copy_from_slice(&sorted[p * stride..p * stride + dim]);
             });
-        Ok(SelfJoin {
-            index,
-            metric,
-            keys,
-            bound,
-            radius,
-            order,
-            lens,
-            sort_key,
-            first_coord,
-            by_length,
-            longest,
+        ColumnsJoin {
             cols,
             bins,
             values,
             sigs,
-            next: 0,
-            stats: JoinStats::default(),
-        })
+        }
+    }
+
+    /// Which way the join finds near items.
+    pub fn path(&self) -> JoinPath {
+        self.path
     }
 
     /// Number of items of the join.
@@ -251,7 +396,13 @@ impl<'a> SelfJoin<'a> {
         let this = &*self;
         let found: Vec<(Vec<Pair>, JoinStats)> = starts
             .par_iter()
-            .map(|&p0| this.query_block(p0..(p0 + QUERY_BLOCK).min(end)))
+            .map(|&p0| {
+                let ps = p0..(p0 + QUERY_BLOCK).min(end);
+                match &this.finder {
+                    Finder::Columns(c) => this.query_block(c, ps),
+                    Finder::Variants { table, pos } => this.variant_block(table, pos, ps),
+                }
+            })
             .collect();
         if let Err(e) = self.metric.check() {
             return Some(Err(e.into()));
@@ -328,8 +479,8 @@ impl<'a> SelfJoin<'a> {
 
     /// The pairs of positions `ps` with the positions after each, in shared passes over
     /// the union of their ranges ([`SelfJoin::ranges`]).
-    fn query_block(&self, ps: std::ops::Range<usize>) -> (Vec<Pair>, JoinStats) {
-        let width = self.cols.cols();
+    fn query_block(&self, c: &ColumnsJoin, ps: std::ops::Range<usize>) -> (Vec<Pair>, JoinStats) {
+        let width = c.cols.cols();
         let mut ranges: Vec<Vec<std::ops::Range<usize>>> = vec![Vec::new(); ps.len()];
         let mut his: Vec<u8> = Vec::with_capacity(ps.len());
         for (j, p) in ps.clone().enumerate() {
@@ -341,10 +492,10 @@ impl<'a> SelfJoin<'a> {
             .clone()
             .zip(&his)
             .map(|(p, &hi)| Threshold {
-                q: &self.values[p * width..(p + 1) * width],
+                q: &c.values[p * width..(p + 1) * width],
                 lo: None,
                 hi,
-                sig: self.sigs.get(p).copied().unwrap_or(0),
+                sig: c.sigs.get(p).copied().unwrap_or(0),
             })
             .collect();
         // The block ranges of every query, merged.
@@ -363,7 +514,7 @@ impl<'a> SelfJoin<'a> {
         }
         let mut cands: Vec<Vec<(u32, u8)>> = vec![Vec::new(); ps.len()];
         for r in merged {
-            self.cols.within_many_in(&ts, r, |j, pos, b| {
+            c.cols.within_many_in(&ts, r, |j, pos, b| {
                 let p = pos as usize;
                 if ranges[j].iter().any(|r| r.contains(&p)) {
                     cands[j].push((pos, b));
@@ -382,7 +533,7 @@ impl<'a> SelfJoin<'a> {
             let group = q.group_size().min(LANE_GROUP);
             found.clear();
             // Without counts in the columns, the signature gap is applied here.
-            let sig_here = self.by_length && self.bins.is_none();
+            let sig_here = self.by_length && c.bins.is_none();
             for &(pos, b) in &cands[j] {
                 stats.examined += 1;
                 let other = self.order[pos as usize];
@@ -392,8 +543,7 @@ impl<'a> SelfJoin<'a> {
                 if self.by_length {
                     lb = lb.max(f64::from(li.abs_diff(lj)));
                     if sig_here {
-                        let gap =
-                            LevenshteinQuery::signature_gap(self.sigs[p], self.sigs[pos as usize]);
+                        let gap = LevenshteinQuery::signature_gap(c.sigs[p], c.sigs[pos as usize]);
                         lb = lb.max(f64::from(gap));
                     }
                 }
@@ -419,6 +569,62 @@ impl<'a> SelfJoin<'a> {
                 }
             }
             stats.computed += self.flush(&q, &mut at, &mut lane_out, &mut found);
+            order::sort(self.index, &mut found);
+            out.extend(found.iter().map(|n| Pair {
+                a: i.min(n.index),
+                b: i.max(n.index),
+                distance: n.distance,
+            }));
+        }
+        (out, stats)
+    }
+
+    /// The pairs of positions `ps` with the positions after each, from the items that
+    /// share a deletion variant with each (within the deletions its reach allows).
+    fn variant_block(
+        &self,
+        table: &Table<'_>,
+        pos: &[u32],
+        ps: std::ops::Range<usize>,
+    ) -> (Vec<Pair>, JoinStats) {
+        let mut stats = JoinStats::default();
+        let mut out = Vec::new();
+        let Some(view) = table.view(self.len()) else {
+            return (out, stats);
+        };
+        let mut scratch = variants::Scratch::default();
+        let mut cands: Vec<u32> = Vec::new();
+        let mut found: Vec<Neighbor> = Vec::new();
+        for p in ps {
+            let i = self.order[p];
+            let key = self.keys.get(i as usize);
+            let reach = self.reach(p);
+            // Whole edits: the metrics with a table have whole distances.
+            let r = reach.floor().clamp(0.0, f64::from(view.radius())) as u32;
+            view.candidates(key, r, &mut scratch, &mut cands);
+            let q = self.metric.prepare(key);
+            let li = self.lens[i as usize];
+            found.clear();
+            for &other in &cands {
+                if pos.get(other as usize).is_none_or(|&at| at as usize <= p) {
+                    continue;
+                }
+                stats.examined += 1;
+                let lj = self.lens[other as usize];
+                let limit = self.radius.limit(li, lj);
+                if f64::from(li.abs_diff(lj)) > limit {
+                    continue;
+                }
+                stats.computed += 1;
+                if let Some(d) = q.distance_within(self.keys.get(other as usize), limit) {
+                    if d <= limit {
+                        found.push(Neighbor {
+                            index: other,
+                            distance: d,
+                        });
+                    }
+                }
+            }
             order::sort(self.index, &mut found);
             out.extend(found.iter().map(|n| Pair {
                 a: i.min(n.index),

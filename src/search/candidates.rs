@@ -44,6 +44,9 @@ pub struct Scratch {
     /// Cells in visiting order, and (first score, first position) of each cell visited.
     cell_order: Vec<(u32, u32)>,
     spans: Vec<(u32, u32)>,
+    /// The deletion-variant look-up's working memory and candidates (`variants.rs`).
+    pub(super) variants: crate::index::variants::Scratch,
+    pub(super) shared: Vec<u32>,
 }
 
 impl Scratch {

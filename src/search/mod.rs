@@ -42,6 +42,7 @@ pub(crate) mod lanes;
 pub mod order;
 mod request;
 mod rerank;
+mod variants;
 
 use std::sync::OnceLock;
 
@@ -243,10 +244,16 @@ impl<'a> Searcher<'a> {
             Request::Approximate(p) => self.search(query, &p, scratch),
             Request::Exact { k } => {
                 self.check(req)?;
+                if let Some(found) = self.variant_answer(query, Some(k), None, scratch) {
+                    return found;
+                }
                 self.exact(query, Some(k), None)
             }
             Request::Within { radius, k } => {
                 self.check(req)?;
+                if let Some(found) = self.variant_answer(query, k, Some(radius), scratch) {
+                    return found;
+                }
                 self.exact(query, k, Some(radius))
             }
         }
@@ -278,23 +285,56 @@ impl<'a> Searcher<'a> {
             Request::Exact { k } => (Some(k), None),
             Request::Within { radius, k } => (k, Some(radius)),
         };
-        if self.check(req).is_err() {
-            // Every query gets the same error, as from one call each.
+        // A request that fails its check goes query by query: every query then gets the
+        // same error, as from one call each.
+        if self.check(req).is_err() || self.variant_radius(radius).is_err() {
             return queries
                 .par_iter()
                 .map_init(Scratch::default, |s, q| self.answer(q, req, s))
                 .collect();
         }
-        if let (Some(k), None) = (k, radius) {
-            if let Some(found) = self.exact_by_lanes(queries, k) {
-                return found;
-            }
-        }
-        let blocks: Vec<Vec<Result<Found>>> = queries
-            .par_chunks(candidates::QUERY_BLOCK)
-            .map(|block| self.exact_block(block, k, radius))
+        // The deletion-variant table first, where it can answer; the queries it cannot
+        // (an exact k-NN query with fewer than k items within its radius) go on to the
+        // column blocks, in blocks that share passes.
+        let mut answers: Vec<Option<Result<Found>>> = match self.variant_radius(radius) {
+            Ok(Some(_)) => queries
+                .par_iter()
+                .map_init(Scratch::default, |s, q| {
+                    self.variant_answer(q, k, radius, s)
+                })
+                .collect(),
+            _ => queries.iter().map(|_| None).collect(),
+        };
+        let rest: Vec<usize> = (0..queries.len())
+            .filter(|&i| answers[i].is_none())
             .collect();
-        blocks.into_iter().flatten().collect()
+        let texts: Vec<String>;
+        let todo: &[String] = if rest.len() == queries.len() {
+            queries
+        } else {
+            texts = rest.iter().map(|&i| queries[i].clone()).collect();
+            &texts
+        };
+        // A large batch of exact k-NN queries on a Levenshtein index: the brute force with
+        // the queries in vector lanes; else blocks of queries sharing passes.
+        let lanes = match (k, radius) {
+            (Some(k), None) => self.exact_by_lanes(todo, k),
+            _ => None,
+        };
+        let found: Vec<Result<Found>> = lanes.unwrap_or_else(|| {
+            let blocks: Vec<Vec<Result<Found>>> = todo
+                .par_chunks(candidates::QUERY_BLOCK)
+                .map(|block| self.exact_block(block, k, radius))
+                .collect();
+            blocks.into_iter().flatten().collect()
+        });
+        for (i, found) in rest.into_iter().zip(found) {
+            answers[i] = Some(found);
+        }
+        answers
+            .into_iter()
+            .map(|a| a.expect("every query answered"))
+            .collect()
     }
 
     /// Exact k-NN of a large batch of queries on a Levenshtein index by brute force with

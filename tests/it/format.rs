@@ -268,3 +268,52 @@ fn bad_input_a_version_1_file_is_not_calibrated_and_is_left_as_it_was() {
         .collect();
     assert!(leftovers.is_empty(), "{leftovers:?}");
 }
+
+#[test]
+fn a_deletion_variant_table_is_one_more_section_and_leaves_the_others_as_they_were() {
+    let d = Dir::new();
+    let plain = d.build(&data("v1-names.txt"), "p.wmk", &["--dim", "12", "-q"]);
+    let small = d.build(
+        &data("v1-names.txt"),
+        "s.wmk",
+        &["--dim", "12", "-q", "--small-radius", "2"],
+    );
+    let (p, s) = (
+        std::fs::read(&plain).unwrap(),
+        std::fs::read(&small).unwrap(),
+    );
+    // Every section of the file without the table, byte for byte in the one with it.
+    for kind in [1, 2, 3, 12, 13, 10] {
+        assert_eq!(
+            &p[section(&p, kind)],
+            &s[section(&s, kind)],
+            "section kind {kind}"
+        );
+    }
+    let table = section(&s, 14);
+    assert_eq!(table.end, s.len(), "the table is the last section");
+    let index = Index::open(&small).unwrap();
+    assert_eq!(index.format_version(), 2);
+    index.verify().unwrap();
+    let names: Vec<&str> = index.sections().map(|s| s.0).collect();
+    assert_eq!(names.last(), Some(&"deletion-variants"));
+    assert!(!Index::open(&plain).unwrap().has_variants());
+    // Neighbours of every kind are the recorded ones (the certificates of answers from
+    // the table differ: they count the items sharing a variant), and within 2 those of the
+    // file without the table.
+    let neighbours = |text: &str| -> Vec<serde_json::Value> {
+        crate::util::json_lines::<serde_json::Value>(text.as_bytes())
+            .into_iter()
+            .map(|a| a["neighbors"].clone())
+            .collect()
+    };
+    for (kind, args) in ASKED.into_iter().filter(|(k, _)| *k != "tree") {
+        let got = neighbours(&answers(&d, &small, args));
+        assert_eq!(got, neighbours(&recorded(kind)), "{kind}");
+    }
+    let within2 = &["--within", "2"][..];
+    assert_eq!(
+        neighbours(&answers(&d, &small, within2)),
+        neighbours(&answers(&d, &plain, within2))
+    );
+}

@@ -33,4 +33,5 @@ mod permissions;
 mod recall;
 mod search;
 mod sequences;
+mod small_radius;
 mod vector_digits;
