@@ -589,6 +589,43 @@ impl Index {
         self.sections.iter().map(|s| (s.kind.name(), s.range.len()))
     }
 
+    /// The items the embedding measures every query against (landmarks, pool items or
+    /// pivots), as given at build time.
+    pub fn reference_items(&self) -> Vec<String> {
+        self.meta
+            .embedding
+            .refs()
+            .iter()
+            .map(|&l| String::from_utf8_lossy(self.item(l as usize)).into_owned())
+            .collect()
+    }
+
+    /// What the index holds, as `waymark inspect --json` prints it: the path, format
+    /// version, file size, the metadata ([`IndexMeta`]), the reference items, every
+    /// section's size, and `verified` (whether the caller checked every checksum with
+    /// [`Index::verify`]).
+    ///
+    /// ```no_run
+    /// let index = waymark::index::Index::open("names.wmk".as_ref())?;
+    /// let report = index.report(false);
+    /// assert_eq!(report["meta"]["n"], index.len());
+    /// # Ok::<(), waymark::Error>(())
+    /// ```
+    pub fn report(&self, verified: bool) -> serde_json::Value {
+        serde_json::json!({
+            "path": self.path.display().to_string(),
+            "format_version": self.format_version(),
+            "file_bytes": self.file_len(),
+            "meta": &self.meta,
+            "landmark_items": self.reference_items(),
+            "sections": self
+                .sections()
+                .map(|(k, l)| serde_json::json!({"name": k, "bytes": l}))
+                .collect::<Vec<_>>(),
+            "verified": verified,
+        })
+    }
+
     /// Checks the checksum of every section: a full read of the file.
     pub fn verify(&self) -> Result<()> {
         file::verify_sections(&self.path, &self.map, &self.sections)?;
