@@ -880,6 +880,11 @@ impl PyIndex {
                 None => Index::open(path),
             })
             .map_err(py_err)?;
+        // An index of a Python distance opened without one is refused now, not at its
+        // first query (the library refuses the metric's first use).
+        if !python_metric && matches!(index.meta().metric_spec, MetricSpec::Custom { .. }) {
+            index.metric().map_err(py_err)?;
+        }
         Ok(PyIndex {
             held: Held::new(index, |i| Searcher::new(i)),
             python_metric,

@@ -38,8 +38,8 @@ def test_build_query_and_reopen_with_a_python_distance(tmp_path):
         approx = index.query(q, 3)
         assert all(d == abs(int(q) - int(item)) for _, item, d in approx)
     numbers, distances = index.query_many(["5", "77"], 2, exact=True)
-    assert distances.tolist() == [[1.0, 1.0], [1.0, 1.0]]
-    assert index.items(numbers) == [["3", "6"], ["75", "78"]]
+    assert distances.tolist() == [[1.0, 2.0], [1.0, 2.0]]
+    assert index.items(numbers) == [["6", "3"], ["78", "75"]]
     # Opened again with the same function; refused without it or with another name.
     again = waymark.open(path, metric=quay, integral=True)
     assert again.query("200", 1, exact=True) == index.query("200", 1, exact=True)

@@ -6,6 +6,7 @@ scikit-learn package on PyPI)."""
 import numpy as np
 import pytest
 from sklearn.datasets import load_digits
+from sklearn.metrics import pairwise_distances
 from sklearn.neighbors import NearestNeighbors
 
 import waymark
@@ -28,12 +29,15 @@ def test_exact_answers_equal_scikit_learns_brute_force(tmp_path, digits, metric,
     reference = NearestNeighbors(n_neighbors=K, algorithm="brute", metric=sk_metric).fit(items)
     want_d, want_i = reference.kneighbors(queries)
     np.testing.assert_allclose(distances, want_d, rtol=1e-6, atol=1e-6)
-    # Items: equal wherever the reference's distances do not tie.
-    for row_n, row_wi, row_wd in zip(numbers, want_i, want_d):
+    # Items: equal wherever no other item of the set is at the same distance.
+    every = pairwise_distances(queries, items, metric=sk_metric)
+    unique = 0
+    for row_n, row_wi, row_wd, row_all in zip(numbers, want_i, want_d, every):
         for j in range(K):
-            ties = np.sum(np.isclose(row_wd, row_wd[j]))
-            if ties == 1:
+            if np.sum(np.isclose(row_all, row_wd[j], rtol=1e-9, atol=1e-9)) == 1:
                 assert row_n[j] == row_wi[j]
+                unique += 1
+    assert unique >= 100
     # One query as a 1-D array, a list or a float64 array: the same answer.
     first = index.query(queries[0], K, exact=True)
     assert [d for _, _, d in first] == pytest.approx(list(want_d[0]), rel=1e-6)
