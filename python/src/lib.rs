@@ -882,8 +882,14 @@ impl PyIndex {
             .map_err(py_err)?;
         // An index of a Python distance opened without one is refused now, not at its
         // first query (the library refuses the metric's first use).
-        if !python_metric && matches!(index.meta().metric_spec, MetricSpec::Custom { .. }) {
-            index.metric().map_err(py_err)?;
+        if let (false, MetricSpec::Custom { name, .. }) = (python_metric, &index.meta().metric_spec)
+        {
+            return Err(CorruptIndexError::new_err(format!(
+                "{}: the index was built with the distance `{}` written in Python (or Rust): \
+                 open it with the same function, waymark.open(path, metric=FUNCTION)",
+                path.display(),
+                waymark::escape::escape_controls(name)
+            )));
         }
         Ok(PyIndex {
             held: Held::new(index, |i| Searcher::new(i)),

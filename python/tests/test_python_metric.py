@@ -43,7 +43,7 @@ def test_build_query_and_reopen_with_a_python_distance(tmp_path):
     # Opened again with the same function; refused without it or with another name.
     again = waymark.open(path, metric=quay, integral=True)
     assert again.query("200", 1, exact=True) == index.query("200", 1, exact=True)
-    with pytest.raises(waymark.CorruptIndexError, match="custom metric `quay`"):
+    with pytest.raises(waymark.CorruptIndexError, match="built with the distance `quay` written in Python"):
         waymark.open(path)
     with pytest.raises(waymark.CorruptIndexError, match="not `names`"):
         waymark.open(path, metric=names)

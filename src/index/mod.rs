@@ -738,6 +738,8 @@ impl Index {
         });
         m.as_ref().map_err(|e| match e {
             Error::CorruptIndex { path, reason } => Error::corrupt(path, reason.clone()),
+            // Already named after the file: not named twice.
+            Error::IndexRefused { path, reason } => Error::refused(path, reason.clone()),
             other => Error::refused(&self.path, other.to_string()),
         })
     }

@@ -371,15 +371,16 @@ fn read_npy(bytes: &[u8], name: &str) -> Result<Vectors, IngestError> {
 /// Vectors from values held in memory (a `.npy` file's data, an array of the caller's):
 /// `n` rows of `dim` components, component `c` of row `r` being `value(r, c)`, read
 /// without any other copy. Each vector's text is its values joined by `,` (each the
-/// shortest decimal that reads back as the value); NaN, infinities and values outside the
+/// shortest decimal that reads back as the value, as an `f32` when it is one); NaN, infinities and values outside the
 /// range of `f32` are refused with their 1-based row and column, named after `name`.
 ///
 /// ```
 /// use waymark::ingest::vectors::vectors_from_values;
 ///
-/// let data = [0.5f32, 1.0, 2.0, -3.0];
+/// let data = [0.29f32, 1.0, 2.0, -3.0];
 /// let v = vectors_from_values(2, 2, "buoys", |r, c| f64::from(data[r * 2 + c]))?;
-/// assert_eq!(v.rows, ["0.5,1", "2,-3"]);
+/// // 0.29 as an f32 is 0.28999999165534973 as an f64: written as the f32 it is.
+/// assert_eq!(v.rows, ["0.29,1", "2,-3"]);
 /// let bad = [0.5f32, f32::NAN];
 /// let e = vectors_from_values(1, 2, "buoys", |r, c| f64::from(bad[r * 2 + c])).unwrap_err();
 /// assert_eq!(e.to_string(), "buoys:1: row 1, column 2: NaN is not allowed");
@@ -415,7 +416,13 @@ pub fn vectors_from_values(
             if c > 0 {
                 text.push(',');
             }
-            text.push_str(&x.to_string());
+            // A value that is an `f32` (all of a float32 array's) is written as the
+            // shortest decimal of that `f32` (`0.29`, not the `f64` digits of its bits).
+            if f64::from(f) == x {
+                text.push_str(&f.to_string());
+            } else {
+                text.push_str(&x.to_string());
+            }
         }
         v.items.push(item);
         v.rows.push(text);
