@@ -1,6 +1,8 @@
 #!/usr/bin/env bash
-# Installs the open datasets the tests check against when they are missing: Debian's word
-# list (apt-get, as root) and scikit-learn's bundled digits (pip).
+# Installs what the tests check against when it is missing: Debian's word list (apt-get, as
+# root) and the test environment .venv-test/ (a Python virtual environment, git-ignored)
+# with NumPy, scikit-learn (its bundled digits), pytest and maturin from PyPI. Nothing is
+# installed into the system Python.
 set -euo pipefail
 cd "$(dirname "$0")/.."
 export DEBIAN_FRONTEND=noninteractive
@@ -12,4 +14,14 @@ if [ ! -f /usr/share/dict/american-english ]; then
     exit 1
   fi
 fi
-python3 -c "import sklearn, numpy" 2>/dev/null || python3 -m pip install -q scikit-learn
+venv=.venv-test
+if [ ! -x "$venv/bin/python" ]; then
+  python3 -m venv "$venv"
+fi
+# The versions are left to pip (the newest that suit the Python); an environment that
+# already has them all is left as it is.
+if ! "$venv/bin/python" -c "import numpy, sklearn, pytest" 2>/dev/null \
+  || [ ! -x "$venv/bin/maturin" ]; then
+  "$venv/bin/python" -m pip install -q --upgrade pip
+  "$venv/bin/python" -m pip install -q numpy scikit-learn pytest maturin
+fi

@@ -8,7 +8,7 @@ use super::output::counting_bar;
 use super::query::{at_query_line, read_query_file};
 use crate::error::Error;
 use crate::eval::{
-    calibrate_from_queries, load_or_compute_truth, measure_distortion, measure_recall, TruthSource,
+    calibrate_from_queries, index_distortion, load_or_compute_truth, measure_recall, TruthSource,
 };
 use crate::index::{store_calibration, Index, RecallChoice};
 use crate::search::{CandidateSource, Request, SearchParams, Searcher, Space};
@@ -235,16 +235,7 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
         }
     }
     if a.distortion {
-        let keys = index.keys();
-        let items: Vec<&[u8]> = (0..index.len()).map(|i| keys.get(i)).collect();
-        let metric = index.metric()?;
-        let r = measure_distortion(
-            metric,
-            &items,
-            &index.meta().embedding,
-            a.pairs,
-            index.meta().seed,
-        );
+        let r = index_distortion(&index, a.pairs)?;
         if a.json {
             json["distortion"] = serde_json::to_value(&r)?;
         } else if r.pairs == 0 {

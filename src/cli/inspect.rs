@@ -37,25 +37,11 @@ pub(super) fn inspect(a: InspectArgs) -> anyhow::Result<()> {
         None
     };
     let m = index.meta();
-    let landmarks: Vec<String> = m
-        .embedding
-        .refs()
-        .iter()
-        .map(|&l| String::from_utf8_lossy(index.item(l as usize)).into_owned())
-        .collect();
+    let landmarks = index.reference_items();
     let sections: Vec<(&str, usize)> = index.sections().collect();
     let mut out = std::io::stdout().lock();
     if a.json {
-        let obj = serde_json::json!({
-            "path": a.index.display().to_string(),
-            "format_version": index.format_version(),
-            "file_bytes": index.file_len(),
-            "meta": m,
-            "landmark_items": landmarks,
-            "sections": sections.iter().map(|(k, l)| serde_json::json!({"name": k, "bytes": l})).collect::<Vec<_>>(),
-            "small_radius": index.variants_summary().map(|(r, e, b)| serde_json::json!({"radius": r, "entries": e, "bytes": b})),
-            "verified": verified.is_some(),
-        });
+        let obj = index.report(verified.is_some());
         writeln!(
             out,
             "{}",

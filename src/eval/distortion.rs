@@ -78,6 +78,39 @@ pub struct DistortionReport {
     pub spaces: Vec<SpaceDistortion>,
 }
 
+/// Measures the distortion of an index's embedding over its own items, as `waymark eval
+/// --distortion --pairs MAX_PAIRS` does: the pairs are refused up front when they would not
+/// fit in memory ([`crate::resources::check_distortion`]), the sample is drawn with the
+/// index's seed, and a metric that fails while measuring stops it with its error.
+///
+/// ```no_run
+/// use waymark::eval::index_distortion;
+/// use waymark::index::Index;
+///
+/// let index = Index::open("names.wmk".as_ref())?;
+/// let report = index_distortion(&index, 20_000)?;
+/// println!("{} pairs, L∞ distortion {}", report.pairs, report.spaces[2].distortion);
+/// # Ok::<(), waymark::Error>(())
+/// ```
+pub fn index_distortion(
+    index: &crate::index::Index,
+    max_pairs: usize,
+) -> crate::Result<DistortionReport> {
+    crate::resources::check_distortion(index.len(), max_pairs, index.meta().dim as usize)?;
+    let keys = index.keys();
+    let items: Vec<&[u8]> = (0..index.len()).map(|i| keys.get(i)).collect();
+    let metric = index.metric()?;
+    let report = measure_distortion(
+        metric,
+        &items,
+        &index.meta().embedding,
+        max_pairs,
+        index.meta().seed,
+    );
+    metric.check()?;
+    Ok(report)
+}
+
 /// Measures the distortion of `embedding` over `items`: every pair when there are at most
 /// `max_pairs` of them, else every pair among a seeded random sample of `s` items with
 /// `s(s−1)/2 ≥ max_pairs`. Coordinates are recomputed from distances to the reference items,

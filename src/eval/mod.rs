@@ -34,7 +34,7 @@ pub use brute::brute_force;
 pub use calibrate::{
     calibrate_file, calibrate_from_items, calibrate_from_queries, CalibrateOptions,
 };
-pub use distortion::{measure_distortion, DistortionReport};
+pub use distortion::{index_distortion, measure_distortion, DistortionReport};
 pub use measure::{measure_recall, RecallRow};
 pub use recall::{
     edit_queries, plain_recall, threshold_recall, typo_queries, variants_missing_from,

@@ -611,6 +611,48 @@ impl Index {
         self.sections.iter().map(|s| (s.kind.name(), s.range.len()))
     }
 
+    /// The items the embedding measures every query against (landmarks, pool items or
+    /// pivots), as given at build time.
+    pub fn reference_items(&self) -> Vec<String> {
+        self.meta
+            .embedding
+            .refs()
+            .iter()
+            .map(|&l| String::from_utf8_lossy(self.item(l as usize)).into_owned())
+            .collect()
+    }
+
+    /// What the index holds, as `waymark inspect --json` prints it: the path, format
+    /// version, file size, the metadata ([`IndexMeta`]), the reference items, every
+    /// section's size, the deletion-variant table's radius, entries and bytes
+    /// (`small_radius`, null without one), and `verified` (whether the caller checked every
+    /// checksum with
+    /// [`Index::verify`]).
+    ///
+    /// ```no_run
+    /// let index = waymark::index::Index::open("names.wmk".as_ref())?;
+    /// let report = index.report(false);
+    /// assert_eq!(report["meta"]["n"], index.len());
+    /// # Ok::<(), waymark::Error>(())
+    /// ```
+    pub fn report(&self, verified: bool) -> serde_json::Value {
+        serde_json::json!({
+            "path": self.path.display().to_string(),
+            "format_version": self.format_version(),
+            "file_bytes": self.file_len(),
+            "meta": &self.meta,
+            "landmark_items": self.reference_items(),
+            "sections": self
+                .sections()
+                .map(|(k, l)| serde_json::json!({"name": k, "bytes": l}))
+                .collect::<Vec<_>>(),
+            "small_radius": self.variants_summary().map(|(r, e, b)| {
+                serde_json::json!({"radius": r, "entries": e, "bytes": b})
+            }),
+            "verified": verified,
+        })
+    }
+
     /// Checks the checksum of every section: a full read of the file.
     pub fn verify(&self) -> Result<()> {
         file::verify_sections(&self.path, &self.map, &self.sections)?;
@@ -766,6 +808,8 @@ impl Index {
         });
         m.as_ref().map_err(|e| match e {
             Error::CorruptIndex { path, reason } => Error::corrupt(path, reason.clone()),
+            // Already named after the file: not named twice.
+            Error::IndexRefused { path, reason } => Error::refused(path, reason.clone()),
             other => Error::refused(&self.path, other.to_string()),
         })
     }

@@ -147,6 +147,39 @@ pub fn load_input(
         )));
     }
     let spec = match metric.kind {
+        MetricKind::L1 => return load_vectors(path, Norm::L1, metric.header),
+        MetricKind::L2 => return load_vectors(path, Norm::L2, metric.header),
+        MetricKind::Linf => return load_vectors(path, Norm::Linf, metric.header),
+        MetricKind::Angular => return load_vectors(path, Norm::Angular, metric.header),
+        MetricKind::Graph => return load_graph(path),
+        _ => text_metric_spec(metric)?,
+    };
+    let (corpus, warnings) = read_corpus_with_warnings(path, ingest)?;
+    Ok(LoadedInput {
+        corpus,
+        spec,
+        graph: None,
+        warnings,
+    })
+}
+
+/// The metric of text items that `metric` names, with its parameters: the cost table of
+/// `--metric weighted` (read and checked), the tokens of Jaccard, the program of an
+/// external metric. Refused for the metrics whose items are not text (vectors, graph
+/// nodes, a metric written in Rust), and for missing or impossible options. `load_input`
+/// uses it for text inputs; a caller with items in memory can too.
+///
+/// ```
+/// use waymark::ingest::{text_metric_spec, MetricOptions};
+/// use waymark::metric::{MetricKind, MetricSpec};
+///
+/// let opts = MetricOptions { kind: MetricKind::Damerau, ..MetricOptions::default() };
+/// assert!(matches!(text_metric_spec(&opts)?, MetricSpec::Damerau));
+/// # Ok::<(), waymark::Error>(())
+/// ```
+pub fn text_metric_spec(metric: &MetricOptions) -> Result<MetricSpec> {
+    let usage = |msg: String| Error::Usage(msg);
+    Ok(match metric.kind {
         MetricKind::Levenshtein => MetricSpec::Levenshtein,
         MetricKind::Damerau => MetricSpec::Damerau,
         MetricKind::TokenEdit => MetricSpec::TokenEdit,
@@ -197,18 +230,16 @@ pub fn load_input(
                     .into(),
             ))
         }
-        MetricKind::L1 => return load_vectors(path, Norm::L1, metric.header),
-        MetricKind::L2 => return load_vectors(path, Norm::L2, metric.header),
-        MetricKind::Linf => return load_vectors(path, Norm::Linf, metric.header),
-        MetricKind::Angular => return load_vectors(path, Norm::Angular, metric.header),
-        MetricKind::Graph => return load_graph(path),
-    };
-    let (corpus, warnings) = read_corpus_with_warnings(path, ingest)?;
-    Ok(LoadedInput {
-        corpus,
-        spec,
-        graph: None,
-        warnings,
+        kind @ (MetricKind::L1
+        | MetricKind::L2
+        | MetricKind::Linf
+        | MetricKind::Angular
+        | MetricKind::Graph) => {
+            return Err(usage(format!(
+                "--metric {} does not compare text items",
+                option_name(kind)
+            )))
+        }
     })
 }
 

@@ -50,7 +50,7 @@ pub mod vectors;
 
 pub use crate::error::{IngestError, IngestWarning};
 pub use fastx::{read_sequences, SequenceFormat, SequenceRecord};
-pub use load::{load_input, LoadedInput, MetricOptions, DEFAULT_TIMEOUT_SECS};
+pub use load::{load_input, text_metric_spec, LoadedInput, MetricOptions, DEFAULT_TIMEOUT_SECS};
 pub use vectors::parse_vector;
 
 /// The UTF-8 byte-order mark, dropped at the start of an input.
@@ -482,6 +482,53 @@ pub fn read_corpus_from_with_warnings<R: Read>(
     }
     let warnings = std::mem::take(&mut b.warnings);
     Ok((b.finish()?, warnings))
+}
+
+/// A corpus of items held in memory, read as the records of a file are: the normalisation
+/// of `opts` makes the comparison keys, items that are blank after it are skipped (and
+/// counted), an item holding a NUL byte is refused, and so is a corpus with no item left.
+/// `ids` are one per item given (blank ones included), or `None` for the 0-based positions.
+/// Messages name `source_name` and the item's 1-based position as its line.
+///
+/// ```
+/// use waymark::ingest::{corpus_from_items, Ids, IngestOptions, Normalize};
+///
+/// let opts = IngestOptions {
+///     normalize: Normalize { trim: true, ..Normalize::default() },
+///     ..IngestOptions::default()
+/// };
+/// let items = ["Keth Landing", "  ", "Mirrow Steps "].map(String::from);
+/// let c = corpus_from_items(items, None, &opts, "items")?;
+/// assert_eq!(c.ids, Ids::Int(vec![0, 2]));
+/// assert_eq!((c.blank_skipped, c.records), (1, 3));
+/// # Ok::<(), waymark::ingest::IngestError>(())
+/// ```
+pub fn corpus_from_items(
+    items: impl IntoIterator<Item = String>,
+    ids: Option<Ids>,
+    opts: &IngestOptions,
+    source_name: &str,
+) -> Result<Corpus, IngestError> {
+    let items: Vec<String> = items.into_iter().collect();
+    if let Some(ids) = &ids {
+        if ids.len() != items.len() {
+            return Err(IngestError::Mismatch {
+                what: "ids",
+                len: ids.len(),
+                items: items.len(),
+            });
+        }
+    }
+    let mut b = Builder::new(source_name, opts);
+    for (i, item) in items.into_iter().enumerate() {
+        let id = match &ids {
+            None => None,
+            Some(Ids::Int(v)) => Some(IdValue::Int(v[i])),
+            Some(Ids::Text(v)) => Some(IdValue::Text(v[i].clone())),
+        };
+        b.push(item, id, i as u64 + 1)?;
+    }
+    b.finish()
 }
 
 /// Collects items, keys and ids while checking them.

@@ -358,21 +358,57 @@ fn read_npy(bytes: &[u8], name: &str) -> Result<Vectors, IngestError> {
             data.len()
         )));
     }
+    vectors_from_values(n, dim, name, |r, c| {
+        let x = &data[(r * dim + c) * size..][..size];
+        if size == 4 {
+            f64::from(f32::from_le_bytes([x[0], x[1], x[2], x[3]]))
+        } else {
+            f64::from_le_bytes([x[0], x[1], x[2], x[3], x[4], x[5], x[6], x[7]])
+        }
+    })
+}
+
+/// Vectors from values held in memory (a `.npy` file's data, an array of the caller's):
+/// `n` rows of `dim` components, component `c` of row `r` being `value(r, c)`, read
+/// without any other copy. Each vector's text is its values joined by `,` (each the
+/// shortest decimal that reads back as the value, as an `f32` when it is one); NaN, infinities and values outside the
+/// range of `f32` are refused with their 1-based row and column, named after `name`.
+///
+/// ```
+/// use waymark::ingest::vectors::vectors_from_values;
+///
+/// let data = [0.29f32, 1.0, 2.0, -3.0];
+/// let v = vectors_from_values(2, 2, "buoys", |r, c| f64::from(data[r * 2 + c]))?;
+/// // 0.29 as an f32 is 0.28999999165534973 as an f64: written as the f32 it is.
+/// assert_eq!(v.rows, ["0.29,1", "2,-3"]);
+/// let bad = [0.5f32, f32::NAN];
+/// let e = vectors_from_values(1, 2, "buoys", |r, c| f64::from(bad[r * 2 + c])).unwrap_err();
+/// assert_eq!(e.to_string(), "buoys:1: row 1, column 2: NaN is not allowed");
+/// # Ok::<(), waymark::ingest::IngestError>(())
+/// ```
+pub fn vectors_from_values(
+    n: usize,
+    dim: usize,
+    name: &str,
+    value_at: impl Fn(usize, usize) -> f64,
+) -> Result<Vectors, IngestError> {
+    if dim == 0 {
+        return Err(IngestError::Options {
+            source_name: name.to_string(),
+            message: "the vectors have no components (shape (n, 0))".into(),
+        });
+    }
     let mut v = Vectors {
         dim,
         items: Vec::with_capacity(n),
         rows: Vec::with_capacity(n),
         lines: Vec::with_capacity(n),
     };
-    for (r, row) in data.chunks_exact(dim * size).enumerate() {
+    for r in 0..n {
         let mut item = Vec::with_capacity(4 * dim);
         let mut text = String::new();
-        for (c, x) in row.chunks_exact(size).enumerate() {
-            let x = if size == 4 {
-                f64::from(f32::from_le_bytes([x[0], x[1], x[2], x[3]]))
-            } else {
-                f64::from_le_bytes([x[0], x[1], x[2], x[3], x[4], x[5], x[6], x[7]])
-            };
+        for c in 0..dim {
+            let x = value_at(r, c);
             let col = || (c + 1).to_string();
             let f = value(x, &col)
                 .map_err(|m| record(name, r as u64 + 1, format!("row {}, {m}", r + 1)))?;
@@ -380,7 +416,13 @@ fn read_npy(bytes: &[u8], name: &str) -> Result<Vectors, IngestError> {
             if c > 0 {
                 text.push(',');
             }
-            text.push_str(&x.to_string());
+            // A value that is an `f32` (all of a float32 array's) is written as the
+            // shortest decimal of that `f32` (`0.29`, not the `f64` digits of its bits).
+            if f64::from(f) == x {
+                text.push_str(&f.to_string());
+            } else {
+                text.push_str(&x.to_string());
+            }
         }
         v.items.push(item);
         v.rows.push(text);

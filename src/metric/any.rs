@@ -242,6 +242,7 @@ impl AnyMetric {
     pub fn check(&self) -> Result<(), MetricError> {
         match self {
             AnyMetric::External(m) => m.check(),
+            AnyMetric::Custom(m) => Metric::check(m),
             _ => Ok(()),
         }
     }
@@ -356,6 +357,10 @@ impl Metric for AnyMetric {
     fn distance(&self, a: &[u8], b: &[u8]) -> f64 {
         // The graph's own form runs one Dijkstra, not a prepared query's full table.
         each_metric!(self, m => m.distance(a, b))
+    }
+
+    fn check(&self) -> Result<(), MetricError> {
+        AnyMetric::check(self)
     }
 }
 

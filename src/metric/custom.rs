@@ -43,6 +43,7 @@ trait Erased: Send + Sync {
     fn bounded_by_char_counts(&self) -> bool;
     fn prepare_shared(&self, query: &[u8]) -> Arc<dyn PreparedQuery>;
     fn distance(&self, a: &[u8], b: &[u8]) -> f64;
+    fn check(&self) -> Result<(), super::MetricError>;
 }
 
 impl<M> Erased for M
@@ -64,6 +65,9 @@ where
     }
     fn distance(&self, a: &[u8], b: &[u8]) -> f64 {
         Metric::distance(self, a, b)
+    }
+    fn check(&self) -> Result<(), super::MetricError> {
+        Metric::check(self)
     }
 }
 
@@ -118,6 +122,9 @@ impl Metric for CustomMetric {
     }
     fn distance(&self, a: &[u8], b: &[u8]) -> f64 {
         self.0.distance(a, b)
+    }
+    fn check(&self) -> Result<(), super::MetricError> {
+        self.0.check()
     }
 }
 

@@ -40,6 +40,16 @@ pub enum MetricError {
         /// The length of the offending item.
         actual: usize,
     },
+    /// A metric of the user's own failed ([`super::Metric::check`]): for instance a
+    /// distance written in another language raised an error or returned something that is
+    /// not a distance.
+    #[error("metric `{name}`: {message}")]
+    Custom {
+        /// The metric's name.
+        name: String,
+        /// What happened.
+        message: String,
+    },
     /// An external metric program failed: it did not start, exited, hung, or answered
     /// something outside the protocol.
     #[error("metric program `{command}`: {message}")]

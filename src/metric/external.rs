@@ -612,6 +612,10 @@ impl Metric for ExternalMetric {
             query: query.to_vec(),
         }
     }
+
+    fn check(&self) -> Result<(), MetricError> {
+        ExternalMetric::check(self)
+    }
 }
 
 impl PreparedQuery for ExternalQuery {

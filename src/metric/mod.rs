@@ -107,6 +107,15 @@ pub trait Metric: Send + Sync {
     /// Prepares `query` for repeated comparison against items.
     fn prepare(&self, query: &[u8]) -> Self::Prepared;
 
+    /// Whether the metric has failed since it was set up. A distance has no error of its
+    /// own: a metric that can fail (an external program that exits, a distance written in
+    /// another language that raises) reports NaN for the distances it could not measure and
+    /// remembers why; build, search and eval call this after measuring and stop with the
+    /// error. Default: never fails.
+    fn check(&self) -> Result<(), MetricError> {
+        Ok(())
+    }
+
     /// The distance between two items. Prefer [`Metric::prepare`] in loops.
     fn distance(&self, a: &[u8], b: &[u8]) -> f64 {
         self.prepare(a).distance(b)

@@ -1,7 +1,8 @@
 //! Vector k-NN on an open dataset: scikit-learn's bundled handwritten digits (1,797 images of
 //! 8×8 pixels, values 0–16; `sklearn.datasets.load_digits`, shipped inside the scikit-learn
 //! package on PyPI). The ground truth comes from NumPy, outside the project;
-//! scripts/test-data.sh installs scikit-learn (and NumPy with it) with pip when it is missing.
+//! scripts/test-data.sh installs scikit-learn (and NumPy with it) with pip into the test
+//! environment `.venv-test/`, whose Python runs the export.
 
 use std::path::Path;
 
@@ -24,17 +25,31 @@ d = np.sqrt(((queries[:, None, :] - items[None, :, :]) ** 2).sum(axis=2))
 json.dump([sorted(r)[:10] for r in d.tolist()], open(out + "/truth.json", "w"))
 "#;
 
+/// The Python of the test environment that scripts/test-data.sh makes.
+fn test_python() -> std::path::PathBuf {
+    let python = Path::new(env!("CARGO_MANIFEST_DIR")).join(".venv-test/bin/python");
+    assert!(
+        python.exists(),
+        "{} is missing: run scripts/test-data.sh first (it makes the test environment with \
+         NumPy and scikit-learn)",
+        python.display()
+    );
+    python
+}
+
 fn export(dir: &Path) {
-    let out = std::process::Command::new("python3")
+    let python = test_python();
+    let out = std::process::Command::new(&python)
         .arg("-c")
         .arg(EXPORT)
         .arg(dir)
         .output()
-        .expect("python3 runs");
+        .expect("the test environment's Python runs");
     assert!(
         out.status.success(),
-        "exporting the digits needs NumPy and scikit-learn (scripts/test-data.sh installs \
-         them with pip): {}",
+        "exporting the digits needs NumPy and scikit-learn in {} (scripts/test-data.sh \
+         installs them): {}",
+        python.display(),
         String::from_utf8_lossy(&out.stderr)
     );
 }

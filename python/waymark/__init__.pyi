@@ -1,0 +1,254 @@
+"""Type stubs of the waymark package (the extension module waymark._waymark)."""
+
+from os import PathLike
+from typing import Any, Callable, Literal, Sequence, overload
+
+import numpy as np
+import numpy.typing as npt
+
+__version__: str
+
+Id = int | str
+"""An item's id: an int (the item's 0-based position by default) or a str, as built."""
+
+Answer = list[tuple[Id, str, float]]
+"""One query's answer: (id, item, distance) per neighbour, nearest first (ties by id)."""
+
+Distance = Callable[[str, list[str]], Sequence[float] | npt.NDArray[np.floating]]
+"""A distance written in Python: ``f(query, items)`` returns one distance per item.
+
+It is called once per batch (all of a query's candidates at once, its landmarks, a chunk of
+items at build time) with the GIL held, so it runs one call at a time whatever the number
+of threads. Slow but honest: for prototyping a metric before writing it in Rust. It must be
+a metric (zero on equal items, symmetric, the triangle inequality): ``build`` checks a
+sample of 40 items and warns when a rule breaks. Every distance must be a finite number of
+at least 0; an exception or another result stops the work with ``MetricFailedError`` (and
+the metric stays failed: open the index again after fixing it).
+"""
+
+MetricName = Literal[
+    "levenshtein", "damerau", "hamming", "weighted", "jaccard", "token-edit",
+    "l1", "l2", "linf", "angular", "graph", "external",
+]
+
+class WaymarkError(Exception):
+    """Base class of every error waymark raises; the message is the library's."""
+
+class BadInputError(WaymarkError):
+    """Bad input or a bad argument: items or ids, a query the metric cannot take (a vector
+    of another dimension, a Hamming query of another length, not a node of the graph), an
+    option out of range, a file that cannot be read or written."""
+
+class CorruptIndexError(WaymarkError):
+    """The index file was refused: not an index, another format version, corrupt or
+    truncated, or built with a Python distance that was not supplied (or another one)."""
+
+class MetricFailedError(WaymarkError):
+    """The metric failed: a Python distance raised or returned something that is not one
+    distance per item, or an external metric program exited, hung or broke its protocol."""
+
+def build(
+    items: Sequence[str] | npt.NDArray[np.float32],
+    path: str | PathLike[str],
+    *,
+    ids: Sequence[int] | Sequence[str] | None = None,
+    metric: MetricName | Distance | None = None,
+    metric_name: str | None = None,
+    integral: bool = False,
+    costs: str | PathLike[str] | None = None,
+    separator: str | None = None,
+    qgrams: int | None = None,
+    command: Sequence[str] | None = None,
+    timeout: float = 30.0,
+    dim: int = 64,
+    embedding: Literal["landmarks", "refsets", "fastmap"] = "landmarks",
+    pool: int = 32,
+    seed: int = 0,
+    candidates: int | None = None,
+    space: Literal["l1", "l2", "linf"] = "l1",
+    landmark_sample: int = 4096,
+    landmark_rule: Literal["farthest", "trimmed"] = "farthest",
+    fold_case: bool = False,
+    trim: bool = False,
+    fold_punct: bool = False,
+    sort_tokens: bool = False,
+    calibrate: bool = True,
+) -> Index:
+    """Builds an index of ``items`` at ``path`` (written atomically: a failed build leaves
+    any old file as it was) and opens it.
+
+    ``items`` is a list of strings, or a 2-D ``float32`` numpy array of vectors (one row per
+    item; ``metric`` then defaults to ``"l2"`` and must be a vector metric; the rows are read
+    in place, and only what the file stores is made from them). ``ids``: one per item, ints
+    or strs; default the items' 0-based positions. Blank items (after the normalisations) are
+    skipped, as blank records of a file are.
+
+    ``metric``: a name (default ``"levenshtein"`` for strings), or a Python callable
+    (``Distance``), recorded in the index by ``metric_name`` (default its ``__name__``);
+    ``integral=True`` says its distances are whole numbers. The other options are those of
+    ``waymark build``: ``costs`` (weighted: the cost file), ``separator``/``qgrams``
+    (jaccard), ``command``/``timeout`` (external), ``dim``, ``embedding``, ``pool``,
+    ``seed``, ``candidates`` and ``space`` (query defaults stored in the index),
+    ``landmark_sample``, ``landmark_rule``, the normalisations (stored and applied to every
+    query), and ``calibrate=False`` for ``--no-calibration`` (then ``recall=`` is refused).
+    A graph index is built from its edge list with ``build_file``.
+    """
+
+def build_file(
+    input: str | PathLike[str],
+    path: str | PathLike[str],
+    *,
+    metric: MetricName = "levenshtein",
+    field: str | None = None,
+    id_field: str | None = None,
+    input_format: Literal["text", "csv", "tsv", "jsonl", "fasta", "fastq"] | None = None,
+    header: bool = False,
+    costs: str | PathLike[str] | None = None,
+    separator: str | None = None,
+    qgrams: int | None = None,
+    command: Sequence[str] | None = None,
+    timeout: float = 30.0,
+    dim: int = 64,
+    embedding: Literal["landmarks", "refsets", "fastmap"] = "landmarks",
+    pool: int = 32,
+    seed: int = 0,
+    candidates: int | None = None,
+    space: Literal["l1", "l2", "linf"] = "l1",
+    landmark_sample: int = 4096,
+    landmark_rule: Literal["farthest", "trimmed"] = "farthest",
+    fold_case: bool = False,
+    trim: bool = False,
+    fold_punct: bool = False,
+    sort_tokens: bool = False,
+    calibrate: bool = True,
+) -> Index:
+    """Builds an index of the file ``input`` at ``path``, reading it exactly as
+    ``waymark build INPUT`` does (text lines, CSV/TSV columns, JSON Lines fields, FASTA and
+    FASTQ records, vectors one per line or a ``.npy`` file, a graph's edge list), with the
+    same options under the same names, and opens it. The same input and options give a
+    byte-identical file."""
+
+def open(
+    path: str | PathLike[str],
+    *,
+    metric: Distance | None = None,
+    metric_name: str | None = None,
+    integral: bool = False,
+) -> Index:
+    """Opens an index file (see ``Index``)."""
+
+class Index:
+    """An open, memory-mapped index. Opening is cheap; an index is safe to share between
+    threads (queries take no lock, and release the GIL while they run), and each worker
+    process can open its own."""
+
+    def __init__(
+        self,
+        path: str | PathLike[str],
+        *,
+        metric: Distance | None = None,
+        metric_name: str | None = None,
+        integral: bool = False,
+    ) -> None:
+        """Opens the index at ``path``. An index built with a Python distance needs the
+        same callable again as ``metric`` (an index of another metric is refused)."""
+
+    def __len__(self) -> int:
+        """The number of items."""
+
+    @property
+    def path(self) -> str:
+        """The file the index was opened from."""
+
+    @property
+    def metric(self) -> str:
+        """The metric's name (``levenshtein``, ``l2``, …, or a Python distance's name)."""
+
+    @property
+    def python_metric(self) -> bool:
+        """Whether the metric is a Python callable."""
+
+    def query(
+        self,
+        query: str | Sequence[float] | npt.NDArray[np.floating],
+        k: int | None = None,
+        *,
+        exact: bool = False,
+        within: float | None = None,
+        recall: float | None = None,
+        candidates: int | None = None,
+        space: Literal["l1", "l2", "linf"] | None = None,
+        candidates_from: Literal["cells", "scan", "tree"] | None = None,
+        visit: int | None = None,
+    ) -> Answer:
+        """One query: its neighbours as (id, item, distance), nearest first.
+
+        By default the ``k`` (10) nearest, approximately, with the index's stored defaults;
+        ``recall=R`` (0 < R < 1) chooses the candidates from the index's recall curve, as
+        ``waymark query --recall``; ``candidates``, ``space``, ``candidates_from`` and
+        ``visit`` tune the approximate search. ``exact=True``: the exact k nearest (what a
+        brute force returns). ``within=R``: every item at distance at most R, exactly, or
+        only the ``k`` nearest of them when ``k`` is given. A query is a string, or for a
+        vector index a sequence of numbers; a query the metric cannot take raises
+        ``BadInputError``."""
+
+    def query_many(
+        self,
+        queries: Sequence[str] | Sequence[Sequence[float]] | npt.NDArray[np.floating],
+        k: int = 10,
+        *,
+        exact: bool = False,
+        within: float | None = None,
+        recall: float | None = None,
+        candidates: int | None = None,
+        space: Literal["l1", "l2", "linf"] | None = None,
+        candidates_from: Literal["cells", "scan", "tree"] | None = None,
+        visit: int | None = None,
+    ) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.float64]]:
+        """Many queries at once, on all cores with the GIL released (options as ``query``).
+
+        Returns ``(numbers, distances)``, two arrays of shape (len(queries), k): row i holds
+        query i's item numbers and distances, nearest first, filled with -1 and ``inf``
+        where fewer than k are found (``within``). Map numbers to ids with ``ids`` and to
+        items with ``items``. A query the metric cannot take raises ``BadInputError`` naming
+        its position (``queries[3]: …``)."""
+
+    def id(self, number: int) -> Id:
+        """The id of item ``number`` (0 ≤ number < len(index))."""
+
+    def item(self, number: int) -> str:
+        """Item ``number`` as given at build time."""
+
+    def ids(self, numbers: Sequence[int] | npt.NDArray[np.int64]) -> list[Any]:
+        """The ids of item numbers: a list shaped as ``numbers`` (1-D, or a list of lists for
+        a 2-D array), with None where a number is the fill value -1."""
+
+    def items(self, numbers: Sequence[int] | npt.NDArray[np.int64]) -> list[Any]:
+        """The items of item numbers, shaped and filled as ``ids``."""
+
+    def inspect(self, *, verify: bool = False) -> dict[str, Any]:
+        """What the index holds, as ``waymark inspect --json`` prints it (path, format
+        version, file size, ``meta`` with the metric, normalisation, embedding, defaults and
+        recall curve, the reference items, every section's size). ``verify=True`` first
+        checks every checksum (a full read; ``CorruptIndexError`` on damage)."""
+
+    def eval(
+        self,
+        queries: Sequence[str] | npt.NDArray[np.floating],
+        k: int = 10,
+        *,
+        candidates: Sequence[int] | None = None,
+        recall: Sequence[float] | None = None,
+        space: Literal["l1", "l2", "linf"] | None = None,
+        candidates_from: Literal["cells", "scan", "tree"] | None = None,
+        visit: int | None = None,
+    ) -> dict[str, Any]:
+        """Recall against brute force, as ``waymark eval --queries``: the exact k nearest of
+        every query by a full scan on all cores, then one row per candidate count (default
+        250, 500, 1000, 2000) or per asked recall, with threshold and plain recall@k,
+        distances per query, queries per second and latency percentiles (the keys of
+        ``waymark eval --json``'s ``recall`` rows)."""
+
+    def distortion(self, *, pairs: int = 100_000) -> dict[str, Any]:
+        """The distortion of the embedding, as ``waymark eval --distortion --pairs``: the
+        ratio embedded / true distance over item pairs, per space (L1, L2, L∞)."""
