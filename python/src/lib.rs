@@ -344,6 +344,7 @@ struct BuildArgs {
     space: String,
     landmark_sample: usize,
     landmark_rule: String,
+    small_radius: Option<u32>,
     calibrate: bool,
 }
 
@@ -360,6 +361,7 @@ impl BuildArgs {
             space: space(&self.space)?,
             normalize,
             inputs,
+            small_radius: self.small_radius,
             ..BuildOptions::default()
         };
         if self.candidates == Some(0) {
@@ -418,7 +420,17 @@ fn build_corpus(
     let seed = options.seed;
     let dim = options.dim;
     let report = py.detach(|| -> Result<_, Error> {
-        waymark::resources::check_build(source, n, text_bytes, dim)?;
+        let table = match options.small_radius {
+            Some(r) => waymark::index::variants::build_estimate(
+                corpus
+                    .key_bytes()
+                    .iter()
+                    .map(|k| String::from_utf8_lossy(k).chars().count()),
+                r,
+            ),
+            None => 0,
+        };
+        waymark::resources::check_build(source, n, text_bytes, dim, table)?;
         let options = BuildOptions {
             metric: spec,
             graph,
@@ -496,7 +508,7 @@ fn ids_from(ids: Option<&Bound<'_, PyAny>>) -> PyResult<Option<Ids>> {
     separator=None, qgrams=None, command=None, timeout=30.0, dim=64, embedding="landmarks",
     pool=32, seed=0, candidates=None, space="l1", landmark_sample=4096,
     landmark_rule="farthest", fold_case=false, trim=false, fold_punct=false,
-    sort_tokens=false, calibrate=true
+    sort_tokens=false, small_radius=None, calibrate=true
 ))]
 #[allow(clippy::too_many_arguments)]
 fn build(
@@ -524,6 +536,7 @@ fn build(
     trim: bool,
     fold_punct: bool,
     sort_tokens: bool,
+    small_radius: Option<u32>,
     calibrate: bool,
 ) -> PyResult<PyIndex> {
     let args = BuildArgs {
@@ -535,6 +548,7 @@ fn build(
         space: space.into(),
         landmark_sample,
         landmark_rule: landmark_rule.into(),
+        small_radius,
         calibrate,
     };
     let normalize = Normalize {
@@ -661,7 +675,7 @@ fn build(
     header=false, costs=None, separator=None, qgrams=None, command=None, timeout=30.0, dim=64,
     embedding="landmarks", pool=32, seed=0, candidates=None, space="l1",
     landmark_sample=4096, landmark_rule="farthest", fold_case=false, trim=false,
-    fold_punct=false, sort_tokens=false, calibrate=true
+    fold_punct=false, sort_tokens=false, small_radius=None, calibrate=true
 ))]
 #[allow(clippy::too_many_arguments)]
 fn build_file(
@@ -690,6 +704,7 @@ fn build_file(
     trim: bool,
     fold_punct: bool,
     sort_tokens: bool,
+    small_radius: Option<u32>,
     calibrate: bool,
 ) -> PyResult<PyIndex> {
     let args = BuildArgs {
@@ -701,6 +716,7 @@ fn build_file(
         space: space.into(),
         landmark_sample,
         landmark_rule: landmark_rule.into(),
+        small_radius,
         calibrate,
     };
     let normalize = Normalize {

@@ -72,6 +72,7 @@ def build(
     trim: bool = False,
     fold_punct: bool = False,
     sort_tokens: bool = False,
+    small_radius: Literal[1, 2] | None = None,
     calibrate: bool = True,
 ) -> Index:
     """Builds an index of ``items`` at ``path`` (written atomically: a failed build leaves
@@ -90,7 +91,9 @@ def build(
     (jaccard), ``command``/``timeout`` (external), ``dim``, ``embedding``, ``pool``,
     ``seed``, ``candidates`` and ``space`` (query defaults stored in the index),
     ``landmark_sample``, ``landmark_rule``, the normalisations (stored and applied to every
-    query), and ``calibrate=False`` for ``--no-calibration`` (then ``recall=`` is refused).
+    query), ``small_radius`` (1 or 2: also store the deletion-variant table of exact
+    small-radius queries, as ``--small-radius``), and ``calibrate=False`` for
+    ``--no-calibration`` (then ``recall=`` is refused).
     A graph index is built from its edge list with ``build_file``.
     """
 
@@ -120,6 +123,7 @@ def build_file(
     trim: bool = False,
     fold_punct: bool = False,
     sort_tokens: bool = False,
+    small_radius: Literal[1, 2] | None = None,
     calibrate: bool = True,
 ) -> Index:
     """Builds an index of the file ``input`` at ``path``, reading it exactly as
