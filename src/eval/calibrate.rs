@@ -27,10 +27,11 @@ use std::path::Path;
 use rand::SeedableRng;
 use rayon::prelude::*;
 
-use super::recall::threshold_recall;
+use super::recall::{edits_of, threshold_recall};
 use super::truth::Truth;
 use crate::error::{Error, Result};
 use crate::index::{Calibration, CalibrationPoint, Index};
+use crate::metric::MetricKind;
 use crate::search::{
     CandidateSource, Found, Neighbor, Request, SearchParams, Searcher, VISIT_PER_CANDIDATE,
 };
@@ -57,8 +58,11 @@ pub struct CalibrateOptions {
     pub queries: usize,
     /// Neighbours per query.
     pub k: usize,
-    /// Seed of the sample.
+    /// Seed of the sample (and of the edits).
     pub seed: u64,
+    /// For text metrics, ask the sampled items with random edits ([`edits_of`]) instead of
+    /// the items themselves (see [`calibrate_from_items`]).
+    pub edits: bool,
 }
 
 impl Default for CalibrateOptions {
@@ -67,6 +71,7 @@ impl Default for CalibrateOptions {
             queries: CALIBRATION_QUERIES,
             k: CALIBRATION_K,
             seed: 0,
+            edits: true,
         }
     }
 }
@@ -195,6 +200,9 @@ pub fn calibrate_from_items(index: &Index, opts: &CalibrateOptions) -> Result<Op
         }
     }
     picked.sort_unstable();
+    if opts.edits && edits_make_queries(index.meta().metric).is_some() {
+        return from_edited_items(index, &picked, opts).map(Some);
+    }
     let searcher = Searcher::new(index);
     let exact: Vec<Vec<Neighbor>> = if index.bound().is_some() {
         searcher
@@ -242,6 +250,71 @@ pub fn calibrate_from_items(index: &Index, opts: &CalibrateOptions) -> Result<Op
         seed: opts.seed,
         points,
     }))
+}
+
+/// Whether random edits of an item make a query of `metric` (text metrics), and whether
+/// they must be substitutions only (Hamming: the items' length).
+fn edits_make_queries(metric: MetricKind) -> Option<bool> {
+    match metric {
+        MetricKind::Levenshtein
+        | MetricKind::Damerau
+        | MetricKind::WeightedEdit
+        | MetricKind::Jaccard
+        | MetricKind::TokenEdit => Some(false),
+        MetricKind::Hamming => Some(true),
+        _ => None,
+    }
+}
+
+/// The curve of [`calibrate_from_items`] for a text metric: the `picked` items, each with
+/// 1 to 3 random edits in the items' own letters, asked as queries against their exact
+/// answers (exact queries where the embedding gives a bound, else the brute force). A
+/// query the metric refuses is left out.
+fn from_edited_items(index: &Index, picked: &[u32], opts: &CalibrateOptions) -> Result<Calibration> {
+    let k = opts.k.min(index.len());
+    let texts: Vec<String> = picked
+        .iter()
+        .map(|&i| String::from_utf8_lossy(index.item(i as usize)).into_owned())
+        .collect();
+    let substitute_only = edits_make_queries(index.meta().metric) == Some(true);
+    let edited = edits_of(&texts, opts.seed ^ 0xed17_5eed, substitute_only);
+    let exact: Vec<Result<Vec<Neighbor>>> = if index.bound().is_some() {
+        Searcher::new(index)
+            .answer_many(&edited, &Request::Exact { k })
+            .into_iter()
+            .map(|f| f.map(|f| f.neighbors))
+            .collect()
+    } else {
+        edited
+            .par_iter()
+            .map(|q| {
+                index.prepare_query(q)?;
+                Ok(super::brute::brute_force_k(
+                    index,
+                    q,
+                    std::num::NonZeroUsize::new(k).expect("k > 0"),
+                ))
+            })
+            .collect()
+    };
+    let (mut queries, mut answers) = (Vec::new(), Vec::new());
+    for (q, t) in edited.into_iter().zip(exact) {
+        if let Ok(t) = t {
+            queries.push(q);
+            answers.push(t);
+        }
+    }
+    if queries.is_empty() {
+        return Err(Error::Usage(format!(
+            "{}: no edited item could be asked as a query to calibrate the index",
+            index.path().display()
+        )));
+    }
+    let mut cal = calibrate_from_queries(index, &queries, &Truth { k, answers }, k, "")?;
+    cal.from = "edits".into();
+    cal.file = None;
+    cal.seed = opts.seed;
+    Ok(cal)
 }
 
 /// A calibration curve from `queries` whose exact answers are `truth` (same order, at least

@@ -125,6 +125,12 @@ fn a_version_2_file_holds_each_row_once_and_answers_as_the_version_1_file() {
     assert!(sizes.contains(&("positions", 4 * n)));
     assert_eq!(index.meta().ids_from, Some(0), "ids are the record numbers");
     let v1 = Index::open(&data("v1-names.wmk")).unwrap();
+    // The fixture keeps the query defaults it was written with: L1, its count, no widening.
+    let old = waymark::search::SearchParams::from_index(&v1, 10);
+    assert_eq!(
+        (old.space, old.candidates, old.widen),
+        (waymark::search::Space::L1, v1.meta().candidates as usize, 0)
+    );
     let size = |ix: &Index, name: &str| ix.sections().find(|s| s.0 == name).map(|s| s.1);
     assert_eq!(size(&index, "cells"), size(&v1, "cells"));
     // The tree: 8 of the 12 coordinates, 36 bytes a point, against 68 in the fixture.
