@@ -7,12 +7,17 @@
 //! Two sources of queries:
 //!
 //! - [`calibrate_from_items`]: a seeded sample of the index's own items (reference items
-//!   left out), each asked for its k + 1 nearest with itself then taken out, against its
-//!   exact k + 1 nearest likewise (exact queries where the embedding gives a bound, else the
-//!   brute force). Needs nothing but the index, works for every metric; `waymark build`
-//!   runs it ([`calibrate_file`]). An item is not a query, though: on queries far from
-//!   every item (typos of another language, reads with errors) the curve can promise more
-//!   than they get.
+//!   left out). For text metrics each item gets 1 to 3 random edits in the items' own
+//!   letters ([`super::edits_of`]; Hamming: substitutions only) and is asked as a query
+//!   against its exact k nearest: typos are what such an index is asked, and an item asked
+//!   as itself is nearer its neighbours than a query is, so a curve from plain items
+//!   promised too much (README, "Asking for a recall"). For the other metrics (vectors,
+//!   graph nodes, metric programs) each item is asked for its k + 1 nearest with itself
+//!   then taken out, against its exact k + 1 nearest likewise (exact queries where the
+//!   embedding gives a bound, else the brute force). Needs nothing but the index, works
+//!   for every metric; `waymark build` runs it ([`calibrate_file`]). Queries unlike random
+//!   edits (another spelling of a word, reads with other errors) can still get less than
+//!   the curve promises.
 //! - [`calibrate_from_queries`]: a user's queries with their exact answers (`waymark eval
 //!   --queries FILE --calibrate`), for curves that hold on queries of that kind.
 //!
@@ -270,7 +275,11 @@ fn edits_make_queries(metric: MetricKind) -> Option<bool> {
 /// 1 to 3 random edits in the items' own letters, asked as queries against their exact
 /// answers (exact queries where the embedding gives a bound, else the brute force). A
 /// query the metric refuses is left out.
-fn from_edited_items(index: &Index, picked: &[u32], opts: &CalibrateOptions) -> Result<Calibration> {
+fn from_edited_items(
+    index: &Index,
+    picked: &[u32],
+    opts: &CalibrateOptions,
+) -> Result<Calibration> {
     let k = opts.k.min(index.len());
     let texts: Vec<String> = picked
         .iter()

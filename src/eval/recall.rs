@@ -175,7 +175,10 @@ pub fn edits_of<T: AsRef<str>>(items: &[T], seed: u64, substitute_only: bool) ->
             let w = items[letters.gen_range(0..items.len())].as_ref();
             let n = w.chars().count();
             if n > 0 {
-                return w.chars().nth(letters.gen_range(0..n)).expect("within the item");
+                return w
+                    .chars()
+                    .nth(letters.gen_range(0..n))
+                    .expect("within the item");
             }
         }
         'e'

@@ -62,7 +62,6 @@ pub fn default_candidates(n: usize) -> usize {
     (n / 80).clamp(DEFAULT_CANDIDATES, 6000)
 }
 
-
 fn is_zero(v: &u32) -> bool {
     *v == 0
 }

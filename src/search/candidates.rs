@@ -118,7 +118,8 @@ impl Searcher<'_> {
         // Order enough cells for four times the average cell's share of `visit`; the rest
         // are ordered only if the visit gets to them.
         if !more {
-            s.first_ordered = (visit.saturating_mul(4) / (n / cells.len()).max(1)).saturating_add(8);
+            s.first_ordered =
+                (visit.saturating_mul(4) / (n / cells.len()).max(1)).saturating_add(8);
             cells.visit_order(q, s.first_ordered, &mut s.cell_order);
             s.reset(0);
             s.spans.clear();

@@ -5,10 +5,12 @@
 //! 1. **prepare and embed** (this file): the query is normalised as the items were and
 //!    prepared for the index's metric ([`crate::index::Index::query_key`]), then measured
 //!    against the reference items to get its landmark coordinates, exact and quantised;
-//! 2. **candidates** (`candidates.rs`): the `C` items nearest in landmark coordinates — L1,
-//!    L2 or L∞ — from the nearest cells' rows (the default from [`CELLS_MIN_ITEMS`] items),
+//! 2. **candidates** (`candidates.rs`): the `C` items nearest in landmark coordinates — L2
+//!    (the default), L1 or L∞ — from the nearest cells' rows (the default from [`CELLS_MIN_ITEMS`] items),
 //!    a SIMD scan of every row, or the kd-tree; picked off a score histogram;
-//! 3. **re-rank** (`rerank.rs`): the candidates measured with the true distance, in groups for
+//! 3. **re-rank** (`rerank.rs`): the candidates measured with the true distance (in rounds of
+//!    twice the candidates while the answers reach the end of the list, when
+//!    [`SearchParams::widen`] allows), in groups for
 //!    metrics that measure groups best (Levenshtein's vector lanes, an external program),
 //!    else one by one nearest first, skipping a candidate whose L∞ lower bound exceeds the
 //!    current k-th distance and bounding the kernel by it;

@@ -12,8 +12,8 @@
 //! Keys sit at scattered places in the file, two dependent loads each (offset, then bytes):
 //! both paths fetch offsets two steps ahead and bytes one step ahead.
 
-use super::order::{keep_best, Neighbor};
 use super::candidates::Scratch;
+use super::order::{keep_best, Neighbor};
 use super::{Found, Prepared, SearchParams, Searcher, WIDEN_TAIL};
 use crate::coords::{score, Space};
 use crate::error::Result;
@@ -74,9 +74,12 @@ impl Searcher<'_> {
             }
             // Does an answer come from the end of the list?
             let from = ((c as f64) * (1.0 - tail)).ceil() as usize;
-            let deep = s.picked.get(from..).unwrap_or(&[]).iter().any(|&(_, i)| {
-                best.iter().any(|b| b.index == i)
-            });
+            let deep = s
+                .picked
+                .get(from..)
+                .unwrap_or(&[])
+                .iter()
+                .any(|&(_, i)| best.iter().any(|b| b.index == i));
             if !deep {
                 break;
             }

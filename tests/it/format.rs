@@ -102,8 +102,13 @@ fn a_version_1_file_made_by_the_previous_writer_opens_and_answers_as_it_did() {
 #[test]
 fn a_version_2_file_holds_each_row_once_and_answers_as_the_version_1_file() {
     let d = Dir::new();
-    // The same items and options as the fixture: the same coordinates.
-    let v2 = d.build(&data("v1-names.txt"), "v2.wmk", &["--dim", "12", "-q"]);
+    // The same items and options as the fixture: the same coordinates (and the query space
+    // the fixture stores, L1, whose answers it recorded).
+    let v2 = d.build(
+        &data("v1-names.txt"),
+        "v2.wmk",
+        &["--dim", "12", "--space", "l1", "-q"],
+    );
     let index = Index::open(&v2).unwrap();
     assert_eq!(index.format_version(), 2);
     index.verify().unwrap();

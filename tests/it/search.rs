@@ -488,7 +488,12 @@ fn widening_never_loses_an_answer_and_widens_only_queries_that_reach_deep() {
         .map(String::from)
         .collect();
     let dir = tempfile::tempdir().unwrap();
-    let idx = build_in(dir.path(), "w.wmk", &corpus(&words), &BuildOptions::default());
+    let idx = build_in(
+        dir.path(),
+        "w.wmk",
+        &corpus(&words),
+        &BuildOptions::default(),
+    );
     assert_eq!(
         SearchParams::from_index(&idx, 10).widen,
         0,
