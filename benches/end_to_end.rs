@@ -219,6 +219,7 @@ fn main() {
                         space: space(sp),
                         source: src,
                         visit: c * waymark::search::VISIT_PER_CANDIDATE,
+                        widen: 0,
                     };
                     let t = Instant::now();
                     let found = s.search_many(&queries, &p);

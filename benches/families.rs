@@ -33,7 +33,6 @@
 use std::path::{Path, PathBuf};
 use std::time::Instant;
 
-use waymark::embed::LandmarkRule;
 use waymark::eval::{
     calibrate_from_items, calibrate_from_queries, edit_queries, measure_recall, scan_many,
     variants_missing_from, CalibrateOptions, Scan, Truth,
@@ -143,6 +142,11 @@ fn truth(index: &Index, queries: &[String]) -> Truth {
     }
 }
 
+/// The candidate count of the defaults before: n / 160 within 1500..4000 (ranked in L1).
+fn old_candidates(n: usize) -> usize {
+    (n / 160).clamp(1500, 4000)
+}
+
 fn main() {
     let nq: usize = std::env::var("WAYMARK_FAMILIES_QUERIES")
         .ok()
@@ -151,6 +155,23 @@ fn main() {
     let wanted: Option<Vec<String>> = std::env::var("WAYMARK_FAMILIES")
         .ok()
         .map(|v| v.split(',').map(|s| s.trim().to_string()).collect());
+    let curves = std::env::var("WAYMARK_FAMILIES_CURVES").map_or(true, |v| v != "0");
+    // Extra settings to measure, `m:widen:options`.
+    let tries: Vec<(f64, u32, String)> = std::env::var("WAYMARK_FAMILIES_TRY")
+        .ok()
+        .map(|v| {
+            v.split(',')
+                .filter_map(|t| {
+                    let mut it = t.split(':');
+                    Some((
+                        it.next()?.parse().ok()?,
+                        it.next()?.parse().ok()?,
+                        it.next().unwrap_or("").to_string(),
+                    ))
+                })
+                .collect()
+        })
+        .unwrap_or_default();
     let fams = families(nq, &wanted);
     if fams.is_empty() {
         eprintln!("no family to run: install the word lists (see the top of benches/families.rs)");
@@ -162,30 +183,26 @@ fn main() {
     );
     let dir = tempfile::tempdir().expect("temp dir");
     let mut table = Vec::new();
-    // Families on one list share its indexes: today's landmarks and the alternative rule.
-    let mut built: Option<(PathBuf, PathBuf, PathBuf)> = None;
+    // Families on one list share its index.
+    let mut built: Option<(PathBuf, PathBuf)> = None;
     for f in &fams {
-        let (path, alt) = match &built {
-            Some((list, p, a)) if *list == f.list => (p.clone(), a.clone()),
+        let path = match &built {
+            Some((list, p)) if *list == f.list => p.clone(),
             _ => {
                 let corpus = read_corpus(&f.list, &IngestOptions::default()).expect("list reads");
-                let mut paths = Vec::new();
-                for rule in [LandmarkRule::Farthest, LandmarkRule::Trimmed] {
-                    let path = dir.path().join(format!("{}-{rule:?}.wmk", f.name));
-                    let t = Instant::now();
-                    build_index(
-                        &corpus,
-                        &f.list.display().to_string(),
-                        &BuildOptions {
-                            landmark_rule: rule,
-                            ..BuildOptions::default()
-                        },
-                        &path,
-                        &|_| {},
-                    )
-                    .expect("build");
-                    let built_s = t.elapsed().as_secs_f64();
-                    let t = Instant::now();
+                let path = dir.path().join(format!("{}.wmk", f.name));
+                let t = Instant::now();
+                build_index(
+                    &corpus,
+                    &f.list.display().to_string(),
+                    &BuildOptions::default(),
+                    &path,
+                    &|_| {},
+                )
+                .expect("build");
+                let built_s = t.elapsed().as_secs_f64();
+                let t = Instant::now();
+                if curves {
                     let index = Index::open(&path).expect("open");
                     let cal = calibrate_from_items(&index, &CalibrateOptions::default())
                         .expect("calibration")
@@ -193,70 +210,105 @@ fn main() {
                     let meta = index.meta().clone();
                     drop(index);
                     store_calibration(&path, &meta, Some(cal)).expect("store");
-                    println!(
-                        "{} ({rule:?} landmarks): {} items; build {built_s:.2} s, recall curve {:.2} s (measure and store)",
-                        f.list.display(),
-                        corpus.items.len(),
-                        t.elapsed().as_secs_f64()
-                    );
-                    paths.push(path);
                 }
-                built = Some((f.list.clone(), paths[0].clone(), paths[1].clone()));
-                (paths[0].clone(), paths[1].clone())
+                println!(
+                    "{}: {} items; build {built_s:.2} s, recall curve {:.2} s (measure and store)",
+                    f.list.display(),
+                    corpus.items.len(),
+                    t.elapsed().as_secs_f64()
+                );
+                built = Some((f.list.clone(), path.clone()));
+                path
             }
         };
         let index = Index::open(&path).expect("open");
-        let alt = Index::open(&alt).expect("open");
+        let n = index.len();
         let t = Instant::now();
         let held_truth = truth(&index, &f.heldout);
-        let cal_truth = truth(&index, &f.calibration);
+        let cal_truth = if curves {
+            Some(truth(&index, &f.calibration))
+        } else {
+            None
+        };
         let scan_s = t.elapsed().as_secs_f64();
-        let default = SearchParams::from_index(&index, K);
-        let row = measure_recall(&index, &f.heldout, &held_truth, &default).expect("measure");
-        let alt_row = measure_recall(
-            &alt,
-            &f.heldout,
-            &held_truth,
-            &SearchParams::from_index(&alt, K),
-        )
-        .expect("measure");
+        let new = SearchParams::from_index(&index, K);
+        let old = SearchParams {
+            widen: 0,
+            space: waymark::search::Space::L1,
+            ..new.with_candidates(old_candidates(n))
+        };
+        // Today's and the new defaults, twice each, alternating (the machine is shared:
+        // the better of two runs of each stands for its speed).
+        let mut rows = Vec::new();
+        for p in [old, new, old, new] {
+            rows.push(measure_recall(&index, &f.heldout, &held_truth, &p).expect("measure"));
+        }
+        let qps = |a: &waymark::eval::RecallRow, b: &waymark::eval::RecallRow| a.qps.max(b.qps);
+        let (old_row, new_row) = (&rows[0], &rows[1]);
+        let (old_qps, new_qps) = (qps(&rows[0], &rows[2]), qps(&rows[1], &rows[3]));
+        for (m, w, opt) in &tries {
+            let (m, w) = (*m, *w);
+            let c = (old_candidates(n) as f64 * m) as usize;
+            let mut p = SearchParams {
+                widen: w,
+                ..new.with_candidates(c)
+            };
+            for o in opt.split('+') {
+                match o {
+                    "s" => p.source = waymark::search::CandidateSource::Scan,
+                    "l1" => p.space = waymark::search::Space::L1,
+                    "l2" => p.space = waymark::search::Space::L2,
+                    "linf" => p.space = waymark::search::Space::Linf,
+                    v if v.starts_with('v') => p.visit = v[1..].parse::<usize>().unwrap() * c,
+                    _ => {}
+                }
+            }
+            let r = measure_recall(&index, &f.heldout, &held_truth, &p).expect("measure");
+            println!(
+                "  try {m} × today's C = {c}, widen {w}, {opt}: recall {:.4} at {:.0} q/s, {:.0} distances per query",
+                r.recall, r.qps, r.distances_per_query
+            );
+        }
         let mut cells = vec![
             f.name.to_string(),
-            index.len().to_string(),
+            n.to_string(),
             f.heldout.len().to_string(),
-            format!("{}", default.candidates),
-            format!("{:.4}, {:.0}", row.recall, row.qps),
-            format!("{:.4}, {:.0}", alt_row.recall, alt_row.qps),
+            format!("{}, {:.4}, {:.0}", old.candidates, old_row.recall, old_qps),
+            format!("{}, {:.4}, {:.0}", new.candidates, new_row.recall, new_qps),
         ];
-        let from_queries =
-            calibrate_from_queries(&index, &f.calibration, &cal_truth, K, "calibration set")
-                .expect("calibration from queries");
-        for r in ASKED {
-            let (p, _) = SearchParams::recall_choice(&index, K, r).expect("curve");
-            let got = measure_recall(&index, &f.heldout, &held_truth, &p).expect("measure");
-            let (pq, _) =
-                SearchParams::recall_choice_on(&index, K, &from_queries, r).expect("curve");
-            let gq = measure_recall(&index, &f.heldout, &held_truth, &pq).expect("measure");
-            cells.push(format!(
-                "{} {:.4} / {} {:.4}",
-                p.candidates, got.recall, pq.candidates, gq.recall
-            ));
+        if let Some(cal_truth) = &cal_truth {
+            let from_queries =
+                calibrate_from_queries(&index, &f.calibration, cal_truth, K, "calibration set")
+                    .expect("calibration from queries");
+            for r in ASKED {
+                let (p, _) = SearchParams::recall_choice(&index, K, r).expect("curve");
+                let got = measure_recall(&index, &f.heldout, &held_truth, &p).expect("measure");
+                let (pq, _) =
+                    SearchParams::recall_choice_on(&index, K, &from_queries, r).expect("curve");
+                let gq = measure_recall(&index, &f.heldout, &held_truth, &pq).expect("measure");
+                cells.push(format!(
+                    "{} {:.4} / {} {:.4}",
+                    p.candidates, got.recall, pq.candidates, gq.recall
+                ));
+            }
         }
         println!(
-            "{}: {} + {} queries, brute force {scan_s:.1} s; defaults {:.4} at {:.0} q/s, trimmed landmarks {:.4} at {:.0} q/s",
+            "{}: {} + {} queries, brute force {scan_s:.1} s; today {:.4} at {:.0} q/s ({:.0} distances per query), new {:.4} at {:.0} q/s ({:.0})",
             f.name,
             f.calibration.len(),
             f.heldout.len(),
-            row.recall,
-            row.qps,
-            alt_row.recall,
-            alt_row.qps
+            old_row.recall,
+            old_qps,
+            old_row.distances_per_query,
+            new_row.recall,
+            new_qps,
+            new_row.distances_per_query,
         );
         table.push(cells);
     }
     println!();
-    println!("| family | items | held-out queries | default C | today: recall@10, q/s | trimmed landmarks: recall@10, q/s | R = 0.9: C, recall (items curve / queries curve) | R = 0.95 | R = 0.99 |");
-    println!("|---|---:|---:|---:|---:|---:|---:|---:|---:|");
+    println!("| family | items | held-out queries | before: C (L1), recall@10, q/s | now: C (L2), recall@10, q/s | R = 0.9: C, recall (items curve / queries curve) | R = 0.95 | R = 0.99 |");
+    println!("|---|---:|---:|---:|---:|---:|---:|---:|");
     for c in table {
         println!("| {} |", c.join(" | "));
     }

@@ -10,21 +10,27 @@
 //! ```
 //! use waymark::resources::build_estimate;
 //!
-//! // 663,473 words, 6.9 MB of text, 64 coordinates: a bit above the 1.30 GB measured.
+//! // Peaks measured with `/usr/bin/time -f %M waymark build … -q` (d = 64): 547,724 kB for
+//! // Debian's wamerican-insane (663,473 words, 6.9 MB), 170,520 kB for its first 200,000
+//! // lines (1.9 MB). The estimate is a little above each.
 //! let est = build_estimate(663_473, 6_922_426, 64);
-//! assert!(est > 1_302_000_000 && est < 1_500_000_000);
+//! assert!(est > 547_724 * 1024 && est < 620_000_000);
+//! let est = build_estimate(200_000, 1_931_057, 64);
+//! assert!(est > 170_520 * 1024 && est < 200_000_000);
 //! ```
 
 use crate::error::{Error, Result};
 
 /// Estimated peak memory of a build, in bytes, for `n` items of `bytes` bytes in all, at
-/// dimension `dim`: coordinates as f64 and f32 and the kd-tree's copy (`20·dim` bytes per
-/// item), the corpus (items and keys as owned strings: about 100 bytes per item plus twice
-/// the text), and the file sections being written with the cells (640 bytes per item in
-/// all besides the coordinates, measured: 1,272,116 kB peak at 663,473 words, d = 64).
+/// dimension `dim`: the coordinates as f64 and as u8 rows (`9·dim` bytes per item), and 260
+/// bytes per item besides (the corpus's items and keys as owned strings, the kd-tree over
+/// the rows' first 8 coordinates as f32 with its points, the cells with their member and
+/// position tables), plus three times the text. Fitted with a margin to the peaks measured
+/// at 663,473 and 200,000 words, d = 64 (the example above; DEVELOPERS.md, "Resource
+/// bounds"); other dimensions follow the model, unmeasured.
 pub fn build_estimate(n: usize, bytes: usize, dim: usize) -> u64 {
     let n = n as u64;
-    let per_item = 20 * dim as u64 + 640;
+    let per_item = 9 * dim as u64 + 260;
     n * per_item + 3 * bytes as u64 + (16 << 20)
 }
 

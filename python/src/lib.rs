@@ -345,6 +345,7 @@ struct BuildArgs {
     landmark_sample: usize,
     landmark_rule: String,
     small_radius: Option<u32>,
+    widen: u32,
     calibrate: bool,
 }
 
@@ -362,6 +363,7 @@ impl BuildArgs {
             normalize,
             inputs,
             small_radius: self.small_radius,
+            widen: self.widen,
             ..BuildOptions::default()
         };
         if self.candidates == Some(0) {
@@ -506,9 +508,9 @@ fn ids_from(ids: Option<&Bound<'_, PyAny>>) -> PyResult<Option<Ids>> {
 #[pyo3(signature = (
     items, path, *, ids=None, metric=None, metric_name=None, integral=false, costs=None,
     separator=None, qgrams=None, command=None, timeout=30.0, dim=64, embedding="landmarks",
-    pool=32, seed=0, candidates=None, space="l1", landmark_sample=4096,
+    pool=32, seed=0, candidates=None, space="l2", landmark_sample=4096,
     landmark_rule="farthest", fold_case=false, trim=false, fold_punct=false,
-    sort_tokens=false, small_radius=None, calibrate=true
+    sort_tokens=false, small_radius=None, widen=0, calibrate=true
 ))]
 #[allow(clippy::too_many_arguments)]
 fn build(
@@ -537,6 +539,7 @@ fn build(
     fold_punct: bool,
     sort_tokens: bool,
     small_radius: Option<u32>,
+    widen: u32,
     calibrate: bool,
 ) -> PyResult<PyIndex> {
     let args = BuildArgs {
@@ -549,6 +552,7 @@ fn build(
         landmark_sample,
         landmark_rule: landmark_rule.into(),
         small_radius,
+        widen,
         calibrate,
     };
     let normalize = Normalize {
@@ -673,9 +677,9 @@ fn build(
 #[pyo3(signature = (
     input, path, *, metric="levenshtein", field=None, id_field=None, input_format=None,
     header=false, costs=None, separator=None, qgrams=None, command=None, timeout=30.0, dim=64,
-    embedding="landmarks", pool=32, seed=0, candidates=None, space="l1",
+    embedding="landmarks", pool=32, seed=0, candidates=None, space="l2",
     landmark_sample=4096, landmark_rule="farthest", fold_case=false, trim=false,
-    fold_punct=false, sort_tokens=false, small_radius=None, calibrate=true
+    fold_punct=false, sort_tokens=false, small_radius=None, widen=0, calibrate=true
 ))]
 #[allow(clippy::too_many_arguments)]
 fn build_file(
@@ -705,6 +709,7 @@ fn build_file(
     fold_punct: bool,
     sort_tokens: bool,
     small_radius: Option<u32>,
+    widen: u32,
     calibrate: bool,
 ) -> PyResult<PyIndex> {
     let args = BuildArgs {
@@ -717,6 +722,7 @@ fn build_file(
         landmark_sample,
         landmark_rule: landmark_rule.into(),
         small_radius,
+        widen,
         calibrate,
     };
     let normalize = Normalize {

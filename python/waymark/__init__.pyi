@@ -65,7 +65,7 @@ def build(
     pool: int = 32,
     seed: int = 0,
     candidates: int | None = None,
-    space: Literal["l1", "l2", "linf"] = "l1",
+    space: Literal["l1", "l2", "linf"] = "l2",
     landmark_sample: int = 4096,
     landmark_rule: Literal["farthest", "trimmed"] = "farthest",
     fold_case: bool = False,
@@ -73,6 +73,7 @@ def build(
     fold_punct: bool = False,
     sort_tokens: bool = False,
     small_radius: Literal[1, 2] | None = None,
+    widen: int = 0,
     calibrate: bool = True,
 ) -> Index:
     """Builds an index of ``items`` at ``path`` (written atomically: a failed build leaves
@@ -92,7 +93,8 @@ def build(
     ``seed``, ``candidates`` and ``space`` (query defaults stored in the index),
     ``landmark_sample``, ``landmark_rule``, the normalisations (stored and applied to every
     query), ``small_radius`` (1 or 2: also store the deletion-variant table of exact
-    small-radius queries, as ``--small-radius``), and ``calibrate=False`` for
+    small-radius queries, as ``--small-radius``), ``widen`` (rounds of widening stored as the
+    query default, as ``--widen``), and ``calibrate=False`` for
     ``--no-calibration`` (then ``recall=`` is refused).
     A graph index is built from its edge list with ``build_file``.
     """
@@ -116,7 +118,7 @@ def build_file(
     pool: int = 32,
     seed: int = 0,
     candidates: int | None = None,
-    space: Literal["l1", "l2", "linf"] = "l1",
+    space: Literal["l1", "l2", "linf"] = "l2",
     landmark_sample: int = 4096,
     landmark_rule: Literal["farthest", "trimmed"] = "farthest",
     fold_case: bool = False,
@@ -124,6 +126,7 @@ def build_file(
     fold_punct: bool = False,
     sort_tokens: bool = False,
     small_radius: Literal[1, 2] | None = None,
+    widen: int = 0,
     calibrate: bool = True,
 ) -> Index:
     """Builds an index of the file ``input`` at ``path``, reading it exactly as

@@ -313,8 +313,13 @@ pub(super) struct BuildArgs {
           help = build_candidates_help())]
     pub candidates: Option<u64>,
     /// Default space candidates are ranked in, stored in the index.
-    #[arg(long, value_enum, default_value = "l1")]
+    #[arg(long, value_enum, default_value = "l2")]
     pub space: SpaceArg,
+    /// How many times a query whose answers come from the end of its candidate list may
+    /// double its candidates and rows, stored in the index; 0 never.
+    #[arg(long, value_name = "N", default_value_t = 0,
+          value_parser = clap::value_parser!(u32).range(0..=8))]
+    pub widen: u32,
     /// Number of items landmarks and FastMap pivots are chosen from.
     #[arg(long = "landmark-sample", value_name = "N", default_value_t = 4096)]
     pub landmark_sample: usize,
@@ -375,10 +380,15 @@ pub(super) struct QueryArgs {
     /// [default: 12 per candidate]; 0 compares every row.
     #[arg(long, value_name = "N", conflicts_with_all = ["exact", "within"])]
     pub visit: Option<usize>,
+    /// How many times a query whose answers come from the end of its candidate list may
+    /// double its candidates and rows (default: stored in the index); 0 never.
+    #[arg(long, value_name = "N", value_parser = clap::value_parser!(u32).range(0..=8),
+          conflicts_with_all = ["exact", "within", "within_fraction"])]
+    pub widen: Option<u32>,
     /// Ask for a threshold recall@k (between 0 and 1) instead of a candidate count: the
     /// candidates and rows visited come from the recall curve stored in the index.
     #[arg(long, value_name = "R", allow_negative_numbers = true,
-          conflicts_with_all = ["exact", "within", "within_fraction", "candidates", "space", "candidates_from", "visit"])]
+          conflicts_with_all = ["exact", "within", "within_fraction", "candidates", "space", "candidates_from", "visit", "widen"])]
     pub recall: Option<f64>,
     /// Read queries from this file instead of stdin, one per line (FASTA/FASTQ records for
     /// .fa, .fasta, .fna, .fq, .fastq, also with .gz).
@@ -610,11 +620,15 @@ pub(super) struct EvalArgs {
     /// row.
     #[arg(long, value_name = "N")]
     pub visit: Option<usize>,
+    /// How many times a query whose answers come from the end of its candidate list may
+    /// double its candidates and rows (default: stored in the index); 0 never.
+    #[arg(long, value_name = "N", value_parser = clap::value_parser!(u32).range(0..=8))]
+    pub widen: Option<u32>,
     /// Asked recalls to measure instead of candidate counts, comma-separated (each between
     /// 0 and 1): each row shows the setting the index's recall curve chose and the recall
     /// the queries got.
     #[arg(long, value_name = "R,...", value_delimiter = ',', allow_negative_numbers = true,
-          conflicts_with_all = ["candidates", "space", "candidates_from", "visit"])]
+          conflicts_with_all = ["candidates", "space", "candidates_from", "visit", "widen"])]
     pub recall: Vec<f64>,
     /// Measure the index's recall curve on these queries (needs --queries) and store it in
     /// the index, replacing the one there: a new file is written beside it and renamed over

@@ -20,6 +20,7 @@ pub(super) fn build(a: BuildArgs) -> anyhow::Result<()> {
         landmark_rule: a.landmark_rule,
         candidates: a.candidates.map_or(0, |c| c as usize),
         space: a.space.into(),
+        widen: a.widen,
         normalize: a.input.normalize(),
         inputs: a.input.files(),
         small_radius: a.small_radius,

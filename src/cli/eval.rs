@@ -53,6 +53,7 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
         if let Some(v) = a.visit {
             params.visit = v;
         }
+        params.widen = a.widen.unwrap_or(params.widen);
         params.source = a.candidates_from.map_or(params.source, Into::into);
         params
     })

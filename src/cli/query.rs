@@ -57,6 +57,7 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
     if let Some(v) = a.visit {
         params.visit = v;
     }
+    params.widen = a.widen.unwrap_or(params.widen);
     if let Some(s) = a.space {
         params.space = s.into();
     }

@@ -23,6 +23,8 @@ pub struct RecallRow {
     pub source: CandidateSource,
     /// With cells: rows compared per query (0: every row; see [`SearchParams::visit`]).
     pub visit: usize,
+    /// Doublings of the candidates a query could take ([`SearchParams::widen`]).
+    pub widen: u32,
     /// Neighbours per query.
     pub k: usize,
     /// Number of queries.
@@ -101,6 +103,7 @@ pub fn measure_recall(
         space: params.space,
         source: params.source,
         visit: params.visit,
+        widen: params.widen,
         k,
         queries: queries.len(),
         recall: rec / nq,

@@ -37,7 +37,7 @@ pub use calibrate::{
 pub use distortion::{index_distortion, measure_distortion, DistortionReport};
 pub use measure::{measure_recall, RecallRow};
 pub use recall::{
-    edit_queries, plain_recall, threshold_recall, typo_queries, variants_missing_from,
+    edit_queries, edits_of, plain_recall, threshold_recall, typo_queries, variants_missing_from,
     RECALL_EPSILON,
 };
 pub use scan::{best_scan, full_scan, scan_many, Scan};

@@ -94,40 +94,100 @@ fn edited<T: AsRef<str>>(
                 .as_ref()
                 .chars()
                 .collect();
-            let edits = rng.gen_range(1..=3);
-            for _ in 0..edits {
-                let mut pick = |rng: &mut rand_chacha::ChaCha8Rng, w: &[char]| {
-                    if !w.is_empty() && rng.gen_bool(0.5) {
-                        w[rng.gen_range(0..w.len())]
-                    } else {
-                        other(rng)
-                    }
-                };
-                match rng.gen_range(0..4) {
-                    0 => {
-                        let c = pick(&mut rng, &w);
-                        let at = rng.gen_range(0..=w.len());
-                        w.insert(at, c);
-                    }
-                    1 if w.len() > 1 => {
-                        let at = rng.gen_range(0..w.len());
-                        w.remove(at);
-                    }
-                    2 if !w.is_empty() => {
-                        let c = pick(&mut rng, &w);
-                        let at = rng.gen_range(0..w.len());
-                        w[at] = c;
-                    }
-                    _ if w.len() > 1 => {
-                        let at = rng.gen_range(0..w.len() - 1);
-                        w.swap(at, at + 1);
-                    }
-                    _ => {
-                        let c = pick(&mut rng, &w);
-                        w.push(c);
-                    }
+            edit(&mut w, &mut rng, &mut other, false);
+            w.into_iter().collect()
+        })
+        .collect()
+}
+
+/// Makes 1 to 3 random edits of `w` (insertion, deletion, substitution or transposition of
+/// adjacent characters; only substitutions when `substitute_only`); a letter inserted or
+/// substituted is one of `w`'s own half of the time, else `other`'s.
+fn edit(
+    w: &mut Vec<char>,
+    rng: &mut rand_chacha::ChaCha8Rng,
+    other: &mut impl FnMut(&mut rand_chacha::ChaCha8Rng) -> char,
+    substitute_only: bool,
+) {
+    use rand::Rng;
+    let edits = rng.gen_range(1..=3);
+    for _ in 0..edits {
+        let mut pick = |rng: &mut rand_chacha::ChaCha8Rng, w: &[char]| {
+            if !w.is_empty() && rng.gen_bool(0.5) {
+                w[rng.gen_range(0..w.len())]
+            } else {
+                other(rng)
+            }
+        };
+        let op = rng.gen_range(0..4);
+        match if substitute_only { 2 } else { op } {
+            0 => {
+                let c = pick(rng, w);
+                let at = rng.gen_range(0..=w.len());
+                w.insert(at, c);
+            }
+            1 if w.len() > 1 => {
+                let at = rng.gen_range(0..w.len());
+                w.remove(at);
+            }
+            2 if !w.is_empty() => {
+                let c = pick(rng, w);
+                let at = rng.gen_range(0..w.len());
+                // A substitution keeps the length in bytes too (Hamming compares bytes).
+                if !substitute_only || c.len_utf8() == w[at].len_utf8() {
+                    w[at] = c;
                 }
             }
+            _ if substitute_only => {}
+            _ if w.len() > 1 => {
+                let at = rng.gen_range(0..w.len() - 1);
+                w.swap(at, at + 1);
+            }
+            _ => {
+                let c = pick(rng, w);
+                w.push(c);
+            }
+        }
+    }
+}
+
+/// Each of `items`, in order, with 1 to 3 random edits as [`edit_queries`] makes them
+/// (only substitutions, which keep the length, with `substitute_only`), letters taken from
+/// the item itself or from another of `items`. Deterministic for a seed.
+///
+/// ```
+/// use waymark::eval::edits_of;
+///
+/// let items = ["ACGTACGT", "TTGACCAG", "GATTACAG"];
+/// let edited = edits_of(&items, 5, true);
+/// assert_eq!(edited.len(), 3);
+/// for (e, i) in edited.iter().zip(items) {
+///     assert_eq!(e.len(), i.len());
+///     assert!(e.chars().all(|c| "ACGT".contains(c)), "{e}");
+/// }
+/// ```
+pub fn edits_of<T: AsRef<str>>(items: &[T], seed: u64, substitute_only: bool) -> Vec<String> {
+    use rand::Rng;
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+    let mut letters = rand_chacha::ChaCha8Rng::seed_from_u64(seed ^ 0x5eed_1e77);
+    let mut other = |_: &mut rand_chacha::ChaCha8Rng| {
+        for _ in 0..64 {
+            let w = items[letters.gen_range(0..items.len())].as_ref();
+            let n = w.chars().count();
+            if n > 0 {
+                return w
+                    .chars()
+                    .nth(letters.gen_range(0..n))
+                    .expect("within the item");
+            }
+        }
+        'e'
+    };
+    items
+        .iter()
+        .map(|item| {
+            let mut w: Vec<char> = item.as_ref().chars().collect();
+            edit(&mut w, &mut rng, &mut other, substitute_only);
             w.into_iter().collect()
         })
         .collect()

@@ -37,6 +37,9 @@ pub struct BuildOptions {
     pub candidates: usize,
     /// Default candidate space stored in the index.
     pub space: Space,
+    /// Default doublings of the candidates stored in the index
+    /// ([`crate::search::SearchParams::widen`]).
+    pub widen: u32,
     /// The normalisation the corpus keys were made with; queries get the same.
     pub normalize: Normalize,
     /// The files the build reads (the input, a cost file): the index must not be written
@@ -61,6 +64,7 @@ impl Default for BuildOptions {
             landmark_rule: crate::embed::LandmarkRule::default(),
             candidates: 0,
             space: Space::default(),
+            widen: 0,
             normalize: Normalize::default(),
             inputs: Vec::new(),
             small_radius: None,
@@ -455,6 +459,7 @@ fn write_index(
         }
         .min(u32::MAX as usize) as u32,
         space: opts.space,
+        widen: opts.widen,
         source: source.to_string(),
         records: corpus.records as u64,
         blank_skipped: corpus.blank_skipped as u64,

@@ -52,14 +52,19 @@ pub const DEFAULT_DIM: usize = 64;
 
 /// The smallest default number of candidates a build stores; larger indexes get more
 /// ([`default_candidates`]).
-pub const DEFAULT_CANDIDATES: usize = 1500;
+pub const DEFAULT_CANDIDATES: usize = 2000;
 
-/// The default number of candidates stored in an index of `n` items: `n / 160`, at least
-/// [`DEFAULT_CANDIDATES`] and at most 4,000, the counts `benches/end_to_end.rs` and
-/// `benches/big.rs` found to keep threshold recall@10 above 0.95 on English words
-/// (figures in the README).
+/// The default number of candidates stored in an index of `n` items: `n / 80`, at least
+/// [`DEFAULT_CANDIDATES`] and at most 6,000, ranked in L2: the counts with which
+/// `benches/families.rs` kept threshold recall@10 at or above 0.95 on every query family
+/// (typos of English, French and German words, natural spelling variants, the demo data;
+/// figures in the README). Indexes written before keep the count they store.
 pub fn default_candidates(n: usize) -> usize {
-    (n / 160).clamp(DEFAULT_CANDIDATES, 4000)
+    (n / 80).clamp(DEFAULT_CANDIDATES, 6000)
+}
+
+fn is_zero(v: &u32) -> bool {
+    *v == 0
 }
 
 /// How the ids of an index are typed.
@@ -110,6 +115,11 @@ pub struct IndexMeta {
     pub candidates: u32,
     /// Default space in which candidates are ranked.
     pub space: Space,
+    /// Default doublings of the candidates for a query whose answers reach deep into its
+    /// candidate list ([`crate::search::SearchParams::widen`]); absent, and 0 (never), in
+    /// files written before it existed.
+    #[serde(default, skip_serializing_if = "is_zero")]
+    pub widen: u32,
     /// Name of the input file.
     pub source: String,
     /// Records read from the input, including skipped ones.

@@ -40,6 +40,8 @@ pub struct Scratch {
     hist: Vec<u32>,
     /// The candidates picked, nearest first, as (score, item).
     pub(super) picked: Vec<(u32, u32)>,
+    /// The candidates of a widened round not measured in the rounds before.
+    pub(super) fresh: Vec<(u32, u32)>,
     tree_out: Vec<(u32, f32)>,
     /// Cells in visiting order, and (first score, first position) of each cell visited.
     cell_order: Vec<(u32, u32)>,
@@ -47,6 +49,9 @@ pub struct Scratch {
     /// The deletion-variant look-up's working memory and candidates (`variants.rs`).
     pub(super) variants: crate::index::variants::Scratch,
     pub(super) shared: Vec<u32>,
+    /// The next cell of `cell_order` to visit, and how many of them were ordered.
+    next_cell: usize,
+    first_ordered: usize,
 }
 
 impl Scratch {
@@ -90,6 +95,9 @@ impl Searcher<'_> {
     /// Scores the rows of the cells nearest the query (cells in increasing distance of their
     /// centre, until `visit` rows) and keeps the best `c`, nearest first, in
     /// `scratch.picked` as (score, item). An index without cells is scanned whole.
+    ///
+    /// With `more`, the same query's visit goes on from the cells the call before visited
+    /// (its scores are kept in the scratch): only the rows of the further cells are scored.
     pub(super) fn cells_candidates(
         &self,
         q: &[u8; 64],
@@ -97,9 +105,14 @@ impl Searcher<'_> {
         visit: usize,
         space: Space,
         s: &mut Scratch,
+        more: bool,
     ) -> Result<()> {
         let Some(cells) = self.index.cells()? else {
-            self.scan_candidates(q, c, space, s);
+            if more {
+                s.select(c, &self.index.rows());
+            } else {
+                self.scan_candidates(q, c, space, s);
+            }
             return Ok(());
         };
         let n = self.index.len();
@@ -107,11 +120,18 @@ impl Searcher<'_> {
         let stride = self.index.stride();
         // Order enough cells for four times the average cell's share of `visit`; the rest
         // are ordered only if the visit gets to them.
-        let first = (visit.saturating_mul(4) / (n / cells.len()).max(1)).saturating_add(8);
-        cells.visit_order(q, first, &mut s.cell_order);
-        s.reset(0);
-        s.spans.clear();
-        for j in 0..s.cell_order.len() {
+        if !more {
+            s.first_ordered =
+                (visit.saturating_mul(4) / (n / cells.len()).max(1)).saturating_add(8);
+            cells.visit_order(q, s.first_ordered, &mut s.cell_order);
+            s.reset(0);
+            s.spans.clear();
+            s.next_cell = 0;
+        }
+        let first = s.first_ordered;
+        while s.next_cell < s.cell_order.len() && s.scores.len() < visit {
+            let j = s.next_cell;
+            s.next_cell += 1;
             if j == first {
                 s.cell_order[first..].sort_unstable();
             }
@@ -124,9 +144,6 @@ impl Searcher<'_> {
             s.spans.push((at as u32, r.start as u32));
             let rows = cells.rows(r);
             score_rows(rows, stride, q, space, &mut s.scores[at..], &mut s.hist);
-            if s.scores.len() >= visit {
-                break;
-            }
         }
         select_best(&s.scores, c, &s.hist, &mut s.picked);
         // Scores are numbered in visiting order: back to cell positions, then to items

@@ -5,10 +5,12 @@
 //! 1. **prepare and embed** (this file): the query is normalised as the items were and
 //!    prepared for the index's metric ([`crate::index::Index::query_key`]), then measured
 //!    against the reference items to get its landmark coordinates, exact and quantised;
-//! 2. **candidates** (`candidates.rs`): the `C` items nearest in landmark coordinates — L1,
-//!    L2 or L∞ — from the nearest cells' rows (the default from [`CELLS_MIN_ITEMS`] items),
+//! 2. **candidates** (`candidates.rs`): the `C` items nearest in landmark coordinates — L2
+//!    (the default), L1 or L∞ — from the nearest cells' rows (the default from [`CELLS_MIN_ITEMS`] items),
 //!    a SIMD scan of every row, or the kd-tree; picked off a score histogram;
-//! 3. **re-rank** (`rerank.rs`): the candidates measured with the true distance, in groups for
+//! 3. **re-rank** (`rerank.rs`): the candidates measured with the true distance (in rounds of
+//!    twice the candidates while the answers reach the end of the list, when
+//!    [`SearchParams::widen`] allows), in groups for
 //!    metrics that measure groups best (Levenshtein's vector lanes, an external program),
 //!    else one by one nearest first, skipping a candidate whose L∞ lower bound exceeds the
 //!    current k-th distance and bounding the kernel by it;
@@ -52,7 +54,7 @@ pub use self::candidates::Scratch;
 pub use self::order::Neighbor;
 pub use self::request::{
     check_recall, CandidateSource, Certificate, Found, Request, SearchParams, CELLS_MIN_ITEMS,
-    VISIT_PER_CANDIDATE,
+    VISIT_PER_CANDIDATE, WIDEN_TAIL,
 };
 pub use crate::coords::Space;
 pub use crate::index::{default_candidates, DEFAULT_CANDIDATES, DEFAULT_DIM};
@@ -169,17 +171,20 @@ impl<'a> Searcher<'a> {
         let mut exact = [0f32; 64];
         let want_exact = p.source == CandidateSource::Tree;
         let pq = self.prepare_embedded(query, want_exact.then_some(&mut exact))?;
-        let c = p.candidates.max(p.k).min(self.index.len());
-        match p.source {
-            CandidateSource::Scan => self.scan_candidates(&pq.small, c, p.space, scratch),
-            CandidateSource::Cells => {
-                self.cells_candidates(&pq.small, c, p.visit, p.space, scratch)?
+        let mut scored = false;
+        self.rerank_rounds(&pq, p, scratch, |me, c, visit, s| {
+            match p.source {
+                // The scores of every row stay in the scratch: a wider round only selects.
+                CandidateSource::Scan if scored => s.select(c, &me.index.rows()),
+                CandidateSource::Scan => me.scan_candidates(&pq.small, c, p.space, s),
+                CandidateSource::Cells => {
+                    me.cells_candidates(&pq.small, c, visit, p.space, s, scored)?
+                }
+                CandidateSource::Tree => me.tree_candidates(&pq.small, &exact, c, p.space, s)?,
             }
-            CandidateSource::Tree => {
-                self.tree_candidates(&pq.small, &exact, c, p.space, scratch)?
-            }
-        }
-        self.rerank(&pq, p.k, &scratch.picked)
+            scored = true;
+            Ok(())
+        })
     }
 
     /// Exact k nearest neighbours of `query`: the same answer as a brute force over every
@@ -407,13 +412,14 @@ impl<'a> Searcher<'a> {
             s.resize_with(block.len(), Scratch::default);
         }
         self.score_block(&smalls, p.space, s);
-        let c = p.candidates.max(p.k).min(self.index.len());
         prepared
             .iter()
             .zip(s.iter_mut())
             .map(|(pq, sc)| {
-                sc.select(c, &self.index.rows());
-                self.rerank(pq, p.k, &sc.picked)
+                self.rerank_rounds(pq, p, sc, |me, c, _, sc| {
+                    sc.select(c, &me.index.rows());
+                    Ok(())
+                })
             })
             .collect()
     }
@@ -492,7 +498,6 @@ impl<'a> Searcher<'a> {
         if s.len() < block.len() {
             s.resize_with(block.len(), Scratch::default);
         }
-        let c = p.candidates.max(p.k).min(self.index.len());
         if p.source == CandidateSource::Scan {
             let smalls: Vec<[u8; 64]> = prepared
                 .iter()
@@ -505,11 +510,15 @@ impl<'a> Searcher<'a> {
             .zip(s.iter_mut())
             .map(|(pq, sc)| {
                 let pq = pq?;
-                match p.source {
-                    CandidateSource::Scan => sc.select(c, &self.index.rows()),
-                    _ => self.cells_candidates(&pq.small, c, p.visit, p.space, sc)?,
-                }
-                self.rerank(&pq, p.k, &sc.picked)
+                let mut scored = false;
+                self.rerank_rounds(&pq, p, sc, |me, c, visit, sc| {
+                    match p.source {
+                        CandidateSource::Scan => sc.select(c, &me.index.rows()),
+                        _ => me.cells_candidates(&pq.small, c, visit, p.space, sc, scored)?,
+                    }
+                    scored = true;
+                    Ok(())
+                })
             })
             .collect()
     }

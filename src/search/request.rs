@@ -47,7 +47,18 @@ pub struct SearchParams {
     /// many rows have been compared (at least `candidates`; 0: every row). Ignored by the
     /// other sources.
     pub visit: usize,
+    /// How many times the candidates (and the rows visited) may be doubled for a query
+    /// whose answer reaches deep into its candidate list (0: never). After each round of
+    /// re-ranking, when an answer held came from the last [`WIDEN_TAIL`] of the list, the
+    /// next round takes twice the candidates (those already measured are not measured
+    /// again), until an answer comes from nearer the front or the doublings are used up.
+    pub widen: u32,
 }
+
+/// The share at the end of a candidate list that, holding an answer, makes a query take
+/// twice the candidates ([`SearchParams::widen`]). Chosen with `benches/families.rs`
+/// (README, "How it finds neighbours, and the defaults").
+pub const WIDEN_TAIL: f64 = 0.25;
 
 impl SearchParams {
     /// The index's stored defaults with `k` neighbours: its candidates and space, cells as
@@ -66,6 +77,7 @@ impl SearchParams {
                 CandidateSource::Scan
             },
             visit: candidates.saturating_mul(VISIT_PER_CANDIDATE),
+            widen: index.meta().widen,
         }
     }
 

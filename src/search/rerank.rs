@@ -12,8 +12,9 @@
 //! Keys sit at scattered places in the file, two dependent loads each (offset, then bytes):
 //! both paths fetch offsets two steps ahead and bytes one step ahead.
 
+use super::candidates::Scratch;
 use super::order::{keep_best, Neighbor};
-use super::{Found, Prepared, Searcher};
+use super::{Found, Prepared, SearchParams, Searcher, WIDEN_TAIL};
 use crate::coords::{score, Space};
 use crate::error::Result;
 use crate::metric::{AnyQuery, PreparedQuery};
@@ -23,27 +24,96 @@ use crate::metric::{AnyQuery, PreparedQuery};
 const AHEAD: usize = 8;
 
 impl Searcher<'_> {
-    /// Re-ranks the candidates picked for a query; the reference distances are counted in,
-    /// and a metric program's failure is reported.
-    pub(super) fn rerank(&self, pq: &Prepared, k: usize, picked: &[(u32, u32)]) -> Result<Found> {
+    /// Re-ranks a query's candidates in rounds ([`SearchParams::widen`]):
+    /// `pick(searcher, c, visit, scratch)` puts the `c` candidates of a round, nearest
+    /// first, in `scratch.picked` (with `visit` rows compared, for cells). A round re-ranks
+    /// the candidates not measured before; another round, with twice the candidates and
+    /// rows, follows while an answer held came from the last [`WIDEN_TAIL`] of the list and
+    /// doublings are left. The reference distances are counted in, and a metric program's
+    /// failure is reported.
+    pub(super) fn rerank_rounds(
+        &self,
+        pq: &Prepared,
+        p: &SearchParams,
+        s: &mut Scratch,
+        mut pick: impl FnMut(&Self, usize, usize, &mut Scratch) -> Result<()>,
+    ) -> Result<Found> {
         let metric = self.index.metric()?;
+        let n = self.index.len();
         // No more answers than items: a k above n means every item, never an allocation of k.
-        let k = k.min(self.index.len().max(1));
+        let k = p.k.min(n.max(1));
         let group = pq.q.group_size();
-        let mut found = if group > 1 {
-            self.rerank_groups(&pq.q, k, picked, group)
-        } else {
-            self.rerank_each(&pq.q, &pq.small, k, picked)
-        };
+        let mut c = p.candidates.max(p.k).min(n);
+        let mut visit = p.visit;
+        let mut best: Vec<Neighbor> = Vec::with_capacity(k + 1);
+        let (mut distances, mut pruned) = (0, 0);
+        let mut measured: Vec<u32> = Vec::new();
+        let tail = WIDEN_TAIL;
+        for round in 0..=p.widen {
+            pick(self, c, visit, s)?;
+            let cands: &[(u32, u32)] = if round == 0 {
+                &s.picked
+            } else {
+                s.fresh.clear();
+                s.fresh.extend(
+                    s.picked
+                        .iter()
+                        .filter(|(_, i)| measured.binary_search(i).is_err()),
+                );
+                &s.fresh
+            };
+            let (d, skipped) = if group > 1 {
+                self.rerank_groups(&pq.q, k, cands, group, &mut best)
+            } else {
+                self.rerank_each(&pq.q, &pq.small, k, cands, &mut best)
+            };
+            distances += d;
+            pruned += skipped;
+            if round == p.widen || c >= n {
+                break;
+            }
+            // Does an answer come from the end of the list?
+            let from = ((c as f64) * (1.0 - tail)).ceil() as usize;
+            let deep = s
+                .picked
+                .get(from..)
+                .unwrap_or(&[])
+                .iter()
+                .any(|&(_, i)| best.iter().any(|b| b.index == i));
+            if !deep {
+                break;
+            }
+            measured.clear();
+            measured.extend(s.picked.iter().map(|&(_, i)| i));
+            measured.sort_unstable();
+            c = c.saturating_mul(2).min(n);
+            if visit != 0 {
+                visit = visit.saturating_mul(2).min(n);
+            }
+        }
         metric.check()?;
-        found.distances += self.refs.len();
-        Ok(found)
+        Ok(Found {
+            neighbors: best,
+            distances: distances + self.refs.len(),
+            pruned,
+            certificate: None,
+        })
     }
 
     /// Measures the candidates `group` at a time with [`PreparedQuery::distances`]; the
     /// next group's keys are fetched while a group is measured.
-    fn rerank_groups(&self, q: &AnyQuery, k: usize, cands: &[(u32, u32)], group: usize) -> Found {
-        let mut best: Vec<Neighbor> = Vec::with_capacity(k + 1);
+    /// Continues `best`; returns the distances computed and the candidates skipped (none).
+    fn rerank_groups(
+        &self,
+        q: &AnyQuery,
+        k: usize,
+        cands: &[(u32, u32)],
+        group: usize,
+        best: &mut Vec<Neighbor>,
+    ) -> (usize, usize) {
+        if cands.is_empty() {
+            return (0, 0);
+        }
         let size = group.min(cands.len()).max(1);
         let mut keys: Vec<&[u8]> = Vec::with_capacity(size);
         let mut out = vec![0f64; size];
@@ -69,23 +139,25 @@ impl Searcher<'_> {
             let out = &mut out[..g.len()];
             q.distances(&keys, out);
             for (&(_, i), &distance) in g.iter().zip(out.iter()) {
-                keep_best(self.index, &mut best, k, Neighbor { index: i, distance });
+                keep_best(self.index, best, k, Neighbor { index: i, distance });
             }
         }
-        Found {
-            neighbors: best,
-            distances: cands.len(),
-            pruned: 0,
-            certificate: None,
-        }
+        (cands.len(), 0)
     }
 
     /// Measures the candidates one at a time, in the order given, skipping those whose
-    /// lower bound exceeds the k-th distance held.
-    fn rerank_each(&self, q: &AnyQuery, small: &[u8; 64], k: usize, cands: &[(u32, u32)]) -> Found {
+    /// lower bound exceeds the k-th distance held. Continues `best`; returns the distances
+    /// computed and the candidates skipped.
+    fn rerank_each(
+        &self,
+        q: &AnyQuery,
+        small: &[u8; 64],
+        k: usize,
+        cands: &[(u32, u32)],
+        best: &mut Vec<Neighbor>,
+    ) -> (usize, usize) {
         let rows = self.index.rows();
         let bound = self.bound;
-        let mut best: Vec<Neighbor> = Vec::with_capacity(k + 1);
         let mut distances = 0;
         let mut pruned = 0;
         for &(_, i) in cands.iter().take(2 * AHEAD) {
@@ -129,7 +201,7 @@ impl Searcher<'_> {
             };
             keep_best(
                 self.index,
-                &mut best,
+                best,
                 k,
                 Neighbor {
                     index: i,
@@ -137,11 +209,6 @@ impl Searcher<'_> {
                 },
             );
         }
-        Found {
-            neighbors: best,
-            distances,
-            pruned,
-            certificate: None,
-        }
+        (distances, pruned)
     }
 }

@@ -102,8 +102,13 @@ fn a_version_1_file_made_by_the_previous_writer_opens_and_answers_as_it_did() {
 #[test]
 fn a_version_2_file_holds_each_row_once_and_answers_as_the_version_1_file() {
     let d = Dir::new();
-    // The same items and options as the fixture: the same coordinates.
-    let v2 = d.build(&data("v1-names.txt"), "v2.wmk", &["--dim", "12", "-q"]);
+    // The same items and options as the fixture: the same coordinates (and the query space
+    // the fixture stores, L1, whose answers it recorded).
+    let v2 = d.build(
+        &data("v1-names.txt"),
+        "v2.wmk",
+        &["--dim", "12", "--space", "l1", "-q"],
+    );
     let index = Index::open(&v2).unwrap();
     assert_eq!(index.format_version(), 2);
     index.verify().unwrap();
@@ -125,6 +130,12 @@ fn a_version_2_file_holds_each_row_once_and_answers_as_the_version_1_file() {
     assert!(sizes.contains(&("positions", 4 * n)));
     assert_eq!(index.meta().ids_from, Some(0), "ids are the record numbers");
     let v1 = Index::open(&data("v1-names.wmk")).unwrap();
+    // The fixture keeps the query defaults it was written with: L1, its count, no widening.
+    let old = waymark::search::SearchParams::from_index(&v1, 10);
+    assert_eq!(
+        (old.space, old.candidates, old.widen),
+        (waymark::search::Space::L1, v1.meta().candidates as usize, 0)
+    );
     let size = |ix: &Index, name: &str| ix.sections().find(|s| s.0 == name).map(|s| s.1);
     assert_eq!(size(&index, "cells"), size(&v1, "cells"));
     // The tree: 8 of the 12 coordinates, 36 bytes a point, against 68 in the fixture.

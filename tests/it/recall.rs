@@ -216,7 +216,8 @@ fn the_curve_round_trips_through_the_file_and_leaves_every_other_section_as_it_w
     let cal = calibrate_file(&path, &CalibrateOptions::default())
         .unwrap()
         .expect("enough items");
-    assert_eq!(cal.from, "items");
+    // Words: the sampled items are asked with random edits.
+    assert_eq!(cal.from, "edits");
     assert!(cal
         .points
         .windows(2)
@@ -353,4 +354,24 @@ fn section_if_any(bytes: &[u8], kind: u32) -> Option<std::ops::Range<usize>> {
     (0..ENTRIES)
         .any(|e| u32_at(bytes, HEADER + e * ENTRY) == kind)
         .then(|| section(bytes, kind))
+}
+
+/// Hamming needs queries of the items' length: the build's curve asks the sampled barcodes
+/// with substitutions only, and every one of them is answered (the demo barcodes, 12 bases).
+#[test]
+fn a_hamming_index_is_calibrated_from_substituted_items_of_its_own_length() {
+    let d = Dir::new();
+    let bars: String = demo_lines("barcodes.txt")
+        .into_iter()
+        .take(2000)
+        .map(|l| format!("{l}\n"))
+        .collect();
+    let input = d.write("bars.txt", bars.as_bytes());
+    let path = d.build(&input, "bars.wmk", &["--metric", "hamming"]);
+    let index = Index::open(&path).unwrap();
+    let cal = index.meta().calibration.clone().expect("a curve");
+    assert_eq!(cal.from, "edits");
+    assert_eq!(cal.queries, 300, "every edited barcode kept its length");
+    let edited = waymark::eval::edits_of(&["ACGTACGTACGT", "TTGACCAGGATT"], 3, true);
+    assert!(edited.iter().all(|e| e.len() == 12));
 }
