@@ -27,6 +27,7 @@ use waymark::ingest::{
     MetricOptions, Normalize,
 };
 use waymark::metric::{CustomMetric, Metric, MetricError, MetricKind, MetricSpec, Norm};
+use waymark::pairs::{lookup_within, Radius};
 use waymark::search::{CandidateSource, Found, Request, Scratch, SearchParams, Searcher, Space};
 use waymark::Error;
 
@@ -851,24 +852,40 @@ fn request(
     space_name: Option<&str>,
     source_name: Option<&str>,
     visit: Option<usize>,
+    widen: Option<u32>,
+    fraction: Option<f64>,
 ) -> PyResult<Request> {
-    let tuning =
-        candidates.is_some() || space_name.is_some() || source_name.is_some() || visit.is_some();
-    if exact && within.is_some() {
-        return Err(bad("exact and within do not combine: within is exact too"));
-    }
-    if (exact || within.is_some()) && (tuning || recall.is_some()) {
+    let tuning = candidates.is_some()
+        || space_name.is_some()
+        || source_name.is_some()
+        || visit.is_some()
+        || widen.is_some();
+    if [exact, within.is_some(), fraction.is_some()]
+        .iter()
+        .filter(|&&x| x)
+        .count()
+        > 1
+    {
         return Err(bad(
-            "exact and within answers do not take recall, candidates, space, candidates_from or visit",
+            "exact, within and within_fraction do not combine: each is exact on its own",
+        ));
+    }
+    if (exact || within.is_some() || fraction.is_some()) && (tuning || recall.is_some()) {
+        return Err(bad(
+            "exact and within answers do not take recall, candidates, space, candidates_from, visit or widen",
         ));
     }
     if recall.is_some() && tuning {
         return Err(bad(
-            "recall chooses the candidates itself: it does not combine with candidates, space, candidates_from or visit",
+            "recall chooses the candidates itself: it does not combine with candidates, space, candidates_from, visit or widen",
         ));
     }
     if let Some(radius) = within {
         return Ok(Request::Within { radius, k });
+    }
+    if fraction.is_some() {
+        // Answered by `answer_fraction`; the request only carries k.
+        return Ok(Request::Within { radius: 0.0, k });
     }
     let k = k.unwrap_or(10);
     if exact {
@@ -883,6 +900,9 @@ fn request(
     }
     if let Some(v) = visit {
         p.visit = v;
+    }
+    if let Some(w) = widen {
+        p.widen = w;
     }
     if let Some(s) = space_name {
         p.space = space(s)?;
@@ -1023,8 +1043,8 @@ impl PyIndex {
 
     /// One query: a list of (id, item, distance), nearest first.
     #[pyo3(signature = (
-        query, k=None, *, exact=false, within=None, recall=None, candidates=None,
-        space=None, candidates_from=None, visit=None
+        query, k=None, *, exact=false, within=None, within_fraction=None, recall=None,
+        candidates=None, space=None, candidates_from=None, visit=None, widen=None
     ))]
     #[allow(clippy::too_many_arguments)]
     fn query(
@@ -1034,11 +1054,13 @@ impl PyIndex {
         k: Option<usize>,
         exact: bool,
         within: Option<f64>,
+        within_fraction: Option<f64>,
         recall: Option<f64>,
         candidates: Option<usize>,
         space: Option<&str>,
         candidates_from: Option<&str>,
         visit: Option<usize>,
+        widen: Option<u32>,
     ) -> PyResult<Py<PyList>> {
         let index = self.index();
         let req = request(
@@ -1051,11 +1073,22 @@ impl PyIndex {
             space,
             candidates_from,
             visit,
+            widen,
+            within_fraction,
         )?;
         let text = query_text(index, query)?;
         let searcher = self.searcher();
         let found = py
             .detach(|| {
+                if let Some(f) = within_fraction {
+                    let mut all = lookup_within(
+                        searcher,
+                        std::slice::from_ref(&text),
+                        Radius::Fraction(f),
+                        k,
+                    );
+                    return all.pop().expect("one answer per query");
+                }
                 SCRATCH.with(|s| match s.try_borrow_mut() {
                     Ok(mut s) => searcher.answer(&text, &req, &mut s),
                     // Re-entered on this thread (a Python metric that queries): fresh buffers.
@@ -1069,8 +1102,8 @@ impl PyIndex {
     /// Many queries on all cores, the GIL released: a pair of numpy arrays (numbers,
     /// distances), each n_queries × k, filled with -1 and inf where fewer are found.
     #[pyo3(signature = (
-        queries, k=10, *, exact=false, within=None, recall=None, candidates=None,
-        space=None, candidates_from=None, visit=None
+        queries, k=10, *, exact=false, within=None, within_fraction=None, recall=None,
+        candidates=None, space=None, candidates_from=None, visit=None, widen=None
     ))]
     #[allow(clippy::too_many_arguments)]
     fn query_many<'py>(
@@ -1080,11 +1113,13 @@ impl PyIndex {
         k: usize,
         exact: bool,
         within: Option<f64>,
+        within_fraction: Option<f64>,
         recall: Option<f64>,
         candidates: Option<usize>,
         space: Option<&str>,
         candidates_from: Option<&str>,
         visit: Option<usize>,
+        widen: Option<u32>,
     ) -> PyResult<ManyAnswers<'py>> {
         let index = self.index();
         let req = request(
@@ -1097,13 +1132,18 @@ impl PyIndex {
             space,
             candidates_from,
             visit,
+            widen,
+            within_fraction,
         )?;
         let texts = self.query_texts(queries)?;
         let searcher = self.searcher();
         let n = texts.len();
         let result = py.detach(|| -> Result<(Vec<i64>, Vec<f64>), Error> {
             searcher.check(&req)?;
-            let answers = searcher.answer_many(&texts, &req);
+            let answers = match within_fraction {
+                Some(f) => lookup_within(searcher, &texts, Radius::Fraction(f), Some(k)),
+                None => searcher.answer_many(&texts, &req),
+            };
             let mut numbers = vec![-1i64; n * k];
             let mut dists = vec![f64::INFINITY; n * k];
             for (q, a) in answers.into_iter().enumerate() {
@@ -1184,6 +1224,8 @@ impl PyIndex {
                     space,
                     candidates_from,
                     visit,
+                    None,
+                    None,
                 )? {
                     Request::Approximate(p) => settings.push(p),
                     _ => unreachable!("an approximate request"),

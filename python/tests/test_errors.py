@@ -156,6 +156,14 @@ def test_bad_query_options(tmp_path):
         index.query("Keth", 3, recall=0.9, candidates=10)
     with pytest.raises(waymark.BadInputError, match="do not take"):
         index.query("Keth", 3, exact=True, candidates=10)
+    with pytest.raises(waymark.BadInputError, match="do not combine"):
+        index.query("Keth", within=1, within_fraction=0.2)
+    with pytest.raises(waymark.BadInputError, match="do not take"):
+        index.query("Keth", within_fraction=0.2, widen=1)
+    with pytest.raises(waymark.BadInputError, match="fraction"):
+        index.query("Keth", within_fraction=-0.5)
+    with pytest.raises(waymark.BadInputError, match="fraction"):
+        index.query_many(["Keth"], 2, within_fraction=float("nan"))
     with pytest.raises(OverflowError, match="negative int"):
         index.query("Keth", -1)
 

@@ -182,20 +182,24 @@ class Index:
         *,
         exact: bool = False,
         within: float | None = None,
+        within_fraction: float | None = None,
         recall: float | None = None,
         candidates: int | None = None,
         space: Literal["l1", "l2", "linf"] | None = None,
         candidates_from: Literal["cells", "scan", "tree"] | None = None,
         visit: int | None = None,
+        widen: int | None = None,
     ) -> Answer:
         """One query: its neighbours as (id, item, distance), nearest first.
 
         By default the ``k`` (10) nearest, approximately, with the index's stored defaults;
         ``recall=R`` (0 < R < 1) chooses the candidates from the index's recall curve, as
-        ``waymark query --recall``; ``candidates``, ``space``, ``candidates_from`` and
-        ``visit`` tune the approximate search. ``exact=True``: the exact k nearest (what a
+        ``waymark query --recall``; ``candidates``, ``space``, ``candidates_from``,
+        ``visit`` and ``widen`` tune the approximate search. ``exact=True``: the exact k nearest (what a
         brute force returns). ``within=R``: every item at distance at most R, exactly, or
-        only the ``k`` nearest of them when ``k`` is given. A query is a string, or for a
+        only the ``k`` nearest of them when ``k`` is given. ``within_fraction=F``: every item
+        within F × the longer one's length in chars, exactly (text metrics), as ``within``
+        for ``k``. A query is a string, or for a
         vector index a sequence of numbers; a query the metric cannot take raises
         ``BadInputError``."""
 
@@ -206,11 +210,13 @@ class Index:
         *,
         exact: bool = False,
         within: float | None = None,
+        within_fraction: float | None = None,
         recall: float | None = None,
         candidates: int | None = None,
         space: Literal["l1", "l2", "linf"] | None = None,
         candidates_from: Literal["cells", "scan", "tree"] | None = None,
         visit: int | None = None,
+        widen: int | None = None,
     ) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.float64]]:
         """Many queries at once, on all cores with the GIL released (options as ``query``).
 

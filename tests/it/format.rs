@@ -283,11 +283,16 @@ fn bad_input_a_version_1_file_is_not_calibrated_and_is_left_as_it_was() {
 #[test]
 fn a_deletion_variant_table_is_one_more_section_and_leaves_the_others_as_they_were() {
     let d = Dir::new();
-    let plain = d.build(&data("v1-names.txt"), "p.wmk", &["--dim", "12", "-q"]);
+    // The space of the recorded answers (the version 1 binary's default, L1).
+    let plain = d.build(
+        &data("v1-names.txt"),
+        "p.wmk",
+        &["--dim", "12", "--space", "l1", "-q"],
+    );
     let small = d.build(
         &data("v1-names.txt"),
         "s.wmk",
-        &["--dim", "12", "-q", "--small-radius", "2"],
+        &["--dim", "12", "--space", "l1", "-q", "--small-radius", "2"],
     );
     let (p, s) = (
         std::fs::read(&plain).unwrap(),
