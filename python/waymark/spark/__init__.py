@@ -1,0 +1,19 @@
+"""waymark on Apache Spark: jobs over DataFrames, run by Spark itself (``pyspark`` from PyPI).
+
+This part of the package needs ``pyspark`` (``pip install pyspark``; Spark 4 needs Java 17 or
+later). Importing ``waymark`` does not import it; importing ``waymark.spark`` does.
+
+- :func:`connected_components`: the groups of an edge list (pairs of ids), computed in Spark
+  by alternating large-star and small-star rounds, never collected onto the driver.
+"""
+
+try:
+    import pyspark  # noqa: F401
+except ImportError as err:  # pragma: no cover - depends on the environment
+    raise ImportError(
+        "waymark.spark needs pyspark: pip install pyspark (and Java 17 or later on the machine)"
+    ) from err
+
+from .components import connected_components
+
+__all__ = ["connected_components"]
