@@ -27,7 +27,7 @@ use waymark::ingest::{
     MetricOptions, Normalize,
 };
 use waymark::metric::{CustomMetric, Metric, MetricError, MetricKind, MetricSpec, Norm};
-use waymark::pairs::{lookup_within, Radius};
+use waymark::pairs::{group, lookup_within, Grouping, Pair, Radius};
 use waymark::search::{CandidateSource, Found, Request, Scratch, SearchParams, Searcher, Space};
 use waymark::Error;
 
@@ -1416,12 +1416,81 @@ fn json_to_py(py: Python<'_>, v: &serde_json::Value) -> PyResult<Py<PyAny>> {
 }
 
 /// The extension module.
+/// Groups near-duplicates from pairs of item labels, by the rules of `waymark groups`. See
+/// `python/waymark/__init__.pyi`.
+#[pyfunction]
+#[pyo3(signature = (a, b, distance, *, grouping="centre", singletons=false))]
+fn group_pairs(
+    py: Python<'_>,
+    a: Vec<i64>,
+    b: Vec<i64>,
+    distance: Vec<f64>,
+    grouping: &str,
+    singletons: bool,
+) -> PyResult<Py<PyList>> {
+    if a.len() != b.len() || a.len() != distance.len() {
+        return Err(bad(format!(
+            "group_pairs: a, b and distance must have one length (got {}, {} and {})",
+            a.len(),
+            b.len(),
+            distance.len()
+        )));
+    }
+    if let Some(i) = distance.iter().position(|d| !(d.is_finite() && *d >= 0.0)) {
+        return Err(bad(format!(
+            "group_pairs: distance[{i}] is {}: distances must be finite and at least 0",
+            distance[i]
+        )));
+    }
+    let how = match grouping {
+        "centre" => Grouping::Centre,
+        "clique" => Grouping::Clique,
+        "components" => Grouping::Components,
+        other => {
+            return Err(bad(format!(
+                "group_pairs: unknown grouping {other:?}: use centre, clique or components"
+            )))
+        }
+    };
+    // Labels become item numbers in their own order, so the rules' ties (smaller item number
+    // first) fall as they would over the labels themselves.
+    let mut labels: Vec<i64> = a.iter().chain(b.iter()).copied().collect();
+    labels.sort_unstable();
+    labels.dedup();
+    if labels.len() > u32::MAX as usize {
+        return Err(bad("group_pairs: more than 4,294,967,295 distinct labels"));
+    }
+    let number = |x: i64| labels.binary_search(&x).expect("every label is listed") as u32;
+    let pairs: Vec<Pair> = a
+        .iter()
+        .zip(&b)
+        .zip(&distance)
+        .map(|((&x, &y), &d)| {
+            let (x, y) = (number(x), number(y));
+            Pair {
+                a: x.min(y),
+                b: x.max(y),
+                distance: d,
+            }
+        })
+        .collect();
+    let groups = py.detach(|| group(labels.len(), &pairs, how, singletons));
+    let out = PyList::empty(py);
+    for g in groups {
+        let members: Vec<i64> = g.members.iter().map(|&m| labels[m as usize]).collect();
+        let centre = g.centre.map(|c| labels[c as usize]);
+        out.append((members, centre))?;
+    }
+    Ok(out.unbind())
+}
+
 #[pymodule]
 fn _waymark(m: &Bound<'_, PyModule>) -> PyResult<()> {
     let py = m.py();
     m.add_class::<PyIndex>()?;
     m.add_function(wrap_pyfunction!(build, m)?)?;
     m.add_function(wrap_pyfunction!(build_file, m)?)?;
+    m.add_function(wrap_pyfunction!(group_pairs, m)?)?;
     m.add("WaymarkError", py.get_type::<WaymarkError>())?;
     m.add("BadInputError", py.get_type::<BadInputError>())?;
     m.add("CorruptIndexError", py.get_type::<CorruptIndexError>())?;

@@ -25,6 +25,7 @@ from ._waymark import (
     __version__,
     build,
     build_file,
+    group_pairs,
 )
 
 
@@ -44,5 +45,6 @@ __all__ = [
     "__version__",
     "build",
     "build_file",
+    "group_pairs",
     "open",
 ]

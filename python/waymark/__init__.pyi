@@ -135,6 +135,26 @@ def build_file(
     same options under the same names, and opens it. The same input and options give a
     byte-identical file."""
 
+def group_pairs(
+    a: Sequence[int],
+    b: Sequence[int],
+    distance: Sequence[float],
+    *,
+    grouping: Literal["centre", "clique", "components"] = "centre",
+    singletons: bool = False,
+) -> list[tuple[list[int], int | None]]:
+    """Groups near-duplicates from pairs, by the rules of ``waymark groups``: pair ``i`` joins
+    the items labelled ``a[i]`` and ``b[i]`` (any integers, such as item numbers or integer
+    ids) at ``distance[i]``. ``centre`` (every member within the pairs' radius of its
+    centre), ``clique`` (every two members paired) or ``components`` (chains included).
+    Ties fall to the smaller label, as they fall to the smaller item number in
+    ``waymark groups``, so the groups of an index's pairs given by item number are the
+    command's. Returns ``(members, centre)`` per group: members ascending, the centre under
+    ``centre`` (else ``None``), groups ordered by their smallest member; labels only paired
+    with themselves are left out unless ``singletons``. Raises ``BadInputError`` for lists
+    of different lengths, a distance that is not finite and at least 0, or an unknown
+    grouping."""
+
 def open(
     path: str | PathLike[str],
     *,

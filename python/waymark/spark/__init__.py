@@ -4,7 +4,13 @@ This part of the package needs ``pyspark`` (``pip install pyspark``; Spark 4 nee
 later). Importing ``waymark`` does not import it; importing ``waymark.spark`` does.
 
 - :func:`connected_components`: the groups of an edge list (pairs of ids), computed in Spark
-  by alternating large-star and small-star rounds, never collected onto the driver.
+  by alternating large-star and small-star rounds, never collected onto the driver;
+- :func:`groups`: the groups of near-duplicates that a DataFrame of pairs makes, by the rules
+  of ``waymark groups`` (``centre``, ``clique``, ``components``), with the same answers.
+
+The Python workers that Spark starts must import ``waymark`` too: on a cluster, install the
+package on every executor; in local mode, point ``PYSPARK_PYTHON`` at the interpreter that has
+it (for example ``sys.executable``).
 """
 
 try:
@@ -15,5 +21,6 @@ except ImportError as err:  # pragma: no cover - depends on the environment
     ) from err
 
 from .components import connected_components
+from .grouping import groups
 
-__all__ = ["connected_components"]
+__all__ = ["connected_components", "groups"]
