@@ -343,7 +343,11 @@ impl Columns {
 
     /// The runs of blocks in `blocks` whose box bound against `t` is at most `t.hi`, in
     /// order, consecutive runs joined: the kernels compare only these.
-    fn alive(&self, t: &Threshold<'_>, blocks: std::ops::Range<usize>) -> Vec<std::ops::Range<usize>> {
+    fn alive(
+        &self,
+        t: &Threshold<'_>,
+        blocks: std::ops::Range<usize>,
+    ) -> Vec<std::ops::Range<usize>> {
         let mut out: Vec<std::ops::Range<usize>> = Vec::new();
         if t.hi == u8::MAX || self.boxes.is_empty() {
             if !blocks.is_empty() {
@@ -958,10 +962,7 @@ mod tests {
                         .map(|(i, &b)| (i as u32, b))
                         .collect();
                     assert!(expect.iter().any(|&(i, _)| i as usize == near) || hi < 1);
-                    for level in crate::cpu::Level::ALL
-                        .into_iter()
-                        .filter(|l| l.available())
-                    {
+                    for level in crate::cpu::Level::ALL.into_iter().filter(|l| l.available()) {
                         let mut got = Vec::new();
                         cols.within_many_at(level, &[t], 0..cols.blocks, |_, i, b| {
                             got.push((i, b))

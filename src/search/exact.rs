@@ -253,7 +253,11 @@ impl Searcher<'_> {
                         .into_par_iter()
                         .map(|i| {
                             let key = self.keys.get(i);
-                            (LevenshteinQuery::item_len(key) as u32, b.counts(key), i as u32)
+                            (
+                                LevenshteinQuery::item_len(key) as u32,
+                                b.counts(key),
+                                i as u32,
+                            )
                         })
                         .collect();
                     keyed.par_sort_unstable();

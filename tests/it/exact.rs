@@ -327,7 +327,11 @@ fn box_skipping_keeps_exact_and_range_answers_on_a_large_sample() {
         check_certificate(&idx, &got, Some(10), None);
         for r in 1..=3 {
             let got = s.search_within(q, r as f64, None, &mut scratch).unwrap();
-            assert_eq!(got.neighbors, within_by_strsim(&idx, q, r), "query {q} R {r}");
+            assert_eq!(
+                got.neighbors,
+                within_by_strsim(&idx, q, r),
+                "query {q} R {r}"
+            );
             check_certificate(&idx, &got, None, Some(r as f64));
         }
     }
@@ -336,6 +340,10 @@ fn box_skipping_keeps_exact_and_range_answers_on_a_large_sample() {
         k: None,
     };
     for (q, got) in queries.iter().zip(s.answer_many(&queries, &req)) {
-        assert_eq!(got.unwrap().neighbors, within_by_strsim(&idx, q, 2), "query {q}");
+        assert_eq!(
+            got.unwrap().neighbors,
+            within_by_strsim(&idx, q, 2),
+            "query {q}"
+        );
     }
 }
