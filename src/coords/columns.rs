@@ -16,6 +16,10 @@
 //! measured per exact 10-NN query from 37,471 to 4,004 (`WAYMARK_BIG_PROFILE=exact cargo
 //! bench --bench big`).
 //!
+//! Every run of [`BOX_BLOCKS`] blocks also has a box (per column, the smallest and the
+//! largest value of its items), whose bound is at most that of each of its items: a run
+//! whose box is beyond the threshold is skipped before its columns are read.
+//!
 //! Hand-written: no crate offers a thresholded column-blocked L∞ kernel over u8 columns.
 //! The AVX2 form (one block per register) and the AVX-512 form (two blocks per register)
 //! are chosen at run time through [`crate::cpu::Level`]; the portable form gives identical
@@ -50,7 +54,7 @@ pub struct Threshold<'a> {
 /// Bytes of one block's share of one group.
 const CHUNK: usize = GROUP * BLOCK;
 /// Blocks per box: every run of this many blocks has, per column, the smallest and the
-/// largest value of its items ([`Columns::boxes`]), which bound every item of the run
+/// largest value of its items (its box, made by [`Columns::build`]), which bound every item of the run
 /// from below; a run whose box bound exceeds the threshold is skipped without reading
 /// its columns.
 pub const BOX_BLOCKS: usize = 4;

@@ -2,7 +2,8 @@
 //! can belong to the answer.
 //!
 //! Every item's stored L∞ bound is compared with a threshold in one SIMD pass over the
-//! column blocks ([`crate::coords::columns::Columns`], made on the first exact query), and
+//! column blocks ([`crate::coords::columns::Columns`], made on the first exact query; runs
+//! of 128 items whose box lies beyond the threshold are skipped whole), and
 //! the items within it are collected by bound. Items are then visited bound by bound,
 //! smallest first, and measured with the bounded kernel (bound: the current k-th distance
 //! or the radius), until the smallest remaining bound exceeds the k-th distance. In the
