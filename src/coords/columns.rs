@@ -16,6 +16,10 @@
 //! measured per exact 10-NN query from 37,471 to 4,004 (`WAYMARK_BIG_PROFILE=exact cargo
 //! bench --bench big`).
 //!
+//! Every run of [`BOX_BLOCKS`] blocks also has a box (per column, the smallest and the
+//! largest value of its items), whose bound is at most that of each of its items: a run
+//! whose box is beyond the threshold is skipped before its columns are read.
+//!
 //! Hand-written: no crate offers a thresholded column-blocked L∞ kernel over u8 columns.
 //! The AVX2 form (one block per register) and the AVX-512 form (two blocks per register)
 //! are chosen at run time through [`crate::cpu::Level`]; the portable form gives identical
@@ -49,6 +53,11 @@ pub struct Threshold<'a> {
 }
 /// Bytes of one block's share of one group.
 const CHUNK: usize = GROUP * BLOCK;
+/// Blocks per box: every run of this many blocks has, per column, the smallest and the
+/// largest value of its items (its box, made by [`Columns::build`]), which bound every item of the run
+/// from below; a run whose box bound exceeds the threshold is skipped without reading
+/// its columns.
+pub const BOX_BLOCKS: usize = 4;
 
 /// Number of char-count columns ([`CharBins`]): two groups.
 pub const BINS: usize = 16;
@@ -199,6 +208,9 @@ pub struct Columns {
     data: Vec<u8>,
     /// Each item's char signature, when given.
     sigs: Option<Vec<u64>>,
+    /// Per run of [`BOX_BLOCKS`] blocks, `2 · cols` bytes: each column's smallest value
+    /// over the run's items, then each column's largest.
+    boxes: Vec<u8>,
 }
 
 impl Columns {
@@ -266,7 +278,7 @@ impl Columns {
                     }
                 }
             });
-        Columns {
+        let mut c = Columns {
             cols,
             groups,
             count_groups: count_cols / GROUP,
@@ -274,7 +286,92 @@ impl Columns {
             n,
             data,
             sigs,
+            boxes: Vec::new(),
+        };
+        c.boxes = c.make_boxes();
+        c
+    }
+
+    /// The boxes of every run of [`BOX_BLOCKS`] blocks, from the laid-out columns (lanes
+    /// past the last item left out).
+    fn make_boxes(&self) -> Vec<u8> {
+        let bb = BOX_BLOCKS;
+        let runs = self.blocks.div_ceil(bb);
+        let cols = self.cols;
+        let mut boxes = vec![0u8; runs * 2 * cols];
+        boxes
+            .par_chunks_mut((2 * cols).max(1))
+            .enumerate()
+            .for_each(|(r, bx)| {
+                let (lo, hi) = bx.split_at_mut(cols);
+                lo.fill(u8::MAX);
+                hi.fill(0);
+                let first = r * bb;
+                for b in first..(first + bb).min(self.blocks) {
+                    let lanes = BLOCK.min(self.n - b * BLOCK);
+                    for j in 0..cols {
+                        let chunk = self.chunk(j / GROUP, b);
+                        let col = &chunk[(j % GROUP) * BLOCK..][..lanes];
+                        for &v in col {
+                            lo[j] = lo[j].min(v);
+                            hi[j] = hi[j].max(v);
+                        }
+                    }
+                }
+            });
+        boxes
+    }
+
+    /// The lower bound that box `r` gives every item of its blocks against `q`: the count
+    /// bound of the box (each bin's count of an item is within the box, so
+    /// `Σ (min − q)⁺ ≤ Σ (A − q)⁺` and `Σ (q − max)⁺ ≤ Σ (q − A)⁺`) and the largest
+    /// distance from a query value to a column's interval, saturated as the kernels are.
+    #[inline]
+    fn box_bound(&self, r: usize, q: &[u8]) -> u8 {
+        let cols = self.cols;
+        let bx = &self.boxes[r * 2 * cols..(r + 1) * 2 * cols];
+        let (lo, hi) = bx.split_at(cols);
+        let counted = self.count_groups * GROUP;
+        // At most 16 · 255 each: no overflow in u16.
+        let (mut up, mut down) = (0u16, 0u16);
+        for ((&l, &h), &v) in lo[..counted].iter().zip(&hi[..counted]).zip(&q[..counted]) {
+            up += u16::from(l.saturating_sub(v));
+            down += u16::from(v.saturating_sub(h));
         }
+        let mut m = up.max(down).min(255) as u8;
+        for ((&l, &h), &v) in lo[counted..].iter().zip(&hi[counted..]).zip(&q[counted..]) {
+            m = m.max(l.saturating_sub(v)).max(v.saturating_sub(h));
+        }
+        m
+    }
+
+    /// The runs of blocks in `blocks` whose box bound against `t` is at most `t.hi`, in
+    /// order, consecutive runs joined: the kernels compare only these.
+    fn alive(
+        &self,
+        t: &Threshold<'_>,
+        blocks: std::ops::Range<usize>,
+    ) -> Vec<std::ops::Range<usize>> {
+        let mut out: Vec<std::ops::Range<usize>> = Vec::new();
+        if t.hi == u8::MAX || self.boxes.is_empty() {
+            if !blocks.is_empty() {
+                out.push(blocks);
+            }
+            return out;
+        }
+        let mut b = blocks.start;
+        while b < blocks.end {
+            let r = b / BOX_BLOCKS;
+            let end = ((r + 1) * BOX_BLOCKS).min(blocks.end);
+            if self.box_bound(r, t.q) <= t.hi {
+                match out.last_mut() {
+                    Some(last) if last.end == b => last.end = end,
+                    _ => out.push(b..end),
+                }
+            }
+            b = end;
+        }
+        out
     }
 
     /// Block `b`'s share of group `g`: eight columns of [`BLOCK`] bytes.
@@ -380,7 +477,9 @@ impl Columns {
         while at < blocks.end {
             let end = (at + TILE).min(blocks.end);
             for (j, t) in qs.iter().enumerate() {
-                self.blocks_portable(t, at..end, &mut |i, b| found(j, i, b));
+                for run in self.alive(t, at..end) {
+                    self.blocks_portable(t, run, &mut |i, b| found(j, i, b));
+                }
             }
             at = end;
         }
@@ -487,7 +586,9 @@ mod avx2 {
         while at < range.end {
             let end = (at + TILE).min(range.end);
             for (j, (t, qv)) in qs.iter().zip(&prepared).enumerate() {
-                blocks(c, qv, t, at..end, &mut |i, b| found(j, i, b));
+                for run in c.alive(t, at..end) {
+                    blocks(c, qv, t, run, &mut |i, b| found(j, i, b));
+                }
             }
             at = end;
         }
@@ -582,7 +683,9 @@ mod avx512 {
         while at < range.end {
             let end = (at + TILE).min(range.end);
             for (j, (t, qv)) in qs.iter().zip(&prepared).enumerate() {
-                blocks(c, qv, t, at..end, &mut |i, b| found(j, i, b));
+                for run in c.alive(t, at..end) {
+                    blocks(c, qv, t, run, &mut |i, b| found(j, i, b));
+                }
             }
             at = end;
         }
@@ -806,6 +909,72 @@ mod tests {
                 .filter(|&(_, b)| b > 1 && b <= hi)
                 .collect();
             assert_eq!(got, expect, "hi {hi}");
+        }
+    }
+
+    #[test]
+    fn boxes_skip_only_runs_with_no_item_within_the_threshold() {
+        let mut next = lcg(4242);
+        // Runs of BOX_BLOCKS blocks around centres far apart, so that most boxes are
+        // skipped; the last run is part-filled.
+        let run = BOX_BLOCKS * BLOCK;
+        let (n, stride, dim) = (9 * run + 37, 24, 20);
+        let centre = |i: usize| ((i / run) * 25 % 200) as u8;
+        let coords: Vec<u8> = (0..n * stride)
+            .map(|at| centre(at / stride) + next() % 6)
+            .collect();
+        let counts: Vec<[u8; BINS]> = (0..n)
+            .map(|i| std::array::from_fn(|j| (i / run + j) as u8 % 5 + next() % 3))
+            .collect();
+        for counts in [None, Some(&counts[..])] {
+            let cols = Columns::build(Parts {
+                coords: &coords,
+                positions: None,
+                stride,
+                dim,
+                counts,
+                sigs: None,
+            });
+            for near in [0, 3 * run + 5, n - 1] {
+                let mut q: Vec<u8> = Vec::new();
+                if let Some(c) = counts {
+                    q.extend_from_slice(&c[near]);
+                }
+                q.extend((0..dim).map(|c| coords[near * stride + c].saturating_add(1)));
+                let want = direct(&coords, stride, dim, counts, &q);
+                for hi in [0u8, 2, 5, 9] {
+                    let t = Threshold {
+                        q: &q,
+                        lo: None,
+                        hi,
+                        sig: 0,
+                    };
+                    // Every box bound is at most the bound of each item of its run.
+                    for r in 0..cols.blocks.div_ceil(BOX_BLOCKS) {
+                        let items = r * run..((r + 1) * run).min(n);
+                        let least = want[items].iter().min().copied().unwrap_or(255);
+                        assert!(cols.box_bound(r, &q) <= least, "run {r}");
+                    }
+                    let alive: usize = cols.alive(&t, 0..cols.blocks).iter().map(|r| r.len()).sum();
+                    if hi <= 5 {
+                        assert!(alive < cols.blocks / 2, "boxes skip most runs: {alive}");
+                    }
+                    let expect: Vec<(u32, u8)> = want
+                        .iter()
+                        .enumerate()
+                        .filter(|&(_, &b)| b <= hi)
+                        .map(|(i, &b)| (i as u32, b))
+                        .collect();
+                    assert!(expect.iter().any(|&(i, _)| i as usize == near) || hi < 1);
+                    for level in crate::cpu::Level::ALL.into_iter().filter(|l| l.available()) {
+                        let mut got = Vec::new();
+                        cols.within_many_at(level, &[t], 0..cols.blocks, |_, i, b| {
+                            got.push((i, b))
+                        });
+                        assert_eq!(got, expect, "{level:?} hi {hi} near {near}");
+                    }
+                }
+            }
         }
     }
 

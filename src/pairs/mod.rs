@@ -137,7 +137,7 @@ struct ColumnsJoin {
 
 /// What a join reads to find each item's near items.
 enum Finder<'a> {
-    Columns(ColumnsJoin),
+    Columns(Box<ColumnsJoin>),
     Variants {
         table: Table<'a>,
         /// Each item's position in the join's order.
@@ -233,7 +233,7 @@ impl<'a> SelfJoin<'a> {
                 (Finder::Variants { table, pos }, path)
             }
             None => (
-                Finder::Columns(Self::columns_for(index, &order, bound, by_length)),
+                Finder::Columns(Box::new(Self::columns_for(index, &order, bound, by_length))),
                 JoinPath::Columns,
             ),
         };

@@ -87,7 +87,7 @@ pub struct Searcher<'a> {
     sketches: OnceLock<Vec<f64>>,
     /// The coordinates in column blocks for exact queries, made on the first one, with the
     /// char bins of their count columns when they have them.
-    columns: OnceLock<(Columns, Option<CharBins>)>,
+    columns: OnceLock<(Columns, Option<CharBins>, Vec<u32>)>,
 }
 
 /// A query prepared for the index: its key (normalised bytes), its prepared form and its

@@ -298,3 +298,52 @@ fn cli_bad_exact_usage_exits_2() {
             .code(2);
     }
 }
+
+/// Open data: every other word of Debian's `wamerican` list (/usr/share/dict/american-english,
+/// over 50,000 words, so the index has cells and the column blocks skip whole runs of
+/// items by their boxes): exact k = 10 (ties included) and range R = 1, 2, 3 give what
+/// strsim's brute force gives (a reference crate), one query at a time and in blocks,
+/// with consistent certificates.
+#[test]
+fn box_skipping_keeps_exact_and_range_answers_on_a_large_sample() {
+    let all = read_corpus(word_list_path(), &IngestOptions::default()).unwrap();
+    let items: Vec<String> = all.items.iter().step_by(2).cloned().collect();
+    assert!(items.len() >= 50_000);
+    let dir = tempfile::tempdir().unwrap();
+    let idx = build(&corpus(&items), 64, &dir);
+    assert!(idx.cells().unwrap().is_some(), "the index has cells");
+    let s = Searcher::new(&idx);
+    let mut queries = waymark::eval::typo_queries(&items, 24, 17);
+    // Queries far from every word and near many: the boxes skip all runs, or few.
+    queries.push("zzzzzzzzzzzzzzzzzzzzzzzzzzzzzzzzzz".into());
+    queries.push("e".into());
+    queries.push("ses".into());
+    let mut scratch = Default::default();
+    for q in &queries {
+        let mut want = within_by_strsim(&idx, q, usize::MAX);
+        want.truncate(10);
+        let got = s.search_exact(q, 10, &mut scratch).unwrap();
+        assert_eq!(got.neighbors, want, "query {q}");
+        check_certificate(&idx, &got, Some(10), None);
+        for r in 1..=3 {
+            let got = s.search_within(q, r as f64, None, &mut scratch).unwrap();
+            assert_eq!(
+                got.neighbors,
+                within_by_strsim(&idx, q, r),
+                "query {q} R {r}"
+            );
+            check_certificate(&idx, &got, None, Some(r as f64));
+        }
+    }
+    let req = waymark::search::Request::Within {
+        radius: 2.0,
+        k: None,
+    };
+    for (q, got) in queries.iter().zip(s.answer_many(&queries, &req)) {
+        assert_eq!(
+            got.unwrap().neighbors,
+            within_by_strsim(&idx, q, 2),
+            "query {q}"
+        );
+    }
+}
