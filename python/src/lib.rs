@@ -859,6 +859,7 @@ fn for_these(
     }
 }
 
+#[allow(clippy::too_many_arguments)]
 fn request(
     index: &Index,
     k: Option<usize>,
