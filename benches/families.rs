@@ -172,6 +172,13 @@ fn main() {
                 .collect()
         })
         .unwrap_or_default();
+    let cal_opts = CalibrateOptions {
+        queries: std::env::var("WAYMARK_FAMILIES_CAL_QUERIES")
+            .ok()
+            .and_then(|v| v.parse().ok())
+            .unwrap_or(waymark::eval::calibrate::CALIBRATION_QUERIES),
+        ..CalibrateOptions::default()
+    };
     let fams = families(nq, &wanted);
     if fams.is_empty() {
         eprintln!("no family to run: install the word lists (see the top of benches/families.rs)");
@@ -204,7 +211,7 @@ fn main() {
                 let t = Instant::now();
                 if curves {
                     let index = Index::open(&path).expect("open");
-                    let cal = calibrate_from_items(&index, &CalibrateOptions::default())
+                    let cal = calibrate_from_items(&index, &cal_opts)
                         .expect("calibration")
                         .expect("items enough");
                     let meta = index.meta().clone();
@@ -281,11 +288,25 @@ fn main() {
                 calibrate_from_queries(&index, &f.calibration, cal_truth, K, "calibration set")
                     .expect("calibration from queries");
             for r in ASKED {
-                let (p, _) = SearchParams::recall_choice(&index, K, r).expect("curve");
+                let (p, _) =
+                    SearchParams::recall_choice_for(&index, K, r, &f.heldout).expect("curve");
                 let got = measure_recall(&index, &f.heldout, &held_truth, &p).expect("measure");
-                let (pq, _) =
-                    SearchParams::recall_choice_on(&index, K, &from_queries, r).expect("curve");
+                let lengths = f.heldout.iter().map(|q| q.chars().count());
+                let (pq, _) = SearchParams::recall_choice_on(
+                    &index,
+                    K,
+                    &from_queries.for_lengths(lengths),
+                    r,
+                )
+                .expect("curve");
                 let gq = measure_recall(&index, &f.heldout, &held_truth, &pq).expect("measure");
+                // The build's curve as it is, not weighed by the queries' lengths.
+                let (pw, _) = SearchParams::recall_choice(&index, K, r).expect("curve");
+                let gw = measure_recall(&index, &f.heldout, &held_truth, &pw).expect("measure");
+                println!(
+                    "  R = {r}: edits curve unweighed {} {:.4}, weighed {} {:.4}; queries curve weighed {} {:.4}",
+                    pw.candidates, gw.recall, p.candidates, got.recall, pq.candidates, gq.recall
+                );
                 cells.push(format!(
                     "{} {:.4} / {} {:.4}",
                     p.candidates, got.recall, pq.candidates, gq.recall

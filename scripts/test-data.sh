@@ -9,7 +9,7 @@ cd "$(dirname "$0")/.."
 export DEBIAN_FRONTEND=noninteractive
 if [ ! -f /usr/share/dict/american-english ]; then
   if [ "$(id -u)" = 0 ]; then
-    apt-get update -qq && apt-get install -y -qq wamerican >/dev/null
+    apt-get update -qq && apt-get install -y -qq wamerican wbritish >/dev/null
   else
     echo "scripts/test-data.sh: install Debian's word list first: sudo apt-get install -y wamerican" >&2
     exit 1

@@ -842,6 +842,24 @@ type ManyAnswers<'py> = (Bound<'py, PyArray2<i64>>, Bound<'py, PyArray2<f64>>);
 
 /// What to ask, from the keyword arguments of `query` and `query_many`.
 #[allow(clippy::too_many_arguments)]
+/// `req` with the candidates an asked `recall` needs for these queries: the curve weighed
+/// by their lengths (`SearchParams::recall_choice_for`); other requests as they are.
+fn for_these(
+    index: &Index,
+    req: Request,
+    recall: Option<f64>,
+    texts: &[String],
+) -> PyResult<Request> {
+    match (req, recall) {
+        (Request::Approximate(p), Some(r)) if !texts.is_empty() => {
+            let (q, _) = SearchParams::recall_choice_for(index, p.k, r, texts).map_err(py_err)?;
+            Ok(Request::Approximate(q))
+        }
+        (req, _) => Ok(req),
+    }
+}
+
+#[allow(clippy::too_many_arguments)]
 fn request(
     index: &Index,
     k: Option<usize>,
@@ -1077,6 +1095,7 @@ impl PyIndex {
             within_fraction,
         )?;
         let text = query_text(index, query)?;
+        let req = for_these(index, req, recall, std::slice::from_ref(&text))?;
         let searcher = self.searcher();
         let found = py
             .detach(|| {
@@ -1136,6 +1155,7 @@ impl PyIndex {
             within_fraction,
         )?;
         let texts = self.query_texts(queries)?;
+        let req = for_these(index, req, recall, &texts)?;
         let searcher = self.searcher();
         let n = texts.len();
         let result = py.detach(|| -> Result<(Vec<i64>, Vec<f64>), Error> {
@@ -1208,7 +1228,8 @@ impl PyIndex {
                     "recall chooses the candidates itself: it does not combine with space, candidates_from or visit",
                 ));
             }
-            let (p, choice) = SearchParams::recall_choice(index, k, r).map_err(py_err)?;
+            let (p, choice) =
+                SearchParams::recall_choice_for(index, k, r, &texts).map_err(py_err)?;
             settings.push(p);
             asked.push((r, choice));
         }

@@ -214,7 +214,9 @@ class Index:
 
         By default the ``k`` (10) nearest, approximately, with the index's stored defaults;
         ``recall=R`` (0 < R < 1) chooses the candidates from the index's recall curve, as
-        ``waymark query --recall``; ``candidates``, ``space``, ``candidates_from``,
+        ``waymark query --recall`` (the curve weighed by the query's length; in
+        ``query_many``, by the lengths of all the queries): a mean threshold recall@10 over
+        queries like the build's edited items, not a promise for each query; ``candidates``, ``space``, ``candidates_from``,
         ``visit`` and ``widen`` tune the approximate search. ``exact=True``: the exact k nearest (what a
         brute force returns). ``within=R``: every item at distance at most R, exactly, or
         only the ``k`` nearest of them when ``k`` is given. ``within_fraction=F``: every item

@@ -133,7 +133,7 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
         let mut asked: Vec<(f64, RecallChoice)> = Vec::new();
         let mut settings = settings;
         for &r in &a.recall {
-            let (p, choice) = SearchParams::recall_choice(index, a.k, r)?;
+            let (p, choice) = SearchParams::recall_choice_for(index, a.k, r, &queries)?;
             asked.push((r, choice));
             settings.push(p);
         }

@@ -36,32 +36,42 @@ const READ_BUFFER: usize = 256 * 1024;
 pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
     let index = Index::open(&a.index)?;
     super::announce_program(&index, a.quiet_metric);
-    let mut params = SearchParams::from_index(&index, a.k.unwrap_or(10));
-    if let Some(r) = a.recall {
-        let (p, choice) = SearchParams::recall_choice(&index, params.k, r)?;
-        if !choice.reached {
-            eprintln!(
-                "waymark: warning: {}: the index's recall curve stops at {:.3} ({} candidates, \
-                 used here), below the {r} asked; give more --candidates for more, or ask \
-                 --exact for every true neighbour",
-                a.index.display(),
-                choice.expected,
-                choice.candidates
-            );
+    let k = a.k.unwrap_or(10);
+    // With --recall the candidates follow the curve weighed by the lengths of the queries
+    // answered together (each block); the other options apply on top.
+    let mut warned = false;
+    let choose = |texts: &[String], warned: &mut bool| -> anyhow::Result<SearchParams> {
+        let mut params = SearchParams::from_index(&index, k);
+        if let Some(r) = a.recall {
+            let (p, choice) = SearchParams::recall_choice_for(&index, k, r, texts)?;
+            if !choice.reached && !*warned {
+                *warned = true;
+                eprintln!(
+                    "waymark: warning: {}: the index's recall curve stops at {:.3} ({} \
+                     candidates, used here), below the {r} asked; give more --candidates for \
+                     more, or ask --exact for every true neighbour",
+                    a.index.display(),
+                    choice.expected,
+                    choice.candidates
+                );
+            }
+            params = p;
         }
-        params = p;
-    }
-    if let Some(c) = a.candidates {
-        params = params.with_candidates(c);
-    }
-    if let Some(v) = a.visit {
-        params.visit = v;
-    }
-    params.widen = a.widen.unwrap_or(params.widen);
-    if let Some(s) = a.space {
-        params.space = s.into();
-    }
-    params.source = a.candidates_from.map_or(params.source, Into::into);
+        if let Some(c) = a.candidates {
+            params = params.with_candidates(c);
+        }
+        if let Some(v) = a.visit {
+            params.visit = v;
+        }
+        params.widen = a.widen.unwrap_or(params.widen);
+        if let Some(s) = a.space {
+            params.space = s.into();
+        }
+        params.source = a.candidates_from.map_or(params.source, Into::into);
+        Ok(params)
+    };
+    // Checked (and a curve refused) before any query is read.
+    let params = choose(&[], &mut true)?;
     let request = match (a.within, a.within_fraction, a.exact) {
         (Some(radius), _, _) => Request::Within { radius, k: a.k },
         // Each query's radius follows from its length; the check takes radius 0.
@@ -111,7 +121,11 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
         }
         let answers = match fraction {
             Some(f) => lookup_within(&searcher, &texts, f, a.k),
-            None => searcher.answer_many(&texts, &request),
+            None => match (&request, a.recall) {
+                (Request::Approximate(_), Some(_)) if !texts.is_empty() => searcher
+                    .answer_many(&texts, &Request::Approximate(choose(&texts, &mut warned)?)),
+                _ => searcher.answer_many(&texts, &request),
+            },
         }
         .into_iter();
         let answers: Vec<_> = answers.collect();

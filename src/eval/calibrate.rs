@@ -35,7 +35,7 @@ use rayon::prelude::*;
 use super::recall::{edits_of, threshold_recall};
 use super::truth::Truth;
 use crate::error::{Error, Result};
-use crate::index::{Calibration, CalibrationPoint, Index};
+use crate::index::{Calibration, CalibrationBand, CalibrationPoint, Index};
 use crate::metric::MetricKind;
 use crate::search::{
     CandidateSource, Found, Neighbor, Request, SearchParams, Searcher, VISIT_PER_CANDIDATE,
@@ -111,10 +111,11 @@ fn ladder(
     queries: usize,
     answer: impl Fn(&SearchParams, &[usize]) -> Vec<Result<Found>>,
     score: impl Fn(usize, &Found) -> f64 + Sync,
-) -> Result<Vec<CalibrationPoint>> {
+) -> Result<Ladder> {
     let n = index.len();
     let base = SearchParams::from_index(index, k);
     let mut points = Vec::new();
+    let mut each = Vec::new();
     let mut complete = vec![false; queries];
     for &c in LADDER.iter() {
         let c = c.min(n);
@@ -127,23 +128,81 @@ fn ladder(
         let p = level(&base, c, n);
         let open: Vec<usize> = (0..queries).filter(|&j| !complete[j]).collect();
         let found = answer(&p, &open);
-        let mut sum = (queries - open.len()) as f64;
+        let mut recalls = vec![1.0; queries];
         for (&j, f) in open.iter().zip(found) {
             let r = score(j, &f?);
             complete[j] = r >= 1.0;
-            sum += r;
+            recalls[j] = r;
         }
-        let recall = sum / queries.max(1) as f64;
+        let recall = recalls.iter().sum::<f64>() / queries.max(1) as f64;
         points.push(CalibrationPoint {
             candidates: c as u64,
             visit: p.visit as u64,
             recall,
         });
+        each.push(recalls);
         if recall >= STOP_RECALL || c >= n {
             break;
         }
     }
-    Ok(points)
+    Ok(Ladder { points, each })
+}
+
+/// What [`ladder`] measured: the curve, and each query's recall at each of its points.
+struct Ladder {
+    points: Vec<CalibrationPoint>,
+    /// `each[level][query]`.
+    each: Vec<Vec<f64>>,
+}
+
+/// Length bands a curve is split into, at most.
+pub const BANDS: usize = 4;
+
+/// Calibration queries a length band holds at least.
+pub const BAND_QUERIES: usize = 60;
+
+/// The curve split by query length (`lengths[j]` chars for query j): up to [`BANDS`] bands
+/// of about equal numbers of queries (at least [`BAND_QUERIES`] each), cut between distinct
+/// lengths. No bands (the curve as it is) when there are too few queries to split.
+fn length_bands(lengths: &[usize], ladder: &Ladder) -> Vec<CalibrationBand> {
+    let count = BANDS.min(lengths.len() / BAND_QUERIES);
+    if count < 2 {
+        return Vec::new();
+    }
+    let mut sorted = lengths.to_vec();
+    sorted.sort_unstable();
+    // Cuts at the quantiles, kept only where both sides hold enough queries.
+    let mut starts: Vec<usize> = vec![0];
+    for b in 1..count {
+        let cut = sorted[sorted.len() * b / count];
+        let last = *starts.last().expect("starts with 0");
+        let below = sorted.partition_point(|&l| l < cut) - sorted.partition_point(|&l| l < last);
+        let above = sorted.len() - sorted.partition_point(|&l| l < cut);
+        if cut > last && below >= BAND_QUERIES && above >= BAND_QUERIES {
+            starts.push(cut);
+        }
+    }
+    if starts.len() < 2 {
+        return Vec::new();
+    }
+    let band_of = |len: usize| starts.iter().rposition(|&s| s <= len).unwrap_or(0);
+    let mut members = vec![Vec::new(); starts.len()];
+    for (j, &len) in lengths.iter().enumerate() {
+        members[band_of(len)].push(j);
+    }
+    starts
+        .iter()
+        .zip(&members)
+        .map(|(&from, js)| CalibrationBand {
+            from_chars: from as u64,
+            queries: js.len() as u64,
+            recall: ladder
+                .each
+                .iter()
+                .map(|level| js.iter().map(|&j| level[j]).sum::<f64>() / js.len() as f64)
+                .collect(),
+        })
+        .collect()
 }
 
 /// `neighbors` without the query item `me` (the last one instead when `me` is not among
@@ -233,7 +292,7 @@ pub fn calibrate_from_items(index: &Index, opts: &CalibrateOptions) -> Result<Op
         .zip(&picked)
         .map(|(t, &me)| without(t, me, k).iter().map(|n| n.distance).collect())
         .collect();
-    let points = ladder(
+    let measured = ladder(
         index,
         k,
         picked.len(),
@@ -253,7 +312,8 @@ pub fn calibrate_from_items(index: &Index, opts: &CalibrateOptions) -> Result<Op
         file: None,
         queries: picked.len() as u64,
         seed: opts.seed,
-        points,
+        points: measured.points,
+        bands: Vec::new(),
     }))
 }
 
@@ -346,7 +406,7 @@ pub fn calibrate_from_queries(
         .iter()
         .map(|t| t.iter().take(k).map(|n| n.distance).collect())
         .collect();
-    let points = ladder(
+    let measured = ladder(
         index,
         k,
         queries.len(),
@@ -356,13 +416,21 @@ pub fn calibrate_from_queries(
         },
         |j, f| threshold_recall(&dists[j], &pairs(&f.neighbors), k),
     )?;
+    // Bands by length where a query is text whose length means something.
+    let bands = if edits_make_queries(index.meta().metric).is_some() {
+        let lengths: Vec<usize> = queries.iter().map(|q| q.chars().count()).collect();
+        length_bands(&lengths, &measured)
+    } else {
+        Vec::new()
+    };
     Ok(Calibration {
         k: k as u64,
         from: "queries".into(),
         file: Some(file.to_string()),
         queries: queries.len() as u64,
         seed: 0,
-        points,
+        points: measured.points,
+        bands,
     })
 }
 

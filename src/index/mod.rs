@@ -35,7 +35,7 @@ pub use build::{
     build_index, build_index_from, build_index_with, build_index_with_metric, open_metric,
     store_calibration, BuildOptions, BuildProgress, BuildReport, BuildStage, AXIOM_SAMPLE,
 };
-pub use calibration::{Calibration, CalibrationPoint, RecallChoice};
+pub use calibration::{Calibration, CalibrationBand, CalibrationPoint, RecallChoice};
 use file::{Section, SectionKind};
 pub use install::install_index;
 pub use rows::Rows;

@@ -106,12 +106,43 @@ impl SearchParams {
     }
 
     /// [`SearchParams::for_recall`] with what the curve chose (the recall it predicts, and
-    /// whether it reaches the asked one).
+    /// whether it reaches the asked one), for queries of the lengths the calibration had.
     pub fn recall_choice(
         index: &Index,
         k: usize,
         recall: f64,
     ) -> Result<(SearchParams, RecallChoice)> {
+        Self::recall_choice_on(index, k, Self::curve(index, recall)?, recall)
+    }
+
+    /// [`SearchParams::recall_choice`] for the queries about to be asked: the curve is
+    /// weighed by their lengths ([`Calibration::for_lengths`]), so that a set of long
+    /// queries gets the candidates that long queries need. A curve without length bands
+    /// (other metrics, older files) is used as it is.
+    ///
+    /// ```no_run
+    /// use waymark::index::Index;
+    /// use waymark::search::{SearchParams, Searcher};
+    ///
+    /// let index = Index::open("words.wmk".as_ref())?;
+    /// let queries = ["harbuor", "lighthosue keeper"];
+    /// let (params, choice) = SearchParams::recall_choice_for(&index, 10, 0.95, &queries)?;
+    /// println!("{} candidates, expected recall {:.3}", params.candidates, choice.expected);
+    /// # Ok::<(), waymark::Error>(())
+    /// ```
+    pub fn recall_choice_for<S: AsRef<str>>(
+        index: &Index,
+        k: usize,
+        recall: f64,
+        queries: &[S],
+    ) -> Result<(SearchParams, RecallChoice)> {
+        let cal = Self::curve(index, recall)?;
+        let mixed = cal.for_lengths(queries.iter().map(|q| q.as_ref().chars().count()));
+        Self::recall_choice_on(index, k, &mixed, recall)
+    }
+
+    /// The index's curve, checked; refused with advice when it has none.
+    fn curve(index: &Index, recall: f64) -> Result<&Calibration> {
         check_recall(recall)?;
         let cal = index.meta().calibration.as_ref().ok_or_else(|| {
             Error::Usage(format!(
@@ -124,11 +155,14 @@ impl SearchParams {
                 index.path().display()
             ))
         })?;
-        Self::recall_choice_on(index, k, cal, recall)
+        cal.check()
+            .map_err(|m| Error::corrupt(index.path(), format!("metadata: {m}")))?;
+        Ok(cal)
     }
 
     /// [`SearchParams::recall_choice`] with a curve given here rather than the index's
-    /// (for instance one measured on other queries, [`crate::eval::calibrate_from_queries`]).
+    /// (for instance one measured on other queries, [`crate::eval::calibrate_from_queries`],
+    /// or weighed by lengths, [`Calibration::for_lengths`]).
     pub fn recall_choice_on(
         index: &Index,
         k: usize,
