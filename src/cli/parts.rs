@@ -13,7 +13,7 @@ pub(super) fn add(a: AddArgs) -> anyhow::Result<()> {
     let t0 = Instant::now();
     crate::index::file::refuse_input_as_output(&a.index, &a.input.files())?;
     let source = a.input.source();
-    let LoadedInput { corpus, .. } = a.input.load(Some(&a.ids))?;
+    let LoadedInput { corpus, spec, .. } = a.input.load(Some(&a.ids))?;
     let ids = if a.ids.given() {
         NewIds::Given
     } else {
@@ -23,6 +23,7 @@ pub(super) fn add(a: AddArgs) -> anyhow::Result<()> {
         &a.index,
         corpus,
         &source,
+        spec,
         a.input.normalize(),
         ids,
         a.input.files(),

@@ -380,6 +380,7 @@ pub(crate) fn write_part(
     corpus: &Corpus,
     source: &str,
     base: &IndexMeta,
+    metric: MetricSpec,
     refs: &[&[u8]],
     coords: PartCoords,
     small_radius: Option<u32>,
@@ -387,7 +388,7 @@ pub(crate) fn write_part(
     dest: &Path,
 ) -> Result<BuildReport> {
     let opts = BuildOptions {
-        metric: base.metric_spec.clone(),
+        metric,
         graph: None,
         seed: base.seed,
         sample: base.sample.max(1) as usize,

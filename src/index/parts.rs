@@ -51,6 +51,7 @@ use super::build::{write_part, PartCoords};
 use super::{IdKind, IdRef, Index, IndexMeta};
 use crate::error::{Error, Result};
 use crate::ingest::{Corpus, Ids, Normalize};
+use crate::metric::MetricSpec;
 
 /// The first 8 bytes of a list file (an index file starts with `WAYMARK\0`).
 pub const LIST_MAGIC: &[u8; 8] = b"WMKPARTS";
@@ -477,6 +478,40 @@ impl Parts {
         self.parts.iter().try_for_each(|p| p.index.verify())
     }
 
+    /// How each part's coordinates compare with the first part's ([`PartDrift`]), from up
+    /// to `sample` rows of each part (evenly spaced).
+    pub fn drift(&self, sample: usize) -> Vec<PartDrift> {
+        self.parts
+            .iter()
+            .map(|p| {
+                let meta = p.index.meta();
+                let dim = meta.dim as usize;
+                let n = p.index.len();
+                let step = n.div_ceil(sample.max(1)).max(1);
+                let rows = p.index.rows();
+                let (mut sat, mut zero, mut near, mut count) = (0usize, 0usize, 0.0f64, 0usize);
+                if p.index.check_rows().is_ok() {
+                    for i in (0..n).step_by(step) {
+                        let r = &rows.row(i)[..dim];
+                        sat += r.iter().filter(|&&b| b == 255).count();
+                        zero += r.iter().filter(|&&b| b == 0).count();
+                        let min = r.iter().copied().min().unwrap_or(0);
+                        near += (f64::from(min) + 0.5) * meta.scale;
+                        count += 1;
+                    }
+                }
+                let cells = (count * dim).max(1) as f64;
+                PartDrift {
+                    rows: count,
+                    saturated: sat as f64 / cells,
+                    zeros: zero as f64 / cells,
+                    nearest_reference: (meta.embedding.distance_valued() && count > 0)
+                        .then(|| near / count as f64),
+                }
+            })
+            .collect()
+    }
+
     fn list(&self) -> PartsList {
         PartsList {
             fingerprint: self.fingerprint.clone(),
@@ -493,6 +528,23 @@ impl Parts {
                 .collect(),
         }
     }
+}
+
+/// How a part's stored coordinates look, to compare with the first part's: items unlike
+/// those the reference items were chosen from (a new alphabet, much longer items) saturate
+/// more coordinates (255, the largest stored value) and lie farther from every reference.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct PartDrift {
+    /// Rows looked at.
+    pub rows: usize,
+    /// Share of stored coordinates at 255.
+    pub saturated: f64,
+    /// Share of stored coordinates at 0.
+    pub zeros: f64,
+    /// Mean over the rows of the distance to the nearest reference item (the smallest
+    /// coordinate, to within the scale); `None` for FastMap, whose coordinates are not
+    /// distances.
+    pub nearest_reference: Option<f64>,
 }
 
 /// The exclusive right to change an index, held until dropped: an advisory lock on
@@ -631,10 +683,12 @@ pub enum NewIds {
 /// merges parts as [`needs_merge`] says. `normalize` must be the index's, and the corpus's
 /// ids typed as the index's; the metric is checked against the index's as the items are
 /// embedded. `inputs` are the files read (never written over).
+#[allow(clippy::too_many_arguments)]
 pub fn add(
     path: &Path,
     mut corpus: Corpus,
     source: &str,
+    metric: MetricSpec,
     normalize: Normalize,
     ids: NewIds,
     inputs: Vec<PathBuf>,
@@ -711,6 +765,7 @@ pub fn add(
         &corpus,
         source,
         &base,
+        metric,
         &refs,
         PartCoords::Embed,
         small_radius,
@@ -846,6 +901,7 @@ fn write_merged(path: &Path, base: &IndexMeta, parts: &[Part], dest: &Path) -> R
         &corpus,
         &path.display().to_string(),
         base,
+        base.metric_spec.clone(),
         &refs,
         PartCoords::Rows(rows),
         small_radius,
