@@ -269,7 +269,7 @@ fn parse_list(path: &Path, bytes: &[u8]) -> Result<PartsList> {
             return Err(bad(format!("part {j}: {} items", p.n)));
         }
         total += p.n;
-        if p.removed.len() as u64 >= p.n + 1
+        if p.removed.len() as u64 > p.n
             || p.removed.windows(2).any(|w| w[0] >= w[1])
             || p.removed.last().is_some_and(|&r| u64::from(r) >= p.n)
         {
@@ -302,13 +302,19 @@ impl Parts {
     /// (length, header digest, item count) and the list's embedding fingerprint. When a part
     /// is missing because a writer replaced the list meanwhile, the new list is read again.
     pub fn open(path: &Path) -> Result<Parts> {
+        // The file at `path` (device and inode): a writer replaces it by rename.
+        let file_at = || {
+            std::fs::metadata(path)
+                .ok()
+                .map(|m| super::file::file_id(&m))
+        };
         let mut tries = 0;
         loop {
-            let before = std::fs::read(path).ok();
+            let before = file_at();
             match Parts::open_once(path) {
                 Err(e) if tries < 5 => {
                     // A list replaced while it was being opened: try the new one.
-                    let after = std::fs::read(path).ok();
+                    let after = file_at();
                     if after.is_some() && after != before {
                         tries += 1;
                         continue;
