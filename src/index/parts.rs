@@ -153,6 +153,11 @@ pub fn parts_dir(index: &Path) -> PathBuf {
 /// Whether the file at `path` is a list file (it starts with [`LIST_MAGIC`]).
 pub fn is_list(path: &Path) -> Result<bool> {
     use std::io::Read;
+    // Anything but a regular file (a folder, a named pipe, which would hang a read) is not a
+    // list: `Index::open` refuses it with its own message.
+    if !std::fs::metadata(path).is_ok_and(|m| m.is_file()) {
+        return Ok(false);
+    }
     let mut f = File::open(path).map_err(|e| io(path, e))?;
     let mut head = [0u8; 8];
     let mut got = 0;
