@@ -45,6 +45,38 @@ pub(super) enum Command {
     Pairs(PairsArgs),
     /// Groups of near-duplicates of an index: items within R of each other, grouped.
     Groups(GroupsArgs),
+    /// Add the items of a file to an index as a new part over its embedding (same metric and
+    /// options as the index's); merges small parts.
+    Add(AddArgs),
+    /// Remove items from an index by id (never returned again; space reclaimed by compact).
+    Remove(RemoveArgs),
+    /// Merge every part of an index into one index file, without its removed items.
+    Compact(CompactArgs),
+}
+
+#[derive(Debug, clap::Args)]
+pub(super) struct AddArgs {
+    /// The index to add to (a single index file becomes a list of parts).
+    pub index: PathBuf,
+    #[command(flatten)]
+    pub input: InputArgs,
+    #[command(flatten)]
+    pub ids: IdArgs,
+}
+
+#[derive(Debug, clap::Args)]
+pub(super) struct RemoveArgs {
+    /// The index to remove from.
+    pub index: PathBuf,
+    /// The ids to remove, one per line (every live item with one of them is removed).
+    #[arg(long = "ids", value_name = "FILE")]
+    pub ids: PathBuf,
+}
+
+#[derive(Debug, clap::Args)]
+pub(super) struct CompactArgs {
+    /// The index to compact (written over atomically).
+    pub index: PathBuf,
 }
 
 /// `n` with a comma between groups of three digits (`50,000`), as help texts print counts.
@@ -247,6 +279,13 @@ pub(super) struct IdArgs {
     /// The column or JSON field holding the ids (default: 0-based record number).
     #[arg(long = "id-field", value_name = "NAME")]
     id_field: Option<String>,
+}
+
+impl IdArgs {
+    /// Whether an id column or field was named (else ids are record numbers).
+    pub fn given(&self) -> bool {
+        self.id_field.is_some()
+    }
 }
 
 impl InputArgs {

@@ -19,6 +19,7 @@ mod inspect;
 mod install;
 mod output;
 mod pairs;
+mod parts;
 mod query;
 mod sweep;
 
@@ -76,6 +77,9 @@ fn run(args: Args) -> anyhow::Result<()> {
         Command::Install(a) => install::install(a),
         Command::Pairs(a) => pairs::pairs(a),
         Command::Groups(a) => groups::groups(a),
+        Command::Add(a) => parts::add(a),
+        Command::Remove(a) => parts::remove(a),
+        Command::Compact(a) => parts::compact(a),
     }
 }
 

@@ -8,6 +8,33 @@ use indicatif::{ProgressBar, ProgressStyle};
 use crate::index::{BuildProgress, BuildStage, IdRef, Index};
 use crate::search::Found;
 
+/// Where an answer's item numbers are looked up: one index, or an index in parts (item
+/// numbers across the parts).
+pub trait Lookup {
+    /// The id of item `i`.
+    fn id(&self, i: usize) -> IdRef<'_>;
+    /// Item `i` as given.
+    fn item(&self, i: usize) -> &[u8];
+}
+
+impl Lookup for Index {
+    fn id(&self, i: usize) -> IdRef<'_> {
+        Index::id(self, i)
+    }
+    fn item(&self, i: usize) -> &[u8] {
+        Index::item(self, i)
+    }
+}
+
+impl Lookup for crate::index::parts::Parts {
+    fn id(&self, i: usize) -> IdRef<'_> {
+        crate::index::parts::Parts::id(self, i as u32)
+    }
+    fn item(&self, i: usize) -> &[u8] {
+        crate::index::parts::Parts::item(self, i as u32)
+    }
+}
+
 /// An id as JSON: a number or a string, as typed in the input.
 pub fn id_json(id: IdRef<'_>) -> serde_json::Value {
     match id {
@@ -38,7 +65,7 @@ pub fn distance_json(d: f64) -> serde_json::Value {
 #[allow(clippy::too_many_arguments)]
 pub fn write_json(
     out: &mut impl Write,
-    index: &Index,
+    index: &dyn Lookup,
     line: usize,
     name: Option<&str>,
     query: &str,
@@ -137,7 +164,7 @@ pub fn tsv_field(s: &str) -> std::borrow::Cow<'_, str> {
 /// Writes one query's answer as one TSV line per neighbour.
 pub fn write_tsv(
     out: &mut impl Write,
-    index: &Index,
+    index: &dyn Lookup,
     query: &str,
     found: &Found,
 ) -> anyhow::Result<()> {

@@ -14,11 +14,13 @@ use std::time::Instant;
 use anyhow::Context;
 
 use super::args::{OutFormat, QueryArgs, QueryFormat};
-use super::output::{write_json, write_json_error, write_tsv, write_tsv_error};
+use super::output::{write_json, write_json_error, write_tsv, write_tsv_error, Lookup};
 use crate::error::Error;
+use crate::index::parts::Parts;
 use crate::index::Index;
 use crate::ingest::{read_sequences, InputFormat, SequenceFormat, SequenceRecord};
 use crate::pairs::{lookup_within, Radius};
+use crate::search::parts::PartsSearcher;
 use crate::search::{Request, SearchParams, Searcher};
 
 /// Largest number of queries answered together.
@@ -34,16 +36,17 @@ const NOTE_MIN_ITEMS: usize = 1000;
 const READ_BUFFER: usize = 256 * 1024;
 
 pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
-    let index = Index::open(&a.index)?;
-    super::announce_program(&index, a.quiet_metric);
+    let parts = Parts::open(&a.index)?;
+    let index = parts.first();
+    super::announce_program(index, a.quiet_metric);
     let k = a.k.unwrap_or(10);
     // With --recall the candidates follow the curve weighed by the lengths of the queries
     // answered together (each block); the other options apply on top.
     let mut warned = false;
     let choose = |texts: &[String], warned: &mut bool| -> anyhow::Result<SearchParams> {
-        let mut params = SearchParams::from_index(&index, k);
+        let mut params = SearchParams::from_index(index, k);
         if let Some(r) = a.recall {
-            let (p, choice) = SearchParams::recall_choice_for(&index, k, r, texts)?;
+            let (p, choice) = SearchParams::recall_choice_for(index, k, r, texts)?;
             if !choice.reached && !*warned {
                 *warned = true;
                 eprintln!(
@@ -84,10 +87,15 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
     };
     let fraction = a.within_fraction.map(Radius::Fraction);
     if let Some(f) = fraction {
-        f.check(&index)?;
+        f.check(index)?;
     }
-    let searcher = Searcher::new(&index);
-    searcher.check(&request)?;
+    // An index in parts is searched part by part and the answers merged; one part with
+    // nothing removed is searched as it is.
+    let whole = parts.is_whole();
+    let searcher = Searcher::new(index);
+    let in_parts = PartsSearcher::new(&parts);
+    let lookup: &dyn Lookup = if whole { index } else { &parts };
+    in_parts.check(&request)?;
     let format = a.query_format.map(QueryFormat::sequences);
     let mut lines = match &a.queries {
         Some(p) => QueryLines::open(p, format)?,
@@ -119,18 +127,24 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
                 Err((text, e)) => entries.push(Entry::Bad(line, name, text, e)),
             }
         }
-        let answers = match fraction {
-            Some(f) => lookup_within(&searcher, &texts, f, a.k),
-            None => match (&request, a.recall) {
-                (Request::Approximate(_), Some(_)) if !texts.is_empty() => searcher
-                    .answer_many(&texts, &Request::Approximate(choose(&texts, &mut warned)?)),
-                _ => searcher.answer_many(&texts, &request),
-            },
+        let request = match (&request, a.recall) {
+            (Request::Approximate(_), Some(_)) if !texts.is_empty() => {
+                Request::Approximate(choose(&texts, &mut warned)?)
+            }
+            _ => request,
+        };
+        let answers = match (fraction, whole) {
+            (Some(f), true) => lookup_within(&searcher, &texts, f, a.k),
+            (None, true) => searcher.answer_many(&texts, &request),
+            (Some(f), false) => {
+                in_parts.merge_each(texts.len(), a.k, |_, s| lookup_within(s, &texts, f, None))
+            }
+            (None, false) => in_parts.answer_many(&texts, &request),
         }
         .into_iter();
         let answers: Vec<_> = answers.collect();
         if !noted {
-            if let Some(note) = wide_note(&index, &a, &answers) {
+            if let Some(note) = wide_note(index, parts.live(), &a, &answers) {
                 eprintln!("{note}");
                 noted = true;
             }
@@ -155,9 +169,9 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
                         usize::from(found.neighbors.first().is_some_and(|n| n.distance == 0.0));
                     match a.format {
                         OutFormat::Json => {
-                            write_json(&mut out, &index, line, name, &query, &found, a.stats)?
+                            write_json(&mut out, lookup, line, name, &query, &found, a.stats)?
                         }
-                        OutFormat::Tsv => write_tsv(&mut out, &index, &query, &found)?,
+                        OutFormat::Tsv => write_tsv(&mut out, lookup, &query, &found)?,
                     }
                 }
                 Err(Error::InvalidQuery(m) | Error::Usage(m)) if a.errors_inline => {
@@ -186,8 +200,8 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
         eprintln!(
             "answered {answered} queries in {secs:.3} s ({:.0} queries/s); {per:.0} distances per query ({:.2}% of {} items); {exact_hits} found an exact match{refused}",
             answered as f64 / secs.max(1e-9),
-            100.0 * per / index.len() as f64,
-            index.len()
+            100.0 * per / parts.live() as f64,
+            parts.live()
         );
     }
     Ok(())
@@ -199,10 +213,10 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
 /// approximate answers, and for indexes of fewer than [`NOTE_MIN_ITEMS`] items.
 fn wide_note(
     index: &Index,
+    n: usize,
     a: &QueryArgs,
     answers: &[crate::error::Result<crate::search::Found>],
 ) -> Option<String> {
-    let n = index.len();
     if n < NOTE_MIN_ITEMS {
         return None;
     }

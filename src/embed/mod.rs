@@ -326,6 +326,25 @@ impl Embedding {
         }
     }
 
+    /// The same embedding with its reference items numbered `0..refs().len()` in the order of
+    /// [`Embedding::refs`]: the form stored with the reference items' own keys, for an index
+    /// part that does not hold them (see [`crate::index::parts`]).
+    pub fn renumbered(&self) -> Embedding {
+        match self {
+            Embedding::Landmarks { landmarks } => Embedding::Landmarks {
+                landmarks: (0..landmarks.len() as u64).collect(),
+            },
+            Embedding::RefSets { pool, sets } => Embedding::RefSets {
+                pool: (0..pool.len() as u64).collect(),
+                sets: sets.clone(),
+            },
+            Embedding::FastMap { refs, axes } => Embedding::FastMap {
+                refs: (0..refs.len() as u64).collect(),
+                axes: axes.clone(),
+            },
+        }
+    }
+
     /// Checks the recorded embedding against an index of `n` items; the message says what is
     /// wrong. Used when an index is opened: a crafted file must not make a query index out of
     /// bounds or loop on a huge reference list.
@@ -548,17 +567,44 @@ pub fn embed_with<M: Metric, T: AsRef<[u8]> + Sync>(
     embedding: &Embedding,
     progress: &(dyn Fn(usize) + Sync),
 ) -> Vec<f64> {
+    let refs: Vec<&[u8]> = embedding
+        .refs()
+        .iter()
+        .map(|&l| items[l as usize].as_ref())
+        .collect();
+    embed_against(metric, &refs, items, embedding, progress)
+}
+
+/// Coordinates of every item of `items` under `embedding`, whose reference items are given
+/// apart: `refs[j]` is the key of the item `embedding.refs()[j]` names. This is how items
+/// that were not in the build (a part added to an index) get coordinates comparable with the
+/// build's.
+///
+/// ```
+/// use waymark::embed::{embed_against, embed_items, EmbedOptions, Method};
+/// use waymark::metric::Levenshtein;
+///
+/// let items = ["quay", "quays", "strand", "orvane", "orvanes", "kaldrith"];
+/// let opts = EmbedOptions { method: Method::Landmarks, dim: 3, sample: 100, ..Default::default() };
+/// let e = embed_items(&Levenshtein, &items, &opts, &|_| {});
+/// let refs: Vec<&[u8]> = e.embedding.refs().iter().map(|&r| items[r as usize].as_bytes()).collect();
+/// let more = embed_against(&Levenshtein, &refs, &["quayside"], &e.embedding, &|_| {});
+/// assert_eq!(more.len(), 3);
+/// ```
+pub fn embed_against<M: Metric, T: AsRef<[u8]> + Sync>(
+    metric: &M,
+    refs: &[&[u8]],
+    items: &[T],
+    embedding: &Embedding,
+    progress: &(dyn Fn(usize) + Sync),
+) -> Vec<f64> {
     let d = embedding.dim();
     let n = items.len();
     let mut out = vec![0.0; n * d];
     if d == 0 {
         return out;
     }
-    let prepared: Vec<M::Prepared> = embedding
-        .refs()
-        .iter()
-        .map(|&l| metric.prepare(items[l as usize].as_ref()))
-        .collect();
+    let prepared: Vec<M::Prepared> = refs.iter().map(|r| metric.prepare(r)).collect();
     const CHUNK: usize = 1024;
     let refs = prepared.len();
     out.par_chunks_mut(CHUNK * d)

@@ -100,9 +100,10 @@ pub fn index_distortion(
     let keys = index.keys();
     let items: Vec<&[u8]> = (0..index.len()).map(|i| keys.get(i)).collect();
     let metric = index.metric()?;
-    let report = measure_distortion(
+    let report = measure_against(
         metric,
         &items,
+        &index.reference_keys(),
         &index.meta().embedding,
         max_pairs,
         index.meta().seed,
@@ -135,6 +136,24 @@ pub fn measure_distortion<M: Metric, T: AsRef<[u8]> + Sync>(
     max_pairs: usize,
     seed: u64,
 ) -> DistortionReport {
+    let refs: Vec<&[u8]> = embedding
+        .refs()
+        .iter()
+        .map(|&r| items[r as usize].as_ref())
+        .collect();
+    measure_against(metric, items, &refs, embedding, max_pairs, seed)
+}
+
+/// [`measure_distortion`] with the reference items' keys given apart (`refs[j]` for
+/// `embedding.refs()[j]`), as an index part that does not hold them stores them.
+fn measure_against<M: Metric, T: AsRef<[u8]> + Sync>(
+    metric: &M,
+    items: &[T],
+    refs: &[&[u8]],
+    embedding: &Embedding,
+    max_pairs: usize,
+    seed: u64,
+) -> DistortionReport {
     let n = items.len();
     let all = n.saturating_sub(1).saturating_mul(n) / 2 <= max_pairs;
     let chosen: Vec<usize> = if all {
@@ -151,7 +170,7 @@ pub fn measure_distortion<M: Metric, T: AsRef<[u8]> + Sync>(
     };
     let coords: Vec<Vec<f64>> = chosen
         .par_iter()
-        .map(|&i| embed_one(metric, items, embedding, items[i].as_ref()))
+        .map(|&i| embed_one(metric, refs, &embedding.renumbered(), items[i].as_ref()))
         .collect();
     // (true, [l1, l2, linf]) per pair, row by row in parallel.
     let rows: Vec<Vec<(f64, [f64; 3])>> = (0..chosen.len())

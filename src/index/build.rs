@@ -269,6 +269,7 @@ fn build(
         dest,
         embed_seconds,
         progress,
+        None,
     )?;
     report.axioms = Some(axioms);
     Ok(report)
@@ -348,6 +349,125 @@ pub fn build_index_from(
         dest,
         0.0,
         &(),
+        None,
+    )
+}
+
+/// What an index part takes from the index it joins (see [`super::parts`]): the embedding
+/// (numbered in its stored reference list), the reference keys, the coordinate scale, the
+/// default candidates and the recall curve.
+pub(crate) struct Fixed {
+    pub embedding: crate::embed::Embedding,
+    pub references: Vec<String>,
+    pub scale: f64,
+    pub candidates: u32,
+    pub calibration: Option<super::Calibration>,
+}
+
+/// The coordinates of a part's items: computed against the reference items, or the u8 rows
+/// of existing parts (one `stride` row per item), kept as they are.
+pub(crate) enum PartCoords {
+    Embed,
+    Rows(Vec<u8>),
+}
+
+/// Writes `corpus` at `dest` as a part over the embedding of `base` (an index's metadata
+/// whose reference keys are `refs`): the same references, scale, metric and normalisation,
+/// so that its coordinates compare with every other part's. The file stores the reference
+/// keys, so it opens and answers on its own.
+#[allow(clippy::too_many_arguments)]
+pub(crate) fn write_part(
+    corpus: &Corpus,
+    source: &str,
+    base: &IndexMeta,
+    metric: MetricSpec,
+    refs: &[&[u8]],
+    coords: PartCoords,
+    small_radius: Option<u32>,
+    inputs: Vec<PathBuf>,
+    dest: &Path,
+) -> Result<BuildReport> {
+    let opts = BuildOptions {
+        metric,
+        graph: None,
+        seed: base.seed,
+        sample: base.sample.max(1) as usize,
+        candidates: base.candidates as usize,
+        space: base.space,
+        widen: base.widen,
+        normalize: base.normalize,
+        inputs,
+        small_radius,
+        ..BuildOptions::default()
+    };
+    check_options(corpus, source, &opts)?;
+    let keys = corpus.key_bytes();
+    if matches!(
+        base.metric_spec,
+        MetricSpec::Graph | MetricSpec::Custom { .. }
+    ) {
+        return Err(Error::Usage(format!(
+            "{source}: items cannot be added to an index of the {} metric (its items are the \
+             nodes of its graph, or its distance is code of the library's caller): build a \
+             new index",
+            base.metric
+        )));
+    }
+    let (spec, metric) = open_metric(&keys, source, &opts)?;
+    if spec != base.metric_spec {
+        return Err(Error::Usage(format!(
+            "{source}: the items are compared under {}, the index's under {}: give the index's \
+             metric and options",
+            serde_json::to_string(&spec).unwrap_or_default(),
+            serde_json::to_string(&base.metric_spec).unwrap_or_default()
+        )));
+    }
+    let writer = ContainerWriter::create(dest, &opts.inputs)?;
+    let t0 = Instant::now();
+    let embedding = base.embedding.renumbered();
+    let dim = embedding.dim();
+    let coords = match coords {
+        PartCoords::Embed => {
+            let c = crate::embed::embed_against(&metric, refs, &keys, &embedding, &|_| {});
+            metric.check()?;
+            c
+        }
+        // (b + 1/2)·scale quantises back to b (see `quantize`): the rows are kept exactly.
+        PartCoords::Rows(rows) => rows
+            .chunks_exact(base.stride as usize)
+            .flat_map(|r| r[..dim].iter().map(|&b| (f64::from(b) + 0.5) * base.scale))
+            .collect(),
+    };
+    if coords.len() != corpus.items.len() * dim {
+        return Err(Error::Usage(format!(
+            "{source}: {} coordinates for {} items of {dim}",
+            coords.len(),
+            corpus.items.len()
+        )));
+    }
+    let embedded = Embedded {
+        embedding: embedding.clone(),
+        coords,
+        n: corpus.items.len(),
+    };
+    let fixed = Fixed {
+        embedding,
+        references: refs.iter().map(|r| super::parts::hex_encode(r)).collect(),
+        scale: base.scale,
+        candidates: base.candidates,
+        calibration: base.calibration.clone(),
+    };
+    write_index(
+        corpus,
+        source,
+        &opts,
+        &spec,
+        &embedded,
+        writer,
+        dest,
+        t0.elapsed().as_secs_f64(),
+        &(),
+        Some(&fixed),
     )
 }
 
@@ -380,6 +500,7 @@ fn write_index(
     dest: &Path,
     embed_seconds: f64,
     progress: &dyn BuildProgress,
+    fixed: Option<&Fixed>,
 ) -> Result<BuildReport> {
     let n = corpus.items.len();
     let kind = spec.kind();
@@ -393,6 +514,7 @@ fn write_index(
     let coords = &embedded.coords;
     let stride = coord_stride(dim);
     let scale = match (&opts.graph, spec) {
+        _ if fixed.is_some() => fixed.map_or(1.0, |f| f.scale),
         // Nodes in other components are at one large distance that says nothing about
         // nearness: the scale comes from the other coordinates and that one saturates.
         (Some(g), MetricSpec::Graph) => embedded.scale_below(g.disconnected_distance()),
@@ -444,7 +566,10 @@ fn write_index(
         dim: dim as u32,
         stride: stride as u32,
         tree_dim: tree::tree_dim(prefix) as u32,
-        embedding: embedded.embedding.clone(),
+        embedding: match fixed {
+            Some(f) => f.embedding.clone(),
+            None => embedded.embedding.clone(),
+        },
         scale,
         seed: opts.seed,
         sample: opts.sample.min(n) as u64,
@@ -453,7 +578,7 @@ fn write_index(
             Ids::Text(_) => IdKind::Text,
         },
         ids_from,
-        candidates: match opts.candidates {
+        candidates: match fixed.map_or(opts.candidates, |f| f.candidates as usize) {
             0 => super::default_candidates(n),
             c => c,
         }
@@ -464,7 +589,8 @@ fn write_index(
         records: corpus.records as u64,
         blank_skipped: corpus.blank_skipped as u64,
         written_by: format!("waymark {}", env!("CARGO_PKG_VERSION")),
-        calibration: None,
+        calibration: fixed.and_then(|f| f.calibration.clone()),
+        references: fixed.map(|f| f.references.clone()),
     };
     let meta_json = serde_json::to_vec_pretty(&meta).expect("metadata serialises");
     writer.add(SectionKind::Meta, &meta_json)?;

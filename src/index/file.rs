@@ -464,6 +464,13 @@ fn remove_stale_partials(dir: &Path, dest_name: &str, own: &Path) {
 pub fn read_table(path: &Path, bytes: &[u8]) -> Result<(u32, Vec<Section>)> {
     let bad = |reason: String| Error::refused(path, reason);
     let corrupt = |reason: String| Error::corrupt(path, reason);
+    if bytes.len() >= 8 && &bytes[0..8] == super::parts::LIST_MAGIC {
+        return Err(bad(
+            "an index in parts (its list file): this command reads one index file; run \
+             `waymark compact` on it first"
+                .into(),
+        ));
+    }
     if bytes.len() < 8 || &bytes[0..8] != MAGIC {
         return Err(bad(
             "not a waymark index (the file does not start with the waymark magic number)".into(),

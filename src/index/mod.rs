@@ -19,6 +19,7 @@ pub mod calibration;
 pub mod cells;
 pub mod file;
 mod install;
+pub mod parts;
 pub mod rows;
 pub mod tree;
 pub mod variants;
@@ -132,6 +133,12 @@ pub struct IndexMeta {
     /// written before it existed or built without it.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub calibration: Option<Calibration>,
+    /// The keys of the reference items in hexadecimal, in the order of
+    /// [`crate::embed::Embedding::refs`], when the file does not hold them among its items (a
+    /// part added to an index, a compacted index: [`parts`]); the embedding then numbers them
+    /// `0..` in this list ([`crate::embed::Embedding::renumbered`]). Absent in a build.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub references: Option<Vec<String>>,
 }
 
 /// An id as stored: typed as in the input.
@@ -169,6 +176,8 @@ pub struct Index {
     variants: Option<Range<usize>>,
     variants_checked: OnceLock<std::result::Result<(), String>>,
     metric: OnceLock<Result<AnyMetric>>,
+    /// The reference items' keys when the metadata stores them ([`IndexMeta::references`]).
+    ref_keys: Option<Vec<Vec<u8>>>,
 }
 
 /// A string table: offsets and bytes sections.
@@ -448,8 +457,28 @@ impl Index {
                 "coordinate layout does not match its dimension".into(),
             ));
         }
+        let ref_keys = match &meta.references {
+            Some(r) => Some(
+                r.iter()
+                    .map(|h| parts::hex_decode(h))
+                    .collect::<Option<Vec<_>>>()
+                    .ok_or_else(|| {
+                        corrupt("metadata: a reference key is not hexadecimal".into())
+                    })?,
+            ),
+            None => None,
+        };
+        let ref_count = ref_keys.as_ref().map_or(meta.n, |r| r.len() as u64);
+        if ref_keys
+            .as_ref()
+            .is_some_and(|r| r.len() != meta.embedding.refs().len())
+        {
+            return Err(corrupt(
+                "metadata: the reference keys are not one per reference item".into(),
+            ));
+        }
         meta.embedding
-            .check(meta.n)
+            .check(ref_count)
             .map_err(|m| corrupt(format!("embedding: {m}")))?;
         let stride = meta.stride as usize;
         let cells = find(SectionKind::Cells);
@@ -527,6 +556,7 @@ impl Index {
             variants: variant_section,
             variants_checked: OnceLock::new(),
             metric: OnceLock::new(),
+            ref_keys,
         })
     }
 
@@ -624,12 +654,35 @@ impl Index {
     /// The items the embedding measures every query against (landmarks, pool items or
     /// pivots), as given at build time.
     pub fn reference_items(&self) -> Vec<String> {
+        if self.ref_keys.is_some() {
+            return self
+                .reference_keys()
+                .iter()
+                .map(|k| String::from_utf8_lossy(k).into_owned())
+                .collect();
+        }
         self.meta
             .embedding
             .refs()
             .iter()
             .map(|&l| String::from_utf8_lossy(self.item(l as usize)).into_owned())
             .collect()
+    }
+
+    /// The keys of the reference items (the form distances are computed on), in the order of
+    /// [`crate::embed::Embedding::refs`]: a query is measured against each. They are items of
+    /// the index, or stored in its metadata ([`IndexMeta::references`]).
+    pub fn reference_keys(&self) -> Vec<&[u8]> {
+        match &self.ref_keys {
+            Some(r) => r.iter().map(Vec::as_slice).collect(),
+            None => self
+                .meta
+                .embedding
+                .refs()
+                .iter()
+                .map(|&l| self.key(l as usize))
+                .collect(),
+        }
     }
 
     /// What the index holds, as `waymark inspect --json` prints it: the path, format

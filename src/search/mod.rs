@@ -42,6 +42,7 @@ mod candidates;
 mod exact;
 pub(crate) mod lanes;
 pub mod order;
+pub mod parts;
 mod request;
 mod rerank;
 mod variants;
@@ -101,13 +102,7 @@ struct Prepared {
 impl<'a> Searcher<'a> {
     /// Prepares a searcher (collects the reference items' keys).
     pub fn new(index: &'a Index) -> Searcher<'a> {
-        let refs = index
-            .meta()
-            .embedding
-            .refs()
-            .iter()
-            .map(|&l| index.key(l as usize))
-            .collect();
+        let refs = index.reference_keys();
         Searcher {
             index,
             refs,

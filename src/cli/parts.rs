@@ -1,0 +1,99 @@
+//! `waymark add`, `remove` and `compact`: an index that grows in parts
+//! ([`crate::index::parts`]).
+
+use std::time::Instant;
+
+use anyhow::Context;
+
+use super::args::{AddArgs, CompactArgs, RemoveArgs};
+use crate::index::parts::{self, NewIds, RemoveId};
+use crate::ingest::LoadedInput;
+
+pub(super) fn add(a: AddArgs) -> anyhow::Result<()> {
+    let t0 = Instant::now();
+    crate::index::file::refuse_input_as_output(&a.index, &a.input.files())?;
+    let source = a.input.source();
+    let LoadedInput { corpus, spec, .. } = a.input.load(Some(&a.ids))?;
+    let ids = if a.ids.given() {
+        NewIds::Given
+    } else {
+        NewIds::Continue
+    };
+    let r = parts::add(
+        &a.index,
+        corpus,
+        &source,
+        spec,
+        a.input.normalize(),
+        ids,
+        a.input.files(),
+    )?;
+    let merged = if r.merged > 0 {
+        format!("; merged the last {} parts", r.merged)
+    } else {
+        String::new()
+    };
+    eprintln!(
+        "added {} items to {} in {:.2} s: {} parts{merged}",
+        r.added,
+        a.index.display(),
+        t0.elapsed().as_secs_f64(),
+        r.parts
+    );
+    Ok(())
+}
+
+pub(super) fn remove(a: RemoveArgs) -> anyhow::Result<()> {
+    let bytes = std::fs::read(&a.ids).with_context(|| format!("reading {}", a.ids.display()))?;
+    let source = a.ids.display().to_string();
+    let text = String::from_utf8(bytes).map_err(|e| {
+        let line = e.as_bytes()[..e.utf8_error().valid_up_to()]
+            .iter()
+            .filter(|&&b| b == b'\n')
+            .count()
+            + 1;
+        crate::Error::Usage(format!("{source}: line {line}: not UTF-8"))
+    })?;
+    let ids: Vec<RemoveId> = text
+        .lines()
+        .enumerate()
+        .filter(|(_, l)| !l.trim().is_empty())
+        .map(|(i, l)| RemoveId {
+            line: i + 1,
+            text: l.to_string(),
+        })
+        .collect();
+    if ids.is_empty() {
+        return Err(crate::Error::Usage(format!("{source}: no ids to remove")).into());
+    }
+    let r = parts::remove(&a.index, &ids, &source)?;
+    eprintln!(
+        "removed {} items from {}; {} left",
+        r.removed,
+        a.index.display(),
+        r.live
+    );
+    Ok(())
+}
+
+pub(super) fn compact(a: CompactArgs) -> anyhow::Result<()> {
+    let t0 = Instant::now();
+    let r = parts::compact(&a.index)?;
+    if r.written {
+        eprintln!(
+            "compacted {} parts of {} into one index file of {} items ({} removed items \
+             dropped) in {:.2} s",
+            r.parts_before,
+            a.index.display(),
+            r.items,
+            r.dropped,
+            t0.elapsed().as_secs_f64()
+        );
+    } else {
+        eprintln!(
+            "{} is one index file with nothing removed: nothing to do",
+            a.index.display()
+        );
+    }
+    Ok(())
+}
