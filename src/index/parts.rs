@@ -202,7 +202,7 @@ pub fn fingerprint(index: &Index) -> String {
 }
 
 /// The SHA-256 (hexadecimal) of an index file's header and section table.
-fn part_digest(index: &Index) -> String {
+pub(super) fn part_digest(index: &Index) -> String {
     let head = super::file::HEADER_LEN + super::file::MAX_SECTIONS * 32;
     hex_encode(&Sha256::digest(&index.map[..head.min(index.map.len())]))
 }
@@ -607,7 +607,7 @@ fn new_part_name() -> String {
     format!("part-{:016x}.wmk", rand::thread_rng().gen::<u64>())
 }
 
-fn sync_dir(dir: &Path) -> Result<()> {
+pub(super) fn sync_dir(dir: &Path) -> Result<()> {
     File::open(dir)
         .and_then(|d| d.sync_all())
         .map_err(|e| io(dir, e))
@@ -615,7 +615,7 @@ fn sync_dir(dir: &Path) -> Result<()> {
 
 /// Writes `list` over the index at `path` atomically (temporary file, flush, rename, flush
 /// of the folder).
-fn write_list(path: &Path, list: &PartsList) -> Result<()> {
+pub(super) fn write_list(path: &Path, list: &PartsList) -> Result<()> {
     let mut tmp = super::file::partial_for(path)?;
     tmp.as_file_mut()
         .write_all(&list_bytes(list))
@@ -626,7 +626,7 @@ fn write_list(path: &Path, list: &PartsList) -> Result<()> {
 
 /// Removes the files of the parts folder that `keep` does not name (parts of a writer that
 /// was killed, parts a merge replaced). Called under the writer lock.
-fn remove_unlisted(dir: &Path, keep: &[String]) {
+pub(super) fn remove_unlisted(dir: &Path, keep: &[String]) {
     let Ok(entries) = std::fs::read_dir(dir) else {
         return;
     };
