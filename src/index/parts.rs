@@ -408,6 +408,63 @@ impl Parts {
         })
     }
 
+    /// An index file already open, as an index of one part (for an index opened with a
+    /// metric of the caller's, [`Index::open_with_metric`]).
+    pub fn single(index: Index) -> Parts {
+        let path = index.path().to_path_buf();
+        let file = path
+            .file_name()
+            .map(|n| n.to_string_lossy().into_owned())
+            .unwrap_or_default();
+        let fingerprint = fingerprint(&index);
+        Parts {
+            path,
+            parts: vec![Part {
+                index,
+                removed: Vec::new(),
+                offset: 0,
+                file,
+            }],
+            listed: false,
+            fingerprint,
+        }
+    }
+
+    /// What the index holds, as `waymark inspect --json` prints it for a list file: the
+    /// path, the fingerprint, the items and live items, each part (file, items, removed
+    /// items, bytes, format version, drift from `drift_sample` rows: [`Parts::drift`]), and
+    /// the first part's report ([`Index::report`]). `verified` says whether the caller
+    /// checked every checksum ([`Parts::verify`]).
+    pub fn report(&self, verified: bool, drift_sample: usize) -> serde_json::Value {
+        let drift = self.drift(drift_sample);
+        let list: Vec<serde_json::Value> = self
+            .parts
+            .iter()
+            .zip(&drift)
+            .map(|(p, d)| {
+                serde_json::json!({
+                    "file": p.file,
+                    "items": p.index.len(),
+                    "removed": p.removed.len(),
+                    "bytes": p.index.file_len(),
+                    "format_version": p.index.format_version(),
+                    "drift": d,
+                })
+            })
+            .collect();
+        serde_json::json!({
+            "path": self.path.display().to_string(),
+            "format": "parts",
+            "list_version": LIST_VERSION,
+            "fingerprint": self.fingerprint,
+            "items": self.len(),
+            "live": self.live(),
+            "verified": verified,
+            "parts": list,
+            "first": self.first().report(verified),
+        })
+    }
+
     /// The path the index was opened from.
     pub fn path(&self) -> &Path {
         &self.path
