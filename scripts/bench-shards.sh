@@ -16,9 +16,11 @@ cargo build --release --locked --bin waymark
 bin="$PWD/target/release/waymark"
 work=${1:-$(mktemp -d)}
 mkdir -p "$work"
-# Queries: 1,000 words of the British list with their middle letter doubled (200 for exact).
-awk 'NR % 97 == 0 { m = int(length($0) / 2) + 1; print substr($0, 1, m) substr($0, m) }' \
-  /usr/share/dict/british-english | head -1000 > "$work/queries.txt"
+# Queries: 1,000 lower-case ASCII words of the British list (every 41st) with their middle
+# letter doubled (the first 200 for exact).
+grep -E '^[a-z]+$' /usr/share/dict/british-english \
+  | awk 'NR % 41 == 0 && n < 1000 { n++; m = int(length($0) / 2) + 1; print substr($0, 1, m) substr($0, m) }' \
+  > "$work/queries.txt"
 head -200 "$work/queries.txt" > "$work/queries-exact.txt"
 peak() { grep -E "Elapsed|Maximum resident" "$1" | sed 's/^\s*//'; }
 for run in plain shards; do
@@ -41,3 +43,18 @@ if cmp -s <(cut -f1-5 "$work/plain.exact.tsv") <(cut -f1-5 "$work/shards.exact.t
 else
   echo "exact answers: DIFFER"
 fi
+# Threshold recall@10 of the approximate answers of the first 200 queries, against the
+# plain index's exact answers (an answer counts when within the 10th true distance).
+python3 - "$work" <<'PY'
+import json, sys
+work = sys.argv[1]
+kth = {}
+for line in open(f"{work}/plain.exact.tsv", encoding="utf-8"):
+    q, rank, _, _, d = line.rstrip("\n").split("\t")[:5]
+    if rank == "10":
+        kth[q] = float(d)
+for run in ("plain", "shards"):
+    lines = [json.loads(l) for l in open(f"{work}/{run}.approx.json", encoding="utf-8")][:200]
+    hit = sum(min(10, sum(n["distance"] <= kth[o["query"]] for n in o["neighbors"])) for o in lines)
+    print(f"recall@10 {run}: {hit / (10 * len(lines)):.4f} on {len(lines)} queries")
+PY
