@@ -871,6 +871,20 @@ fn merge_parts(path: &Path, base: &IndexMeta, parts: &[Part]) -> Result<Part> {
 
 /// Writes the live items of `parts` at `dest` as one index over their embedding.
 fn write_merged(path: &Path, base: &IndexMeta, parts: &[Part], dest: &Path) -> Result<()> {
+    if matches!(
+        base.metric_spec,
+        MetricSpec::Graph | MetricSpec::Custom { .. }
+    ) {
+        return Err(Error::Usage(format!(
+            "{}: an index in parts of the {} metric: its live items cannot be written as one \
+             index (a part holds no graph, and a custom distance is code of the library's \
+             caller), so it cannot be compacted, and `pairs`, `groups` and `eval` (which read \
+             the live items as one index) refuse it; `query` answers it; build a new index \
+             from the items kept",
+            path.display(),
+            base.metric
+        )));
+    }
     let live: usize = parts.iter().map(Part::live).sum();
     if live == 0 {
         return Err(Error::Usage(format!(
@@ -960,18 +974,6 @@ impl Parts {
     /// temporary folder (`TMPDIR`). It takes the disk space and time of a [`compact`].
     pub fn live_index(&self) -> Result<LiveIndex> {
         let base = self.first().meta().clone();
-        if matches!(
-            base.metric_spec,
-            MetricSpec::Graph | MetricSpec::Custom { .. }
-        ) {
-            return Err(Error::Usage(format!(
-                "{}: an index in parts of the {} metric: this command reads its live items \
-                 as one index, which cannot be written for this metric (as `compact` cannot); \
-                 build a new index from the items kept",
-                self.path.display(),
-                base.metric
-            )));
-        }
         let dir = tempfile::Builder::new()
             .prefix("waymark-live-")
             .tempdir()

@@ -38,7 +38,7 @@ fn csv(rows: &[(String, String)]) -> Vec<u8> {
 
 const FIELDS: [&str; 4] = ["--field", "name", "--id-field", "id"];
 
-/// An index grown from 900 words by two additions, the second holding a new word under the
+/// An index grown from 1,000 words by two additions (two parts after the merge policy), the second holding a new word under the
 /// id of one already there (`w7`), then three ids removed (of the first part and of an added
 /// one). Returns the index and its live `(id, item)` rows, in item-number order.
 fn grown(d: &Dir) -> (PathBuf, Vec<(String, String)>) {
@@ -47,13 +47,13 @@ fn grown(d: &Dir) -> (PathBuf, Vec<(String, String)>) {
         .enumerate()
         .map(|(i, w)| (format!("w{i}"), w))
         .collect();
-    let base = d.write("base.csv", &csv(&all[..900]));
+    let base = d.write("base.csv", &csv(&all[..1000]));
     let mut args = vec!["-q", "--dim", "10"];
     args.extend(FIELDS);
     let idx = d.build(&base, "grown.wmk", &args);
-    let mut second = all[1200..].to_vec();
+    let mut second = all[1200..1350].to_vec();
     second.push(("w7".into(), format!("{}s", all[7].1)));
-    for (j, more) in [all[900..1200].to_vec(), second.clone()].iter().enumerate() {
+    for (j, more) in [all[1000..1200].to_vec(), second.clone()].iter().enumerate() {
         let f = d.write(&format!("more{j}.csv"), &csv(more));
         d.cmd()
             .arg("add")
@@ -298,18 +298,23 @@ fn pairs_and_groups_on_an_index_in_parts_answer_as_on_the_same_items_in_one_inde
         stdout_of(&d, &["pairs"], &one, &tsv)
     );
 
-    // -k exact: each live item's 3 nearest, at the brute force's distances.
+    // -k exact: each live item's 3 nearest, at the brute force's distances. A pair found
+    // from both sides is written once, so an item's 3 nearest are the 3 nearest of all the
+    // pairs it is in (a pair nearer than its 3rd nearest would be among them).
     let near = stdout_of(&d, &["pairs"], &idx, &["-k", "3", "--exact"]);
     assert_eq!(near, stdout_of(&d, &["pairs"], &one, &["-k", "3", "--exact"]));
     let mut per_item: std::collections::HashMap<(String, String), Vec<f64>> = Default::default();
     for l in near.lines() {
         let v: Value = serde_json::from_str(l).unwrap();
-        per_item
-            .entry(side(&v["a"]))
-            .or_default()
-            .push(v["distance"].as_f64().unwrap());
+        let dist = v["distance"].as_f64().unwrap();
+        per_item.entry(side(&v["a"])).or_default().push(dist);
+        per_item.entry(side(&v["b"])).or_default().push(dist);
     }
     assert_eq!(per_item.len(), live.len());
+    for v in per_item.values_mut() {
+        v.sort_by(f64::total_cmp);
+        v.truncate(3);
+    }
     for (i, a) in live.iter().enumerate().step_by(37) {
         let mut dist: Vec<f64> = live
             .iter()
@@ -601,6 +606,26 @@ fn every_metric_grows_and_compacts_with_exact_answers_equal_to_brute_force() {
             })
         },
     );
+    // A metric program (examples/metric_server.py, the textbook edit distance in Python),
+    // checked against strsim's Levenshtein; skipped without python3.
+    if std::process::Command::new("python3")
+        .arg("--version")
+        .output()
+        .is_ok()
+    {
+        let server = repo_file("examples/metric_server.py");
+        let server = server.to_str().unwrap();
+        grow_and_check(
+            "external",
+            &["--metric", "external", "--", "python3", server],
+            "txt",
+            &text[..120],
+            &typos[..6],
+            &lev,
+        );
+    } else {
+        eprintln!("external metric skipped: no python3");
+    }
     // Vectors: points from the words' letters (a recipe of this test), under L1, L∞ and the
     // angle / π, computed here in f64 from the f32 values.
     let vec_of = |w: &str| -> String {
@@ -657,4 +682,105 @@ fn every_metric_grows_and_compacts_with_exact_answers_equal_to_brute_force() {
         &dir_q,
         &angular,
     );
+}
+
+#[test]
+fn a_graph_index_with_removed_nodes_answers_exactly_and_refuses_what_needs_one_index() {
+    // Reference: petgraph's Dijkstra on the edge list of demo-data/ferries.txt (invented
+    // ferry and road legs), parsed here.
+    let mut g = petgraph::graph::UnGraph::<(), f64>::new_undirected();
+    let mut node: std::collections::HashMap<String, petgraph::graph::NodeIndex> =
+        Default::default();
+    for l in demo_lines("ferries.txt") {
+        if l.starts_with('#') || l.trim().is_empty() {
+            continue;
+        }
+        let f: Vec<&str> = l.split_whitespace().collect();
+        let mut id = |s: &str| *node.entry(s.to_string()).or_insert_with(|| g.add_node(()));
+        let (a, b) = (id(f[0]), id(f[1]));
+        g.add_edge(a, b, f[2].parse().unwrap());
+    }
+    let name_of: std::collections::HashMap<petgraph::graph::NodeIndex, String> =
+        node.iter().map(|(k, v)| (*v, k.clone())).collect();
+    let d = Dir::new();
+    let idx = d.build(
+        &demo("ferries.txt"),
+        "ferries.wmk",
+        &["-q", "--metric", "graph", "--dim", "8"],
+    );
+    let stops: Vec<String> = demo_lines("ferry-queries.txt")
+        .into_iter()
+        .take(12)
+        .collect();
+    let ask = |k: &str| -> Vec<Value> {
+        let out = d
+            .cmd()
+            .arg("query")
+            .arg(&idx)
+            .args(["--exact", "-k", k])
+            .write_stdin(stops.join("\n"))
+            .output()
+            .unwrap();
+        assert!(out.status.success(), "{out:?}");
+        json_lines(&out.stdout)
+    };
+    // Each stop's own node comes first: remove the first two stops' nodes by their ids.
+    let before = ask("1");
+    let gone: Vec<(String, String)> = before[..2]
+        .iter()
+        .map(|l| {
+            let n = &l["neighbors"][0];
+            let id = n["id"].as_str().map_or(n["id"].to_string(), str::to_string);
+            (id, n["item"].as_str().unwrap().to_string())
+        })
+        .collect();
+    let f = d.write(
+        "gone.txt",
+        gone.iter()
+            .map(|g| g.0.clone())
+            .collect::<Vec<_>>()
+            .join("\n")
+            .as_bytes(),
+    );
+    d.cmd()
+        .arg("remove")
+        .arg(&idx)
+        .arg("--ids")
+        .arg(&f)
+        .assert()
+        .success();
+    for (q, line) in stops.iter().zip(ask("6")) {
+        let dist = petgraph::algo::dijkstra(&g, node[q], None, |e| *e.weight());
+        let mut want: Vec<f64> = dist
+            .iter()
+            .filter(|(n, _)| !gone.iter().any(|g| g.1 == name_of[n]))
+            .map(|(_, d)| *d)
+            .collect();
+        want.sort_by(f64::total_cmp);
+        let got = line["neighbors"].as_array().unwrap();
+        assert_eq!(got.len(), 6, "{line}");
+        for (n, w) in got.iter().zip(&want) {
+            assert!(!gone.iter().any(|g| g.1 == n["item"].as_str().unwrap()));
+            assert!((n["distance"].as_f64().unwrap() - w).abs() < 1e-6, "{q}: {line}");
+        }
+    }
+    // What needs the live items as one index is refused, with the reason, and nothing
+    // changes.
+    let list = std::fs::read(&idx).unwrap();
+    for args in [
+        &["compact"][..],
+        &["pairs", "--within", "20"],
+        &["groups", "--within", "20"],
+        &["eval", "--distortion"],
+    ] {
+        d.cmd()
+            .arg(args[0])
+            .arg(&idx)
+            .args(&args[1..])
+            .assert()
+            .failure()
+            .code(2)
+            .stderr(contains("of the graph metric").and(contains("build a new index")));
+    }
+    assert_eq!(std::fs::read(&idx).unwrap(), list);
 }
