@@ -53,7 +53,10 @@ fn grown(d: &Dir) -> (PathBuf, Vec<(String, String)>) {
     let idx = d.build(&base, "grown.wmk", &args);
     let mut second = all[1200..1350].to_vec();
     second.push(("w7".into(), format!("{}s", all[7].1)));
-    for (j, more) in [all[1000..1200].to_vec(), second.clone()].iter().enumerate() {
+    for (j, more) in [all[1000..1200].to_vec(), second.clone()]
+        .iter()
+        .enumerate()
+    {
         let f = d.write(&format!("more{j}.csv"), &csv(more));
         d.cmd()
             .arg("add")
@@ -106,13 +109,7 @@ fn compacted_copy(d: &Dir, idx: &Path) -> PathBuf {
 }
 
 fn stdout_of(d: &Dir, args: &[&str], idx: &Path, more: &[&str]) -> String {
-    let out = d
-        .cmd()
-        .args(args)
-        .arg(idx)
-        .args(more)
-        .output()
-        .unwrap();
+    let out = d.cmd().args(args).arg(idx).args(more).output().unwrap();
     assert!(
         out.status.success(),
         "{args:?} {more:?}: {}",
@@ -200,10 +197,16 @@ fn eval_on_an_index_in_parts_measures_the_parts_answers_against_the_live_items()
 
     // --recall takes the first part's curve and measures the parts' answers.
     let asked = run(&["--recall", "0.9"]);
-    assert!(asked["recall"][0]["recall"].as_f64().unwrap() > 0.5, "{asked}");
+    assert!(
+        asked["recall"][0]["recall"].as_f64().unwrap() > 0.5,
+        "{asked}"
+    );
 
     // The ground truth cache keys on the live items: after another remove it is not read.
-    assert_eq!(run(&["--candidates", "5000"])["ground_truth"]["cached"], true);
+    assert_eq!(
+        run(&["--candidates", "5000"])["ground_truth"]["cached"],
+        true
+    );
     let f = d.write("gone2.txt", b"w11\n");
     d.cmd()
         .arg("remove")
@@ -287,10 +290,20 @@ fn pairs_and_groups_on_an_index_in_parts_answer_as_on_the_same_items_in_one_inde
         assert!(!removed.contains(a.0.as_str()) && !removed.contains(b.0.as_str()));
     }
     // The column path too (no deletion-variant table), and TSV.
-    let cols = stdout_of(&d, &["pairs"], &idx, &["--within", "2", "--no-variant-table"]);
+    let cols = stdout_of(
+        &d,
+        &["pairs"],
+        &idx,
+        &["--within", "2", "--no-variant-table"],
+    );
     assert_eq!(
         cols,
-        stdout_of(&d, &["pairs"], &one, &["--within", "2", "--no-variant-table"])
+        stdout_of(
+            &d,
+            &["pairs"],
+            &one,
+            &["--within", "2", "--no-variant-table"]
+        )
     );
     let tsv = ["--within", "1", "--format", "tsv"];
     assert_eq!(
@@ -302,7 +315,10 @@ fn pairs_and_groups_on_an_index_in_parts_answer_as_on_the_same_items_in_one_inde
     // from both sides is written once, so an item's 3 nearest are the 3 nearest of all the
     // pairs it is in (a pair nearer than its 3rd nearest would be among them).
     let near = stdout_of(&d, &["pairs"], &idx, &["-k", "3", "--exact"]);
-    assert_eq!(near, stdout_of(&d, &["pairs"], &one, &["-k", "3", "--exact"]));
+    assert_eq!(
+        near,
+        stdout_of(&d, &["pairs"], &one, &["-k", "3", "--exact"])
+    );
     let mut per_item: std::collections::HashMap<(String, String), Vec<f64>> = Default::default();
     for l in near.lines() {
         let v: Value = serde_json::from_str(l).unwrap();
@@ -343,7 +359,10 @@ fn pairs_and_groups_on_an_index_in_parts_answer_as_on_the_same_items_in_one_inde
 
     // Groups: the same groups, in the same order, as the one index; as components they are
     // the connected components of the brute force's pairs (union-find here).
-    for more in [&["--within", "1"][..], &["--within", "2", "--grouping", "components"]] {
+    for more in [
+        &["--within", "1"][..],
+        &["--within", "2", "--grouping", "components"],
+    ] {
         assert_eq!(
             stdout_of(&d, &["groups"], &idx, more),
             stdout_of(&d, &["groups"], &one, more)
@@ -422,7 +441,13 @@ fn install_refuses_an_index_in_parts_on_either_side_and_changes_nothing() {
         .code(2)
         .stderr(contains("cannot be installed").and(contains("waymark compact")));
     assert!(!target.exists());
-    assert_eq!(d.others(&[]).iter().filter(|n| n.contains("partial")).count(), 0);
+    assert_eq!(
+        d.others(&[])
+            .iter()
+            .filter(|n| n.contains("partial"))
+            .count(),
+        0
+    );
 }
 
 /// Grows an index of `items` under `metric` (built from the first half, two additions, ids
@@ -542,7 +567,11 @@ fn every_metric_grows_and_compacts_with_exact_answers_equal_to_brute_force() {
         .chunks(2)
         .map(|c| c.join(" ").to_lowercase().replace('\'', ""))
         .collect();
-    let two_q: Vec<String> = two.iter().step_by(13).map(|s| format!("{s} quay")).collect();
+    let two_q: Vec<String> = two
+        .iter()
+        .step_by(13)
+        .map(|s| format!("{s} quay"))
+        .collect();
     let nld = |a: &str, b: &str| {
         let l = strsim::levenshtein(a, b) as f64;
         if l == 0.0 {
@@ -558,13 +587,17 @@ fn every_metric_grows_and_compacts_with_exact_answers_equal_to_brute_force() {
         &two,
         &two_q,
         &|a, b| {
-            let (x, y): (Vec<&str>, Vec<&str>) =
-                (a.split_whitespace().collect(), b.split_whitespace().collect());
+            let (x, y): (Vec<&str>, Vec<&str>) = (
+                a.split_whitespace().collect(),
+                b.split_whitespace().collect(),
+            );
             let mut prev: Vec<f64> = (0..=y.len()).map(|j| j as f64).collect();
             for (i, u) in x.iter().enumerate() {
                 let mut cur = vec![(i + 1) as f64];
                 for (j, v) in y.iter().enumerate() {
-                    let c = (prev[j] + nld(u, v)).min(prev[j + 1] + 1.0).min(cur[j] + 1.0);
+                    let c = (prev[j] + nld(u, v))
+                        .min(prev[j + 1] + 1.0)
+                        .min(cur[j] + 1.0);
                     cur.push(c);
                 }
                 prev = cur;
@@ -663,7 +696,14 @@ fn every_metric_grows_and_compacts_with_exact_answers_equal_to_brute_force() {
         (dot / (norm(&x) * norm(&y))).clamp(-1.0, 1.0).acos() / std::f64::consts::PI
     };
     grow_and_check("l1", &["--metric", "l1"], "csv", &points, &point_q, &l1);
-    grow_and_check("linf", &["--metric", "linf"], "csv", &points, &point_q, &linf);
+    grow_and_check(
+        "linf",
+        &["--metric", "linf"],
+        "csv",
+        &points,
+        &point_q,
+        &linf,
+    );
     // Directions far apart for the angle (a cosine near 1 leaves acos few digits).
     let dir_of = |w: &str| -> String {
         let b = w.as_bytes();
@@ -761,7 +801,10 @@ fn a_graph_index_with_removed_nodes_answers_exactly_and_refuses_what_needs_one_i
         assert_eq!(got.len(), 6, "{line}");
         for (n, w) in got.iter().zip(&want) {
             assert!(!gone.iter().any(|g| g.1 == n["item"].as_str().unwrap()));
-            assert!((n["distance"].as_f64().unwrap() - w).abs() < 1e-6, "{q}: {line}");
+            assert!(
+                (n["distance"].as_f64().unwrap() - w).abs() < 1e-6,
+                "{q}: {line}"
+            );
         }
     }
     // What needs the live items as one index is refused, with the reason, and nothing
