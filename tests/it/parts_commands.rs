@@ -245,7 +245,10 @@ fn eval_on_an_index_in_parts_measures_the_parts_answers_against_the_live_items()
 }
 
 /// The pairs of `pairs` JSON output as unordered pairs of `(id, item)` with their distance.
-fn pair_set(out: &str) -> BTreeSet<((String, String), (String, String), u64)> {
+/// An item as `(id, item)`.
+type Named = (String, String);
+
+fn pair_set(out: &str) -> BTreeSet<(Named, Named, u64)> {
     out.lines()
         .map(|l| {
             let v: Value = serde_json::from_str(l).unwrap();
