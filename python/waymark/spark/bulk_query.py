@@ -99,14 +99,15 @@ def query(
         removed = set(part.removed)
         texts = [r[1] for r in rows]
         found = _parts.ranged(index, texts, k_, within_, exact_, len(removed))
-        for (qid, _), hits in zip(rows, found):
-            hits = [(n, d) for n, d in hits if n not in removed]
+        for (qid, _), (numbers, distances) in zip(rows, found):
+            if removed:
+                kept = [i for i, x in enumerate(numbers) if x not in removed]
+                numbers, distances = [numbers[i] for i in kept], [distances[i] for i in kept]
             if k_ is not None:
-                hits = hits[:k_]
-            if not hits:
+                numbers, distances = numbers[:k_], distances[:k_]
+            if not numbers:
                 continue
-            numbers = [n for n, _ in hits]
-            for n, d, i, item in zip(numbers, [d for _, d in hits], index.ids(numbers), index.items(numbers)):
+            for n, d, i, item in zip(numbers, distances, index.ids(numbers), index.items(numbers)):
                 yield (qid, part.first + n, i, item, d)
 
     schema = StructType(

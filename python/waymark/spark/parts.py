@@ -104,32 +104,37 @@ def check_radius(name: str, within) -> float:
     return float(within)
 
 
-def ranged(index, texts, k: int, within: float | None, exact: bool, extra: int):
-    """Each query's answers in one part, nearest first (distance, id, number), as lists of
-    (number, distance): the ``k + extra`` nearest, or with ``k`` None every item within
-    ``within`` (the rows that come back full are asked again with twice the room, until
-    none is full, so the answer is complete)."""
+def ranged(index, texts, k: int | None, within: float | None, exact: bool, extra: int):
+    """Each query's answers in one part, nearest first (distance, id, number), as a pair of
+    lists (numbers, distances) per query: the ``k + extra`` nearest, or with ``k`` None every
+    item within ``within`` (rows that come back full are asked again with four times the
+    room, until none is full, so the answer is complete)."""
     if not texts:
         return []
+    n = len(index)
     if k is not None:
-        numbers, distances = index.query_many(texts, k=min(k + extra, len(index)), exact=exact, within=within)
-        return [_row(n, d) for n, d in zip(numbers, distances)]
+        numbers, distances = index.query_many(texts, k=min(k + extra, n), exact=exact, within=within)
+        return _rows(numbers, distances)
     out = [None] * len(texts)
     pending = list(range(len(texts)))
-    room = 64
+    room = 16
     while pending:
-        room = min(room, len(index))
+        room = min(room, n)
         numbers, distances = index.query_many([texts[i] for i in pending], k=room, within=within)
+        rows = _rows(numbers, distances)
         again = []
-        for i, n, d in zip(pending, numbers, distances):
-            if room < len(index) and n[-1] >= 0:
+        for i, row in zip(pending, rows):
+            if room < n and len(row[0]) == room:
                 again.append(i)
             else:
-                out[i] = _row(n, d)
+                out[i] = row
         pending = again
         room *= 4
     return out
 
 
-def _row(numbers, distances):
-    return [(int(n), float(d)) for n, d in zip(numbers, distances) if n >= 0]
+def _rows(numbers, distances):
+    """The found (non-fill) numbers and distances of each row, as Python lists."""
+    counts = (numbers >= 0).sum(axis=1).tolist()
+    ns, ds = numbers.tolist(), distances.tolist()
+    return [(a[:c], b[:c]) for a, b, c in zip(ns, ds, counts)]

@@ -49,13 +49,15 @@ def pairs(spark: SparkSession, index, *, within: float, block: int = BLOCK) -> D
         numbers = [n for n in range(start, end) if n not in gone_a]
         texts = source.items(numbers)
         found = _parts.ranged(target, texts, None, within, True, 0)
-        for a, text, hits in zip(numbers, texts, found):
-            keep = [(b, d) for b, d in hits if b not in gone_b and asked.first + b > asker.first + a]
+        # Numbers across the parts: a pair is kept from its smaller number's side.
+        offset = asked.first - asker.first
+        for a, text, (bs, ds) in zip(numbers, texts, found):
+            keep = [i for i, b in enumerate(bs) if b + offset > a and b not in gone_b]
             if not keep:
                 continue
-            bs = [b for b, _ in keep]
+            bs, ds = [bs[i] for i in keep], [ds[i] for i in keep]
             id_a = source.id(a)
-            for b, d, id_b, item_b in zip(bs, [d for _, d in keep], target.ids(bs), target.items(bs)):
+            for b, d, id_b, item_b in zip(bs, ds, target.ids(bs), target.items(bs)):
                 yield (id_a, id_b, text, item_b, d, asker.first + a, asked.first + b)
 
     schema = StructType(
