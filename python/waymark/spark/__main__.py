@@ -121,6 +121,7 @@ def main(argv=None) -> int:
     if args.master:
         builder = builder.master(args.master)
     spark = builder.getOrCreate()
+    spark.sparkContext.setLogLevel("WARN")
     try:
         if args.command == "build":
             df, column = _read(spark, args)
@@ -149,7 +150,7 @@ def main(argv=None) -> int:
             out = labelled.join(names, "node").select("node", "id", "item", "group", "centre")
             _write(out, args)
     except ValueError as err:
-        print(f"waymark.spark {args.command}: {err}", file=sys.stderr)
+        print(f"waymark.spark: {err}", file=sys.stderr)
         return 2
     except Exception as err:  # a failed job: Spark's message, without the JVM's trace
         from pyspark.errors import PySparkException
