@@ -6,6 +6,7 @@ that scripts/test-data.sh makes; Spark needs Java 17 or later."""
 
 import math
 import os
+import shutil
 import sys
 
 import pytest
@@ -162,3 +163,92 @@ def test_refusals(spark, slices, queries_df):
     numbers = spark.createDataFrame([(1,)], "name long")
     with pytest.raises(ValueError, match="must be strings"):
         query(spark, slices, numbers, "name")
+
+
+needs_shards = pytest.mark.skipif(
+    not hasattr(waymark, "build_shard"), reason="the package has no sharded build (waymark.build_shard)"
+)
+
+
+@pytest.fixture(scope="module")
+def sharded(spark, tmp_path_factory, names):
+    """The names built in Spark as an index in parts, one part per shard."""
+    if not hasattr(waymark, "build_shard"):
+        pytest.skip("the package has no sharded build (waymark.build_shard)")
+    folder = tmp_path_factory.mktemp("jobs-sharded")
+    df = spark.createDataFrame([(t,) for t in names], "name string")
+    path = build(spark, df, "name", folder / "names.wmk", shards=SHARDS, sample=2000)
+    return path
+
+
+@needs_shards
+def test_a_sharded_build_answers_as_one_index(spark, sharded, whole, queries_df, lookups, cli_pairs):
+    parts = waymark.list_parts(sharded)
+    assert [p["items"] for p in parts] == [N // SHARDS] * SHARDS
+    assert [p["first"] for p in parts] == [s * (N // SHARDS) for s in range(SHARDS)]
+    got = spark_answers(query(spark, sharded, queries_df, "name", k=5, exact=True))
+    assert got == one_index_answers(waymark.open(whole), lookups, k=5, exact=True)
+    found = sorted((r.id_a, r.id_b, r.distance) for r in pairs(spark, sharded, within=2).collect())
+    assert found == sorted((p["a"]["id"], p["b"]["id"], float(p["distance"])) for p in cli_pairs)
+
+
+@needs_shards
+def test_removed_items_are_skipped(spark, sharded, whole, tmp_path, queries_df, lookups):
+    # Remove (by the command line) the exact nearest neighbour of the first 50 queries.
+    nearest = spark_answers(query(spark, sharded, queries_df, "name", k=1, exact=True))
+    gone = {nearest[q][0][0] for q in range(50) if q in nearest}
+    ids = tmp_path / "gone.txt"
+    ids.write_text("".join(f"{i}\n" for i in sorted(gone)))
+    shutil.copytree(os.path.dirname(sharded), tmp_path / "copy")
+    index = str(tmp_path / "copy" / os.path.basename(sharded))
+    run_cli("remove", index, "--ids", ids)
+    assert sum(len(p["removed"]) for p in waymark.list_parts(index)) == len(gone)
+
+    # One index of every name, the removed ids left out of its answers and pairs.
+    one = waymark.open(whole)
+    want = {}
+    for q, t in enumerate(lookups):
+        kept = [a for a in one.query(t, 3 + len(gone), exact=True) if a[0] not in gone][:3]
+        want[q] = kept
+    got = spark_answers(query(spark, index, queries_df, "name", k=3, exact=True))
+    assert got == {q: v for q, v in want.items() if v}
+    found = sorted((r.id_a, r.id_b, r.distance) for r in pairs(spark, index, within=1).collect())
+    cli = json_lines(run_cli("pairs", whole, "--within", "1").stdout)
+    assert found == sorted(
+        (p["a"]["id"], p["b"]["id"], float(p["distance"]))
+        for p in cli
+        if p["a"]["id"] not in gone and p["b"]["id"] not in gone
+    )
+
+
+@needs_shards
+def test_a_failed_first_attempt_leaves_a_correct_index(spark, tmp_path, names, whole, queries_df, lookups):
+    def fail_first(shard, path):
+        from pyspark import TaskContext
+
+        # After the part is written: the retry writes it again, under the same name.
+        if shard == 1 and TaskContext.get().attemptNumber() == 0:
+            raise RuntimeError("a first attempt that fails after writing its part")
+
+    df = spark.createDataFrame([(t,) for t in names], "name string")
+    path = build(spark, df, "name", tmp_path / "retried.wmk", shards=SHARDS, sample=2000, on_written=fail_first)
+    parts = waymark.list_parts(path)
+    assert len(parts) == SHARDS and sum(p["items"] for p in parts) == N
+    files = sorted(os.listdir(tmp_path / "retried.wmk.parts"))
+    assert len(files) == SHARDS, files
+    assert not os.path.exists(tmp_path / "retried.wmk.shards")
+    got = spark_answers(query(spark, path, queries_df, "name", k=5, exact=True))
+    assert got == one_index_answers(waymark.open(whole), lookups, k=5, exact=True)
+
+
+def test_build_refusals(spark, tmp_path):
+    df = spark.createDataFrame([("Orvane Quay", 1), (None, 2)], "name string, code long")
+    with pytest.raises(ValueError, match="no column 'title'"):
+        build(spark, df, "title", tmp_path / "x.wmk")
+    with pytest.raises(ValueError, match="items must be strings"):
+        build(spark, df, "code", tmp_path / "x.wmk")
+    with pytest.raises(ValueError, match="null in 'name'"):
+        build(spark, df, "name", tmp_path / "x.wmk", "code")
+    with pytest.raises(ValueError, match="shards must be"):
+        build(spark, df, "name", tmp_path / "x.wmk", shards=0)
+    assert not os.path.exists(tmp_path / "x.wmk")

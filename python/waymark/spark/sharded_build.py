@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import functools
 import os
+import shutil
 
 from pyspark.sql import DataFrame, SparkSession
 from pyspark.sql import functions as F
@@ -34,12 +35,13 @@ def build(
     seed index from them (``waymark.build_seed`` with ``options``, the keywords of
     ``waymark.build``): the references every part is embedded against. Each partition of the
     items (``shards`` of them, consecutive in ``df``'s order, or ``df``'s own partitions)
-    is then built into one part on an executor (``waymark.build_shard``) in the folder
-    ``INDEX.parts/`` beside ``index_path``, which every executor must be able to write and
-    read (shared storage on a cluster). A part's file name holds its shard number and a
-    checksum of its content, and is written to a temporary file and renamed: a task that
-    fails and runs again writes the same file, never a second or a torn one. The list file
-    is written last, by the driver (``waymark.write_parts``); until then no index is at
+    is then built into one part on an executor (``waymark.build_shard``) in the staging
+    folder ``INDEX.shards/`` beside ``index_path``, which every executor must be able to
+    write and read (shared storage on a cluster). A part's file name holds its shard number
+    and a checksum of its content, and is written to a temporary file and renamed: a task
+    that fails and runs again writes the same file, never a second or a torn one. The list
+    file is written last, by the driver (``waymark.write_parts``, which links the parts into
+    ``INDEX.parts/``; the staging folder is then removed); until then no index is at
     ``index_path``.
 
     Item numbers follow ``df``'s order across the parts; ids are ``df[id_column]``
@@ -74,16 +76,24 @@ def build(
         raise ValueError(f"build: a row has a null in {' or '.join(repr(c) for c in cols)}")
     live = df.select(*cols).where(F.trim(F.col(column)) != "")
 
-    items = live.rdd.map(tuple).zipWithIndex().cache()
+    numbered = items = live.rdd.map(tuple).zipWithIndex().cache()
     total = items.count()
     if total == 0:
         raise ValueError(f"build: column {column!r} has no items (all null or blank)")
 
     drawn = [r[0][0] for r in items.takeSample(False, min(sample, total), seed)]
-    folder = index_path + ".parts"
-    os.makedirs(folder, exist_ok=True)
-    seed_path = os.path.join(folder, "seed.wmk")
-    waymark.build_seed(drawn, seed_path, seed=seed, **options)
+    # The seed and the shards are written to a staging folder beside the index; write_parts
+    # links the shards into INDEX.parts/ and writes the list, and the folder is then removed.
+    staging = index_path + ".shards"
+    os.makedirs(staging, exist_ok=True)
+    seed_path = os.path.join(staging, "seed.wmk")
+    if hasattr(waymark, "build_seed"):
+        waymark.build_seed(drawn, seed_path, seed=seed, **options)
+    else:
+        if "candidates" not in options and hasattr(waymark._waymark, "_default_candidates"):
+            # The query default of an index of every item, not of the sample.
+            options["candidates"] = waymark._waymark._default_candidates(total)
+        waymark.build(drawn, seed_path, seed=seed, **options)
 
     if shards is not None:
         # Consecutive runs of item numbers, one per shard: the same on every attempt.
@@ -99,11 +109,16 @@ def build(
             return
         texts = [r[0][0] for r in rows]
         ids = [r[0][1] for r in rows] if has_ids else None
-        path = wm.build_shard(texts, folder, shard, like=seed_path, ids=ids, first_number=rows[0][1])
+        if ids is None:
+            path = wm.build_shard(texts, staging, shard, like=seed_path, first_number=rows[0][1])
+        else:
+            path = wm.build_shard(texts, staging, shard, like=seed_path, ids=ids)
         if on_written is not None:
             on_written(shard, path)
         yield (shard, path)
 
     written = sorted(items.mapPartitionsWithIndex(build_one).collect())
+    numbered.unpersist()
     waymark.write_parts(index_path, [path for _, path in written])
+    shutil.rmtree(staging)
     return index_path
