@@ -7,6 +7,7 @@ that scripts/test-data.sh makes; Spark needs Java 17 or later."""
 import math
 import os
 import shutil
+import subprocess
 import sys
 
 import pytest
@@ -252,3 +253,27 @@ def test_build_refusals(spark, tmp_path):
     with pytest.raises(ValueError, match="shards must be"):
         build(spark, df, "name", tmp_path / "x.wmk", shards=0)
     assert not os.path.exists(tmp_path / "x.wmk")
+
+
+def spark_cli(*args, cwd=None):
+    env = dict(os.environ, PYSPARK_PYTHON=sys.executable)
+    return subprocess.run(
+        [sys.executable, "-m", "waymark.spark", *map(str, args)], capture_output=True, text=True, env=env, cwd=cwd
+    )
+
+
+def test_the_entry_point_refuses_bad_arguments_and_input(tmp_path, whole):
+    (tmp_path / "taken").mkdir()
+    out = spark_cli("pairs", "--index", whole, "--within", "2", "--out", tmp_path / "taken")
+    assert out.returncode == 2 and "the output folder exists" in out.stderr
+    assert os.listdir(tmp_path / "taken") == []
+    out = spark_cli("pairs", "--index", whole, "--within", "-1", "--out", tmp_path / "p")
+    assert out.returncode == 2 and "a radius is a finite number of at least 0" in out.stderr
+    out = spark_cli("query", "--index", whole, "--input", tmp_path / "none.csv", "--column", "name", "--out", tmp_path / "q")
+    assert out.returncode == 2 and "none.csv: no such file" in out.stderr
+    # Refused once Spark has read the file: a column it does not have.
+    csv = tmp_path / "lookups.csv"
+    csv.write_text("code,name\n1,Orvane Quay\n")
+    out = spark_cli("query", "--index", whole, "--input", csv, "--column", "title", "--master", "local[1]", "--out", tmp_path / "q")
+    assert out.returncode == 2 and "no column 'title'" in out.stderr, out.stderr[-2000:]
+    assert not (tmp_path / "q").exists()

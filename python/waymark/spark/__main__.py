@@ -16,8 +16,29 @@ local mode with every core) unless given. Exit codes: 0 done, 2 bad arguments or
 from __future__ import annotations
 
 import argparse
+import math
 import os
 import sys
+
+
+def _radius(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number") from None
+    if not math.isfinite(value) or value < 0:
+        raise argparse.ArgumentTypeError(f"{text!r}: a radius is a finite number of at least 0")
+    return value
+
+
+def _count(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"{text!r}: must be at least 1")
+    return value
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -44,8 +65,8 @@ def _parser() -> argparse.ArgumentParser:
     b = sub.add_parser("build", help="build an index in parts in Spark")
     common(b, "the index to write (its list file; parts go to INDEX.parts/, on storage every executor reads)")
     source(b, True)
-    b.add_argument("--shards", type=int, help="parts to build (default: the input's partitions)")
-    b.add_argument("--sample", type=int, default=4096, help="items drawn for the references (default 4096)")
+    b.add_argument("--shards", type=_count, help="parts to build (default: the input's partitions)")
+    b.add_argument("--sample", type=_count, default=4096, help="items drawn for the references (default 4096)")
     b.add_argument("--metric", default="levenshtein")
     b.add_argument("--dim", type=int, default=64)
     b.add_argument("--seed", type=int, default=0)
@@ -57,15 +78,15 @@ def _parser() -> argparse.ArgumentParser:
     common(q, "the index (a list file or one index file)")
     source(q, True)
     sink(q)
-    q.add_argument("-k", type=int, default=10, help="neighbours per query (default 10)")
+    q.add_argument("-k", type=_count, default=10, help="neighbours per query (default 10)")
     q.add_argument("--exact", action="store_true", help="the exact k nearest")
-    q.add_argument("--within", type=float, help="only neighbours at distance at most R (exact)")
+    q.add_argument("--within", type=_radius, help="only neighbours at distance at most R (exact)")
 
     for name, what in (("pairs", "every pair within a radius (deduplication)"), ("groups", "groups of near-duplicates")):
         s = sub.add_parser(name, help=what)
         common(s, "the index (a list file or one index file)")
         sink(s)
-        s.add_argument("--within", type=float, required=True, help="the radius R")
+        s.add_argument("--within", type=_radius, required=True, help="the radius R")
         if name == "groups":
             s.add_argument("--grouping", choices=["centre", "clique", "components"], default="centre")
     return p
