@@ -33,8 +33,10 @@ def build(
 
     The driver draws ``sample`` items (Spark's ``takeSample`` with ``seed``) and builds the
     seed index from them (``waymark.build_seed`` with ``options``, the keywords of
-    ``waymark.build``): the references every part is embedded against. Each partition of the
-    items (``shards`` of them, consecutive in ``df``'s order, or ``df``'s own partitions)
+    ``waymark.build``; ``total`` set to the items' count, so that the stored default
+    candidates are those of an index of every item): the references every part is embedded
+    against. The items are cut into ``shards`` consecutive runs of ``df``'s order (default:
+    as many as ``df`` has partitions; at most 1,024, and no more than the items), and each run
     is then built into one part on an executor (``waymark.build_shard``) in the staging
     folder ``INDEX.shards/`` beside ``index_path``, which every executor must be able to
     write and read (shared storage on a cluster). A part's file name holds its shard number
@@ -62,8 +64,8 @@ def build(
         raise ValueError(
             f"build: column {id_column!r} is {df.schema[id_column].dataType.simpleString()}: ids must be integers or strings"
         )
-    if shards is not None and (isinstance(shards, bool) or not isinstance(shards, int) or shards < 1):
-        raise ValueError(f"build: shards must be a whole number of at least 1, not {shards!r}")
+    if shards is not None and (isinstance(shards, bool) or not isinstance(shards, int) or not 1 <= shards <= 1024):
+        raise ValueError(f"build: shards must be a whole number from 1 to 1024, not {shards!r}")
     if isinstance(sample, bool) or not isinstance(sample, int) or sample < 1:
         raise ValueError(f"build: sample must be a whole number of at least 1, not {sample!r}")
     index_path = os.path.abspath(os.fspath(index_path))
@@ -87,17 +89,14 @@ def build(
     staging = index_path + ".shards"
     os.makedirs(staging, exist_ok=True)
     seed_path = os.path.join(staging, "seed.wmk")
-    if hasattr(waymark, "build_seed"):
-        waymark.build_seed(drawn, seed_path, seed=seed, **options)
-    else:
-        if "candidates" not in options and hasattr(waymark._waymark, "_default_candidates"):
-            # The query default of an index of every item, not of the sample.
-            options["candidates"] = waymark._waymark._default_candidates(total)
-        waymark.build(drawn, seed_path, seed=seed, **options)
+    # total: the seed stores the default candidates of an index of every item.
+    waymark.build_seed(drawn, seed_path, total=total, seed=seed, **options)
 
-    if shards is not None:
-        # Consecutive runs of item numbers, one per shard: the same on every attempt.
-        items = items.map(lambda r: (r[1] * shards // total, r)).partitionBy(shards, lambda s: s).values()
+    # Consecutive runs of item numbers, one per shard, none empty: the same on every attempt.
+    if shards is None:
+        shards = min(df.rdd.getNumPartitions(), 1024)
+    shards = min(shards, total)
+    items = items.map(lambda r: (r[1] * shards // total, r)).partitionBy(shards, lambda s: s).values()
 
     has_ids = id_column is not None
 
