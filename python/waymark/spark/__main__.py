@@ -109,10 +109,11 @@ def _read(spark, args):
     if args.id_column is not None and args.id_column in df.columns:
         from pyspark.sql import functions as F
 
-        # CSV fields are text: integer ids are read as integers when every one is.
-        cast = df.select(F.col(args.id_column).cast("long").alias("x"))
-        if cast.where(F.col("x").isNull()).limit(1).count() == 0:
-            df = df.withColumn(args.id_column, F.col(args.id_column).cast("long"))
+        # CSV fields are text: integer ids are read as integers when every one is one.
+        as_long = F.expr("try_cast(`{}` AS BIGINT)".format(args.id_column.replace("`", "``")))
+        cast = df.select(F.col(args.id_column).alias("text"), as_long.alias("x"))
+        if cast.where(F.col("x").isNull() & F.col("text").isNotNull()).limit(1).count() == 0:
+            df = df.withColumn(args.id_column, as_long)
     return df, column
 
 
