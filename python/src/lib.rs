@@ -21,6 +21,7 @@ use self_cell::self_cell;
 use waymark::embed::{LandmarkRule, Method};
 use waymark::error::Param;
 use waymark::eval::{load_or_compute_truth, measure_recall, CalibrateOptions, TruthSource};
+use waymark::index::parts::{parts_dir, Parts};
 use waymark::index::{build_index_with, build_index_with_metric, BuildOptions, IdRef, Index};
 use waymark::ingest::{
     corpus_from_items, load_input, text_metric_spec, Corpus, Ids, IngestOptions, InputFormat,
@@ -28,6 +29,7 @@ use waymark::ingest::{
 };
 use waymark::metric::{CustomMetric, Metric, MetricError, MetricKind, MetricSpec, Norm};
 use waymark::pairs::{group, lookup_within, Grouping, Pair, Radius};
+use waymark::search::parts::PartsSearcher;
 use waymark::search::{CandidateSource, Found, Request, Scratch, SearchParams, Searcher, Space};
 use waymark::Error;
 
@@ -772,12 +774,13 @@ fn build_file(
 // An open index.
 
 self_cell!(
-    /// An open index and the searcher over it, which keeps what exact queries make on
-    /// first use (the column blocks, signatures) for every later query.
+    /// An open index (one file, or the parts a list file names) and the searchers over its
+    /// parts, which keep what exact queries make on first use (the column blocks,
+    /// signatures) for every later query.
     struct Held {
-        owner: Index,
+        owner: Parts,
         #[covariant]
-        dependent: Searcher,
+        dependent: PartsSearcher,
     }
 );
 
@@ -827,15 +830,19 @@ fn vector_text(v: impl Iterator<Item = f64>) -> String {
     s
 }
 
-/// The id of item `i` as a Python value.
-fn id_value(py: Python<'_>, index: &Index, i: usize) -> PyResult<Py<PyAny>> {
-    Ok(match index.id(i) {
+/// The id of item `i` (numbered across the parts) as a Python value.
+fn id_value(py: Python<'_>, parts: &Parts, i: usize) -> PyResult<Py<PyAny>> {
+    Ok(match parts.id(i as u32) {
         IdRef::Int(v) => v.into_pyobject(py)?.into_any().unbind(),
         IdRef::Text(b) => PyString::new(py, &String::from_utf8_lossy(b))
             .into_any()
             .unbind(),
     })
 }
+
+/// Rows of each part sampled for the drift figures of `inspect` on a list file (as
+/// `waymark inspect`).
+const DRIFT_SAMPLE: usize = 100_000;
 
 /// The answers of many queries: item numbers and distances, n_queries × k each.
 type ManyAnswers<'py> = (Bound<'py, PyArray2<i64>>, Bound<'py, PyArray2<f64>>);
@@ -934,12 +941,13 @@ fn request(
 impl PyIndex {
     fn open(py: Python<'_>, path: &Path, custom: Option<CustomMetric>) -> PyResult<PyIndex> {
         let python_metric = custom.is_some();
-        let index = py
+        let parts = py
             .detach(|| match &custom {
-                Some(m) => Index::open_with_metric(path, m),
-                None => Index::open(path),
+                Some(m) => Index::open_with_metric(path, m).map(Parts::single),
+                None => Parts::open(path),
             })
             .map_err(py_err)?;
+        let index = parts.first();
         // An index of a Python distance opened without one is refused now, not at its
         // first query (the library refuses the metric's first use).
         if let (false, MetricSpec::Custom { name, .. }) = (python_metric, &index.meta().metric_spec)
@@ -952,29 +960,51 @@ impl PyIndex {
             )));
         }
         Ok(PyIndex {
-            held: Held::new(index, |i| Searcher::new(i)),
+            held: Held::new(parts, |p| PartsSearcher::new(p)),
             python_metric,
         })
     }
 
+    /// The first part: its metadata holds the defaults of a search.
     fn index(&self) -> &Index {
+        self.held.borrow_owner().first()
+    }
+
+    fn parts(&self) -> &Parts {
         self.held.borrow_owner()
     }
 
+    /// The searcher of the first part (the only one of a whole index).
     fn searcher(&self) -> &Searcher<'_> {
+        self.held.borrow_dependent().searcher(0)
+    }
+
+    fn in_parts(&self) -> &PartsSearcher<'_> {
         self.held.borrow_dependent()
+    }
+
+    /// Refuses what only a single index file answers (eval, distortion).
+    fn whole_only(&self, what: &str) -> PyResult<()> {
+        if self.parts().is_whole() {
+            return Ok(());
+        }
+        Err(bad(format!(
+            "{what} of an index in parts (a list file: {}) is not available: compact it \
+             first (`waymark compact`), or build it as one file",
+            self.parts().path().display()
+        )))
     }
 
     /// The answer as a list of (id, item, distance).
     fn answer_list(&self, py: Python<'_>, found: &Found) -> PyResult<Py<PyList>> {
-        let index = self.index();
+        let parts = self.parts();
         let rows = found
             .neighbors
             .iter()
             .map(|n| {
                 let i = n.index as usize;
-                let item = String::from_utf8_lossy(index.item(i));
-                Ok((id_value(py, index, i)?, item, n.distance))
+                let item = String::from_utf8_lossy(parts.item(n.index));
+                Ok((id_value(py, parts, i)?, item, n.distance))
             })
             .collect::<PyResult<Vec<_>>>()?;
         Ok(PyList::new(py, rows)?.unbind())
@@ -1001,15 +1031,19 @@ impl PyIndex {
     }
 
     fn __len__(&self) -> usize {
-        self.index().len()
+        self.parts().live()
     }
 
     fn __repr__(&self) -> String {
         let m = self.index().meta();
+        let parts = match self.parts().parts().len() {
+            1 => String::new(),
+            p => format!(" in {p} parts"),
+        };
         format!(
-            "<waymark.Index {:?}: {} items, {}, {} coordinates by {}>",
-            self.index().path().display().to_string(),
-            m.n,
+            "<waymark.Index {:?}: {} items{parts}, {}, {} coordinates by {}>",
+            self.parts().path().display().to_string(),
+            self.parts().live(),
             m.metric_spec.kind(),
             m.dim,
             m.embedding.name()
@@ -1019,7 +1053,7 @@ impl PyIndex {
     /// The file the index was opened from.
     #[getter]
     fn path(&self) -> String {
-        self.index().path().display().to_string()
+        self.parts().path().display().to_string()
     }
 
     /// The metric's name (`levenshtein`, `l2`, … or a Python distance's name).
@@ -1035,13 +1069,13 @@ impl PyIndex {
     /// The id of item `number` (an int or a str, as given at build time).
     fn id(&self, py: Python<'_>, number: i64) -> PyResult<Py<PyAny>> {
         let i = self.item_number(number)?;
-        id_value(py, self.index(), i)
+        id_value(py, self.parts(), i)
     }
 
     /// Item `number` as given at build time.
     fn item(&self, number: i64) -> PyResult<String> {
         let i = self.item_number(number)?;
-        Ok(String::from_utf8_lossy(self.index().item(i)).into_owned())
+        Ok(String::from_utf8_lossy(self.parts().item(i as u32)).into_owned())
     }
 
     /// The ids of item numbers: a list shaped as `numbers` (1-D or 2-D), with None where
@@ -1052,10 +1086,12 @@ impl PyIndex {
 
     /// The items of item numbers, shaped and filled as [`PyIndex::ids`].
     fn items(&self, py: Python<'_>, numbers: &Bound<'_, PyAny>) -> PyResult<Py<PyAny>> {
-        self.map_numbers(py, numbers, |py, idx, i| {
-            Ok(PyString::new(py, &String::from_utf8_lossy(idx.item(i)))
-                .into_any()
-                .unbind())
+        self.map_numbers(py, numbers, |py, parts, i| {
+            Ok(
+                PyString::new(py, &String::from_utf8_lossy(parts.item(i as u32)))
+                    .into_any()
+                    .unbind(),
+            )
         })
     }
 
@@ -1097,8 +1133,20 @@ impl PyIndex {
         let text = query_text(index, query)?;
         let req = for_these(index, req, recall, std::slice::from_ref(&text))?;
         let searcher = self.searcher();
+        let in_parts = self.in_parts();
+        let whole = self.parts().is_whole();
         let found = py
             .detach(|| {
+                if !whole {
+                    let one = std::slice::from_ref(&text);
+                    let mut all = match within_fraction {
+                        Some(f) => in_parts.merge_each(1, k, |_, s| {
+                            lookup_within(s, one, Radius::Fraction(f), None)
+                        }),
+                        None => in_parts.answer_many(one, &req),
+                    };
+                    return all.pop().expect("one answer per query");
+                }
                 if let Some(f) = within_fraction {
                     let mut all = lookup_within(
                         searcher,
@@ -1157,12 +1205,18 @@ impl PyIndex {
         let texts = self.query_texts(queries)?;
         let req = for_these(index, req, recall, &texts)?;
         let searcher = self.searcher();
+        let in_parts = self.in_parts();
+        let whole = self.parts().is_whole();
         let n = texts.len();
         let result = py.detach(|| -> Result<(Vec<i64>, Vec<f64>), Error> {
-            searcher.check(&req)?;
-            let answers = match within_fraction {
-                Some(f) => lookup_within(searcher, &texts, Radius::Fraction(f), Some(k)),
-                None => searcher.answer_many(&texts, &req),
+            in_parts.check(&req)?;
+            let answers = match (within_fraction, whole) {
+                (Some(f), true) => lookup_within(searcher, &texts, Radius::Fraction(f), Some(k)),
+                (None, true) => searcher.answer_many(&texts, &req),
+                (Some(f), false) => in_parts.merge_each(texts.len(), Some(k), |_, s| {
+                    lookup_within(s, &texts, Radius::Fraction(f), None)
+                }),
+                (None, false) => in_parts.answer_many(&texts, &req),
             };
             let mut numbers = vec![-1i64; n * k];
             let mut dists = vec![f64::INFINITY; n * k];
@@ -1188,13 +1242,16 @@ impl PyIndex {
     /// is checked first).
     #[pyo3(signature = (*, verify=false))]
     fn inspect(&self, py: Python<'_>, verify: bool) -> PyResult<Py<PyAny>> {
-        let index = self.index();
+        let parts = self.parts();
         let report = py
             .detach(|| -> Result<_, Error> {
                 if verify {
-                    index.verify()?;
+                    parts.verify()?;
                 }
-                Ok(index.report(verify))
+                if parts.is_listed() {
+                    return Ok(parts.report(verify, DRIFT_SAMPLE));
+                }
+                Ok(parts.first().report(verify))
             })
             .map_err(py_err)?;
         json_to_py(py, &report)
@@ -1215,6 +1272,7 @@ impl PyIndex {
         candidates_from: Option<&str>,
         visit: Option<usize>,
     ) -> PyResult<Py<PyAny>> {
+        self.whole_only("eval")?;
         let index = self.index();
         if candidates.is_some() && recall.is_some() {
             return Err(bad("give candidates or recall, not both"));
@@ -1296,6 +1354,7 @@ impl PyIndex {
     /// The distortion report of the embedding, as `waymark eval --distortion --pairs`.
     #[pyo3(signature = (*, pairs=100_000))]
     fn distortion(&self, py: Python<'_>, pairs: usize) -> PyResult<Py<PyAny>> {
+        self.whole_only("distortion")?;
         let index = self.index();
         let report = py
             .detach(|| waymark::eval::index_distortion(index, pairs))
@@ -1312,16 +1371,24 @@ impl PyIndex {
 }
 
 impl PyIndex {
+    /// Item `number` (across the parts), refused when it is not one or is removed.
     fn item_number(&self, number: i64) -> PyResult<usize> {
-        let n = self.index().len();
-        usize::try_from(number)
+        let parts = self.parts();
+        let n = parts.len();
+        let i = usize::try_from(number)
             .ok()
             .filter(|&i| i < n)
             .ok_or_else(|| {
                 pyo3::exceptions::PyIndexError::new_err(format!(
-                    "item number {number} is not in the index ({n} items)"
+                    "item number {number} is not in the index ({n} item numbers)"
                 ))
-            })
+            })?;
+        if parts.is_removed(i as u32) {
+            return Err(pyo3::exceptions::PyIndexError::new_err(format!(
+                "item number {number} is removed from the index"
+            )));
+        }
+        Ok(i)
     }
 
     /// Queries from Python: a list of strings, or for a vector index a 2-D array (or a
@@ -1363,14 +1430,14 @@ impl PyIndex {
         &self,
         py: Python<'_>,
         numbers: &Bound<'_, PyAny>,
-        f: impl Fn(Python<'_>, &Index, usize) -> PyResult<Py<PyAny>>,
+        f: impl Fn(Python<'_>, &Parts, usize) -> PyResult<Py<PyAny>>,
     ) -> PyResult<Py<PyAny>> {
-        let index = self.index();
+        let parts = self.parts();
         let one = |x: i64| -> PyResult<Py<PyAny>> {
             if x == -1 {
                 return Ok(py.None());
             }
-            f(py, index, self.item_number(x)?)
+            f(py, parts, self.item_number(x)?)
         };
         if let Ok(a) = numbers.extract::<PyReadonlyArray2<'_, i64>>() {
             let rows = a
@@ -1505,6 +1572,118 @@ fn group_pairs(
     Ok(out.unbind())
 }
 
+// ---------------------------------------------------------------------------------------
+// Sharded builds (`waymark::index::shards`).
+
+/// Writes one shard of a sharded index against the seed index at `like`. See
+/// `python/waymark/__init__.pyi`.
+#[pyfunction]
+#[pyo3(signature = (items, folder, shard, *, like, ids=None, first_number=None))]
+fn build_shard(
+    py: Python<'_>,
+    items: &Bound<'_, PyAny>,
+    folder: PathBuf,
+    shard: i64,
+    like: PathBuf,
+    ids: Option<&Bound<'_, PyAny>>,
+    first_number: Option<i64>,
+) -> PyResult<String> {
+    let max = waymark::index::shards::MAX_SHARDS;
+    let shard = usize::try_from(shard).map_err(|_| {
+        bad(format!(
+            "shard number {shard} is out of range (0 to {})",
+            max - 1
+        ))
+    })?;
+    let seed = py.detach(|| Index::open(&like)).map_err(py_err)?;
+    let given = ids_from(ids)?;
+    let ids_for = |n: usize| -> PyResult<Ids> {
+        match (given.clone(), first_number) {
+            (Some(i), None) => Ok(i),
+            (None, Some(f)) if f >= 0 => Ok(waymark::index::shards::record_ids(f, n)),
+            (None, Some(f)) => Err(bad(format!(
+                "first_number is {f}: a record number is at least 0"
+            ))),
+            (None, None) => Err(bad(
+                "give the shard's ids (ids=, one per item) or the record number of its first \
+                 item across all the shards (first_number=)",
+            )),
+            (Some(_), Some(_)) => Err(bad("give ids or first_number, not both")),
+        }
+    };
+    let meta = seed.meta();
+    let corpus = if let Ok(array) = items.extract::<PyReadonlyArray2<'_, f32>>() {
+        if !matches!(meta.metric_spec, MetricSpec::Vector { .. }) {
+            return Err(bad(format!(
+                "the seed {} indexes text: give the items as a list of strings",
+                like.display()
+            )));
+        }
+        let view = array.as_array();
+        let (n, d) = view.dim();
+        let vectors = waymark::ingest::vectors::vectors_from_values(n, d, "items", |r, c| {
+            f64::from(view[[r, c]])
+        })
+        .map_err(|e| py_err(e.into()))?;
+        Corpus::new(vectors.rows, Some(vectors.items), ids_for(n)?).map_err(|e| py_err(e.into()))?
+    } else {
+        if items.is_instance_of::<PyString>() {
+            return Err(bad("items must be a list of strings, not one string"));
+        }
+        let texts: Vec<String> = items
+            .extract()
+            .map_err(|_| bad("items must be a list of strings or a 2-D float32 numpy array"))?;
+        let ids = ids_for(texts.len())?;
+        let ingest = IngestOptions {
+            normalize: meta.normalize,
+            ..IngestOptions::default()
+        };
+        corpus_from_items(texts, Some(ids), &ingest, "items").map_err(|e| py_err(e.into()))?
+    };
+    let path = py
+        .detach(|| {
+            waymark::index::shards::build_shard(&corpus, "items", &seed, &folder, shard, Vec::new())
+        })
+        .map_err(py_err)?;
+    Ok(path.display().to_string())
+}
+
+/// Writes the list file of a sharded index. See `python/waymark/__init__.pyi`.
+#[pyfunction]
+fn write_parts(py: Python<'_>, index_path: PathBuf, part_paths: Vec<PathBuf>) -> PyResult<()> {
+    py.detach(|| waymark::index::shards::write_parts(&index_path, &part_paths))
+        .map_err(py_err)?;
+    Ok(())
+}
+
+/// The parts of an index. See `python/waymark/__init__.pyi`.
+#[pyfunction]
+fn list_parts(py: Python<'_>, index_path: PathBuf) -> PyResult<Py<PyList>> {
+    let parts = py.detach(|| Parts::open(&index_path)).map_err(py_err)?;
+    let dir = parts_dir(&index_path);
+    let out = PyList::empty(py);
+    for p in parts.parts() {
+        let path = if parts.is_listed() {
+            dir.join(&p.file)
+        } else {
+            index_path.clone()
+        };
+        let d = PyDict::new(py);
+        d.set_item("path", path.display().to_string())?;
+        d.set_item("items", p.index.len())?;
+        d.set_item("removed", p.removed.clone())?;
+        d.set_item("first", p.offset)?;
+        out.append(d)?;
+    }
+    Ok(out.unbind())
+}
+
+/// The default candidates a build of `n` items stores.
+#[pyfunction]
+fn _default_candidates(n: usize) -> usize {
+    waymark::index::default_candidates(n)
+}
+
 #[pymodule]
 fn _waymark(m: &Bound<'_, PyModule>) -> PyResult<()> {
     let py = m.py();
@@ -1512,6 +1691,10 @@ fn _waymark(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(build, m)?)?;
     m.add_function(wrap_pyfunction!(build_file, m)?)?;
     m.add_function(wrap_pyfunction!(group_pairs, m)?)?;
+    m.add_function(wrap_pyfunction!(build_shard, m)?)?;
+    m.add_function(wrap_pyfunction!(write_parts, m)?)?;
+    m.add_function(wrap_pyfunction!(list_parts, m)?)?;
+    m.add_function(wrap_pyfunction!(_default_candidates, m)?)?;
     m.add("WaymarkError", py.get_type::<WaymarkError>())?;
     m.add("BadInputError", py.get_type::<BadInputError>())?;
     m.add("CorruptIndexError", py.get_type::<CorruptIndexError>())?;

@@ -25,15 +25,35 @@ from ._waymark import (
     __version__,
     build,
     build_file,
+    build_shard,
     group_pairs,
+    list_parts,
+    write_parts,
 )
+from ._waymark import _default_candidates
 
 
 def open(path, *, metric=None, metric_name=None, integral=False):  # noqa: A001 (module-level name of our API)
-    """Opens the index file at ``path`` (memory-mapped: cheap, so each worker process can
-    open its own). An index built with a distance written in Python needs the same
-    callable again as ``metric`` (and the same ``metric_name`` if one was given)."""
+    """Opens the index at ``path`` (memory-mapped: cheap, so each worker process can open
+    its own): an index file, or the list file of an index in parts (grown by ``waymark
+    add``, or written by ``write_parts``). An index built with a distance written in Python
+    needs the same callable again as ``metric`` (and the same ``metric_name`` if one was
+    given)."""
     return Index(path, metric=metric, metric_name=metric_name, integral=integral)
+
+
+def build_seed(items, path, *, total=None, candidates=None, **options):
+    """Builds the seed of a sharded index at ``path``: an ordinary index of ``items`` (a
+    sample of the whole input, a few thousand items), built as ``build`` builds one with the
+    same keyword options, whose reference items, coordinate scale, metric and normalisation
+    every shard then uses (``build_shard(..., like=path)``). ``total`` (the number of items
+    the sharded index will hold) sets the default candidates stored, as a build of that many
+    items would; without it, or with ``candidates``, as ``build`` does. No recall curve is
+    measured. Returns the seed, opened."""
+    if candidates is None and total is not None:
+        candidates = _default_candidates(int(total))
+    options["calibrate"] = False
+    return build(items, path, candidates=candidates, **options)
 
 
 __all__ = [
@@ -45,6 +65,10 @@ __all__ = [
     "__version__",
     "build",
     "build_file",
+    "build_seed",
+    "build_shard",
     "group_pairs",
+    "list_parts",
     "open",
+    "write_parts",
 ]

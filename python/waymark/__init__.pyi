@@ -162,7 +162,70 @@ def open(
     metric_name: str | None = None,
     integral: bool = False,
 ) -> Index:
-    """Opens an index file (see ``Index``)."""
+    """Opens an index: an index file, or the list file of an index in parts (grown by
+    ``waymark add``, or written by ``write_parts``); see ``Index``."""
+
+def build_seed(
+    items: Sequence[str] | npt.NDArray[np.float32],
+    path: str | PathLike[str],
+    *,
+    total: int | None = None,
+    candidates: int | None = None,
+    **options: Any,
+) -> Index:
+    """Builds the seed of a sharded index at ``path``: an ordinary index of ``items``, a
+    sample of the whole input (a few thousand items chosen at random), built by ``build``
+    with the same keyword options (metric, dim, embedding, seed, landmark_sample,
+    normalisation, …). Its reference items, coordinate scale, metric and normalisation are
+    the embedding every shard uses (``build_shard(..., like=path)``); the seed itself is not
+    a part of the sharded index. ``total``, the number of items the sharded index will
+    hold, sets the default candidates stored as a build of that many items would (give
+    ``candidates`` to choose them). No recall curve is measured, so ``query(recall=...)`` on
+    the sharded index is refused: give ``candidates``. Returns the seed, opened."""
+
+def build_shard(
+    items: Sequence[str] | npt.NDArray[np.float32],
+    folder: str | PathLike[str],
+    shard: int,
+    *,
+    like: str | PathLike[str],
+    ids: Sequence[int] | Sequence[str] | None = None,
+    first_number: int | None = None,
+) -> str:
+    """Embeds ``items`` against the reference items of the seed index at ``like`` (its
+    metric and normalisation too) and writes them as shard number ``shard`` (0 to 1023) in
+    ``folder`` (created if missing); returns the file's path,
+    ``folder/shard-NNNNN-HASH.wmk`` (HASH: the first 16 hex digits of the file's SHA-256).
+
+    The ids are ``ids`` (one per item), or the record numbers ``first_number``,
+    ``first_number + 1``, … where ``first_number`` is the number of items of the shards
+    before this one (shard 0: 0), so that ids count across the shards in shard order as a
+    build of all the items would number them. One of the two is required.
+
+    The file is written under a hidden temporary name in ``folder`` and renamed: a task
+    killed midway leaves no shard file, and a task run twice (retried or speculative) with
+    the same items writes the same bytes under the same name, so one file remains. Raises
+    ``BadInputError`` for a shard number out of range, items the seed's metric cannot take,
+    or a seed whose metric is a graph or a Python distance (not shardable)."""
+
+def write_parts(
+    index_path: str | PathLike[str], part_paths: Sequence[str | PathLike[str]]
+) -> None:
+    """Writes the list file of a sharded index at ``index_path`` for the shard files
+    ``part_paths`` (any order: listed by shard number), atomically, after linking (or
+    copying) each into the index's parts folder ``INDEX.parts/``. The index then opens with
+    ``open`` and takes ``waymark query``, ``add``, ``remove`` and ``compact``. Refused with
+    ``BadInputError`` (nothing written): shard numbers that are not 0, 1, …, N-1 each once
+    (a shard missing, two files of one shard), a file that does not exist, shards built from
+    different seeds (their embeddings differ), ids of different kinds; with
+    ``CorruptIndexError``: a file whose contents do not have the checksum its name carries.
+    Files in ``INDEX.parts/`` that the list does not name are removed."""
+
+def list_parts(index_path: str | PathLike[str]) -> list[dict[str, Any]]:
+    """The parts of the index at ``index_path``, in item-number order: ``path`` (the part
+    file; the index file itself for an index of one file), ``items`` (removed ones
+    included), ``removed`` (item numbers within the part that are removed) and ``first``
+    (the item number across the parts of its first item)."""
 
 class Index:
     """An open, memory-mapped index. Opening is cheap; an index is safe to share between
@@ -181,7 +244,8 @@ class Index:
         same callable again as ``metric`` (an index of another metric is refused)."""
 
     def __len__(self) -> int:
-        """The number of items."""
+        """The number of items (of an index in parts: the items not removed; item numbers
+        run across the parts and skip none, so a removed item's number stays unused)."""
 
     @property
     def path(self) -> str:
@@ -249,7 +313,9 @@ class Index:
         its position (``queries[3]: …``)."""
 
     def id(self, number: int) -> Id:
-        """The id of item ``number`` (0 ≤ number < len(index))."""
+        """The id of item ``number`` (0 ≤ number < len(index) for an index of one file;
+        over parts, numbers run across the parts, and a removed item's number raises
+        ``IndexError``)."""
 
     def item(self, number: int) -> str:
         """Item ``number`` as given at build time."""
@@ -264,8 +330,11 @@ class Index:
     def inspect(self, *, verify: bool = False) -> dict[str, Any]:
         """What the index holds, as ``waymark inspect --json`` prints it (path, format
         version, file size, ``meta`` with the metric, normalisation, embedding, defaults and
-        recall curve, the reference items, every section's size). ``verify=True`` first
-        checks every checksum (a full read; ``CorruptIndexError`` on damage)."""
+        recall curve, the reference items, every section's size). For an index in parts, as
+        ``waymark inspect --json`` prints a list file: ``format`` "parts", the
+        ``fingerprint``, ``items``, ``live``, ``parts`` (file, items, removed, bytes, drift)
+        and ``first`` (the first part's report). ``verify=True`` first checks every
+        checksum (a full read; ``CorruptIndexError`` on damage)."""
 
     def eval(
         self,
@@ -282,8 +351,10 @@ class Index:
         every query by a full scan on all cores, then one row per candidate count (default
         250, 500, 1000, 2000) or per asked recall, with threshold and plain recall@k,
         distances per query, queries per second and latency percentiles (the keys of
-        ``waymark eval --json``'s ``recall`` rows)."""
+        ``waymark eval --json``'s ``recall`` rows). Refused (``BadInputError``) on an index
+        in parts: compact it first."""
 
     def distortion(self, *, pairs: int = 100_000) -> dict[str, Any]:
         """The distortion of the embedding, as ``waymark eval --distortion --pairs``: the
-        ratio embedded / true distance over item pairs, per space (L1, L2, L∞)."""
+        ratio embedded / true distance over item pairs, per space (L1, L2, L∞). Refused on
+        an index in parts, as ``eval``."""

@@ -375,6 +375,11 @@ pub(super) struct BuildArgs {
     /// about 8.5 bytes per (variant, item) (levenshtein, damerau, hamming).
     #[arg(long = "small-radius", value_name = "R")]
     pub small_radius: Option<u32>,
+    /// Build the index as N parts (1 to 1024) in parallel: the reference items are chosen
+    /// once from --landmark-sample items, each part's items embedded against them; the
+    /// index is a list file with its parts in INDEX.parts/ (no recall curve is measured).
+    #[arg(long, value_name = "N", value_parser = clap::value_parser!(u64).range(1..=1024))]
+    pub shards: Option<u64>,
     /// Print nothing on success.
     #[arg(short, long)]
     pub quiet: bool,

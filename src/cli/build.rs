@@ -59,6 +59,9 @@ pub(super) fn build(a: BuildArgs) -> anyhow::Result<()> {
         None => 0,
     };
     crate::resources::check_build(&source, n, text_bytes, a.dim, table)?;
+    if let Some(shards) = a.shards {
+        return build_sharded(&a, &corpus, &source, spec, graph, options, shards, t0);
+    }
     let bars = BuildBars::new(n, !a.quiet);
     let report = build_index_with(
         &corpus,
@@ -156,6 +159,64 @@ pub(super) fn build(a: BuildArgs) -> anyhow::Result<()> {
             report.tree_seconds,
             report.write_seconds,
             calibrate_seconds
+        )?;
+    }
+    Ok(())
+}
+
+/// `build --shards N`: the seed, the shards in parallel, the list.
+#[allow(clippy::too_many_arguments)]
+fn build_sharded(
+    a: &BuildArgs,
+    corpus: &crate::ingest::Corpus,
+    source: &str,
+    spec: crate::metric::MetricSpec,
+    graph: Option<crate::metric::Graph>,
+    options: BuildOptions,
+    shards: u64,
+    t0: Instant,
+) -> anyhow::Result<()> {
+    let read_seconds = t0.elapsed().as_secs_f64();
+    let r = crate::index::shards::build_sharded(
+        corpus,
+        source,
+        &BuildOptions {
+            metric: spec,
+            graph,
+            ..options
+        },
+        shards as usize,
+        &a.output,
+    )?;
+    if !a.quiet {
+        let m = &r.seed.meta;
+        let file_len: u64 = std::fs::read_dir(crate::index::parts::parts_dir(&a.output))
+            .map(|d| {
+                d.flatten()
+                    .filter_map(|e| e.metadata().ok())
+                    .map(|m| m.len())
+                    .sum()
+            })
+            .unwrap_or(0);
+        let mut out = std::io::stdout().lock();
+        writeln!(
+            out,
+            "indexed {} items from {} into {} ({} parts, {}, {} coordinates by {} chosen from {} items, {:.1} MB) in {:.2} s",
+            corpus.items.len(),
+            source,
+            a.output.display(),
+            r.shard_items.len(),
+            m.metric,
+            m.dim,
+            m.embedding.name(),
+            r.sample,
+            file_len as f64 / 1e6,
+            t0.elapsed().as_secs_f64()
+        )?;
+        writeln!(
+            out,
+            "time: read {read_seconds:.2} s, reference items {:.2} s, parts {:.2} s; no recall curve (query --recall needs one: give --candidates)",
+            r.seed_seconds, r.shards_seconds
         )?;
     }
     Ok(())

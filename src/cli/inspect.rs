@@ -179,35 +179,9 @@ fn inspect_parts(a: InspectArgs) -> anyhow::Result<()> {
     } else {
         None
     };
-    let drift = parts.drift(DRIFT_SAMPLE);
     let mut out = std::io::stdout().lock();
     if a.json {
-        let list: Vec<serde_json::Value> = parts
-            .parts()
-            .iter()
-            .zip(&drift)
-            .map(|(p, d)| {
-                serde_json::json!({
-                    "file": p.file,
-                    "items": p.index.len(),
-                    "removed": p.removed.len(),
-                    "bytes": p.index.file_len(),
-                    "format_version": p.index.format_version(),
-                    "drift": d,
-                })
-            })
-            .collect();
-        let obj = serde_json::json!({
-            "path": a.index.display().to_string(),
-            "format": "parts",
-            "list_version": crate::index::parts::LIST_VERSION,
-            "fingerprint": parts.fingerprint(),
-            "items": parts.len(),
-            "live": parts.live(),
-            "verified": verified.is_some(),
-            "parts": list,
-            "first": parts.first().report(verified.is_some()),
-        });
+        let obj = parts.report(verified.is_some(), DRIFT_SAMPLE);
         writeln!(
             out,
             "{}",
@@ -215,6 +189,7 @@ fn inspect_parts(a: InspectArgs) -> anyhow::Result<()> {
         )?;
         return Ok(());
     }
+    let drift = parts.drift(DRIFT_SAMPLE);
     let dir = crate::index::parts::parts_dir(&a.index);
     writeln!(out, "index         {}", esc(&a.index.display().to_string()))?;
     writeln!(

@@ -21,6 +21,7 @@ pub mod file;
 mod install;
 pub mod parts;
 pub mod rows;
+pub mod shards;
 pub mod tree;
 pub mod variants;
 

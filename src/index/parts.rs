@@ -202,7 +202,7 @@ pub fn fingerprint(index: &Index) -> String {
 }
 
 /// The SHA-256 (hexadecimal) of an index file's header and section table.
-fn part_digest(index: &Index) -> String {
+pub(super) fn part_digest(index: &Index) -> String {
     let head = super::file::HEADER_LEN + super::file::MAX_SECTIONS * 32;
     hex_encode(&Sha256::digest(&index.map[..head.min(index.map.len())]))
 }
@@ -405,6 +405,63 @@ impl Parts {
             parts,
             listed: true,
             fingerprint: list.fingerprint,
+        })
+    }
+
+    /// An index file already open, as an index of one part (for an index opened with a
+    /// metric of the caller's, [`Index::open_with_metric`]).
+    pub fn single(index: Index) -> Parts {
+        let path = index.path().to_path_buf();
+        let file = path
+            .file_name()
+            .map(|n| n.to_string_lossy().into_owned())
+            .unwrap_or_default();
+        let fingerprint = fingerprint(&index);
+        Parts {
+            path,
+            parts: vec![Part {
+                index,
+                removed: Vec::new(),
+                offset: 0,
+                file,
+            }],
+            listed: false,
+            fingerprint,
+        }
+    }
+
+    /// What the index holds, as `waymark inspect --json` prints it for a list file: the
+    /// path, the fingerprint, the items and live items, each part (file, items, removed
+    /// items, bytes, format version, drift from `drift_sample` rows: [`Parts::drift`]), and
+    /// the first part's report ([`Index::report`]). `verified` says whether the caller
+    /// checked every checksum ([`Parts::verify`]).
+    pub fn report(&self, verified: bool, drift_sample: usize) -> serde_json::Value {
+        let drift = self.drift(drift_sample);
+        let list: Vec<serde_json::Value> = self
+            .parts
+            .iter()
+            .zip(&drift)
+            .map(|(p, d)| {
+                serde_json::json!({
+                    "file": p.file,
+                    "items": p.index.len(),
+                    "removed": p.removed.len(),
+                    "bytes": p.index.file_len(),
+                    "format_version": p.index.format_version(),
+                    "drift": d,
+                })
+            })
+            .collect();
+        serde_json::json!({
+            "path": self.path.display().to_string(),
+            "format": "parts",
+            "list_version": LIST_VERSION,
+            "fingerprint": self.fingerprint,
+            "items": self.len(),
+            "live": self.live(),
+            "verified": verified,
+            "parts": list,
+            "first": self.first().report(verified),
         })
     }
 
@@ -616,7 +673,7 @@ fn new_part_name() -> String {
     format!("part-{:016x}.wmk", rand::thread_rng().gen::<u64>())
 }
 
-fn sync_dir(dir: &Path) -> Result<()> {
+pub(super) fn sync_dir(dir: &Path) -> Result<()> {
     File::open(dir)
         .and_then(|d| d.sync_all())
         .map_err(|e| io(dir, e))
@@ -624,7 +681,7 @@ fn sync_dir(dir: &Path) -> Result<()> {
 
 /// Writes `list` over the index at `path` atomically (temporary file, flush, rename, flush
 /// of the folder).
-fn write_list(path: &Path, list: &PartsList) -> Result<()> {
+pub(super) fn write_list(path: &Path, list: &PartsList) -> Result<()> {
     let mut tmp = super::file::partial_for(path)?;
     tmp.as_file_mut()
         .write_all(&list_bytes(list))
@@ -635,7 +692,7 @@ fn write_list(path: &Path, list: &PartsList) -> Result<()> {
 
 /// Removes the files of the parts folder that `keep` does not name (parts of a writer that
 /// was killed, parts a merge replaced). Called under the writer lock.
-fn remove_unlisted(dir: &Path, keep: &[String]) {
+pub(super) fn remove_unlisted(dir: &Path, keep: &[String]) {
     let Ok(entries) = std::fs::read_dir(dir) else {
         return;
     };

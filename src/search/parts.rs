@@ -49,6 +49,11 @@ impl<'a> PartsSearcher<'a> {
         }
     }
 
+    /// The searcher of part `j`.
+    pub fn searcher(&self, j: usize) -> &Searcher<'a> {
+        &self.searchers[j]
+    }
+
     /// The index searched.
     pub fn parts(&self) -> &'a Parts {
         self.parts

@@ -35,5 +35,6 @@ mod permissions;
 mod recall;
 mod search;
 mod sequences;
+mod shards;
 mod small_radius;
 mod vector_digits;
