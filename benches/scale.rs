@@ -121,7 +121,10 @@ fn main() {
     let sizes = env_list("WAYMARK_SCALE_SIZES", "1000000,3000000,10000000");
     let nq = env_list("WAYMARK_SCALE_QUERIES", "1000")[0];
     let out_dir = PathBuf::from(std::env::var("WAYMARK_SCALE_OUT").unwrap_or_else(|_| {
-        Path::new(env!("CARGO_MANIFEST_DIR")).join("docs").display().to_string()
+        Path::new(env!("CARGO_MANIFEST_DIR"))
+            .join("docs")
+            .display()
+            .to_string()
     }));
     let tmp = match std::env::var("WAYMARK_SCALE_TMP") {
         Ok(p) => tempfile::tempdir_in(p),
@@ -177,9 +180,18 @@ fn main() {
         let exact_s = t.elapsed().as_secs_f64();
         assert!(exact.iter().all(|r| r.is_ok()), "exact answers");
         let t = Instant::now();
-        let within = searcher.answer_many(&queries, &Request::Within { radius: 2.0, k: None });
+        let within = searcher.answer_many(
+            &queries,
+            &Request::Within {
+                radius: 2.0,
+                k: None,
+            },
+        );
         let within_s = t.elapsed().as_secs_f64();
-        let found: usize = within.iter().map(|r| r.as_ref().expect("range answers").neighbors.len()).sum();
+        let found: usize = within
+            .iter()
+            .map(|r| r.as_ref().expect("range answers").neighbors.len())
+            .sum();
         let r = Row {
             n,
             text_mb,
@@ -253,12 +265,18 @@ fn main() {
             lines: true,
         },
         &[
-            Series { label: "build wall time (s)".into(), points: millions(&|r| r.build_s) },
+            Series {
+                label: "build wall time (s)".into(),
+                points: millions(&|r| r.build_s),
+            },
             Series {
                 label: "build peak memory (GB)".into(),
                 points: millions(&|r| r.build_peak_mb.unwrap_or(0.0) / 1e3),
             },
-            Series { label: "index size (GB)".into(), points: millions(&|r| r.index_mb / 1e3) },
+            Series {
+                label: "index size (GB)".into(),
+                points: millions(&|r| r.index_mb / 1e3),
+            },
         ],
     )
     .expect("build chart");
@@ -274,11 +292,24 @@ fn main() {
             lines: true,
         },
         &[
-            Series { label: "approximate, defaults".into(), points: millions(&|r| r.approx_qps) },
-            Series { label: "exact".into(), points: millions(&|r| r.exact_qps) },
-            Series { label: "within 2".into(), points: millions(&|r| r.within_qps) },
+            Series {
+                label: "approximate, defaults".into(),
+                points: millions(&|r| r.approx_qps),
+            },
+            Series {
+                label: "exact".into(),
+                points: millions(&|r| r.exact_qps),
+            },
+            Series {
+                label: "within 2".into(),
+                points: millions(&|r| r.within_qps),
+            },
         ],
     )
     .expect("query chart");
-    println!("charts: {} and {}", build_chart.display(), query_chart.display());
+    println!(
+        "charts: {} and {}",
+        build_chart.display(),
+        query_chart.display()
+    );
 }

@@ -5,8 +5,11 @@
 # items (same answers for exact, q/s ratio for approximate at the defaults); compaction
 # against a rebuild. Items added: British and German words not in the index's list.
 # Usage: scripts/bench-growing.sh [WAYMARK]   (default target/release/waymark)
+# WAYMARK_GROWING_RUNS (default 2): alternating query runs per index; the q/s ratio printed
+# is the median of the runs' ratios (grown ÷ fresh), each run timing both indexes back to back.
 set -u
 W=${1:-target/release/waymark}
+RUNS=${WAYMARK_GROWING_RUNS:-2}
 BIG=/usr/share/dict/american-english-insane
 T=$(mktemp -d)
 trap 'rm -rf "$T"' EXIT
@@ -27,12 +30,21 @@ for i in $(seq -w 1 20); do "$W" add "$T/g.wmk" "$T/add.$i" 2>/dev/null; done
 "$W" inspect "$T/g.wmk" | sed -n '1,40p'
 cat "$BIG" "$T/new" > "$T/all"
 echo "rebuild of $(wc -l < "$T/all") items: $(secs "$W" build "$T/all" -o "$T/one.wmk" -q) s"
-for run in 1 2; do
+: > "$T/ratios"
+for run in $(seq 1 "$RUNS"); do
   for idx in g one; do
     "$W" query "$T/$idx.wmk" --queries "$T/q" -k 10 --summary > "$T/a.$idx" 2> "$T/s"
     echo "approximate, $idx (run $run): $(cat "$T/s")"
+    sed 's/.*(\([0-9]*\) queries\/s).*/\1/' "$T/s" > "$T/qps.$idx"
   done
+  echo "$(cat "$T/qps.g") $(cat "$T/qps.one")" >> "$T/ratios"
 done
+python3 - "$T/ratios" <<'PY'
+import statistics, sys
+r = [float(a) / float(b) for a, b in (l.split() for l in open(sys.argv[1]))]
+print(f"q/s grown / fresh: median {statistics.median(r):.3f} of {len(r)} runs "
+      f"(min {min(r):.3f}, max {max(r):.3f})")
+PY
 "$W" query "$T/g.wmk" --queries "$T/q" -k 10 --exact | sed 's/,"exact":.*//' > "$T/eg"
 "$W" query "$T/one.wmk" --queries "$T/q" -k 10 --exact | sed 's/,"exact":.*//' > "$T/eo"
 if cmp -s "$T/eg" "$T/eo"; then echo "exact answers: identical"; else echo "exact answers: DIFFER"; fi

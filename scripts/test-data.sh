@@ -7,11 +7,11 @@
 set -euo pipefail
 cd "$(dirname "$0")/.."
 export DEBIAN_FRONTEND=noninteractive
-if [ ! -f /usr/share/dict/american-english ]; then
+if [ ! -f /usr/share/dict/american-english ] || [ ! -f /usr/share/dict/british-english ]; then
   if [ "$(id -u)" = 0 ]; then
     apt-get update -qq && apt-get install -y -qq wamerican wbritish >/dev/null
   else
-    echo "scripts/test-data.sh: install Debian's word list first: sudo apt-get install -y wamerican" >&2
+    echo "scripts/test-data.sh: install Debian's word lists first: sudo apt-get install -y wamerican wbritish" >&2
     exit 1
   fi
 fi

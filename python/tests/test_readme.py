@@ -5,10 +5,12 @@ comparing its repr with VALUE."""
 import ast
 import os
 import re
+import subprocess
+import sys
 
 import numpy as np
 
-from conftest import DEMO, REPO
+from conftest import DEMO, REPO, waymark_bin
 
 
 def python_blocks():
@@ -59,3 +61,22 @@ def test_the_readme_python_examples_give_the_answers_shown(tmp_path):
     finally:
         os.chdir(cwd)
     assert len(checked) >= 6, checked
+
+
+def test_the_readme_cluster_example_runs_in_local_mode(tmp_path):
+    """The worked example of "More than one machine", run with its local defaults: the
+    command line builds, `spark-submit` runs the jobs, and it prints what is shown."""
+    text = (REPO / "README.md").read_text(encoding="utf-8")
+    section = text.split("\n## More than one machine\n", 1)[1].split("\n## ", 1)[0]
+    script, shown = re.search(r"```sh\n(.*?)```\n\nprints\n\n```text\n(.*?)```", section, flags=re.S).groups()
+    os.symlink(DEMO, tmp_path / "demo-data")
+    env = dict(os.environ)
+    env["PATH"] = os.pathsep.join([os.path.dirname(sys.executable), str(waymark_bin().parent), env["PATH"]])
+    env["PYSPARK_PYTHON"] = sys.executable
+    env["SHARED"] = str(tmp_path / "shared")
+    env.pop("MASTER", None)
+    out = subprocess.run(
+        ["bash", "-euo", "pipefail", "-c", script], cwd=tmp_path, env=env, capture_output=True, text=True
+    )
+    assert out.returncode == 0, out.stderr[-3000:]
+    assert out.stdout == shown

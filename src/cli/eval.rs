@@ -8,9 +8,12 @@ use super::output::counting_bar;
 use super::query::{at_query_line, read_query_file};
 use crate::error::Error;
 use crate::eval::{
-    calibrate_from_queries, index_distortion, load_or_compute_truth, measure_recall, TruthSource,
+    calibrate_from_queries, index_distortion, load_or_compute_truth, measure_recall,
+    measure_recall_parts, TruthSource,
 };
+use crate::index::parts::{LiveIndex, Parts};
 use crate::index::{store_calibration, Index, RecallChoice};
+use crate::search::parts::PartsSearcher;
 use crate::search::{CandidateSource, Request, SearchParams, Searcher, Space};
 
 pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
@@ -20,12 +23,26 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
         )
         .into());
     }
-    let index = Index::open(&a.index)?;
+    // An index in parts answers as `query` answers it, part by part; its ground truth and
+    // distortion are those of its live items, read as one index ([`Parts::live_index`]).
+    let parts = Parts::open(&a.index)?;
+    let index: &Index = parts.first();
+    let items = parts.live();
+    if a.calibrate && parts.is_listed() {
+        return Err(Error::Usage(format!(
+            "{}: an index in parts (its list file): --calibrate stores a recall curve \
+             measured on one index file; run `waymark compact {}` first, then calibrate \
+             (an index in parts uses the curve of its first part)",
+            a.index.display(),
+            a.index.display()
+        ))
+        .into());
+    }
     // The pairs asked for must fit in memory, checked before any work.
     if a.distortion {
-        crate::resources::check_distortion(index.len(), a.pairs, index.meta().dim as usize)?;
+        crate::resources::check_distortion(items, a.pairs, index.meta().dim as usize)?;
     }
-    super::announce_program(&index, a.quiet_metric);
+    super::announce_program(index, a.quiet_metric);
     // Asked recalls are checked, and an index without a curve refused, before any work
     // (unless --calibrate is to make the curve).
     for &r in &a.recall {
@@ -35,7 +52,7 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
         return Err(Error::parameter(crate::error::Param::K, "must be at least 1").into());
     }
     if let (Some(&r), false) = (a.recall.first(), a.calibrate) {
-        SearchParams::recall_choice(&index, a.k.max(1), r)?;
+        SearchParams::recall_choice(index, a.k.max(1), r)?;
     }
     let space: Space = a.space.map_or(index.meta().space, Into::into);
     // One setting per candidate count, checked (k, candidates) before any answer is computed.
@@ -48,7 +65,7 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
     .map(|&c| {
         let mut params = SearchParams {
             space,
-            ..SearchParams::from_index(&index, a.k).with_candidates(c)
+            ..SearchParams::from_index(index, a.k).with_candidates(c)
         };
         if let Some(v) = a.visit {
             params.visit = v;
@@ -58,13 +75,22 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
         params
     })
     .collect();
-    let searcher = Searcher::new(&index);
+    let searcher = Searcher::new(index);
+    let in_parts = PartsSearcher::new(&parts);
     for &params in &settings {
-        searcher.check(&Request::Approximate(params))?;
+        in_parts.check(&Request::Approximate(params))?;
     }
+    // The live items as one index, for an index in parts with more than one part or removed
+    // items (made once, only when something reads it).
+    let live = if parts.is_whole() || (a.queries.is_none() && !a.distortion) {
+        None
+    } else {
+        Some(parts.live_index()?)
+    };
+    let one: &Index = live.as_ref().map_or(index, LiveIndex::index);
     let mut json = serde_json::json!({
         "index": a.index.display().to_string(),
-        "items": index.len(),
+        "items": items,
         "embedding": index.meta().embedding.name(),
         "dim": index.meta().dim,
         "refs": index.meta().embedding.refs().len(),
@@ -80,15 +106,21 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
                 .map_err(|e| at_query_line(e, &qpath.display().to_string(), i + 1))?;
         }
         if a.no_cache {
-            let key = crate::eval::truth::index_key(&index);
+            let key = crate::eval::truth::index_key(one);
             let _ = std::fs::remove_file(crate::eval::truth::cache_path(qpath, &key, a.k));
         }
         let bar = counting_bar(queries.len() as u64, "exact answers", !a.json);
-        let (truth, source) =
-            load_or_compute_truth(&index, &queries, Some(qpath), a.k, &|n| bar.inc(n as u64));
+        let (mut truth, source) =
+            load_or_compute_truth(one, &queries, Some(qpath), a.k, &|n| bar.inc(n as u64));
         bar.finish_and_clear();
         // An external metric reports a failure of its program here (its distances are NaN).
-        index.metric()?.check()?;
+        one.metric()?.check()?;
+        // Item numbers of the live items' index made those of the parts.
+        if let Some(l) = &live {
+            for n in truth.answers.iter_mut().flatten() {
+                n.index = l.number(n.index);
+            }
+        }
         let (truth_note, truth_json) = match &source {
             TruthSource::Cached(p) => (
                 format!("exact answers read from {}", p.display()),
@@ -108,7 +140,7 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
                 (
                     format!(
                         "exact answers by full scan: {seconds:.2} s ({qps:.0} queries/s, {:.1} M pairs/s)",
-                        qps * index.len() as f64 / 1e6
+                        qps * items as f64 / 1e6
                     ),
                     serde_json::json!({"cached": false, "seconds": seconds, "queries_per_second": qps}),
                 )
@@ -116,7 +148,7 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
         };
         let qname = qpath.display().to_string();
         let calibrated = if a.calibrate {
-            let cal = calibrate_from_queries(&index, &queries, &truth, a.k, &qname)?;
+            let cal = calibrate_from_queries(index, &queries, &truth, a.k, &qname)?;
             store_calibration(&a.index, index.meta(), Some(cal.clone()))?;
             Some(cal)
         } else {
@@ -128,7 +160,7 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
             reopened = Index::open(&a.index)?;
             &reopened
         } else {
-            &index
+            index
         };
         let mut asked: Vec<(f64, RecallChoice)> = Vec::new();
         let mut settings = settings;
@@ -139,7 +171,11 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
         }
         let mut rows = Vec::new();
         for params in &settings {
-            rows.push(measure_recall(index, &queries, &truth, params)?);
+            rows.push(if parts.is_whole() {
+                measure_recall(index, &queries, &truth, params)?
+            } else {
+                measure_recall_parts(&in_parts, &queries, &truth, params)?
+            });
         }
         if a.json {
             json["queries"] = queries.len().into();
@@ -163,7 +199,7 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
                 out,
                 "{}: {} items, {} coordinates by {}; {} queries, k = {}, candidates ranked in {} {}",
                 a.index.display(),
-                index.len(),
+                items,
                 index.meta().dim,
                 index.meta().embedding.name(),
                 queries.len(),
@@ -236,7 +272,7 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
         }
     }
     if a.distortion {
-        let r = index_distortion(&index, a.pairs)?;
+        let r = index_distortion(one, a.pairs)?;
         if a.json {
             json["distortion"] = serde_json::to_value(&r)?;
         } else if r.pairs == 0 {

@@ -19,15 +19,17 @@ pub(super) fn groups(a: GroupsArgs) -> anyhow::Result<()> {
         )
         .into());
     };
-    let index = Index::open(&a.index)?;
-    super::announce_program(&index, a.quiet_metric);
+    // An index in parts is read as one index of its live items (the compacted index's
+    // answers; the output names items by id, never by number).
+    let one = super::open_one(&a.index, a.quiet_metric)?;
+    let index: &Index = &one;
     let t0 = Instant::now();
     let by = if a.no_variant_table {
         JoinBy::Columns
     } else {
         JoinBy::Auto
     };
-    let mut join = SelfJoin::with(&index, radius, by)?;
+    let mut join = SelfJoin::with(index, radius, by)?;
     let bar = counting_bar(index.len() as u64, "items", !a.quiet);
     let mut pairs = Vec::new();
     while let Some(batch) = join.next_batch() {

@@ -108,6 +108,35 @@ fn announce_program(index: &crate::index::Index, quiet: bool) {
     }
 }
 
+/// The one index a command that reads one index file works on: the file itself, or for an
+/// index in parts with more than one part or removed items, the temporary index of its live
+/// items ([`crate::index::parts::LiveIndex`]), whose answers are those of the compacted index.
+enum OneIndex {
+    File(crate::index::Index),
+    Live(crate::index::parts::LiveIndex),
+}
+
+impl std::ops::Deref for OneIndex {
+    type Target = crate::index::Index;
+    fn deref(&self) -> &crate::index::Index {
+        match self {
+            OneIndex::File(i) => i,
+            OneIndex::Live(l) => l.index(),
+        }
+    }
+}
+
+/// Opens the index at `path` for a command that reads one index; says first which program
+/// its external metric runs (unless `quiet_metric`).
+fn open_one(path: &std::path::Path, quiet_metric: bool) -> crate::Result<OneIndex> {
+    let parts = crate::index::parts::Parts::open(path)?;
+    announce_program(parts.first(), quiet_metric);
+    if parts.is_whole() {
+        return Ok(OneIndex::File(parts.into_first()));
+    }
+    Ok(OneIndex::Live(parts.live_index()?))
+}
+
 fn is_broken_pipe(e: &anyhow::Error) -> bool {
     e.chain().any(|c| {
         c.downcast_ref::<std::io::Error>()

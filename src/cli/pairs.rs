@@ -32,13 +32,15 @@ pub(super) fn pairs(a: PairsArgs) -> anyhow::Result<()> {
         )
         .into());
     }
-    let index = Index::open(&a.index)?;
-    super::announce_program(&index, a.quiet_metric);
+    // An index in parts is read as one index of its live items (the compacted index's
+    // answers; the output names items by id, never by number).
+    let one = super::open_one(&a.index, a.quiet_metric)?;
+    let index: &Index = &one;
     if let Some(r) = radius {
-        r.check(&index)?;
+        r.check(index)?;
     }
     let params = a.k.filter(|_| !a.exact).map(|k| {
-        let mut p = SearchParams::from_index(&index, k);
+        let mut p = SearchParams::from_index(index, k);
         if let Some(c) = a.candidates {
             p = p.with_candidates(c);
         }
@@ -49,12 +51,12 @@ pub(super) fn pairs(a: PairsArgs) -> anyhow::Result<()> {
     let mut out = BufWriter::new(stdout.lock());
     let t0 = Instant::now();
     if let Some(path) = &a.queries {
-        return lookups(&a, &index, radius, params, path, &mut out, t0);
+        return lookups(&a, index, radius, params, path, &mut out, t0);
     }
     let mut count = 0u64;
     let mut write = |out: &mut BufWriter<_>, batch: &[Pair]| -> anyhow::Result<()> {
         for p in batch {
-            write_pair(out, &index, p, a.format)?;
+            write_pair(out, index, p, a.format)?;
         }
         count += batch.len() as u64;
         out.flush().context("writing the pairs")
@@ -66,7 +68,7 @@ pub(super) fn pairs(a: PairsArgs) -> anyhow::Result<()> {
         } else {
             JoinBy::Auto
         };
-        let mut join = SelfJoin::with(&index, r, by)?;
+        let mut join = SelfJoin::with(index, r, by)?;
         while let Some(batch) = join.next_batch() {
             write(&mut out, &batch?)?;
             bar.set_position(join.done() as u64);
@@ -74,7 +76,7 @@ pub(super) fn pairs(a: PairsArgs) -> anyhow::Result<()> {
         Some((join.stats().computed, join.path()))
     } else {
         let k = a.k.expect("-k or a radius, checked above");
-        let mut join = NearestJoin::new(&index, k, params)?.refine(a.refine_rounds);
+        let mut join = NearestJoin::new(index, k, params)?.refine(a.refine_rounds);
         while let Some(batch) = join.next_batch() {
             write(&mut out, &batch?)?;
             bar.set_position(join.done() as u64);

@@ -10,7 +10,8 @@ use super::truth::Truth;
 use crate::coords::Space;
 use crate::error::Result;
 use crate::index::Index;
-use crate::search::{CandidateSource, Scratch, SearchParams, Searcher};
+use crate::search::parts::PartsSearcher;
+use crate::search::{CandidateSource, Found, Request, Scratch, SearchParams, Searcher};
 
 /// What one setting of the search achieved on a list of queries.
 #[derive(Clone, Debug, PartialEq, Serialize)]
@@ -66,13 +67,46 @@ pub fn measure_recall(
 ) -> Result<RecallRow> {
     let searcher = Searcher::new(index);
     let params = *params;
+    measure_with(index.len(), queries, truth, &params, |q, s| {
+        searcher.search(q, &params, s)
+    })
+}
+
+/// [`measure_recall`] for an index in parts, searched as `waymark query` searches it
+/// ([`PartsSearcher`]: every part answers, the answers merge); `truth` is over the live items
+/// with item numbers across the parts, and the share of items is of the live ones.
+pub fn measure_recall_parts(
+    searcher: &PartsSearcher<'_>,
+    queries: &[String],
+    truth: &Truth,
+    params: &SearchParams,
+) -> Result<RecallRow> {
+    let req = Request::Approximate(*params);
+    measure_with(searcher.parts().live(), queries, truth, params, |q, _| {
+        searcher
+            .answer_many(std::slice::from_ref(q), &req)
+            .pop()
+            .expect("one answer per query")
+    })
+}
+
+/// Runs `search` on every query (in parallel, each timed) and compares its answers with
+/// `truth`; `items` is the number of items searched.
+fn measure_with(
+    items: usize,
+    queries: &[String],
+    truth: &Truth,
+    params: &SearchParams,
+    search: impl Fn(&String, &mut Scratch) -> Result<Found> + Sync,
+) -> Result<RecallRow> {
+    let params = *params;
     let k = params.k;
     let t = Instant::now();
-    let timed: Vec<(Result<crate::search::Found>, f64)> = queries
+    let timed: Vec<(Result<Found>, f64)> = queries
         .par_iter()
         .map_init(Scratch::default, |s, q| {
             let t = Instant::now();
-            let r = searcher.search(q, &params, s);
+            let r = search(q, s);
             (r, t.elapsed().as_secs_f64() * 1e3)
         })
         .collect();
@@ -109,7 +143,7 @@ pub fn measure_recall(
         recall: rec / nq,
         plain_recall: plain / nq,
         distances_per_query: per,
-        share_of_items: per / index.len().max(1) as f64,
+        share_of_items: per / items.max(1) as f64,
         qps: queries.len() as f64 / wall.max(1e-9),
         p50_ms: quantile(&lat, 0.5),
         p95_ms: quantile(&lat, 0.95),

@@ -35,7 +35,7 @@ pub use calibrate::{
     calibrate_file, calibrate_from_items, calibrate_from_queries, CalibrateOptions,
 };
 pub use distortion::{index_distortion, measure_distortion, DistortionReport};
-pub use measure::{measure_recall, RecallRow};
+pub use measure::{measure_recall, measure_recall_parts, RecallRow};
 pub use recall::{
     edit_queries, edits_of, plain_recall, threshold_recall, typo_queries, variants_missing_from,
     RECALL_EPSILON,

@@ -24,7 +24,9 @@ use crate::error::{Error, Result};
 /// it is renamed over `dest`; the folder is then flushed so that the rename survives a
 /// crash. Refused, with `dest` untouched and no temporary file left: a `source` that is
 /// `dest` itself (the same file by device and inode, through any name or link), that is not
-/// a regular file, or that is not a valid index (the error names `source`). A temporary file
+/// a regular file, or that is not a valid index (the error names `source`); a `source` or a
+/// `dest` that is an index in parts (a list file, [`super::parts`]), which cannot be
+/// replaced by one rename: `waymark compact` makes it one file first. A temporary file
 /// left by a process killed midway is removed by the next build or replacement of `dest`.
 /// Returns the size of the new index in bytes.
 ///
@@ -50,6 +52,25 @@ pub fn install_index(source: &Path, dest: &Path) -> Result<u64> {
     let meta = src.metadata().map_err(io(source))?;
     if !meta.is_file() {
         return Err(not_regular());
+    }
+    // An index in parts is a list file and a folder of parts: one rename cannot replace
+    // both, so neither side may be one (`waymark compact` makes it one file).
+    if super::parts::is_list(source)? {
+        return Err(Error::Usage(format!(
+            "{}: an index in parts (its list file) cannot be installed: its parts are in \
+             another folder; run `waymark compact {}` first, then install it",
+            source.display(),
+            source.display()
+        )));
+    }
+    if super::parts::is_list(dest)? {
+        return Err(Error::Usage(format!(
+            "{}: an index in parts (its list file): install replaces one index file and \
+             would leave its parts folder behind; run `waymark compact {}` first, then \
+             install over it",
+            dest.display(),
+            dest.display()
+        )));
     }
     if std::fs::metadata(dest).is_ok_and(|d| file_id(&d) == file_id(&meta)) {
         return Err(Error::Usage(format!(

@@ -481,6 +481,15 @@ impl Parts {
         &self.parts[0].index
     }
 
+    /// The first part's index, the others dropped (for an index that [`Self::is_whole`]).
+    pub fn into_first(self) -> Index {
+        self.parts
+            .into_iter()
+            .next()
+            .expect("an open index has a part")
+            .index
+    }
+
     /// Whether the index is a list file (else a single index file).
     pub fn is_listed(&self) -> bool {
         self.listed
@@ -919,6 +928,20 @@ fn merge_parts(path: &Path, base: &IndexMeta, parts: &[Part]) -> Result<Part> {
 
 /// Writes the live items of `parts` at `dest` as one index over their embedding.
 fn write_merged(path: &Path, base: &IndexMeta, parts: &[Part], dest: &Path) -> Result<()> {
+    if matches!(
+        base.metric_spec,
+        MetricSpec::Graph | MetricSpec::Custom { .. }
+    ) {
+        return Err(Error::Usage(format!(
+            "{}: an index in parts of the {} metric: its live items cannot be written as one \
+             index (a part holds no graph, and a custom distance is code of the library's \
+             caller), so it cannot be compacted, and `pairs`, `groups` and `eval` (which read \
+             the live items as one index) refuse it; `query` answers it; build a new index \
+             from the items kept",
+            path.display(),
+            base.metric
+        )));
+    }
     let live: usize = parts.iter().map(Part::live).sum();
     if live == 0 {
         return Err(Error::Usage(format!(
@@ -977,6 +1000,63 @@ fn write_merged(path: &Path, base: &IndexMeta, parts: &[Part], dest: &Path) -> R
         dest,
     )?;
     Ok(())
+}
+
+/// The live items of an index in parts as one index file, for the commands that read one
+/// index (`pairs`, `groups`, the ground truth and distortion of `eval`): the file a
+/// [`compact`] would write (stored coordinate rows kept, kd-tree, cells and deletion-variant
+/// table built anew), written to a temporary folder and deleted when this is dropped. The
+/// index itself is not changed and no writer lock is taken.
+pub struct LiveIndex {
+    index: Index,
+    numbers: Vec<u32>,
+    _dir: tempfile::TempDir,
+}
+
+impl LiveIndex {
+    /// The temporary index of the live items.
+    pub fn index(&self) -> &Index {
+        &self.index
+    }
+
+    /// The item number across the parts ([`Parts::item`]) of item `i` of [`Self::index`]:
+    /// the live items keep their order, so numbers only close up over removed items.
+    pub fn number(&self, i: u32) -> u32 {
+        self.numbers[i as usize]
+    }
+}
+
+impl Parts {
+    /// Writes the live items as one temporary index ([`LiveIndex`]) in the system's
+    /// temporary folder (`TMPDIR`). It takes the disk space and time of a [`compact`].
+    pub fn live_index(&self) -> Result<LiveIndex> {
+        let base = self.first().meta().clone();
+        let dir = tempfile::Builder::new()
+            .prefix("waymark-live-")
+            .tempdir()
+            .map_err(|e| io(&std::env::temp_dir(), e))?;
+        let name = self
+            .path
+            .file_name()
+            .map(|n| n.to_string_lossy().into_owned())
+            .unwrap_or_else(|| "index".into());
+        let dest = dir.path().join(format!("{name}.live.wmk"));
+        write_merged(&self.path, &base, &self.parts, &dest)?;
+        let numbers = self
+            .parts
+            .iter()
+            .flat_map(|p| {
+                (0..p.index.len() as u32)
+                    .filter(|&i| !p.is_removed(i))
+                    .map(move |i| p.offset + i)
+            })
+            .collect();
+        Ok(LiveIndex {
+            index: Index::open(&dest)?,
+            numbers,
+            _dir: dir,
+        })
+    }
 }
 
 /// What [`remove`] did.

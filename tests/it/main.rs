@@ -30,6 +30,7 @@ mod metric_vectors;
 mod metric_weighted;
 mod names;
 mod pairs;
+mod parts_commands;
 mod permissions;
 mod recall;
 mod search;
