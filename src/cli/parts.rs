@@ -13,7 +13,15 @@ pub(super) fn add(a: AddArgs) -> anyhow::Result<()> {
     let t0 = Instant::now();
     crate::index::file::refuse_input_as_output(&a.index, &a.input.files())?;
     let source = a.input.source();
-    let LoadedInput { corpus, spec, .. } = a.input.load(Some(&a.ids))?;
+    let LoadedInput {
+        corpus,
+        spec,
+        graph,
+        ..
+    } = a.input.load(Some(&a.ids))?;
+    if let Some(graph) = graph {
+        return add_graph(&a, &graph, &source, t0);
+    }
     let ids = if a.ids.given() {
         NewIds::Given
     } else {
@@ -40,6 +48,43 @@ pub(super) fn add(a: AddArgs) -> anyhow::Result<()> {
         t0.elapsed().as_secs_f64(),
         r.parts
     );
+    Ok(())
+}
+
+/// `add` of an edge list to a graph index: the index is rewritten on the union graph.
+fn add_graph(
+    a: &AddArgs,
+    graph: &crate::metric::Graph,
+    source: &str,
+    t0: Instant,
+) -> anyhow::Result<()> {
+    let r = parts::add_graph(&a.index, graph, source, a.input.files())?;
+    let dropped = if r.dropped > 0 {
+        format!(", {} removed items dropped", r.dropped)
+    } else {
+        String::new()
+    };
+    eprintln!(
+        "added {} new nodes to {} in {:.2} s: a graph add rewrites the index, because new \
+         edges can shorten paths between old nodes: {} items embedded again on the union \
+         graph ({} nodes, {} edges){dropped}; 1 part",
+        r.added,
+        a.index.display(),
+        t0.elapsed().as_secs_f64(),
+        r.rewritten + r.added,
+        r.nodes,
+        r.edges,
+    );
+    let (before, after) = r.saturated;
+    if after > before + 0.05 {
+        eprintln!(
+            "warning: {:.0}% of the stored coordinates are saturated (before: {:.0}%): new nodes \
+             lie farther from the reference items than the index's coordinate scale holds; \
+             answers stay exact, but a new build would prune better",
+            after * 100.0,
+            before * 100.0
+        );
+    }
     Ok(())
 }
 

@@ -374,13 +374,15 @@ pub(crate) enum PartCoords {
 /// Writes `corpus` at `dest` as a part over the embedding of `base` (an index's metadata
 /// whose reference keys are `refs`): the same references, scale, metric and normalisation,
 /// so that its coordinates compare with every other part's. The file stores the reference
-/// keys, so it opens and answers on its own.
+/// keys, so it opens and answers on its own. A part of the graph metric needs `graph`
+/// (its items are nodes of it, and it is stored in the part).
 #[allow(clippy::too_many_arguments)]
 pub(crate) fn write_part(
     corpus: &Corpus,
     source: &str,
     base: &IndexMeta,
     metric: MetricSpec,
+    graph: Option<Graph>,
     refs: &[&[u8]],
     coords: PartCoords,
     small_radius: Option<u32>,
@@ -389,7 +391,7 @@ pub(crate) fn write_part(
 ) -> Result<BuildReport> {
     let opts = BuildOptions {
         metric,
-        graph: None,
+        graph,
         seed: base.seed,
         sample: base.sample.max(1) as usize,
         candidates: base.candidates as usize,
@@ -402,15 +404,11 @@ pub(crate) fn write_part(
     };
     check_options(corpus, source, &opts)?;
     let keys = corpus.key_bytes();
-    if matches!(
-        base.metric_spec,
-        MetricSpec::Graph | MetricSpec::Custom { .. }
-    ) {
+    if let MetricSpec::Custom { name, .. } = &base.metric_spec {
         return Err(Error::Usage(format!(
-            "{source}: items cannot be added to an index of the {} metric (its items are the \
-             nodes of its graph, or its distance is code of the library's caller): build a \
-             new index",
-            base.metric
+            "{source}: items cannot be added to an index of a metric of your own (`{name}`): \
+             its distance is code of the library's caller, which `add` cannot run; build a new \
+             index with the library"
         )));
     }
     let (spec, metric) = open_metric(&keys, source, &opts)?;

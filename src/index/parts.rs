@@ -51,7 +51,7 @@ use super::build::{write_part, PartCoords};
 use super::{IdKind, IdRef, Index, IndexMeta};
 use crate::error::{Error, Result};
 use crate::ingest::{Corpus, Ids, Normalize};
-use crate::metric::MetricSpec;
+use crate::metric::{AnyMetric, Graph, MetricSpec};
 
 /// The first 8 bytes of a list file (an index file starts with `WAYMARK\0`).
 pub const LIST_MAGIC: &[u8; 8] = b"WMKPARTS";
@@ -773,6 +773,13 @@ pub fn add(
     let _lock = WriterLock::take(path)?;
     let cur = Parts::open(path)?;
     let base = cur.first().meta().clone();
+    if base.metric_spec == MetricSpec::Graph {
+        return Err(Error::Usage(format!(
+            "{source}: {} is an index of the graph metric: add an edge list to it, read with \
+             `--metric graph` (`add_graph` in the library); its new nodes become items",
+            path.display()
+        )));
+    }
     if normalize != base.normalize {
         return Err(Error::Usage(format!(
             "{source}: read with the normalisation {}, the index's is {}: give the index's \
@@ -843,6 +850,7 @@ pub fn add(
         source,
         &base,
         metric,
+        None,
         &refs,
         PartCoords::Embed,
         small_radius,
@@ -873,6 +881,169 @@ pub fn add(
         parts: next.parts.len(),
         merged,
     })
+}
+
+/// What [`add_graph`] did.
+#[derive(Clone, Debug, PartialEq)]
+pub struct GraphAddReport {
+    /// New nodes, each now an item.
+    pub added: usize,
+    /// Live items whose coordinates were computed again on the union graph (all of them).
+    pub rewritten: usize,
+    /// Removed items dropped by the rewrite.
+    pub dropped: usize,
+    /// Nodes and edges of the union graph.
+    pub nodes: usize,
+    /// Edges of the union graph.
+    pub edges: usize,
+    /// Share of stored coordinates at 255 before and after (a coordinate that saturates
+    /// still gives a valid bound, a weaker one): new nodes far from every reference item,
+    /// or a union whose distances outgrow the coordinate scale, raise it.
+    pub saturated: (f64, f64),
+}
+
+/// Adds the edges of `more` (an edge list read from `source`) to the graph-metric index at
+/// `path`. The index's graph becomes the union ([`Graph::union`]), and every node of `more`
+/// that is not a node of the index's graph becomes an item (its name its item and id).
+/// Nodes already in the graph are not added again, and a removed node stays removed.
+///
+/// New edges can shorten paths between old nodes, so old items' coordinates (their
+/// distances to the reference items) can change: a graph `add` rewrites the index. The live
+/// items, old and new, are embedded again on the union graph over the same reference items
+/// and coordinate scale, and written as one part that carries the union graph; the list
+/// then names that part alone. Any coordinate scale keeps answers exact (stored values are
+/// floored, and a bound gives up one quantum for it; a coordinate past the scale saturates
+/// and bounds less). `inputs` are the files read (never written over).
+pub fn add_graph(
+    path: &Path,
+    more: &Graph,
+    source: &str,
+    inputs: Vec<PathBuf>,
+) -> Result<GraphAddReport> {
+    let _lock = WriterLock::take(path)?;
+    let cur = Parts::open(path)?;
+    let base = cur.first().meta().clone();
+    let Some(old) = graph_of(cur.first())? else {
+        return Err(Error::Usage(format!(
+            "{source}: an edge list, and {} is an index of the {} metric: give its metric \
+             and options",
+            path.display(),
+            base.metric
+        )));
+    };
+    let union = old
+        .union(more, source)
+        .map_err(|e| Error::Usage(e.to_string()))?;
+    let (mut corpus, _) = live_corpus(path, &base, &cur.parts)?;
+    let rewritten = corpus.items.len();
+    let new_nodes = (old.len()..union.len())
+        .map(|v| String::from_utf8_lossy(union.name(v as u32)).into_owned())
+        .collect::<Vec<_>>();
+    let added = new_nodes.len();
+    if cur.len() as u64 - cur.parts.iter().map(|p| p.removed.len() as u64).sum::<u64>()
+        + added as u64
+        > u64::from(u32::MAX)
+    {
+        return Err(Error::Usage(format!(
+            "{source}: {added} more items than an index holds"
+        )));
+    }
+    if corpus.keys.is_some() {
+        // Graph items are compared by their names: an index built with keys apart is one
+        // a graph add cannot extend faithfully.
+        return Err(Error::refused(
+            path,
+            "a graph index whose items have keys apart from their names",
+        ));
+    }
+    match &mut corpus.ids {
+        Ids::Text(ids) => ids.extend(new_nodes.iter().cloned()),
+        Ids::Int(_) => {
+            return Err(Error::Usage(format!(
+                "{source}: {} has integer ids; the items an edge list adds are named by their \
+                 node names",
+                path.display()
+            )))
+        }
+    }
+    corpus.items.extend(new_nodes);
+    corpus.records = corpus.items.len();
+    let saturated_before = saturated_share(&cur);
+    let dir = parts_dir(path);
+    std::fs::create_dir_all(&dir).map_err(|e| io(&dir, e))?;
+    let keep: Vec<String> = if cur.listed {
+        cur.parts.iter().map(|p| p.file.clone()).collect()
+    } else {
+        Vec::new()
+    };
+    remove_unlisted(&dir, &keep);
+    let first = cur.first();
+    let refs = first.reference_keys();
+    let name = new_part_name();
+    let dest = dir.join(&name);
+    let (nodes, edges) = (union.len(), union.edges());
+    write_part(
+        &corpus,
+        source,
+        &base,
+        MetricSpec::Graph,
+        Some(union),
+        &refs,
+        PartCoords::Embed,
+        None,
+        inputs,
+        &dest,
+    )?;
+    let next = Parts {
+        path: path.to_path_buf(),
+        parts: vec![Part {
+            index: Index::open(&dest)?,
+            removed: Vec::new(),
+            offset: 0,
+            file: name.clone(),
+        }],
+        listed: true,
+        fingerprint: cur.fingerprint.clone(),
+    };
+    if fingerprint(&next.parts[0].index) != cur.fingerprint {
+        let _ = std::fs::remove_file(&dest);
+        return Err(Error::refused(
+            path,
+            "the rewritten part's embedding differs from the index's; nothing was changed",
+        ));
+    }
+    let saturated_after = saturated_share(&next);
+    sync_dir(&dir)?;
+    write_list(path, &next.list())?;
+    remove_unlisted(&dir, &[name]);
+    Ok(GraphAddReport {
+        added,
+        rewritten,
+        dropped: cur.len() - cur.live(),
+        nodes,
+        edges,
+        saturated: (saturated_before, saturated_after),
+    })
+}
+
+/// The share of the stored coordinates of every live item that are 255.
+fn saturated_share(parts: &Parts) -> f64 {
+    let (mut sat, mut all) = (0usize, 0usize);
+    for p in &parts.parts {
+        if p.index.check_rows().is_err() {
+            continue;
+        }
+        let dim = p.index.meta().dim as usize;
+        let rows = p.index.rows();
+        for i in 0..p.index.len() {
+            if p.is_removed(i as u32) {
+                continue;
+            }
+            sat += rows.row(i)[..dim].iter().filter(|&&b| b == 255).count();
+            all += dim;
+        }
+    }
+    sat as f64 / all.max(1) as f64
 }
 
 /// The merge policy: how many parts at the end of a list of live sizes `sizes` to merge
@@ -926,22 +1097,9 @@ fn merge_parts(path: &Path, base: &IndexMeta, parts: &[Part]) -> Result<Part> {
     })
 }
 
-/// Writes the live items of `parts` at `dest` as one index over their embedding.
-fn write_merged(path: &Path, base: &IndexMeta, parts: &[Part], dest: &Path) -> Result<()> {
-    if matches!(
-        base.metric_spec,
-        MetricSpec::Graph | MetricSpec::Custom { .. }
-    ) {
-        return Err(Error::Usage(format!(
-            "{}: an index in parts of the {} metric: its live items cannot be written as one \
-             index (a part holds no graph, and a custom distance is code of the library's \
-             caller), so it cannot be compacted, and `pairs`, `groups` and `eval` (which read \
-             the live items as one index) refuse it; `query` answers it; build a new index \
-             from the items kept",
-            path.display(),
-            base.metric
-        )));
-    }
+/// The live items of `parts`, in item-number order, as a corpus, with their stored
+/// coordinate rows (one `stride` row each). Refused when every item is removed.
+fn live_corpus(path: &Path, base: &IndexMeta, parts: &[Part]) -> Result<(Corpus, Vec<u8>)> {
     let live: usize = parts.iter().map(Part::live).sum();
     if live == 0 {
         return Err(Error::Usage(format!(
@@ -985,6 +1143,39 @@ fn write_merged(path: &Path, base: &IndexMeta, parts: &[Part], dest: &Path) -> R
         blank_skipped: 0,
         records: live,
     };
+    Ok((corpus, rows))
+}
+
+/// The graph of a graph-metric index (every part carries the same one), cloned; `None`
+/// for the other metrics.
+pub(super) fn graph_of(index: &Index) -> Result<Option<Graph>> {
+    if index.meta().metric_spec != MetricSpec::Graph {
+        return Ok(None);
+    }
+    match index.metric()? {
+        AnyMetric::Graph(g) => Ok(Some(g.graph().clone())),
+        _ => Err(Error::corrupt(
+            index.path(),
+            "a graph-metric index whose metric is not a graph",
+        )),
+    }
+}
+
+/// Writes the live items of `parts` at `dest` as one index over their embedding. The
+/// graph of a graph index is carried whole: a removed node stays a node of the graph (the
+/// shortest paths through it are unchanged), it is only never an answer.
+fn write_merged(path: &Path, base: &IndexMeta, parts: &[Part], dest: &Path) -> Result<()> {
+    if let MetricSpec::Custom { name, .. } = &base.metric_spec {
+        return Err(Error::Usage(format!(
+            "{}: an index in parts of a metric of your own (`{name}`): its live items cannot \
+             be written as one index (its distance is code of the library's caller), so it \
+             cannot be compacted, and `pairs`, `groups` and `eval` (which read the live items \
+             as one index) refuse it; `query` answers it; build a new index from the items \
+             kept",
+            path.display(),
+        )));
+    }
+    let (corpus, rows) = live_corpus(path, base, parts)?;
     let first = &parts[0].index;
     let refs = first.reference_keys();
     let small_radius = first.variants_summary().map(|(r, _, _)| r);
@@ -993,6 +1184,7 @@ fn write_merged(path: &Path, base: &IndexMeta, parts: &[Part], dest: &Path) -> R
         &path.display().to_string(),
         base,
         base.metric_spec.clone(),
+        graph_of(first)?,
         &refs,
         PartCoords::Rows(rows),
         small_radius,

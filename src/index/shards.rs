@@ -197,6 +197,7 @@ pub fn build_shard(
         source,
         base,
         base.metric_spec.clone(),
+        super::parts::graph_of(seed)?,
         &refs,
         PartCoords::Embed,
         small_radius,

@@ -169,6 +169,17 @@ impl Graph {
         if names.is_empty() {
             return Err(MetricError::Options(format!("{source_name}: no edges")));
         }
+        Graph::assemble(names, index, edges, source_name)
+    }
+
+    /// The graph of `names` (numbered in order, `index` their look-up) and `edges` (keyed
+    /// by the smaller node number first).
+    fn assemble(
+        names: Vec<Box<[u8]>>,
+        index: HashMap<Box<[u8]>, u32>,
+        edges: HashMap<(u32, u32), f64>,
+        source_name: &str,
+    ) -> Result<Graph, MetricError> {
         let mut degree = vec![0usize; names.len() + 1];
         for &(a, b) in edges.keys() {
             degree[a as usize + 1] += 1;
@@ -204,6 +215,58 @@ impl Graph {
         })
     }
 
+    /// The union of this graph and `more`: every node of either (this graph's nodes keep
+    /// their numbers, `more`'s new nodes follow in its order) and every edge of either; an
+    /// edge in both keeps the smaller weight, as an edge given twice in one edge list does.
+    /// So no distance of this graph grows, and distances between its nodes shrink where
+    /// `more` brings a shorter way. `source_name` names `more` in errors.
+    ///
+    /// ```
+    /// use waymark::metric::Graph;
+    ///
+    /// let old = Graph::parse("Keth Orvane 25\nOrvane Lille 30\n", "legs.txt")?;
+    /// let more = Graph::parse("Lille Brask 4\nBrask Keth 6\n", "more.txt")?;
+    /// let both = old.union(&more, "more.txt")?;
+    /// assert_eq!(both.len(), 4);
+    /// assert_eq!(both.node(b"Brask"), Some(3));
+    /// let keth = both.node(b"Keth").unwrap();
+    /// let lille = both.node(b"Lille").unwrap() as usize;
+    /// assert_eq!(both.distances_from(keth)[lille], 10.0); // was 55 through Orvane
+    /// # Ok::<(), waymark::metric::MetricError>(())
+    /// ```
+    pub fn union(&self, more: &Graph, source_name: &str) -> Result<Graph, MetricError> {
+        let mut names = self.names.clone();
+        let mut index = self.index.clone();
+        let mut edges: HashMap<(u32, u32), f64> = HashMap::with_capacity(self.adjacent.len());
+        for v in 0..self.names.len() {
+            for &(u, w) in &self.adjacent[self.offsets[v]..self.offsets[v + 1]] {
+                if u as usize > v {
+                    edges.insert((v as u32, u), w);
+                }
+            }
+        }
+        let number: Vec<u32> = more
+            .names
+            .iter()
+            .map(|name| {
+                *index.entry(name.clone()).or_insert_with(|| {
+                    names.push(name.clone());
+                    (names.len() - 1) as u32
+                })
+            })
+            .collect();
+        for v in 0..more.names.len() {
+            for &(u, w) in &more.adjacent[more.offsets[v]..more.offsets[v + 1]] {
+                if u as usize > v {
+                    let (a, b) = (number[v], number[u as usize]);
+                    let slot = edges.entry((a.min(b), a.max(b))).or_insert(w);
+                    *slot = slot.min(w);
+                }
+            }
+        }
+        Graph::assemble(names, index, edges, source_name)
+    }
+
     /// The graph as an edge list that [`Graph::parse`] reads back to the same graph, with
     /// the same node numbers: every node declared first (`a a 0`), in order, then each edge
     /// once. Weights are written in the shortest form that reads back to the same `f64`.
@@ -237,6 +300,11 @@ impl Graph {
     /// Number of nodes.
     pub fn len(&self) -> usize {
         self.names.len()
+    }
+
+    /// Number of edges (each counted once).
+    pub fn edges(&self) -> usize {
+        self.adjacent.len() / 2
     }
 
     /// Whether there are no nodes (never true for a parsed graph).
