@@ -940,7 +940,12 @@ pub fn add_graph(
         .map(|v| String::from_utf8_lossy(union.name(v as u32)).into_owned())
         .collect::<Vec<_>>();
     let added = new_nodes.len();
-    if cur.len() as u64 - cur.parts.iter().map(|p| p.removed.len() as u64).sum::<u64>()
+    if cur.len() as u64
+        - cur
+            .parts
+            .iter()
+            .map(|p| p.removed.len() as u64)
+            .sum::<u64>()
         + added as u64
         > u64::from(u32::MAX)
     {

@@ -12,6 +12,7 @@ mod eval;
 mod eval_scan;
 mod exact;
 mod format;
+mod graph_growth;
 mod growing;
 mod hardening;
 mod ingest;
