@@ -430,3 +430,34 @@ fn bad_input_a_graph_add_is_refused_with_the_reason_and_nothing_changes() {
         }
     }
 }
+
+#[test]
+fn a_sharded_graph_build_answers_as_the_ordinary_build() {
+    // Each shard carries the whole graph: exact answers equal the one-file build's.
+    let d = Dir::new();
+    let edges = roads(0..9);
+    let f = d.write("tarnvale.txt", &edge_list(&edges));
+    let one = d.build(&f, "one.wmk", &["-q", "--metric", "graph", "--dim", "6"]);
+    let sharded = d.build(
+        &f,
+        "sharded.wmk",
+        &["-q", "--metric", "graph", "--dim", "6", "--shards", "3"],
+    );
+    let reference = Reference::new(&edges);
+    let live: BTreeSet<String> = reference.node.keys().cloned().collect();
+    let queries: Vec<String> = live.iter().step_by(11).cloned().collect();
+    let a = query(&d, &one, &queries, &["--exact", "-k", "5"]);
+    let b = query(&d, &sharded, &queries, &["--exact", "-k", "5"]);
+    for ((q, x), y) in queries.iter().zip(&a).zip(&b) {
+        let want: Vec<f64> = reference.from(q, &live)[..5].iter().map(|w| w.0).collect();
+        for line in [x, y] {
+            let got: Vec<f64> = line["neighbors"]
+                .as_array()
+                .unwrap()
+                .iter()
+                .map(|n| n["distance"].as_f64().unwrap())
+                .collect();
+            assert_eq!(got, want, "{q}");
+        }
+    }
+}

@@ -231,3 +231,65 @@ fn keep_best_with_k_zero_keeps_nothing() {
     keep_best(&index, &mut best, 1, n);
     assert_eq!(best, [n]);
 }
+
+/// `add`, and what writes the live items as one index (`compact`, `pairs` after a
+/// `remove`), cannot run a metric of the library's caller: refused by name, nothing changed.
+#[test]
+fn a_custom_index_refuses_add_and_compact_with_the_metric_named() {
+    use predicates::prelude::PredicateBooleanExt;
+    use predicates::str::contains;
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("c.wmk");
+    let items: Vec<String> = ["ferry", "fairy", "berry", "buoy", "quay"]
+        .map(String::from)
+        .to_vec();
+    let metric = CustomMetric::new(Strsim);
+    build_index_with_metric(
+        &corpus(&items),
+        "test",
+        &BuildOptions::default(),
+        &metric,
+        &path,
+        &(),
+    )
+    .unwrap();
+    let more = dir.path().join("more.txt");
+    std::fs::write(&more, "jetty\n").unwrap();
+    let before = std::fs::read(&path).unwrap();
+    crate::util::waymark()
+        .arg("add")
+        .arg(&path)
+        .arg(&more)
+        .assert()
+        .failure()
+        .code(2)
+        .stderr(
+            contains("cannot be added to an index of a metric of your own")
+                .and(contains("`strsim-levenshtein`")),
+        );
+    assert_eq!(std::fs::read(&path).unwrap(), before);
+    let gone = dir.path().join("gone.txt");
+    std::fs::write(&gone, "1\n").unwrap();
+    crate::util::waymark()
+        .arg("remove")
+        .arg(&path)
+        .arg("--ids")
+        .arg(&gone)
+        .assert()
+        .success();
+    let list = std::fs::read(&path).unwrap();
+    for args in [&["compact"][..], &["pairs", "--within", "1"]] {
+        crate::util::waymark()
+            .arg(args[0])
+            .arg(&path)
+            .args(&args[1..])
+            .assert()
+            .failure()
+            .code(2)
+            .stderr(
+                contains("an index in parts of a metric of your own (`strsim-levenshtein`)")
+                    .and(contains("build a new index from the items kept")),
+            );
+    }
+    assert_eq!(std::fs::read(&path).unwrap(), list);
+}
