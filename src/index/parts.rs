@@ -780,6 +780,13 @@ pub fn add(
             path.display()
         )));
     }
+    if let MetricSpec::Custom { name, .. } = &base.metric_spec {
+        return Err(Error::Usage(format!(
+            "{source}: items cannot be added to an index of a metric of your own (`{name}`): \
+             its distance is code of the library's caller, which `add` cannot run; build a new \
+             index with the library"
+        )));
+    }
     if normalize != base.normalize {
         return Err(Error::Usage(format!(
             "{source}: read with the normalisation {}, the index's is {}: give the index's \

@@ -268,6 +268,7 @@ fn a_custom_index_refuses_add_and_compact_with_the_metric_named() {
                 .and(contains("`strsim-levenshtein`")),
         );
     assert_eq!(std::fs::read(&path).unwrap(), before);
+    assert!(!dir.path().join("c.wmk.parts").exists());
     let gone = dir.path().join("gone.txt");
     std::fs::write(&gone, "1\n").unwrap();
     crate::util::waymark()
