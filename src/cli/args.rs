@@ -46,7 +46,8 @@ pub(super) enum Command {
     /// Groups of near-duplicates of an index: items within R of each other, grouped.
     Groups(GroupsArgs),
     /// Add the items of a file to an index as a new part over its embedding (same metric and
-    /// options as the index's); merges small parts.
+    /// options as the index's); merges small parts. To a graph index, an edge list: its new
+    /// nodes become items, and the index is rewritten on the union graph.
     Add(AddArgs),
     /// Remove items from an index by id (never returned again; space reclaimed by compact).
     Remove(RemoveArgs),

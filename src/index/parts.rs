@@ -25,7 +25,12 @@
 //! every section: a part replaced, truncated or damaged in a small section is refused when
 //! the index is opened, and `inspect --verify` checks every section.
 //!
-//! Writers ([`add`], [`remove`], [`compact`]) take an exclusive lock on a file beside the
+//! A graph index grows by edge lists ([`add_graph`]): its graph becomes the union, whose new
+//! nodes are the new items, and the index is rewritten as one part on the union graph (new
+//! edges can shorten paths between old nodes, so old coordinates can change). A removed
+//! node stays a node of the graph; every part and merge carries the graph whole.
+//!
+//! Writers ([`add`], [`add_graph`], [`remove`], [`compact`]) take an exclusive lock on a file beside the
 //! index (`.INDEX.waymark-lock`), write new part files, then the new list through a
 //! temporary file renamed over the index: a reader sees the old list or the new one, whole,
 //! and a writer killed at any moment leaves the old state (part files it wrote but did not
