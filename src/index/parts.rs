@@ -30,11 +30,11 @@
 //! edges can shorten paths between old nodes, so old coordinates can change). A removed
 //! node stays a node of the graph; every part and merge carries the graph whole.
 //!
-//! Writers ([`add`], [`add_graph`], [`remove`], [`compact`]) take an exclusive lock on a file beside the
-//! index (`.INDEX.waymark-lock`), write new part files, then the new list through a
-//! temporary file renamed over the index: a reader sees the old list or the new one, whole,
-//! and a writer killed at any moment leaves the old state (part files it wrote but did not
-//! list are removed by the next writer).
+//! Writers ([`add`], [`add_graph`], [`remove`], [`compact`]) take an exclusive lock on a
+//! file beside the index (`.INDEX.waymark-lock`), write new part files, then the new list
+//! through a temporary file renamed over the index: a reader sees the old list or the new
+//! one, whole, and a writer killed at any moment leaves the old state (part files it wrote
+//! but did not list are removed by the next writer).
 //!
 //! ```no_run
 //! use waymark::index::parts::Parts;
@@ -904,7 +904,7 @@ pub struct GraphAddReport {
     pub rewritten: usize,
     /// Removed items dropped by the rewrite.
     pub dropped: usize,
-    /// Nodes and edges of the union graph.
+    /// Nodes of the union graph.
     pub nodes: usize,
     /// Edges of the union graph.
     pub edges: usize,
