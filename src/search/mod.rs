@@ -352,25 +352,24 @@ impl<'a> Searcher<'a> {
             return None;
         }
         let kk = std::num::NonZeroUsize::new(k)?;
-        let (answers, rest) = lanes::scan(
+        let (answers, measured, rest) = lanes::scan_by_length(
             self.index,
             queries,
             kk,
             crate::metric::LevenshteinLanes::new,
-            None,
-            &|_| {},
         );
         let n = self.index.len();
         let mut found: Vec<Result<Found>> = answers
             .into_iter()
-            .map(|neighbors| {
+            .zip(measured)
+            .map(|(neighbors, computed)| {
                 Ok(Found {
                     neighbors,
-                    distances: n,
+                    distances: computed,
                     pruned: 0,
                     certificate: Some(Certificate {
                         examined: n,
-                        computed: n,
+                        computed,
                         bound: None,
                     }),
                 })
