@@ -32,9 +32,10 @@
 //! One character costs a chain of 9 dependent word operations, so a single short item
 //! keeps the processor's arithmetic units mostly idle. Scans therefore go through
 //! [`LevenshteinQuery::dist_batch`] (or [`LevenshteinQuery::dist_each`]), which on x86-64
-//! CPUs with AVX2 runs one item per vector lane: eight items in 32-bit lanes for queries of
-//! up to 32 chars, four in 64-bit lanes up to 64 chars. With AVX-512 the lanes are as wide
-//! as the query: 64 items in 8-bit lanes up to 8 chars, 32 in 16-bit lanes up to 16, 16 in
+//! CPUs with AVX2 runs one item per vector lane, the lanes as wide as the query: 32 items in
+//! 8-bit lanes for queries of up to 8 chars, 16 in 16-bit lanes up to 16, eight in 32-bit
+//! lanes up to 32, four in 64-bit lanes up to 64. With AVX-512 the same widths hold twice
+//! the items: 64 items in 8-bit lanes up to 8 chars, 32 in 16-bit lanes up to 16, 16 in
 //! 32-bit lanes up to 32, 8 in 64-bit lanes up to 64. Elsewhere (no AVX2, or another
 //! architecture) four items are interleaved as four independent dependency chains, with the
 //! same results. `WAYMARK_SIMD` and [`LevenshteinQuery::with_level`] force a lower level
@@ -1657,7 +1658,7 @@ mod tests {
     proptest! {
         #![proptest_config(ProptestConfig::with_cases(300))]
 
-        /// Every dispatch level this CPU runs (portable, AVX2 lanes, AVX-512 lanes of 8, 16,
+        /// Every dispatch level this CPU runs (portable, AVX2 and AVX-512 lanes of 8, 16,
         /// 32 and 64 bits) gives the distances of the reference crate `strsim`
         /// (`strsim::levenshtein`, a general-purpose crate counting chars), through
         /// `dist_batch`, `dist_each` and `dist`.
