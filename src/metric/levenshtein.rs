@@ -32,9 +32,10 @@
 //! One character costs a chain of 9 dependent word operations, so a single short item
 //! keeps the processor's arithmetic units mostly idle. Scans therefore go through
 //! [`LevenshteinQuery::dist_batch`] (or [`LevenshteinQuery::dist_each`]), which on x86-64
-//! CPUs with AVX2 runs one item per vector lane: eight items in 32-bit lanes for queries of
-//! up to 32 chars, four in 64-bit lanes up to 64 chars. With AVX-512 the lanes are as wide
-//! as the query: 64 items in 8-bit lanes up to 8 chars, 32 in 16-bit lanes up to 16, 16 in
+//! CPUs with AVX2 runs one item per vector lane, the lanes as wide as the query: 32 items in
+//! 8-bit lanes for queries of up to 8 chars, 16 in 16-bit lanes up to 16, eight in 32-bit
+//! lanes up to 32, four in 64-bit lanes up to 64. With AVX-512 the same widths hold twice
+//! the items: 64 items in 8-bit lanes up to 8 chars, 32 in 16-bit lanes up to 16, 16 in
 //! 32-bit lanes up to 32, 8 in 64-bit lanes up to 64. Elsewhere (no AVX2, or another
 //! architecture) four items are interleaved as four independent dependency chains, with the
 //! same results. `WAYMARK_SIMD` and [`LevenshteinQuery::with_level`] force a lower level
@@ -448,13 +449,16 @@ impl LevenshteinQuery {
         }
         #[cfg(target_arch = "x86_64")]
         if self.x86_lanes {
-            if self.len <= 32 {
-                // SAFETY: `x86_lanes` is set only when the CPU reports AVX2, popcnt and bmi1;
-                // the query has 1 ..= 32 chars and `out` the length of `items`.
-                unsafe { lanes::run_x8(self, items, out) }
-            } else {
-                // SAFETY: as above, with a query of 1 ..= 64 chars.
-                unsafe { lanes::run_x4(self, items, out) }
+            // SAFETY: `x86_lanes` is set only when the CPU reports AVX2, popcnt and bmi1; the
+            // query has 1 ..= 64 chars, each kernel gets the lengths it takes, and `out` has
+            // the length of `items`.
+            unsafe {
+                match self.len {
+                    ..=8 => lanes::run_x32(self, items, out),
+                    9..=16 => lanes::run_x16(self, items, out),
+                    17..=32 => lanes::run_x8(self, items, out),
+                    _ => lanes::run_x4(self, items, out),
+                }
             }
             return;
         }
@@ -1063,17 +1067,6 @@ mod lanes {
         run::<u64, 4>(q, items, out, |eq| eq, |c, n| columns_x4(q, c, n));
     }
 
-    /// Distances of `items` to a query of 1 ..= 32 chars, eight items at a time in 32-bit
-    /// lanes; `out` has the length of `items`.
-    ///
-    /// Rows at and above 32 never reach the rows of the query (carries and shifts only move
-    /// bits upwards), so 32-bit lanes compute exactly what 64-bit ones do.
-    #[target_feature(enable = "avx2,popcnt,bmi1")]
-    pub(super) fn run_x8(q: &LevenshteinQuery, items: &[&[u8]], out: &mut [u32]) {
-        // The query fits in the low 32 bits of its masks.
-        run::<u32, 8>(q, items, out, |eq| eq as u32, |c, n| columns_x8(q, c, n));
-    }
-
     /// The column loop of four items; `n` are their char counts from [`fill`].
     #[target_feature(enable = "avx2,popcnt,bmi1")]
     fn columns_x4(q: &LevenshteinQuery, columns: &Columns<u64, 4>, n: &[usize; 4]) -> [usize; 4] {
@@ -1118,58 +1111,98 @@ mod lanes {
         })
     }
 
-    /// The column loop of eight items; `n` are their char counts from [`fill`].
-    #[target_feature(enable = "avx2,popcnt,bmi1")]
-    fn columns_x8(q: &LevenshteinQuery, columns: &Columns<u32, 8>, n: &[usize; 8]) -> [usize; 8] {
-        let longest = n.iter().copied().max().unwrap_or(0);
-        let lane = |l: usize| n[l] as i32;
-        let ends = _mm256_setr_epi32(
-            lane(0),
-            lane(1),
-            lane(2),
-            lane(3),
-            lane(4),
-            lane(5),
-            lane(6),
-            lane(7),
-        );
-        let one = _mm256_set1_epi32(1);
-        let mut column = _mm256_setzero_si256();
-        let mut pv = _mm256_set1_epi32(-1);
-        let mut mv = _mm256_setzero_si256();
-        for row in &columns[..longest] {
-            // SAFETY: `fill` initialised every row below the largest char count; unaligned
-            // load of 32 bytes from a `[u32; 8]`.
-            let eq = unsafe { _mm256_loadu_si256(row.as_ptr().cast()) };
-            let running = _mm256_cmpgt_epi32(ends, column);
-            column = _mm256_add_epi32(column, one);
-            let d0 = _mm256_or_si256(
-                _mm256_or_si256(
-                    _mm256_xor_si256(_mm256_add_epi32(_mm256_and_si256(eq, pv), pv), pv),
-                    eq,
-                ),
-                mv,
-            );
-            let hn = _mm256_and_si256(pv, d0);
-            let not_hp = _mm256_andnot_si256(mv, _mm256_or_si256(d0, pv));
-            let not_x = _mm256_slli_epi32::<1>(not_hp);
-            let new_pv =
-                _mm256_or_si256(_mm256_slli_epi32::<1>(hn), _mm256_andnot_si256(d0, not_x));
-            let new_mv = _mm256_andnot_si256(not_x, d0);
-            pv = _mm256_blendv_epi8(pv, new_pv, running);
-            mv = _mm256_blendv_epi8(mv, new_mv, running);
-        }
-        let (mut p, mut m) = ([0u32; 8], [0u32; 8]);
-        // SAFETY: unaligned 32-byte stores into `[u32; 8]`.
-        unsafe {
-            _mm256_storeu_si256(p.as_mut_ptr().cast(), pv);
-            _mm256_storeu_si256(m.as_mut_ptr().cast(), mv);
-        }
-        let rows = q.rows_one_word() as u32;
-        std::array::from_fn(|l| {
-            n[l] + (p[l] & rows).count_ones() as usize - (m[l] & rows).count_ones() as usize
-        })
+    /// One lane width narrower than 64 bits: the entry `$run` and its column loop `$columns`.
+    /// Rows at and above the query's length never reach its rows (carries and shifts only
+    /// move bits upwards), so a lane just as wide as the query computes what a 64-bit lane
+    /// does; AVX2 has no 8-bit shift, so the shift by one is an addition of a register to
+    /// itself. A narrower lane puts more items in a register: a query of 9 to 16 chars (most
+    /// words) measures 16 items per instruction, not 8.
+    macro_rules! narrow_kernel {
+        (
+            $(#[$doc:meta])*
+            $run:ident, $columns:ident, $t:ty, $s:ty, $l:literal,
+            $set1:ident, $add:ident, $cmpgt:ident
+        ) => {
+            $(#[$doc])*
+            #[target_feature(enable = "avx2,popcnt,bmi1")]
+            pub(super) fn $run(q: &LevenshteinQuery, items: &[&[u8]], out: &mut [u32]) {
+                // The query fits in the low bits of its masks.
+                run::<$t, $l>(q, items, out, |eq| eq as $t, |c, n| $columns(q, c, n));
+            }
+
+            /// The column loop of one batch; `n` are the items' char counts (at most 64).
+            #[target_feature(enable = "avx2,popcnt,bmi1")]
+            fn $columns(
+                q: &LevenshteinQuery,
+                columns: &Columns<$t, $l>,
+                n: &[usize; $l],
+            ) -> [usize; $l] {
+                let longest = n.iter().copied().max().unwrap_or(0);
+                // Char counts are at most 64 (`LANE_BYTES`), so they fit a signed lane.
+                let ends: [$s; $l] = std::array::from_fn(|l| n[l] as $s);
+                // SAFETY: unaligned 32-byte load from a `[$s; $l]` of 32 bytes.
+                let ends = unsafe { _mm256_loadu_si256(ends.as_ptr().cast()) };
+                let one = $set1(1);
+                let mut column = _mm256_setzero_si256();
+                let mut pv = $set1(-1);
+                let mut mv = _mm256_setzero_si256();
+                for row in &columns[..longest] {
+                    // SAFETY: `fill` initialised every row below the largest char count;
+                    // unaligned load of 32 bytes from a `[$t; $l]`.
+                    let eq = unsafe { _mm256_loadu_si256(row.as_ptr().cast()) };
+                    let running = $cmpgt(ends, column);
+                    column = $add(column, one);
+                    // The scalar `step`, lane-wise (`andnot(a, b)` is `!a & b`; `x << 1`
+                    // is `x + x`).
+                    let d0 = _mm256_or_si256(
+                        _mm256_or_si256(
+                            _mm256_xor_si256($add(_mm256_and_si256(eq, pv), pv), pv),
+                            eq,
+                        ),
+                        mv,
+                    );
+                    let hn = _mm256_and_si256(pv, d0);
+                    let not_hp = _mm256_andnot_si256(mv, _mm256_or_si256(d0, pv));
+                    let not_x = $add(not_hp, not_hp);
+                    let new_pv = _mm256_or_si256($add(hn, hn), _mm256_andnot_si256(d0, not_x));
+                    let new_mv = _mm256_andnot_si256(not_x, d0);
+                    // `running` is all ones or all zeros per lane: a byte blend is a lane blend.
+                    pv = _mm256_blendv_epi8(pv, new_pv, running);
+                    mv = _mm256_blendv_epi8(mv, new_mv, running);
+                }
+                let (mut p, mut m) = ([0 as $t; $l], [0 as $t; $l]);
+                // SAFETY: unaligned 32-byte stores into `[$t; $l]` of 32 bytes.
+                unsafe {
+                    _mm256_storeu_si256(p.as_mut_ptr().cast(), pv);
+                    _mm256_storeu_si256(m.as_mut_ptr().cast(), mv);
+                }
+                let rows = q.rows_one_word() as $t;
+                std::array::from_fn(|l| {
+                    n[l] + (p[l] & rows).count_ones() as usize
+                        - (m[l] & rows).count_ones() as usize
+                })
+            }
+        };
     }
+
+    narrow_kernel!(
+        /// Distances of `items` to a query of 1 ..= 8 chars, 32 items at a time in 8-bit
+        /// lanes; `out` has the length of `items`.
+        run_x32, columns_x32, u8, i8, 32,
+        _mm256_set1_epi8, _mm256_add_epi8, _mm256_cmpgt_epi8
+    );
+    narrow_kernel!(
+        /// Distances of `items` to a query of 1 ..= 16 chars, 16 items at a time in 16-bit
+        /// lanes; `out` has the length of `items`.
+        run_x16, columns_x16, u16, i16, 16,
+        _mm256_set1_epi16, _mm256_add_epi16, _mm256_cmpgt_epi16
+    );
+    narrow_kernel!(
+        /// Distances of `items` to a query of 1 ..= 32 chars, eight items at a time in
+        /// 32-bit lanes; `out` has the length of `items`.
+        run_x8, columns_x8, u32, i32, 8,
+        _mm256_set1_epi32, _mm256_add_epi32, _mm256_cmpgt_epi32
+    );
 }
 
 /// The single-block kernel with one item per AVX-512 lane, the lanes as wide as the query.
@@ -1625,7 +1658,7 @@ mod tests {
     proptest! {
         #![proptest_config(ProptestConfig::with_cases(300))]
 
-        /// Every dispatch level this CPU runs (portable, AVX2 lanes, AVX-512 lanes of 8, 16,
+        /// Every dispatch level this CPU runs (portable, AVX2 and AVX-512 lanes of 8, 16,
         /// 32 and 64 bits) gives the distances of the reference crate `strsim`
         /// (`strsim::levenshtein`, a general-purpose crate counting chars), through
         /// `dist_batch`, `dist_each` and `dist`.

@@ -338,10 +338,11 @@ impl<'a> Searcher<'a> {
     }
 
     /// Exact k-NN of a large batch of queries on a Levenshtein index by brute force with
-    /// the queries in vector lanes ([`lanes::scan`]), or `None` when the batch is too small
-    /// for the lanes to pay ([`LANES_MIN_QUERIES`]) or the metric is not Levenshtein. The
-    /// answers are the exact path's (same order, ties included); each query's certificate
-    /// says that every item was measured. Queries no lane takes (the empty query, over 64
+    /// the queries in vector lanes, items read by length ([`lanes::scan_by_length`]), or
+    /// `None` when the batch is too small for the lanes to pay ([`LANES_MIN_QUERIES`]) or the
+    /// metric is not Levenshtein. The answers are the exact path's (same order, ties
+    /// included); each query's certificate says that every item was examined, and how many
+    /// its lane group measured. Queries no lane takes (the empty query, over 64
     /// chars) go through the exact path.
     fn exact_by_lanes(&self, queries: &[String], k: usize) -> Option<Vec<Result<Found>>> {
         let meta = self.index.meta();
@@ -352,25 +353,24 @@ impl<'a> Searcher<'a> {
             return None;
         }
         let kk = std::num::NonZeroUsize::new(k)?;
-        let (answers, rest) = lanes::scan(
+        let (answers, measured, rest) = lanes::scan_by_length(
             self.index,
             queries,
             kk,
             crate::metric::LevenshteinLanes::new,
-            None,
-            &|_| {},
         );
         let n = self.index.len();
         let mut found: Vec<Result<Found>> = answers
             .into_iter()
-            .map(|neighbors| {
+            .zip(measured)
+            .map(|(neighbors, computed)| {
                 Ok(Found {
                     neighbors,
-                    distances: n,
+                    distances: computed,
                     pruned: 0,
                     certificate: Some(Certificate {
                         examined: n,
-                        computed: n,
+                        computed,
                         bound: None,
                     }),
                 })

@@ -199,6 +199,49 @@ fn a_large_exact_batch_answers_as_the_brute_force() {
     }
 }
 
+/// A large exact batch reads the items by length, nearest lengths first, and leaves out the
+/// lengths no answer can come from: the answers must still equal strsim's brute force (a
+/// reference crate), ties included, with items and queries of two-byte and three-byte chars
+/// whose byte lengths differ from their lengths in chars; and the batch must measure fewer
+/// items than a full scan.
+#[test]
+fn a_large_exact_batch_skips_far_lengths_and_answers_as_the_brute_force() {
+    let all = read_corpus(word_list_path(), &IngestOptions::default()).unwrap();
+    // Every 11th word of Debian's wamerican list, every third one also with accents and a
+    // CJK char (so byte lengths and char lengths differ), and a few very long items.
+    let mut items: Vec<String> = Vec::new();
+    for (j, w) in all.items.iter().step_by(11).enumerate() {
+        items.push(w.clone());
+        if j % 3 == 0 {
+            items.push(w.replace('e', "é").replace('o', "中"));
+        }
+    }
+    items.push("ab".repeat(150));
+    items.push("x".into());
+    let dir = tempfile::tempdir().unwrap();
+    let idx = build(&corpus(&items), 32, &dir);
+    let s = Searcher::new(&idx);
+    let mut queries = waymark::eval::typo_queries(&items, waymark::search::LANES_MIN_QUERIES, 21);
+    queries.extend(["中", "a", "abababab", "résumé", "中中中中中中中中中"].map(String::from));
+    let k = 5;
+    let many = s.answer_many(&queries, &waymark::search::Request::Exact { k });
+    let mut computed = 0;
+    for (q, got) in queries.iter().zip(many) {
+        let got = got.unwrap();
+        let mut want = within_by_strsim(&idx, q, usize::MAX);
+        want.truncate(k);
+        assert_eq!(got.neighbors, want, "query {q:?}");
+        check_certificate(&idx, &got, Some(k), None);
+        computed += got.certificate.unwrap().computed;
+    }
+    assert!(
+        computed < queries.len() * idx.len(),
+        "{computed} items measured for {} queries of {} items",
+        queries.len(),
+        idx.len()
+    );
+}
+
 #[test]
 fn without_a_lower_bound_exact_queries_are_refused() {
     let dir = tempfile::tempdir().unwrap();

@@ -300,7 +300,7 @@ fn lane_item(q: String) -> impl Strategy<Value = String> {
 proptest! {
     #![proptest_config(ProptestConfig::with_cases(400))]
 
-    /// Every path of `dist_batch` and `dist_each` (eight 32-bit lanes, four 64-bit lanes,
+    /// Every path of `dist_batch` and `dist_each` (8-, 16-, 32- and 64-bit lanes,
     /// the scalar fallback for long items and long queries) equals strsim and the plain
     /// dynamic program, item by item, with items of different lengths sharing a batch.
     #[test]
