@@ -91,9 +91,9 @@ fn through_table(
         .map(|&s0| {
             let mut scratch = variants::Scratch::default();
             let (mut cands, mut found, mut out) = (Vec::new(), Vec::new(), Vec::new());
-            for b in s0..(s0 + CHUNK).min(second.len()) {
+            let s1 = (s0 + CHUNK).min(second.len());
+            for (b, &lb) in (s0..s1).zip(&lens2[s0..s1]) {
                 let key = keys2.get(b);
-                let lb = lens2[b];
                 let reach = radius.widened(lb, by_length, longest);
                 // Whole edits: the metrics with a table have whole distances.
                 let r = reach.floor().clamp(0.0, f64::from(view.radius())) as u32;
