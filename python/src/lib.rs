@@ -11,7 +11,7 @@ use std::path::{Path, PathBuf};
 use std::sync::{Arc, Mutex};
 
 use numpy::ndarray::Array2;
-use numpy::{PyArray2, PyReadonlyArray1, PyReadonlyArray2};
+use numpy::{PyArray1, PyArray2, PyReadonlyArray1, PyReadonlyArray2};
 use pyo3::create_exception;
 use pyo3::exceptions::PyException;
 use pyo3::prelude::*;
@@ -28,7 +28,7 @@ use waymark::ingest::{
     MetricOptions, Normalize,
 };
 use waymark::metric::{CustomMetric, Metric, MetricError, MetricKind, MetricSpec, Norm};
-use waymark::pairs::{group, lookup_within, Grouping, Pair, Radius};
+use waymark::pairs::{group, join_across, lookup_within, Grouping, Pair, Radius, SelfJoin};
 use waymark::search::parts::PartsSearcher;
 use waymark::search::{CandidateSource, Found, Request, Scratch, SearchParams, Searcher, Space};
 use waymark::Error;
@@ -847,6 +847,13 @@ const DRIFT_SAMPLE: usize = 100_000;
 /// The answers of many queries: item numbers and distances, n_queries × k each.
 type ManyAnswers<'py> = (Bound<'py, PyArray2<i64>>, Bound<'py, PyArray2<f64>>);
 
+/// Pairs of items: numbers a, numbers b and distances, one element per pair.
+type PairArrays<'py> = (
+    Bound<'py, PyArray1<i64>>,
+    Bound<'py, PyArray1<i64>>,
+    Bound<'py, PyArray1<f64>>,
+);
+
 /// What to ask, from the keyword arguments of `query` and `query_many`.
 #[allow(clippy::too_many_arguments)]
 /// `req` with the candidates an asked `recall` needs for these queries: the curve weighed
@@ -1235,6 +1242,49 @@ impl PyIndex {
         Ok((
             PyArray2::from_owned_array(py, numbers),
             PyArray2::from_owned_array(py, dists),
+        ))
+    }
+
+    /// Every pair within a radius: of this index's own items (`other` None: the pairs of
+    /// `waymark pairs --within`), or of an item of this index and an item of `other`. As
+    /// three 1-D arrays (numbers a, numbers b, distances). See `__init__.pyi`.
+    #[pyo3(signature = (within=None, *, within_fraction=None, other=None))]
+    fn pairs_within<'py>(
+        &self,
+        py: Python<'py>,
+        within: Option<f64>,
+        within_fraction: Option<f64>,
+        other: Option<&PyIndex>,
+    ) -> PyResult<PairArrays<'py>> {
+        let radius = match (within, within_fraction) {
+            (Some(r), None) => Radius::Fixed(r),
+            (None, Some(f)) => Radius::Fraction(f),
+            _ => {
+                return Err(bad(
+                    "pairs_within takes one of within (a distance) and within_fraction",
+                ))
+            }
+        };
+        self.whole_only("pairs_within")?;
+        if let Some(o) = other {
+            o.whole_only("pairs_within")?;
+        }
+        let index = self.index();
+        let pairs = py
+            .detach(|| match other {
+                None => SelfJoin::new(index, radius)?
+                    .collect_all()
+                    .map(|(pairs, _)| pairs),
+                Some(o) => join_across(index, o.index(), radius),
+            })
+            .map_err(py_err)?;
+        let a: Vec<i64> = pairs.iter().map(|p| i64::from(p.a)).collect();
+        let b: Vec<i64> = pairs.iter().map(|p| i64::from(p.b)).collect();
+        let d: Vec<f64> = pairs.iter().map(|p| p.distance).collect();
+        Ok((
+            PyArray1::from_vec(py, a),
+            PyArray1::from_vec(py, b),
+            PyArray1::from_vec(py, d),
         ))
     }
 

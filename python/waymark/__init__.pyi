@@ -312,6 +312,32 @@ class Index:
         items with ``items``. A query the metric cannot take raises ``BadInputError`` naming
         its position (``queries[3]: …``)."""
 
+    def pairs_within(
+        self,
+        within: float | None = None,
+        *,
+        within_fraction: float | None = None,
+        other: Index | None = None,
+    ) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.int64], npt.NDArray[np.float64]]:
+        """Every pair within a radius, exactly, on all cores with the GIL released: at true
+        distance at most ``within``, or at most ``within_fraction`` of the longer item's
+        length in chars (give one of the two).
+
+        Without ``other``: every pair of distinct items of this index, each once, the pairs
+        of ``waymark pairs --within`` (the same join, its deletion-variant table included).
+        With ``other`` (an index of the same metric and normalisation): every pair of an item
+        of this index and an item of ``other``, through this index's deletion-variant table
+        for radii up to 2 (stored, or built in memory when it fits), else by exact range
+        queries of ``other``'s items. The pairs of each of several indexes and of every two
+        of them are the pairs of one index of all their items, each once.
+
+        Returns ``(a, b, distances)``, three 1-D arrays with one element per pair: item
+        numbers ``a`` (``a < b`` without ``other``; in this index with it), ``b`` (in
+        ``other`` when given) and the distances. Only for an index of one file (an index in
+        parts raises ``BadInputError``: ask its part files, or compact it). Indexes that
+        differ in metric or normalisation, or a radius out of range, raise
+        ``BadInputError``."""
+
     def id(self, number: int) -> Id:
         """The id of item ``number`` (0 ≤ number < len(index) for an index of one file;
         over parts, numbers run across the parts, and a removed item's number raises

@@ -14,6 +14,9 @@
 //! - [`NearestJoin`]: each item's k nearest other items, approximate or exact, through
 //!   [`crate::search::Searcher::answer_stored`] (stored coordinates reused); a pair found from both sides
 //!   is written once.
+//! - [`join_across`]: every pair of an item of one index and an item of another within a
+//!   [`Radius`], exactly (with each index's [`SelfJoin`], the pairs of several indexes
+//!   taken as one).
 //! - [`group`]: groups of near-duplicates from the pairs ([`Grouping`]).
 //! - [`Radius::Fraction`]: a radius relative to the length of the items.
 //!
@@ -31,12 +34,14 @@
 //! # Ok::<(), waymark::Error>(())
 //! ```
 
+mod cross;
 mod groups;
 mod nearest;
 mod radius;
 
 use rayon::prelude::*;
 
+pub use self::cross::join_across;
 pub use self::groups::{group, Group, Grouping};
 pub use self::nearest::NearestJoin;
 pub use self::radius::{lookup_within, Radius};

@@ -14,7 +14,7 @@ use rayon::prelude::*;
 use serde::Deserialize;
 use waymark::index::Index;
 use waymark::metric::Metric;
-use waymark::pairs::{group, Grouping, NearestJoin, Pair, Radius, SelfJoin};
+use waymark::pairs::{group, join_across, Grouping, NearestJoin, Pair, Radius, SelfJoin};
 use waymark::search::SearchParams;
 
 use crate::util::{demo, demo_lines, json_lines, repo_file, word_list, Dir};
@@ -334,6 +334,88 @@ fn levenshtein_pairs_of_debian_words_match_strsim_on_all_pairs() {
     ];
     let pairs = check_metric(&index, &radii, 10, &strsim, "levenshtein words");
     assert!(pairs > 1000, "{pairs}");
+}
+
+#[test]
+fn pairs_of_two_indexes_and_their_own_are_the_pairs_of_one_index_of_both() {
+    // Reference: strsim::levenshtein (the strsim crate) on all n(n−1)/2 pairs of the
+    // register taken whole. Its first 1,200 names are one index (with a deletion-variant
+    // table of radius 2), the other 1,300 another (without one: radii up to 2 build a table
+    // in memory, larger ones go by range queries).
+    let d = Dir::new();
+    let names = register(2500, 23);
+    let first = open(
+        &d,
+        &write_lines(&d, "first.txt", &names[..1200]),
+        "first.wmk",
+        &["--small-radius", "2"],
+    );
+    let second = open(
+        &d,
+        &write_lines(&d, "second.txt", &names[1200..]),
+        "second.wmk",
+        &[],
+    );
+    let whole = open(&d, &write_lines(&d, "whole.txt", &names), "whole.wmk", &[]);
+    let strsim = |a: &[u8], b: &[u8]| {
+        strsim::levenshtein(&String::from_utf8_lossy(a), &String::from_utf8_lossy(b)) as f64
+    };
+    let radii = [
+        Radius::Fixed(0.0),
+        Radius::Fixed(1.0),
+        Radius::Fixed(2.0),
+        Radius::Fixed(3.0),
+        Radius::Fraction(0.15),
+    ];
+    for r in radii {
+        let want = brute_pairs(&whole, r, &strsim);
+        let mut got = joined(&first, r);
+        for ((a, b), dist) in joined(&second, r) {
+            got.insert((a + 1200, b + 1200), dist);
+        }
+        let mut across = 0;
+        for (x, y) in [(&first, &second), (&second, &first)] {
+            let pairs = join_across(x, y, r).expect("pairs across");
+            // In the order of the second index's items.
+            assert!(
+                pairs.windows(2).all(|w| w[0].b <= w[1].b),
+                "{r:?}: out of order"
+            );
+            if std::ptr::eq(x, &first) {
+                across = pairs.len();
+                for p in &pairs {
+                    assert!(
+                        got.insert((p.a, p.b + 1200), p.distance).is_none(),
+                        "{p:?} twice"
+                    );
+                }
+            } else {
+                // The other way round: the same pairs, each once.
+                let mut back: Vec<(u32, u32, f64)> =
+                    pairs.iter().map(|p| (p.b, p.a, p.distance)).collect();
+                back.sort_by(|a, b| a.partial_cmp(b).expect("distances"));
+                let mut ahead: Vec<(u32, u32, f64)> = join_across(&first, &second, r)
+                    .expect("pairs across")
+                    .iter()
+                    .map(|p| (p.a, p.b, p.distance))
+                    .collect();
+                ahead.sort_by(|a, b| a.partial_cmp(b).expect("distances"));
+                assert_eq!(back, ahead, "{r:?}: the two ways differ");
+            }
+        }
+        assert_same(&got, &want, &format!("two indexes, {r:?}"));
+        if r == Radius::Fixed(2.0) {
+            assert!(across > 20, "planted typos across the two halves: {across}");
+        }
+    }
+    // Another normalisation: keys that do not compare are refused.
+    let folded = open(&d, &d.path("second.txt"), "folded.wmk", &["--fold-case"]);
+    let err = join_across(&first, &folded, Radius::Fixed(1.0)).expect_err("refused");
+    assert!(
+        err.to_string().contains("same metric and normalisation"),
+        "{err}"
+    );
+    assert!(join_across(&first, &second, Radius::Fixed(-1.0)).is_err());
 }
 
 #[test]

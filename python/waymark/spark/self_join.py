@@ -7,7 +7,7 @@ from pyspark.sql.types import DoubleType, LongType, StringType, StructField, Str
 
 from . import parts as _parts
 
-# Items per task asked as range queries against one part.
+# Pairs turned into rows at once.
 BLOCK = 4096
 
 
@@ -17,48 +17,56 @@ def pairs(spark: SparkSession, index, *, within: float, block: int = BLOCK) -> D
     items, exactly.
 
     ``index`` is the path of an index (in parts, or one file), or a list of index files
-    taken as parts in that order; item numbers run across the parts in that order. Each task
-    takes a block of one part's items and asks them, as exact range queries
-    (``query_many(within=R)``), of one part at or after their own, so that every pair is
-    looked for once; a pair is kept from the side of its smaller item number. An index built
-    with ``small_radius`` (1 or 2) answers radii up to it through its deletion-variant
-    table, much faster.
+    taken as parts in that order; item numbers run across the parts in that order. One task
+    per part takes the pairs within that part (:meth:`waymark.Index.pairs_within`, the
+    self-join of ``waymark pairs``), and one task per two parts the pairs across them
+    (``pairs_within(other=...)``): every pair is looked for once. An index built with
+    ``small_radius`` (1 or 2) answers radii up to it through its deletion-variant table;
+    without one, a table is built in memory for radii up to 2 when it fits.
 
     Returns a DataFrame of ``id_a``, ``id_b``, ``item_a``, ``item_b``, ``distance``,
     ``number_a`` and ``number_b`` (item numbers across the parts, ``number_a <
     number_b``; they are the labels under which :func:`groups` gives the groups of
-    ``waymark groups``).
+    ``waymark groups``). ``block`` is the pairs turned into rows at once.
     """
     within = _parts.check_radius("pairs", within)
     if block < 1:
         raise ValueError(f"pairs: block must be at least 1, not {block!r}")
     parts = _parts.resolve(index)
     id_type = _parts.id_type(parts)
-    tasks = []
-    for j, pj in enumerate(parts):
-        for start in range(0, pj.items, block):
-            for i in range(j, len(parts)):
-                tasks.append((j, start, min(start + block, pj.items), i))
+    # The biggest tasks first, so that the last ones to finish are short.
+    tasks = [(j, i) for j in range(len(parts)) for i in range(j, len(parts))]
+    tasks.sort(key=lambda t: -(parts[t[0]].items * parts[t[1]].items))
 
     def answer(task):
-        j, start, end, i = task
-        asker, asked = parts[j], parts[i]
-        source = _parts.open_part(asker.path)
-        target = _parts.open_part(asked.path)
-        gone_a, gone_b = set(asker.removed), set(asked.removed)
-        numbers = [n for n in range(start, end) if n not in gone_a]
-        texts = source.items(numbers)
-        found = _parts.ranged(target, texts, None, within, True, 0)
-        # Numbers across the parts: a pair is kept from its smaller number's side.
-        offset = asked.first - asker.first
-        for a, text, (bs, ds) in zip(numbers, texts, found):
-            keep = [i for i, b in enumerate(bs) if b + offset > a and b not in gone_b]
-            if not keep:
-                continue
-            bs, ds = [bs[i] for i in keep], [ds[i] for i in keep]
-            id_a = source.id(a)
-            for b, d, id_b, item_b in zip(bs, ds, target.ids(bs), target.items(bs)):
-                yield (id_a, id_b, text, item_b, d, asker.first + a, asked.first + b)
+        import numpy as np
+
+        j, i = task
+        first, second = parts[j], parts[i]
+        one = _parts.open_part(first.path)
+        other = _parts.open_part(second.path)
+        if i == j:
+            a, b, d = one.pairs_within(within)
+        else:
+            a, b, d = one.pairs_within(within, other=other)
+        keep = np.ones(len(a), dtype=bool)
+        if first.removed:
+            keep &= ~np.isin(a, first.removed)
+        if second.removed:
+            keep &= ~np.isin(b, second.removed)
+        a, b, d = a[keep], b[keep], d[keep]
+        for s in range(0, len(a), block):
+            ab, bb = a[s : s + block], b[s : s + block]
+            rows = zip(
+                one.ids(ab),
+                other.ids(bb),
+                one.items(ab),
+                other.items(bb),
+                d[s : s + block].tolist(),
+                (ab + first.first).tolist(),
+                (bb + second.first).tolist(),
+            )
+            yield from rows
 
     schema = StructType(
         [
