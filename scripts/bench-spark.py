@@ -102,10 +102,5 @@ def main():
     print(f"| wall time | {a:.2f} s | {b:.2f} s | {b / a:.2f}x |")
 
 
-def sorted_pair(p):
-    a, b, d = p
-    return (min(a, b), max(a, b), d)
-
-
 if __name__ == "__main__":
     main()

@@ -20,8 +20,9 @@ from waymark.spark import build, groups, pairs, query
 import random
 
 # Items of the register. Spark in local mode on the shared 2-core machine spends most of
-# its time in scheduling and Python workers, not in the index: the size keeps this module
-# within about two minutes.
+# its time in scheduling and Python workers, not in the index: the size keeps this module's
+# many small jobs within about three minutes (test_spark_register_100k.py runs a few jobs
+# over 100,000 names).
 N = 30_000
 SHARDS = 3
 
