@@ -17,6 +17,7 @@ The names below are documented in ``__init__.pyi`` (type stubs with docstrings).
 """
 
 from ._waymark import (
+    BadArgumentError,
     BadInputError,
     CorruptIndexError,
     Index,
@@ -57,6 +58,7 @@ def build_seed(items, path, *, total=None, candidates=None, **options):
 
 
 __all__ = [
+    "BadArgumentError",
     "BadInputError",
     "CorruptIndexError",
     "Index",

@@ -39,6 +39,13 @@ class BadInputError(WaymarkError):
     of another dimension, a Hamming query of another length, not a node of the graph), an
     option out of range, a file that cannot be read or written."""
 
+class BadArgumentError(BadInputError, ValueError):
+    """An integer argument out of range: a negative ``k``, ``candidates``, ``dim``,
+    ``seed``, ``widen``... or one too large for its type (``k=10**30``). The message names
+    the argument and the value given: ``k must be a positive integer, got -1``. Zero where
+    at least 1 is needed (``k=0``) is refused with the command line's message, ``k must be
+    at least 1``, as a ``BadInputError``."""
+
 class CorruptIndexError(WaymarkError):
     """The index file was refused: not an index, another format version, corrupt or
     truncated, or built with a Python distance that was not supplied (or another one)."""
@@ -310,7 +317,8 @@ class Index:
         query i's item numbers and distances, nearest first, filled with -1 and ``inf``
         where fewer than k are found (``within``). Map numbers to ids with ``ids`` and to
         items with ``items``. A query the metric cannot take raises ``BadInputError`` naming
-        its position (``queries[3]: …``)."""
+        its position (``queries[3]: …``); a ``k`` whose arrays would not fit in memory
+        raises ``BadArgumentError``."""
 
     def pairs_within(
         self,
