@@ -1899,6 +1899,35 @@ fn list_parts(py: Python<'_>, index_path: PathBuf) -> PyResult<Py<PyList>> {
 }
 
 /// The default candidates a build of `n` items stores.
+/// Reads the queries of a file. See `python/waymark/__init__.pyi`.
+#[pyfunction]
+#[pyo3(signature = (path, *, format=None))]
+fn read_queries(
+    py: Python<'_>,
+    path: PathBuf,
+    format: Option<&str>,
+) -> PyResult<Vec<(u64, Option<String>, String)>> {
+    use waymark::ingest::{QueryLayout, SequenceFormat};
+    let layout = match format {
+        None => None,
+        Some("text") => Some(QueryLayout::Lines),
+        Some("fasta") => Some(QueryLayout::Sequences(SequenceFormat::Fasta)),
+        Some("fastq") => Some(QueryLayout::Sequences(SequenceFormat::Fastq)),
+        Some(other) => {
+            return Err(bad(format!(
+                "format `{other}` is not one of text, fasta, fastq"
+            )))
+        }
+    };
+    let records = py
+        .detach(|| waymark::ingest::read_queries(&path, layout))
+        .map_err(|e| py_err(e.into()))?;
+    Ok(records
+        .into_iter()
+        .map(|r| (r.line, r.name, r.text))
+        .collect())
+}
+
 #[pyfunction]
 fn _default_candidates(n: usize) -> usize {
     waymark::index::default_candidates(n)
@@ -1914,6 +1943,7 @@ fn _waymark(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(build_shard, m)?)?;
     m.add_function(wrap_pyfunction!(write_parts, m)?)?;
     m.add_function(wrap_pyfunction!(list_parts, m)?)?;
+    m.add_function(wrap_pyfunction!(read_queries, m)?)?;
     m.add_function(wrap_pyfunction!(_default_candidates, m)?)?;
     m.add("WaymarkError", py.get_type::<WaymarkError>())?;
     m.add("BadInputError", py.get_type::<BadInputError>())?;

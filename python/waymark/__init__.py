@@ -29,6 +29,7 @@ from ._waymark import (
     build_shard,
     group_pairs,
     list_parts,
+    read_queries,
     write_parts,
 )
 from ._waymark import _default_candidates
@@ -72,5 +73,6 @@ __all__ = [
     "group_pairs",
     "list_parts",
     "open",
+    "read_queries",
     "write_parts",
 ]

@@ -234,6 +234,28 @@ def list_parts(index_path: str | PathLike[str]) -> list[dict[str, Any]]:
     included), ``removed`` (item numbers within the part that are removed) and ``first``
     (the item number across the parts of its first item)."""
 
+def read_queries(
+    path: str | PathLike[str], *, format: Literal["text", "fasta", "fastq"] | None = None
+) -> list[tuple[int, str | None, str]]:
+    """The queries of the file at ``path``, as ``waymark query --queries FILE
+    --query-format FORMAT`` reads them: ``text``, one query per line (``\\r\\n`` and a
+    leading byte-order mark dropped); ``fasta`` or ``fastq``, one query per record, its
+    sequence (a FASTA record's lines joined), also gzip-compressed. Without ``format``, by
+    the file's name as the command line takes it: FASTA for ``.fa``, ``.fasta``, ``.fna``,
+    FASTQ for ``.fq``, ``.fastq`` (also with ``.gz``), else text.
+
+    Returns ``(line, name, query)`` per query, in file order: the 1-based line (a record's
+    header line), the record's name (the first word of its header; ``None`` for a text
+    line) and the query text, the ``line``, ``name`` and ``query`` of the command line's
+    answers. Pass the texts to ``query_many``::
+
+        reads = waymark.read_queries("reads.fq")
+        numbers, distances = index.query_many([q for _, _, q in reads], k=1)
+
+    Raises ``BadInputError`` naming the file and line for a malformed record or a line
+    that is not UTF-8 (the command line's words), and naming the file for a folder, a file
+    that cannot be read or one with no query."""
+
 class Index:
     """An open, memory-mapped index. Opening is cheap; an index is safe to share between
     threads (queries take no lock, and release the GIL while they run), and each worker
