@@ -211,7 +211,9 @@ def build_shard(
 
     The file is written under a hidden temporary name in ``folder`` and renamed: a task
     killed midway leaves no shard file, and a task run twice (retried or speculative) with
-    the same items writes the same bytes under the same name, so one file remains. Raises
+    the same items writes the same bytes under the same name, so one file remains; the hidden
+    files that killed writers of the same shard left in ``folder`` are removed when it is
+    written again (only those, and only when no live writer holds them). Raises
     ``BadInputError`` for a shard number out of range, items the seed's metric cannot take,
     or a seed whose metric is a graph or a Python distance (not shardable)."""
 
