@@ -530,7 +530,7 @@ fn a_graph_add_says_which_longer_weights_it_ignored() {
         (&t22, &t23),
         (&town(3, 3), &town(3, 4)),
     ] {
-        let got = query(&d, &idx, &[a.clone()], &["-k", "300", "--exact"]);
+        let got = query(&d, &idx, std::slice::from_ref(a), &["-k", "300", "--exact"]);
         let dist = got[0]["neighbors"]
             .as_array()
             .unwrap()
