@@ -220,15 +220,15 @@ fn item_no(obj: &Bound<'_, PyAny>) -> PyResult<i64> {
 int_arguments! {
     arg_k, opt_k: usize = "k", at least 1;
     arg_candidates, opt_candidates: usize = "candidates", at least 1;
-    arg_visit, opt_visit: usize = "visit", at least 1;
+    arg_visit, opt_visit: usize = "visit", at least 0;
     arg_widen, opt_widen: u32 = "widen", at least 0;
     arg_dim, opt_dim: usize = "dim", at least 1;
-    arg_pool, opt_pool: usize = "pool", at least 1;
+    arg_pool, opt_pool: usize = "pool", at least 0;
     arg_seed, opt_seed: u64 = "seed", at least 0;
     arg_landmark_sample, opt_landmark_sample: usize = "landmark_sample", at least 1;
     arg_qgrams, opt_qgrams: usize = "qgrams", at least 1;
     arg_small_radius, opt_small_radius: u32 = "small_radius", at least 0;
-    arg_pairs, opt_pairs: usize = "pairs", at least 1;
+    arg_pairs, opt_pairs: usize = "pairs", at least 0;
     arg_shard, opt_shard: usize = "shard", at least 0;
     arg_first_number, opt_first_number: i64 = "first_number", at least 0;
 }
