@@ -15,7 +15,8 @@ use numpy::{PyArray1, PyArray2, PyReadonlyArray1, PyReadonlyArray2};
 use pyo3::create_exception;
 use pyo3::exceptions::PyException;
 use pyo3::prelude::*;
-use pyo3::types::{PyDict, PyList, PyString};
+use pyo3::sync::PyOnceLock;
+use pyo3::types::{PyDict, PyList, PyString, PyType};
 use self_cell::self_cell;
 
 use waymark::embed::{LandmarkRule, Method};
@@ -75,6 +76,161 @@ fn py_err(e: Error) -> PyErr {
 
 fn bad(message: impl Into<String>) -> PyErr {
     BadInputError::new_err(message.into())
+}
+
+// ---------------------------------------------------------------------------------------
+// Integer arguments.
+
+/// `BadArgumentError`: an integer argument out of range. It is a [`BadInputError`] (so
+/// `except waymark.WaymarkError` catches it) and a `ValueError` (as Python's own functions
+/// raise for a value of the right type out of range). Python classes cannot take two
+/// bases through `create_exception!`, so it is made once with `type(...)`.
+static BAD_ARGUMENT: PyOnceLock<Py<PyType>> = PyOnceLock::new();
+
+fn bad_argument_type(py: Python<'_>) -> PyResult<&Bound<'_, PyType>> {
+    BAD_ARGUMENT
+        .get_or_try_init(py, || -> PyResult<Py<PyType>> {
+            let attrs = PyDict::new(py);
+            attrs.set_item("__module__", "waymark")?;
+            attrs.set_item(
+                "__doc__",
+                "An integer argument out of range (negative, zero where at least 1 is \
+                 needed, or too large): both a BadInputError and a ValueError.",
+            )?;
+            let bases = (
+                py.get_type::<BadInputError>(),
+                py.get_type::<pyo3::exceptions::PyValueError>(),
+            );
+            let made = py
+                .get_type::<PyType>()
+                .call1(("BadArgumentError", bases, attrs))?;
+            Ok(made.cast_into::<PyType>()?.unbind())
+        })
+        .map(|t| t.bind(py))
+}
+
+/// A `BadArgumentError` with `message`.
+fn bad_argument(py: Python<'_>, message: String) -> PyErr {
+    match bad_argument_type(py) {
+        Ok(t) => PyErr::from_type(t.clone(), message),
+        Err(e) => e,
+    }
+}
+
+/// The integer argument `name` of the Python API, `obj`, as a `T` of at least `least`
+/// (0 or 1) and at most `max`; otherwise a `BadArgumentError` that names the argument and
+/// the value given ("k must be a positive integer, got -1"). Not an integer at all: the
+/// `TypeError` of PyO3's conversion, which names the argument.
+fn whole<T: TryFrom<i128>>(
+    obj: &Bound<'_, PyAny>,
+    name: &str,
+    least: i128,
+    max: i128,
+) -> PyResult<T> {
+    let py = obj.py();
+    let kind = if least >= 1 {
+        "a positive integer"
+    } else {
+        "an integer of at least 0"
+    };
+    let value = match obj.extract::<i128>() {
+        Ok(v) => v,
+        // Beyond i128: absurdly large, or absurdly negative.
+        Err(e) if e.is_instance_of::<pyo3::exceptions::PyOverflowError>(py) => {
+            let negative = obj.lt(0i32).unwrap_or(false);
+            let got = obj
+                .repr()
+                .map_or_else(|_| "?".to_string(), |r| r.to_string());
+            return Err(bad_argument(
+                py,
+                if negative {
+                    format!("{name} must be {kind}, got {got}")
+                } else {
+                    format!("{name} must be at most {max}, got {got}")
+                },
+            ));
+        }
+        Err(e) => return Err(e),
+    };
+    // Zero where at least 1 is needed is left to the library, whose message is the
+    // command line's ("k must be at least 1"); `least` only words the refusal of a
+    // negative value.
+    if value < 0 {
+        return Err(bad_argument(
+            py,
+            format!("{name} must be {kind}, got {value}"),
+        ));
+    }
+    if value > max {
+        return Err(bad_argument(
+            py,
+            format!("{name} must be at most {max}, got {value}"),
+        ));
+    }
+    T::try_from(value)
+        .map_err(|_| bad_argument(py, format!("{name} must be at most {max}, got {value}")))
+}
+
+/// Converters of the integer arguments, one per name and type, for
+/// `#[pyo3(from_py_with = ...)]` (which takes a function of the argument alone); the
+/// `Option` ones take `None` as not given.
+macro_rules! int_arguments {
+    ($($f:ident, $opt:ident: $t:ty = $name:literal, at least $least:literal;)*) => {$(
+        fn $f(obj: &Bound<'_, PyAny>) -> PyResult<$t> {
+            whole(obj, $name, $least, <$t>::MAX as i128)
+        }
+        #[allow(dead_code)]
+        fn $opt(obj: &Bound<'_, PyAny>) -> PyResult<Option<$t>> {
+            if obj.is_none() {
+                return Ok(None);
+            }
+            $f(obj).map(Some)
+        }
+    )*};
+}
+
+/// `candidates` of `eval`: a list of counts, each checked as [`whole`] checks one.
+fn opt_candidate_list(obj: &Bound<'_, PyAny>) -> PyResult<Option<Vec<usize>>> {
+    if obj.is_none() {
+        return Ok(None);
+    }
+    let list: Vec<Bound<'_, PyAny>> = obj.extract()?;
+    list.iter()
+        .map(arg_candidates)
+        .collect::<PyResult<_>>()
+        .map(Some)
+}
+
+/// An item number for `Index.id` and `Index.item`: beyond i64 it is not in the index
+/// either (an `IndexError`, as for any number out of range).
+fn item_no(obj: &Bound<'_, PyAny>) -> PyResult<i64> {
+    match obj.extract::<i64>() {
+        Err(e) if e.is_instance_of::<pyo3::exceptions::PyOverflowError>(obj.py()) => {
+            let got = obj
+                .repr()
+                .map_or_else(|_| "?".to_string(), |r| r.to_string());
+            Err(pyo3::exceptions::PyIndexError::new_err(format!(
+                "item number {got} is not in the index"
+            )))
+        }
+        other => other,
+    }
+}
+
+int_arguments! {
+    arg_k, opt_k: usize = "k", at least 1;
+    arg_candidates, opt_candidates: usize = "candidates", at least 1;
+    arg_visit, opt_visit: usize = "visit", at least 0;
+    arg_widen, opt_widen: u32 = "widen", at least 0;
+    arg_dim, opt_dim: usize = "dim", at least 1;
+    arg_pool, opt_pool: usize = "pool", at least 0;
+    arg_seed, opt_seed: u64 = "seed", at least 0;
+    arg_landmark_sample, opt_landmark_sample: usize = "landmark_sample", at least 1;
+    arg_qgrams, opt_qgrams: usize = "qgrams", at least 1;
+    arg_small_radius, opt_small_radius: u32 = "small_radius", at least 0;
+    arg_pairs, opt_pairs: usize = "pairs", at least 0;
+    arg_shard, opt_shard: usize = "shard", at least 0;
+    arg_first_number, opt_first_number: i64 = "first_number", at least 0;
 }
 
 // ---------------------------------------------------------------------------------------
@@ -526,23 +682,23 @@ fn build(
     integral: bool,
     costs: Option<PathBuf>,
     separator: Option<String>,
-    qgrams: Option<usize>,
+    #[pyo3(from_py_with = opt_qgrams)] qgrams: Option<usize>,
     command: Option<Vec<String>>,
     timeout: f64,
-    dim: usize,
+    #[pyo3(from_py_with = arg_dim)] dim: usize,
     embedding: &str,
-    pool: usize,
-    seed: u64,
-    candidates: Option<usize>,
+    #[pyo3(from_py_with = arg_pool)] pool: usize,
+    #[pyo3(from_py_with = arg_seed)] seed: u64,
+    #[pyo3(from_py_with = opt_candidates)] candidates: Option<usize>,
     space: &str,
-    landmark_sample: usize,
+    #[pyo3(from_py_with = arg_landmark_sample)] landmark_sample: usize,
     landmark_rule: &str,
     fold_case: bool,
     trim: bool,
     fold_punct: bool,
     sort_tokens: bool,
-    small_radius: Option<u32>,
-    widen: u32,
+    #[pyo3(from_py_with = opt_small_radius)] small_radius: Option<u32>,
+    #[pyo3(from_py_with = arg_widen)] widen: u32,
     calibrate: bool,
 ) -> PyResult<PyIndex> {
     let args = BuildArgs {
@@ -696,23 +852,23 @@ fn build_file(
     header: bool,
     costs: Option<PathBuf>,
     separator: Option<String>,
-    qgrams: Option<usize>,
+    #[pyo3(from_py_with = opt_qgrams)] qgrams: Option<usize>,
     command: Option<Vec<String>>,
     timeout: f64,
-    dim: usize,
+    #[pyo3(from_py_with = arg_dim)] dim: usize,
     embedding: &str,
-    pool: usize,
-    seed: u64,
-    candidates: Option<usize>,
+    #[pyo3(from_py_with = arg_pool)] pool: usize,
+    #[pyo3(from_py_with = arg_seed)] seed: u64,
+    #[pyo3(from_py_with = opt_candidates)] candidates: Option<usize>,
     space: &str,
-    landmark_sample: usize,
+    #[pyo3(from_py_with = arg_landmark_sample)] landmark_sample: usize,
     landmark_rule: &str,
     fold_case: bool,
     trim: bool,
     fold_punct: bool,
     sort_tokens: bool,
-    small_radius: Option<u32>,
-    widen: u32,
+    #[pyo3(from_py_with = opt_small_radius)] small_radius: Option<u32>,
+    #[pyo3(from_py_with = arg_widen)] widen: u32,
     calibrate: bool,
 ) -> PyResult<PyIndex> {
     let args = BuildArgs {
@@ -1074,13 +1230,17 @@ impl PyIndex {
     }
 
     /// The id of item `number` (an int or a str, as given at build time).
-    fn id(&self, py: Python<'_>, number: i64) -> PyResult<Py<PyAny>> {
+    fn id(
+        &self,
+        py: Python<'_>,
+        #[pyo3(from_py_with = item_no)] number: i64,
+    ) -> PyResult<Py<PyAny>> {
         let i = self.item_number(number)?;
         id_value(py, self.parts(), i)
     }
 
     /// Item `number` as given at build time.
-    fn item(&self, number: i64) -> PyResult<String> {
+    fn item(&self, #[pyo3(from_py_with = item_no)] number: i64) -> PyResult<String> {
         let i = self.item_number(number)?;
         Ok(String::from_utf8_lossy(self.parts().item(i as u32)).into_owned())
     }
@@ -1112,16 +1272,16 @@ impl PyIndex {
         &self,
         py: Python<'_>,
         query: &Bound<'_, PyAny>,
-        k: Option<usize>,
+        #[pyo3(from_py_with = opt_k)] k: Option<usize>,
         exact: bool,
         within: Option<f64>,
         within_fraction: Option<f64>,
         recall: Option<f64>,
-        candidates: Option<usize>,
+        #[pyo3(from_py_with = opt_candidates)] candidates: Option<usize>,
         space: Option<&str>,
         candidates_from: Option<&str>,
-        visit: Option<usize>,
-        widen: Option<u32>,
+        #[pyo3(from_py_with = opt_visit)] visit: Option<usize>,
+        #[pyo3(from_py_with = opt_widen)] widen: Option<u32>,
     ) -> PyResult<Py<PyList>> {
         let index = self.index();
         let req = request(
@@ -1184,16 +1344,16 @@ impl PyIndex {
         &self,
         py: Python<'py>,
         queries: &Bound<'py, PyAny>,
-        k: usize,
+        #[pyo3(from_py_with = arg_k)] k: usize,
         exact: bool,
         within: Option<f64>,
         within_fraction: Option<f64>,
         recall: Option<f64>,
-        candidates: Option<usize>,
+        #[pyo3(from_py_with = opt_candidates)] candidates: Option<usize>,
         space: Option<&str>,
         candidates_from: Option<&str>,
-        visit: Option<usize>,
-        widen: Option<u32>,
+        #[pyo3(from_py_with = opt_visit)] visit: Option<usize>,
+        #[pyo3(from_py_with = opt_widen)] widen: Option<u32>,
     ) -> PyResult<ManyAnswers<'py>> {
         let index = self.index();
         let req = request(
@@ -1215,6 +1375,22 @@ impl PyIndex {
         let in_parts = self.in_parts();
         let whole = self.parts().is_whole();
         let n = texts.len();
+        // The answer arrays are n × k whatever is found: a k far beyond the index's size
+        // is refused here rather than aborting on an allocation.
+        let cells = n
+            .checked_mul(k)
+            .filter(|c| {
+                let mut probe: Vec<[u8; 16]> = Vec::new();
+                probe.try_reserve_exact(*c).is_ok()
+            })
+            .ok_or_else(|| {
+                bad_argument(
+                    py,
+                    format!(
+                        "k = {k} for {n} queries asks for arrays of {n} × {k} answers:                          more than memory holds; give a smaller k"
+                    ),
+                )
+            })?;
         let result = py.detach(|| -> Result<(Vec<i64>, Vec<f64>), Error> {
             in_parts.check(&req)?;
             let answers = match (within_fraction, whole) {
@@ -1225,8 +1401,8 @@ impl PyIndex {
                 }),
                 (None, false) => in_parts.answer_many(&texts, &req),
             };
-            let mut numbers = vec![-1i64; n * k];
-            let mut dists = vec![f64::INFINITY; n * k];
+            let mut numbers = vec![-1i64; cells];
+            let mut dists = vec![f64::INFINITY; cells];
             for (q, a) in answers.into_iter().enumerate() {
                 let found = a.map_err(|e| at_query(e, q))?;
                 for (j, nb) in found.neighbors.iter().take(k).enumerate() {
@@ -1315,12 +1491,12 @@ impl PyIndex {
         &self,
         py: Python<'_>,
         queries: &Bound<'_, PyAny>,
-        k: usize,
-        candidates: Option<Vec<usize>>,
+        #[pyo3(from_py_with = arg_k)] k: usize,
+        #[pyo3(from_py_with = opt_candidate_list)] candidates: Option<Vec<usize>>,
         recall: Option<Vec<f64>>,
         space: Option<&str>,
         candidates_from: Option<&str>,
-        visit: Option<usize>,
+        #[pyo3(from_py_with = opt_visit)] visit: Option<usize>,
     ) -> PyResult<Py<PyAny>> {
         self.whole_only("eval")?;
         let index = self.index();
@@ -1403,7 +1579,11 @@ impl PyIndex {
 
     /// The distortion report of the embedding, as `waymark eval --distortion --pairs`.
     #[pyo3(signature = (*, pairs=100_000))]
-    fn distortion(&self, py: Python<'_>, pairs: usize) -> PyResult<Py<PyAny>> {
+    fn distortion(
+        &self,
+        py: Python<'_>,
+        #[pyo3(from_py_with = arg_pairs)] pairs: usize,
+    ) -> PyResult<Py<PyAny>> {
         self.whole_only("distortion")?;
         let index = self.index();
         let report = py
@@ -1633,27 +1813,17 @@ fn build_shard(
     py: Python<'_>,
     items: &Bound<'_, PyAny>,
     folder: PathBuf,
-    shard: i64,
+    #[pyo3(from_py_with = arg_shard)] shard: usize,
     like: PathBuf,
     ids: Option<&Bound<'_, PyAny>>,
-    first_number: Option<i64>,
+    #[pyo3(from_py_with = opt_first_number)] first_number: Option<i64>,
 ) -> PyResult<String> {
-    let max = waymark::index::shards::MAX_SHARDS;
-    let shard = usize::try_from(shard).map_err(|_| {
-        bad(format!(
-            "shard number {shard} is out of range (0 to {})",
-            max - 1
-        ))
-    })?;
     let seed = py.detach(|| Index::open(&like)).map_err(py_err)?;
     let given = ids_from(ids)?;
     let ids_for = |n: usize| -> PyResult<Ids> {
         match (given.clone(), first_number) {
             (Some(i), None) => Ok(i),
-            (None, Some(f)) if f >= 0 => Ok(waymark::index::shards::record_ids(f, n)),
-            (None, Some(f)) => Err(bad(format!(
-                "first_number is {f}: a record number is at least 0"
-            ))),
+            (None, Some(f)) => Ok(waymark::index::shards::record_ids(f, n)),
             (None, None) => Err(bad(
                 "give the shard's ids (ids=, one per item) or the record number of its first \
                  item across all the shards (first_number=)",
@@ -1729,6 +1899,35 @@ fn list_parts(py: Python<'_>, index_path: PathBuf) -> PyResult<Py<PyList>> {
 }
 
 /// The default candidates a build of `n` items stores.
+/// Reads the queries of a file. See `python/waymark/__init__.pyi`.
+#[pyfunction]
+#[pyo3(signature = (path, *, format=None))]
+fn read_queries(
+    py: Python<'_>,
+    path: PathBuf,
+    format: Option<&str>,
+) -> PyResult<Vec<(u64, Option<String>, String)>> {
+    use waymark::ingest::{QueryLayout, SequenceFormat};
+    let layout = match format {
+        None => None,
+        Some("text") => Some(QueryLayout::Lines),
+        Some("fasta") => Some(QueryLayout::Sequences(SequenceFormat::Fasta)),
+        Some("fastq") => Some(QueryLayout::Sequences(SequenceFormat::Fastq)),
+        Some(other) => {
+            return Err(bad(format!(
+                "format `{other}` is not one of text, fasta, fastq"
+            )))
+        }
+    };
+    let records = py
+        .detach(|| waymark::ingest::read_queries(&path, layout))
+        .map_err(|e| py_err(e.into()))?;
+    Ok(records
+        .into_iter()
+        .map(|r| (r.line, r.name, r.text))
+        .collect())
+}
+
 #[pyfunction]
 fn _default_candidates(n: usize) -> usize {
     waymark::index::default_candidates(n)
@@ -1744,9 +1943,11 @@ fn _waymark(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(build_shard, m)?)?;
     m.add_function(wrap_pyfunction!(write_parts, m)?)?;
     m.add_function(wrap_pyfunction!(list_parts, m)?)?;
+    m.add_function(wrap_pyfunction!(read_queries, m)?)?;
     m.add_function(wrap_pyfunction!(_default_candidates, m)?)?;
     m.add("WaymarkError", py.get_type::<WaymarkError>())?;
     m.add("BadInputError", py.get_type::<BadInputError>())?;
+    m.add("BadArgumentError", bad_argument_type(py)?)?;
     m.add("CorruptIndexError", py.get_type::<CorruptIndexError>())?;
     m.add("MetricFailedError", py.get_type::<MetricFailedError>())?;
     m.add("__version__", env!("CARGO_PKG_VERSION"))?;

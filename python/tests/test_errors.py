@@ -3,12 +3,13 @@ contributor guide's bad-input table that apply to the package), and never leaves
 half-written index."""
 
 import os
+import subprocess
 
 import numpy as np
 import pytest
 
 import waymark
-from conftest import DEMO
+from conftest import DEMO, waymark_bin
 from test_exact import levenshtein
 
 NAMES = ["Orvane Quay", "Orvane Strand", "Keth Landing", "Mirrow Steps"]
@@ -164,8 +165,79 @@ def test_bad_query_options(tmp_path):
         index.query("Keth", within_fraction=-0.5)
     with pytest.raises(waymark.BadInputError, match="fraction"):
         index.query_many(["Keth"], 2, within_fraction=float("nan"))
-    with pytest.raises(OverflowError, match="negative int"):
-        index.query("Keth", -1)
+
+
+def test_negative_and_absurd_integer_arguments_name_the_argument(tmp_path):
+    index = waymark.build(NAMES, tmp_path / "n.wmk")
+    refused = [
+        ("k must be a positive integer, got -1", lambda: index.query("Keth", -1)),
+        ("k must be a positive integer, got -5", lambda: index.query_many(["Keth"], k=-5)),
+        ("k must be a positive integer, got -1", lambda: index.eval(["Keth"], k=-1)),
+        ("candidates must be a positive integer, got -3", lambda: index.query("Keth", 2, candidates=-3)),
+        ("candidates must be a positive integer, got -3", lambda: index.eval(["Keth"], 2, candidates=[5, -3])),
+        ("visit must be an integer of at least 0, got -2", lambda: index.query_many(["Keth"], 2, visit=-2)),
+        ("widen must be an integer of at least 0, got -1", lambda: index.query("Keth", 2, widen=-1)),
+        ("pairs must be an integer of at least 0, got -10", lambda: index.distortion(pairs=-10)),
+        ("dim must be a positive integer, got -2", lambda: waymark.build(NAMES, tmp_path / "x.wmk", dim=-2)),
+        ("pool must be an integer of at least 0, got -1", lambda: waymark.build(NAMES, tmp_path / "x.wmk", pool=-1)),
+        ("seed must be an integer of at least 0, got -7", lambda: waymark.build(NAMES, tmp_path / "x.wmk", seed=-7)),
+        ("landmark_sample must be a positive integer, got -1",
+         lambda: waymark.build(NAMES, tmp_path / "x.wmk", landmark_sample=-1)),
+        ("small_radius must be an integer of at least 0, got -1",
+         lambda: waymark.build(NAMES, tmp_path / "x.wmk", small_radius=-1)),
+        ("qgrams must be a positive integer, got -2",
+         lambda: waymark.build(NAMES, tmp_path / "x.wmk", metric="jaccard", qgrams=-2)),
+        ("candidates must be a positive integer, got -1",
+         lambda: waymark.build_file(DEMO / "ferries.txt", tmp_path / "x.wmk", candidates=-1)),
+        ("shard must be an integer of at least 0, got -1",
+         lambda: waymark.build_shard(NAMES, tmp_path, -1, like=index.path, first_number=0)),
+        ("first_number must be an integer of at least 0, got -4",
+         lambda: waymark.build_shard(NAMES, tmp_path, 0, like=index.path, first_number=-4)),
+        # Too large for any count: refused before any work, naming the limit.
+        ("k must be at most 18446744073709551615, got 10000000000000000000000000000000000000000",
+         lambda: index.query("Keth", 10**40)),
+        ("k must be a positive integer, got -1000000000000000000000000000000000000000000",
+         lambda: index.query("Keth", -(10**42))),
+        ("widen must be at most 4294967295, got 4294967296", lambda: index.query("Keth", 2, widen=2**32)),
+        ("seed must be at most 18446744073709551615, got 18446744073709551616",
+         lambda: waymark.build(NAMES, tmp_path / "x.wmk", seed=2**64)),
+    ]
+    for message, call in refused:
+        with pytest.raises(waymark.BadArgumentError) as err:
+            call()
+        assert str(err.value) == message
+        # Both a ValueError, as Python's own functions raise, and one of waymark's errors.
+        assert isinstance(err.value, ValueError) and isinstance(err.value, waymark.BadInputError)
+    assert not (tmp_path / "x.wmk").exists()
+    assert sorted(os.listdir(tmp_path)) == ["n.wmk"]
+    # Zero is refused as the command line refuses `-k 0` (same message), and the largest
+    # count is a count: k beyond the index's size gives every item.
+    with pytest.raises(waymark.BadInputError, match="^k must be at least 1$"):
+        index.query("Keth", 0)
+    assert len(index.query("Keth", 2**64 - 1)) == len(NAMES)
+    # query_many's answer arrays are n × k whatever is found: past memory, refused.
+    for queries, k in ((["Keth"], 2**64 - 1), (["Keth", "Orvane"], 2**63)):
+        with pytest.raises(waymark.BadArgumentError, match="more than memory holds; give a smaller k"):
+            index.query_many(queries, k)
+    # An item number beyond any integer type is not in the index, like any other.
+    with pytest.raises(IndexError, match="item number 10000000000000000000000 is not in the index"):
+        index.item(10**22)
+    # Not an integer at all: Python's TypeError, naming the argument.
+    with pytest.raises(TypeError, match="'float' object cannot be interpreted as an integer"):
+        index.query("Keth", 2.5)
+
+
+def test_k_zero_is_refused_as_the_command_line_refuses_it(tmp_path):
+    index = waymark.build(NAMES, tmp_path / "z.wmk")
+    (tmp_path / "q.txt").write_text("Keth\n")
+    cli = subprocess.run(
+        [str(waymark_bin()), "query", str(tmp_path / "z.wmk"), "--queries", str(tmp_path / "q.txt"), "-k", "0"],
+        capture_output=True, text=True,
+    )
+    assert cli.returncode == 2 and cli.stderr.strip() == "waymark: error: -k must be at least 1"
+    with pytest.raises(waymark.BadInputError) as err:
+        index.query("Keth", 0)
+    assert str(err.value) == cli.stderr.strip().removeprefix("waymark: error: -")
 
 
 def test_recall_on_an_index_without_a_curve_is_refused_with_advice(tmp_path):

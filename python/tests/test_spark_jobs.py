@@ -253,7 +253,13 @@ def test_build_refusals(spark, tmp_path):
         build(spark, df, "name", tmp_path / "x.wmk", "code")
     with pytest.raises(ValueError, match="shards must be"):
         build(spark, df, "name", tmp_path / "x.wmk", shards=0)
+    with pytest.raises(ValueError, match=r"seed must be a whole number from 0 to 2\*\*64 - 1, not -1"):
+        build(spark, df, "name", tmp_path / "x.wmk", seed=-1)
+    ok = spark.createDataFrame([("Orvane Quay", 1), ("Keth Landing", 2)], "name string, code long")
+    with pytest.raises(ValueError, match="^dim must be a positive integer, got -3"):
+        build(spark, ok, "name", tmp_path / "x.wmk", dim=-3)
     assert not os.path.exists(tmp_path / "x.wmk")
+    assert not os.path.exists(tmp_path / "x.wmk.shards")
 
 
 def spark_cli(*args, cwd=None):

@@ -17,6 +17,7 @@ The names below are documented in ``__init__.pyi`` (type stubs with docstrings).
 """
 
 from ._waymark import (
+    BadArgumentError,
     BadInputError,
     CorruptIndexError,
     Index,
@@ -28,6 +29,7 @@ from ._waymark import (
     build_shard,
     group_pairs,
     list_parts,
+    read_queries,
     write_parts,
 )
 from ._waymark import _default_candidates
@@ -57,6 +59,7 @@ def build_seed(items, path, *, total=None, candidates=None, **options):
 
 
 __all__ = [
+    "BadArgumentError",
     "BadInputError",
     "CorruptIndexError",
     "Index",
@@ -70,5 +73,6 @@ __all__ = [
     "group_pairs",
     "list_parts",
     "open",
+    "read_queries",
     "write_parts",
 ]

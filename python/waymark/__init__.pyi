@@ -39,6 +39,13 @@ class BadInputError(WaymarkError):
     of another dimension, a Hamming query of another length, not a node of the graph), an
     option out of range, a file that cannot be read or written."""
 
+class BadArgumentError(BadInputError, ValueError):
+    """An integer argument out of range: a negative ``k``, ``candidates``, ``dim``,
+    ``seed``, ``widen``... or one too large for its type (``k=10**30``). The message names
+    the argument and the value given: ``k must be a positive integer, got -1``. Zero where
+    at least 1 is needed (``k=0``) is refused with the command line's message, ``k must be
+    at least 1``, as a ``BadInputError``."""
+
 class CorruptIndexError(WaymarkError):
     """The index file was refused: not an index, another format version, corrupt or
     truncated, or built with a Python distance that was not supplied (or another one)."""
@@ -204,7 +211,9 @@ def build_shard(
 
     The file is written under a hidden temporary name in ``folder`` and renamed: a task
     killed midway leaves no shard file, and a task run twice (retried or speculative) with
-    the same items writes the same bytes under the same name, so one file remains. Raises
+    the same items writes the same bytes under the same name, so one file remains; the hidden
+    files that killed writers of the same shard left in ``folder`` are removed when it is
+    written again (only those, and only when no live writer holds them). Raises
     ``BadInputError`` for a shard number out of range, items the seed's metric cannot take,
     or a seed whose metric is a graph or a Python distance (not shardable)."""
 
@@ -226,6 +235,28 @@ def list_parts(index_path: str | PathLike[str]) -> list[dict[str, Any]]:
     file; the index file itself for an index of one file), ``items`` (removed ones
     included), ``removed`` (item numbers within the part that are removed) and ``first``
     (the item number across the parts of its first item)."""
+
+def read_queries(
+    path: str | PathLike[str], *, format: Literal["text", "fasta", "fastq"] | None = None
+) -> list[tuple[int, str | None, str]]:
+    """The queries of the file at ``path``, as ``waymark query --queries FILE
+    --query-format FORMAT`` reads them: ``text``, one query per line (``\\r\\n`` and a
+    leading byte-order mark dropped); ``fasta`` or ``fastq``, one query per record, its
+    sequence (a FASTA record's lines joined), also gzip-compressed. Without ``format``, by
+    the file's name as the command line takes it: FASTA for ``.fa``, ``.fasta``, ``.fna``,
+    FASTQ for ``.fq``, ``.fastq`` (also with ``.gz``), else text.
+
+    Returns ``(line, name, query)`` per query, in file order: the 1-based line (a record's
+    header line), the record's name (the first word of its header; ``None`` for a text
+    line) and the query text, the ``line``, ``name`` and ``query`` of the command line's
+    answers. Pass the texts to ``query_many``::
+
+        reads = waymark.read_queries("reads.fq")
+        numbers, distances = index.query_many([q for _, _, q in reads], k=1)
+
+    Raises ``BadInputError`` naming the file and line for a malformed record or a line
+    that is not UTF-8 (the command line's words), and naming the file for a folder, a file
+    that cannot be read or one with no query."""
 
 class Index:
     """An open, memory-mapped index. Opening is cheap; an index is safe to share between
@@ -310,7 +341,8 @@ class Index:
         query i's item numbers and distances, nearest first, filled with -1 and ``inf``
         where fewer than k are found (``within``). Map numbers to ids with ``ids`` and to
         items with ``items``. A query the metric cannot take raises ``BadInputError`` naming
-        its position (``queries[3]: …``)."""
+        its position (``queries[3]: …``); a ``k`` whose arrays would not fit in memory
+        raises ``BadArgumentError``."""
 
     def pairs_within(
         self,

@@ -75,6 +75,9 @@ fn add_graph(
         r.nodes,
         r.edges,
     );
+    if let Some(note) = longer_note(&r.longer, source, &a.input.files()) {
+        eprintln!("{note}");
+    }
     let (before, after) = r.saturated;
     if after > before + 0.05 {
         eprintln!(
@@ -86,6 +89,53 @@ fn add_graph(
         );
     }
     Ok(())
+}
+
+/// The line that says which given edge weights a graph add did not take (the index had a
+/// shorter one): their count and the first of them by its line in the edge list; `None`
+/// when every weight was taken.
+fn longer_note(
+    longer: &[(String, String, f64, f64)],
+    source: &str,
+    files: &[std::path::PathBuf],
+) -> Option<String> {
+    let (a, b, given, kept) = longer.first()?;
+    let pairs: std::collections::HashMap<(&str, &str), (f64, f64)> = longer
+        .iter()
+        .flat_map(|(a, b, g, k)| {
+            [
+                ((a.as_str(), b.as_str()), (*g, *k)),
+                ((b.as_str(), a.as_str()), (*g, *k)),
+            ]
+        })
+        .collect();
+    // The edge list is read again for the line (only when some weight was not taken); the
+    // first line that gives one of those edges.
+    let mut first: Option<(u64, String, String, f64, f64)> = None;
+    if let Some(text) = files.first().and_then(|f| std::fs::read_to_string(f).ok()) {
+        let _ = crate::metric::Graph::each_edge_line(&text, source, |line, x, y, _| {
+            if first.is_none() {
+                if let Some(&(g, k)) = pairs.get(&(x, y)) {
+                    first = Some((line, x.to_string(), y.to_string(), g, k));
+                }
+            }
+        });
+    }
+    let (at, a, b, given, kept) = match first {
+        Some((line, x, y, g, k)) => (format!("line {line}, "), x, y, g, k),
+        None => (String::new(), a.clone(), b.clone(), *given, *kept),
+    };
+    let n = longer.len();
+    let edges = if n == 1 { "edge" } else { "edges" };
+    let (give, were) = if n == 1 {
+        ("gives", "was")
+    } else {
+        ("give", "were")
+    };
+    Some(format!(
+        "waymark: warning: {n} {edges} of {source} {give} a longer weight than the index's and \
+         {were} ignored (first: {at}{a}–{b} {given}, the index keeps {kept})"
+    ))
 }
 
 pub(super) fn remove(a: RemoveArgs) -> anyhow::Result<()> {

@@ -912,6 +912,10 @@ pub struct GraphAddReport {
     /// still gives a valid bound, a weaker one): new nodes far from every reference item,
     /// or a union whose distances outgrow the coordinate scale, raise it.
     pub saturated: (f64, f64),
+    /// Edges of the added edge list that the index's graph has with a smaller weight, so
+    /// that their given weight was not taken ([`Graph::longer_in`]): (a, b, the weight
+    /// given, the weight kept), in the edge list's node order.
+    pub longer: Vec<(String, String, f64, f64)>,
 }
 
 /// Adds the edges of `more` (an edge list read from `source`) to the graph-metric index at
@@ -943,6 +947,14 @@ pub fn add_graph(
             base.metric
         )));
     };
+    let longer = old
+        .longer_in(more)
+        .into_iter()
+        .map(|(a, b, given, kept)| {
+            let name = |n: &[u8]| String::from_utf8_lossy(n).into_owned();
+            (name(a), name(b), given, kept)
+        })
+        .collect();
     let union = old
         .union(more, source)
         .map_err(|e| Error::Usage(e.to_string()))?;
@@ -1040,6 +1052,7 @@ pub fn add_graph(
         nodes,
         edges,
         saturated: (saturated_before, saturated_after),
+        longer,
     })
 }
 

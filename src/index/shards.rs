@@ -166,7 +166,9 @@ pub fn build_seed(
 ///
 /// The corpus's keys must be made with the seed's normalisation (the seed's metadata has
 /// it); its metric is the seed's. The file is written under a hidden temporary name in
-/// `folder` and renamed, so the same items written twice as the same shard leave one file.
+/// `folder` and renamed, so the same items written twice as the same shard leave one file;
+/// once it is named, the temporary files that killed writers of the same shard left in
+/// `folder` are removed (only names of that pattern, only those no live writer holds).
 /// `inputs` are files the items were read from (never written over).
 pub fn build_shard(
     corpus: &Corpus,
@@ -205,6 +207,10 @@ pub fn build_shard(
         &unnamed,
     );
     let named = written.and_then(|_| {
+        // Locked while it is hashed and renamed, so that another writer's clean-up
+        // ([`remove_stale_temporaries`]) leaves it alone.
+        let held = std::fs::File::open(&unnamed).map_err(|e| io(&unnamed, e))?;
+        held.lock().map_err(|e| io(&unnamed, e))?;
         let sum = file_sha256(&unnamed)?;
         let dest = folder.join(shard_name(shard, &sum));
         std::fs::rename(&unnamed, &dest).map_err(|e| io(&dest, e))?;
@@ -213,8 +219,72 @@ pub fn build_shard(
     });
     if named.is_err() {
         let _ = std::fs::remove_file(&unnamed);
+    } else {
+        remove_stale_temporaries(folder, shard);
     }
     named
+}
+
+/// Whether `file` is a temporary file of a writer of shard `shard` ([`build_shard`]): its
+/// hidden name before the rename, `.shard-NNNNN.HHHHHHHHHHHHHHHH.unnamed` (16 lowercase hex
+/// digits), or the partial file that name is written through,
+/// `..shard-NNNNN.HHHHHHHHHHHHHHHH.unnamed.XXXXXX.waymark-partial`.
+fn is_shard_temporary(file: &str, shard: usize) -> bool {
+    let hex16 =
+        |h: &str| h.len() == 16 && h.bytes().all(|b| matches!(b, b'0'..=b'9' | b'a'..=b'f'));
+    let prefix = format!(".shard-{shard:05}.");
+    let unnamed = |f: &str| {
+        f.strip_prefix(prefix.as_str())
+            .and_then(|f| f.strip_suffix(".unnamed"))
+            .is_some_and(hex16)
+    };
+    if unnamed(file) {
+        return true;
+    }
+    file.strip_prefix('.')
+        .and_then(|f| f.strip_suffix(".waymark-partial"))
+        .and_then(|f| f.rsplit_once('.'))
+        .is_some_and(|(dest, rand)| {
+            rand.len() == 6 && rand.bytes().all(|b| b.is_ascii_alphanumeric()) && unnamed(dest)
+        })
+}
+
+/// Removes, from `folder`, the temporary files that writers of shard `shard` left when they
+/// were killed (a task stopped mid-write, then run again): only names of that pattern
+/// ([`is_shard_temporary`]), only plain files, and only those whose lock can be taken (a
+/// live writer holds its file's lock). Best effort: whatever cannot be read, locked or
+/// removed stays, and no error stops the build.
+fn remove_stale_temporaries(folder: &Path, shard: usize) {
+    let Ok(entries) = std::fs::read_dir(folder) else {
+        return;
+    };
+    for e in entries.flatten() {
+        let name = e.file_name().to_string_lossy().into_owned();
+        if !is_shard_temporary(&name, shard) {
+            continue;
+        }
+        let path = e.path();
+        let Ok(meta) = std::fs::symlink_metadata(&path) else {
+            continue;
+        };
+        if !meta.file_type().is_file() {
+            continue;
+        }
+        let Ok(file) = std::fs::File::open(&path) else {
+            continue;
+        };
+        if file.try_lock().is_err() {
+            continue;
+        }
+        // Still the file that was locked (not renamed into place meanwhile)?
+        let same = match (file.metadata(), std::fs::symlink_metadata(&path)) {
+            (Ok(a), Ok(b)) => super::file::file_id(&a) == super::file::file_id(&b),
+            _ => false,
+        };
+        if same {
+            let _ = std::fs::remove_file(&path);
+        }
+    }
 }
 
 /// The SHA-256 (hexadecimal) of the file at `path`.
@@ -528,6 +598,30 @@ pub fn build_sharded(
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn only_the_temporaries_of_the_same_shard_match() {
+        let h = "0123456789abcdef";
+        for yes in [
+            format!(".shard-00003.{h}.unnamed"),
+            format!("..shard-00003.{h}.unnamed.Ab12Xy.waymark-partial"),
+        ] {
+            assert!(is_shard_temporary(&yes, 3), "{yes}");
+            assert!(!is_shard_temporary(&yes, 4), "{yes}");
+        }
+        for no in [
+            format!("shard-00003-{h}.wmk"),
+            format!(".shard-00003.{h}.unnamed.keep"),
+            format!(".shard-00003.{}.unnamed", h.to_uppercase()),
+            format!(".shard-00003.{h}0.unnamed"),
+            format!(".shard-3.{h}.unnamed"),
+            format!("..shard-00003.{h}.unnamed.Ab12X.waymark-partial"),
+            format!(".seed.{h}.unnamed"),
+            ".shard-00003..unnamed".to_string(),
+        ] {
+            assert!(!is_shard_temporary(&no, 3), "{no}");
+        }
+    }
 
     #[test]
     fn shard_names_round_trip_and_others_are_not_shards() {

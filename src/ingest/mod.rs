@@ -45,12 +45,14 @@ mod csv;
 mod fastx;
 mod jsonl;
 mod load;
+mod queries;
 mod text;
 pub mod vectors;
 
 pub use crate::error::{IngestError, IngestWarning};
 pub use fastx::{read_sequences, SequenceFormat, SequenceRecord};
 pub use load::{load_input, text_metric_spec, LoadedInput, MetricOptions, DEFAULT_TIMEOUT_SECS};
+pub use queries::{read_queries, QueryLayout, QueryRecord};
 pub use vectors::parse_vector;
 
 /// The UTF-8 byte-order mark, dropped at the start of an input.

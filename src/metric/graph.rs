@@ -120,11 +120,6 @@ impl Graph {
 
     /// Parses the text of an edge list; `source_name` is used in errors.
     pub fn parse(text: &str, source_name: &str) -> Result<Graph, MetricError> {
-        let err = |line: usize, message: String| MetricError::Line {
-            source_name: source_name.to_string(),
-            line: line as u64 + 1,
-            message,
-        };
         let mut names: Vec<Box<[u8]>> = Vec::new();
         let mut index: HashMap<Box<[u8]>, u32> = HashMap::new();
         let mut edges: HashMap<(u32, u32), f64> = HashMap::new();
@@ -137,39 +132,101 @@ impl Graph {
             index.insert(name.as_bytes().into(), i);
             i
         };
+        Graph::each_edge_line(text, source_name, |_, fa, fb, w| {
+            let (a, b) = (node(fa, &mut names), node(fb, &mut names));
+            if a != b {
+                let slot = edges.entry((a.min(b), a.max(b))).or_insert(w);
+                *slot = slot.min(w);
+            }
+        })?;
+        if names.is_empty() {
+            return Err(MetricError::Options(format!("{source_name}: no edges")));
+        }
+        Graph::assemble(names, index, edges, source_name)
+    }
+
+    /// Calls `f(line, a, b, weight)` for every edge line of the edge list `text` (1-based
+    /// line; blank and `#` lines skipped; `a a w` lines included), in order; a malformed
+    /// line is refused with its line, as [`Graph::parse`] refuses it.
+    ///
+    /// ```
+    /// use waymark::metric::Graph;
+    ///
+    /// let mut legs = Vec::new();
+    /// Graph::each_edge_line("# legs\nKeth Orvane 25\n\nOrvane Lille 7.5\n", "legs.txt", |l, a, b, w| {
+    ///     legs.push((l, a.to_string(), b.to_string(), w))
+    /// })?;
+    /// assert_eq!(legs[1], (4, "Orvane".to_string(), "Lille".to_string(), 7.5));
+    /// # Ok::<(), waymark::metric::MetricError>(())
+    /// ```
+    pub fn each_edge_line<'t>(
+        text: &'t str,
+        source_name: &str,
+        mut f: impl FnMut(u64, &'t str, &'t str, f64),
+    ) -> Result<(), MetricError> {
+        let err = |line: usize, message: String| MetricError::Line {
+            source_name: source_name.to_string(),
+            line: line as u64 + 1,
+            message,
+        };
         let text = text.strip_prefix('\u{FEFF}').unwrap_or(text);
         for (i, raw) in text.lines().enumerate() {
             let t = raw.trim();
             if t.is_empty() || t.starts_with('#') {
                 continue;
             }
-            let f: Vec<&str> = t.split_whitespace().collect();
-            if f.len() != 3 {
+            let fields: Vec<&str> = t.split_whitespace().collect();
+            let [a, b, weight] = fields[..] else {
                 return Err(err(
                     i,
-                    format!("expected `NODE NODE WEIGHT`, found {} fields", f.len()),
+                    format!("expected `NODE NODE WEIGHT`, found {} fields", fields.len()),
                 ));
-            }
-            let w: f64 = f[2]
+            };
+            let w: f64 = weight
                 .parse()
-                .map_err(|_| err(i, format!("weight `{}` is not a number", f[2])))?;
+                .map_err(|_| err(i, format!("weight `{weight}` is not a number")))?;
             if !w.is_finite() || w < 0.0 {
                 return Err(err(
                     i,
-                    format!("weight {} must be finite and non-negative", f[2]),
+                    format!("weight {weight} must be finite and non-negative"),
                 ));
             }
-            let (a, b) = (node(f[0], &mut names), node(f[1], &mut names));
-            if a == b {
+            f(i as u64 + 1, a, b, w);
+        }
+        Ok(())
+    }
+
+    /// The weight of the edge between nodes `a` and `b`, if there is one.
+    pub fn weight(&self, a: u32, b: u32) -> Option<f64> {
+        let a = a as usize;
+        self.adjacent[self.offsets[a]..self.offsets[a + 1]]
+            .iter()
+            .find(|&&(u, _)| u == b)
+            .map(|&(_, w)| w)
+    }
+
+    /// The edges of `more` that this graph has too, with a smaller weight: those
+    /// [`Graph::union`] does not take. Each as (a, b, `more`'s weight, this graph's), by
+    /// node names, `a` before `b` in `more`'s node order.
+    pub fn longer_in<'m>(&self, more: &'m Graph) -> Vec<(&'m [u8], &'m [u8], f64, f64)> {
+        let mut out = Vec::new();
+        for v in 0..more.names.len() {
+            let Some(a) = self.node(&more.names[v]) else {
                 continue;
+            };
+            for &(u, w) in &more.adjacent[more.offsets[v]..more.offsets[v + 1]] {
+                if u as usize <= v {
+                    continue;
+                }
+                let name_u = more.name(u);
+                if let Some(old) = self.node(name_u).and_then(|b| self.weight(a, b)) {
+                    if w > old {
+                        out.push((&*more.names[v], name_u, w, old));
+                    }
+                }
             }
-            let slot = edges.entry((a.min(b), a.max(b))).or_insert(w);
-            *slot = slot.min(w);
         }
-        if names.is_empty() {
-            return Err(MetricError::Options(format!("{source_name}: no edges")));
-        }
-        Graph::assemble(names, index, edges, source_name)
+        out
     }
 
     /// The graph of `names` (numbered in order, `index` their look-up) and `edges` (keyed

@@ -225,7 +225,11 @@ fn grown() -> Grown {
         .stderr(
             contains("added 67 new nodes")
                 .and(contains("a graph add rewrites the index"))
-                .and(contains("new edges can shorten paths between old nodes")),
+                .and(contains("new edges can shorten paths between old nodes"))
+                .and(contains(
+                    "tarnvale-more.txt gives a longer weight than the index's and \
+                     was ignored (first: line 129, Tarn-03-03–Tarn-03-04 999, the index keeps",
+                )),
         );
     let old = Reference::new(&base);
     let mut all = base;
@@ -460,4 +464,107 @@ fn a_sharded_graph_build_answers_as_the_ordinary_build() {
             assert_eq!(got, want, "{q}");
         }
     }
+}
+
+#[test]
+fn a_graph_add_says_which_longer_weights_it_ignored() {
+    let d = Dir::new();
+    let base = roads(0..4);
+    let f = d.write("tarnvale.txt", &edge_list(&base));
+    let idx = d.build(
+        &f,
+        "tarnvale.wmk",
+        &["-q", "--metric", "graph", "--dim", "4"],
+    );
+    let old = |a: &str, b: &str| {
+        base.iter()
+            .find(|(x, y, _)| (x == a && y == b) || (x == b && y == a))
+            .map(|e| e.2)
+            .expect("an old road")
+    };
+    let (t00, t01, t10, t22, t23) = (town(0, 0), town(0, 1), town(1, 0), town(2, 2), town(2, 3));
+    // Line 1 is the header comment. Line 3 gives an old road longer, line 4 one shorter
+    // (taken), line 5 another old road longer (written the other way round), lines 6 and 7
+    // one old road twice, once longer and once shorter (the shorter taken: not counted).
+    let more: Vec<Edge> = vec![
+        (t00.clone(), "Tarn-Newmoor".into(), 3.0),
+        (t00.clone(), t01.clone(), old(&t00, &t01) + 50.0),
+        (t22.clone(), t23.clone(), old(&t22, &t23) / 2.0),
+        (t10.clone(), t00.clone(), old(&t00, &t10) + 0.25),
+        (town(3, 3), town(3, 4), old(&town(3, 3), &town(3, 4)) + 9.0),
+        (town(3, 4), town(3, 3), 0.5),
+    ];
+    let m = d.write("tarnvale-more.txt", &edge_list(&more));
+    let out = d
+        .cmd()
+        .arg("add")
+        .arg(&idx)
+        .arg(&m)
+        .args(["--metric", "graph"])
+        .output()
+        .unwrap();
+    assert!(out.status.success(), "{out:?}");
+    let stderr = String::from_utf8(out.stderr).unwrap();
+    let warnings: Vec<&str> = stderr
+        .lines()
+        .filter(|l| l.contains("longer weight"))
+        .collect();
+    assert_eq!(
+        warnings,
+        [format!(
+            "waymark: warning: 2 edges of {} give a longer weight than the index's and were \
+             ignored (first: line 3, {t00}–{t01} {}, the index keeps {})",
+            m.display(),
+            old(&t00, &t01) + 50.0,
+            old(&t00, &t01)
+        )]
+    );
+    // The answers are those of the union with the smaller weights: petgraph's Dijkstra over
+    // every edge given (parallel edges included) agrees.
+    let mut all = base.clone();
+    all.extend(more);
+    let reference = Reference::new(&all);
+    for (a, b) in [
+        (&t00, &t01),
+        (&t00, &t10),
+        (&t22, &t23),
+        (&town(3, 3), &town(3, 4)),
+    ] {
+        let got = query(&d, &idx, std::slice::from_ref(a), &["-k", "300", "--exact"]);
+        let dist = got[0]["neighbors"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .find(|n| n["item"] == b.as_str())
+            .unwrap()["distance"]
+            .as_f64()
+            .unwrap();
+        assert_eq!(dist, reference.distance(a, b), "{a}–{b}");
+    }
+    // One such edge: the singular, and no line at all when every weight is taken.
+    let m = d.write("tarnvale-one.txt", format!("{t22} {t23} 500\n").as_bytes());
+    d.cmd()
+        .arg("add")
+        .arg(&idx)
+        .arg(&m)
+        .args(["--metric", "graph"])
+        .assert()
+        .success()
+        .stderr(contains(format!(
+            "1 edge of {} gives a longer weight than the index's and was ignored (first: line 1, {t22}–{t23} 500, the index keeps {})",
+            m.display(),
+            old(&t22, &t23) / 2.0
+        )));
+    let m = d.write(
+        "tarnvale-short.txt",
+        format!("{t22} {t23} 0.25\nTarn-Eastmoor {t00} 2\n").as_bytes(),
+    );
+    d.cmd()
+        .arg("add")
+        .arg(&idx)
+        .arg(&m)
+        .args(["--metric", "graph"])
+        .assert()
+        .success()
+        .stderr(contains("added 1 new nodes").and(contains("longer weight").not()));
 }

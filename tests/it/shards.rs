@@ -371,3 +371,66 @@ fn bad_input_build_shards_refuses_more_shards_than_items_and_leaves_the_old_inde
     assert!(!names.iter().any(|n| n.ends_with(".unnamed")), "{names:?}");
     let _: PathBuf = idx;
 }
+
+#[test]
+fn a_shard_written_again_removes_what_killed_writers_of_it_left() {
+    let d = Dir::new();
+    let items = words(600);
+    let seed = seed_of(d.dir.path(), &items, 1);
+    let folder = d.path("out");
+    std::fs::create_dir_all(&folder).unwrap();
+    // What a task killed while writing shard 1 leaves: its hidden name before the rename,
+    // and the partial file that name is written through.
+    let stale = [
+        ".shard-00001.00000000deadbeef.unnamed",
+        "..shard-00001.0123456789abcdef.unnamed.Qx7k2P.waymark-partial",
+    ];
+    // Files it did not name: another shard's writer (maybe still running), a live writer of
+    // shard 1 (it holds its file's lock), and files of the user.
+    let live = ".shard-00001.00000000cafef00d.unnamed";
+    let others = [
+        ".shard-00002.00000000deadbeef.unnamed",
+        live,
+        "notes.txt",
+        ".shard-00001.keep",
+    ];
+    for name in stale.iter().chain(&others) {
+        std::fs::write(folder.join(name), b"half a shard").unwrap();
+    }
+    let holder = std::fs::File::open(folder.join(live)).unwrap();
+    holder.lock().unwrap();
+    let written = build_shard(
+        &shard_corpus(&items, 3, 1),
+        "test",
+        &seed,
+        &folder,
+        1,
+        vec![],
+    )
+    .unwrap();
+    let mut names: Vec<String> = std::fs::read_dir(&folder)
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+        .collect();
+    names.sort();
+    let mut want: Vec<String> = others.iter().map(|s| s.to_string()).collect();
+    want.push(written.file_name().unwrap().to_string_lossy().into_owned());
+    want.sort();
+    assert_eq!(names, want);
+    for name in others {
+        assert_eq!(std::fs::read(folder.join(name)).unwrap(), b"half a shard");
+    }
+    // Its writer gone (the lock released), the next write of shard 1 removes it too.
+    drop(holder);
+    build_shard(
+        &shard_corpus(&items, 3, 1),
+        "test",
+        &seed,
+        &folder,
+        1,
+        vec![],
+    )
+    .unwrap();
+    assert!(!folder.join(live).exists());
+    assert!(folder.join(others[0]).exists() && folder.join("notes.txt").exists());
+}

@@ -68,6 +68,10 @@ def build(
         raise ValueError(f"build: shards must be a whole number from 1 to 1024, not {shards!r}")
     if isinstance(sample, bool) or not isinstance(sample, int) or sample < 1:
         raise ValueError(f"build: sample must be a whole number of at least 1, not {sample!r}")
+    if isinstance(seed, bool) or not isinstance(seed, int) or not 0 <= seed < 2**64:
+        raise ValueError(f"build: seed must be a whole number from 0 to 2**64 - 1, not {seed!r}")
+    # The build options' integers (dim, pool, ...) are checked by waymark.build_seed, before any
+    # file is written: a negative one raises waymark.BadArgumentError (a ValueError).
     index_path = os.path.abspath(os.fspath(index_path))
     if os.path.isdir(index_path):
         raise ValueError(f"build: {index_path} is a folder; give the path of the index (its list file)")
@@ -87,10 +91,17 @@ def build(
     # The seed and the shards are written to a staging folder beside the index; write_parts
     # links the shards into INDEX.parts/ and writes the list, and the folder is then removed.
     staging = index_path + ".shards"
+    made = not os.path.exists(staging)
     os.makedirs(staging, exist_ok=True)
     seed_path = os.path.join(staging, "seed.wmk")
-    # total: the seed stores the default candidates of an index of every item.
-    waymark.build_seed(drawn, seed_path, total=total, seed=seed, **options)
+    # total: the seed stores the default candidates of an index of every item. Refused (a
+    # bad option): the staging folder goes too, when this call made it.
+    try:
+        waymark.build_seed(drawn, seed_path, total=total, seed=seed, **options)
+    except BaseException:
+        if made:
+            shutil.rmtree(staging, ignore_errors=True)
+        raise
 
     # Consecutive runs of item numbers, one per shard, none empty: the same on every attempt.
     if shards is None:
