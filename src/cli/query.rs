@@ -36,6 +36,7 @@ const NOTE_MIN_ITEMS: usize = 1000;
 const READ_BUFFER: usize = 256 * 1024;
 
 pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
+    super::args::check_visit(a.visit, a.candidates_from)?;
     let parts = Parts::open(&a.index)?;
     let index = parts.first();
     super::announce_program(index, a.quiet_metric);
