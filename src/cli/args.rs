@@ -515,6 +515,11 @@ pub(super) struct PairsArgs {
     /// pairing the index's items; each pair carries the query's line.
     #[arg(long, value_name = "FILE")]
     pub queries: Option<PathBuf>,
+    /// With --queries: report a query that cannot be answered (invalid UTF-8, not a node,
+    /// another length or dimension) on its own output line, in place of its pairs, and go on
+    /// [default: stop with exit code 2].
+    #[arg(long = "errors-inline", requires = "queries")]
+    pub errors_inline: bool,
     /// Find near items through the column blocks only: build no deletion-variant table in
     /// memory and leave the index's unused [default: through the index's table when its
     /// radius covers R, else through one built in memory for R of at most 2 when it fits
