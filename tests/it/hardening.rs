@@ -174,7 +174,15 @@ fn bad_input_lone_cr_line_ends_are_refused_naming_the_line_and_byte() {
     // Each file has a line that ends with a lone CR. Its line and byte (1-based), counted
     // by hand from the bytes before it: text 13 + 10, CSV and TSV 10 + 15 + 12, JSON Lines
     // 21 + 18, vectors 8 + 6.
-    let cases: [(&str, &[u8], &[&str], u64, u64); 5] = [
+    // (file, bytes, build options, line and byte of the lone CR)
+    type Case = (
+        &'static str,
+        &'static [u8],
+        &'static [&'static str],
+        u64,
+        u64,
+    );
+    let cases: [Case; 5] = [
         (
             "old.txt",
             b"Skerry Light\nSalt Store\rNorth Mole\n",
