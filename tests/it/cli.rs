@@ -258,7 +258,7 @@ fn candidates_from_cells_and_visit_are_accepted() {
         &["--candidates-from", "cells"][..],
         &["--candidates-from", "cells", "--visit", "3"],
         &["--visit", "0"],
-        &["--candidates-from", "scan", "--visit", "5"],
+        &["--candidates-from", "scan"],
     ] {
         let out = d
             .cmd()
