@@ -496,9 +496,10 @@ pub(super) struct PairsArgs {
     pub exact: bool,
     /// With -k, approximate: candidates re-ranked by the true distance (default: stored in
     /// the index).
-    #[arg(long, value_name = "C", conflicts_with = "exact")]
+    #[arg(long, value_name = "C", conflicts_with_all = ["exact", "within", "within_fraction"])]
     pub candidates: Option<usize>,
-    #[arg(long = "candidates-from", value_enum, conflicts_with = "exact",
+    #[arg(long = "candidates-from", value_enum,
+          conflicts_with_all = ["exact", "within", "within_fraction"],
           help = candidates_from_help())]
     pub candidates_from: Option<SourceArg>,
     /// With -k, approximate: after the search, N rounds that measure each item's
@@ -507,18 +508,23 @@ pub(super) struct PairsArgs {
         long = "refine-rounds",
         value_name = "N",
         default_value_t = 0,
-        conflicts_with = "exact"
+        conflicts_with_all = ["exact", "within", "within_fraction", "queries"]
     )]
     pub refine_rounds: usize,
     /// Look up the queries of this file (one per line) against the index instead of
     /// pairing the index's items; each pair carries the query's line.
     #[arg(long, value_name = "FILE")]
     pub queries: Option<PathBuf>,
+    /// With --queries: report a query that cannot be answered (invalid UTF-8, not a node,
+    /// another length or dimension) on its own output line, in place of its pairs, and go on
+    /// [default: stop with exit code 2].
+    #[arg(long = "errors-inline", requires = "queries")]
+    pub errors_inline: bool,
     /// Find near items through the column blocks only: build no deletion-variant table in
     /// memory and leave the index's unused [default: through the index's table when its
     /// radius covers R, else through one built in memory for R of at most 2 when it fits
     /// the memory budget].
-    #[arg(long = "no-variant-table")]
+    #[arg(long = "no-variant-table", conflicts_with_all = ["k", "queries"])]
     pub no_variant_table: bool,
     /// Output format.
     #[arg(long, value_enum, default_value = "json")]
@@ -648,31 +654,35 @@ pub(super) struct EvalArgs {
     /// Number of neighbours per query.
     #[arg(short = 'k', value_name = "K", default_value_t = 10)]
     pub k: usize,
-    /// Candidate counts to measure, comma-separated.
+    /// Candidate counts to measure on --queries, comma-separated.
     #[arg(
         long,
         value_name = "C,...",
         value_delimiter = ',',
-        default_value = "250,500,1000,2000"
+        default_value = "250,500,1000,2000",
+        requires = "queries"
     )]
     pub candidates: Vec<usize>,
     /// Space candidates are ranked in (default: stored in the index).
-    #[arg(long, value_enum)]
+    #[arg(long, value_enum, requires = "queries")]
     pub space: Option<SpaceArg>,
-    #[arg(long = "candidates-from", value_enum, help = candidates_from_help())]
+    #[arg(long = "candidates-from", value_enum, requires = "queries",
+          help = candidates_from_help())]
     pub candidates_from: Option<SourceArg>,
     /// With cells: rows compared per query [default: 12 per candidate]; 0 compares every
     /// row.
-    #[arg(long, value_name = "N")]
+    #[arg(long, value_name = "N", requires = "queries")]
     pub visit: Option<usize>,
     /// How many times a query whose answers come from the end of its candidate list may
     /// double its candidates and rows (default: stored in the index); 0 never.
-    #[arg(long, value_name = "N", value_parser = clap::value_parser!(u32).range(0..=8))]
+    #[arg(long, value_name = "N", value_parser = clap::value_parser!(u32).range(0..=8),
+          requires = "queries")]
     pub widen: Option<u32>,
     /// Asked recalls to measure instead of candidate counts, comma-separated (each between
     /// 0 and 1): each row shows the setting the index's recall curve chose and the recall
     /// the queries got.
     #[arg(long, value_name = "R,...", value_delimiter = ',', allow_negative_numbers = true,
+          requires = "queries",
           conflicts_with_all = ["candidates", "space", "candidates_from", "visit", "widen"])]
     pub recall: Vec<f64>,
     /// Measure the index's recall curve on these queries (needs --queries) and store it in
@@ -785,6 +795,24 @@ pub(super) struct CheckMetricArgs {
     /// Print one JSON object.
     #[arg(long)]
     pub json: bool,
+}
+
+/// Refuses `--visit` with `--candidates-from scan` or `tree`: only cells have rows to visit,
+/// so those sources would ignore it.
+pub(super) fn check_visit(
+    visit: Option<usize>,
+    from: Option<SourceArg>,
+) -> Result<(), crate::error::Error> {
+    let source = match (visit, from) {
+        (Some(_), Some(SourceArg::Scan)) => "scan",
+        (Some(_), Some(SourceArg::Tree)) => "tree",
+        _ => return Ok(()),
+    };
+    Err(crate::error::Error::Usage(format!(
+        "--visit sets how many rows of the nearest cells are compared; --candidates-from \
+         {source} compares no cells and would ignore it: leave out --visit, or use \
+         --candidates-from cells"
+    )))
 }
 
 /// The flag that sets a library parameter, for error messages.

@@ -17,6 +17,7 @@ use crate::search::parts::PartsSearcher;
 use crate::search::{CandidateSource, Request, SearchParams, Searcher, Space};
 
 pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
+    super::args::check_visit(a.visit, a.candidates_from)?;
     if a.queries.is_none() && !a.distortion {
         return Err(Error::Usage(
             "nothing to measure: give --queries FILE (recall) and/or --distortion".into(),

@@ -7,8 +7,9 @@ use std::time::Instant;
 use anyhow::Context;
 
 use super::args::{PairFormat, PairsArgs};
+use super::output::write_json_error;
 use super::output::{counting_bar, distance_json, id_json, id_text, tsv_field};
-use super::query::{at_query_line, read_query_file};
+use super::query::{at_query_line, read_query_file, read_query_lines};
 use crate::error::Error;
 use crate::index::Index;
 use crate::pairs::{lookup_within, JoinBy, JoinPath, NearestJoin, Pair, Radius, SelfJoin};
@@ -121,7 +122,13 @@ fn lookups(
     out: &mut impl Write,
     t0: Instant,
 ) -> anyhow::Result<()> {
-    let queries = read_query_file(path)?;
+    // Each line: its query, or (`--errors-inline`, a line that is not valid UTF-8) its text
+    // with the bytes replaced and the error.
+    let lines: Vec<Result<String, (String, Error)>> = if a.errors_inline {
+        read_query_lines(path)?
+    } else {
+        read_query_file(path)?.into_iter().map(Ok).collect()
+    };
     let searcher = Searcher::new(index);
     let request = match (radius, params, a.k) {
         (Some(_), _, _) => None,
@@ -137,17 +144,43 @@ fn lookups(
         })?,
     }
     let name = path.display().to_string();
-    let bar = counting_bar(queries.len() as u64, "queries", !a.quiet);
-    let mut count = 0u64;
-    for (b, block) in queries.chunks(LOOKUP_BLOCK).enumerate() {
+    let bar = counting_bar(lines.len() as u64, "queries", !a.quiet);
+    let (mut count, mut refused) = (0u64, 0u64);
+    for (b, block) in lines.chunks(LOOKUP_BLOCK).enumerate() {
+        let good: Vec<String> = block
+            .iter()
+            .filter_map(|l| l.as_ref().ok().cloned())
+            .collect();
         let answers: Vec<crate::Result<Found>> = match (&request, radius) {
-            (Some(r), _) => searcher.answer_many(block, r),
-            (None, Some(r)) => lookup_within(&searcher, block, r, None),
+            (Some(r), _) => searcher.answer_many(&good, r),
+            (None, Some(r)) => lookup_within(&searcher, &good, r, None),
             (None, None) => unreachable!("a request or a radius"),
         };
-        for (j, (q, found)) in block.iter().zip(answers).enumerate() {
+        let mut answers = answers.into_iter();
+        for (j, entry) in block.iter().enumerate() {
             let line = b * LOOKUP_BLOCK + j + 1;
-            let found = found.map_err(|e| at_query_line(e, &name, line))?;
+            let (q, found) = match entry {
+                Ok(q) => (q, answers.next().expect("one answer per good line")),
+                // Only `--errors-inline` keeps such lines; the message is the error's.
+                Err((text, e)) => (text, Err(Error::InvalidQuery(e.to_string()))),
+            };
+            let found = match found {
+                Ok(found) => found,
+                Err(Error::InvalidQuery(m) | Error::Usage(m)) if a.errors_inline => {
+                    refused += 1;
+                    match a.format {
+                        PairFormat::Json => write_json_error(out, line, None, q, &m)?,
+                        PairFormat::Tsv => {
+                            writeln!(out, "{line}\t{}\terror\t{}", tsv_field(q), tsv_field(&m))?
+                        }
+                    }
+                    continue;
+                }
+                Err(e) => {
+                    out.flush().context("writing the pairs")?;
+                    return Err(at_query_line(e, &name, line).into());
+                }
+            };
             for n in &found.neighbors {
                 count += 1;
                 match a.format {
@@ -179,10 +212,15 @@ fn lookups(
     bar.finish_and_clear();
     if a.summary {
         let secs = t0.elapsed().as_secs_f64();
+        let refused = if a.errors_inline {
+            format!("; {refused} refused")
+        } else {
+            String::new()
+        };
         eprintln!(
-            "{count} pairs for {} queries in {secs:.3} s ({:.0} queries/s)",
-            queries.len(),
-            queries.len() as f64 / secs.max(1e-9)
+            "{count} pairs for {} queries in {secs:.3} s ({:.0} queries/s){refused}",
+            lines.len(),
+            lines.len() as f64 / secs.max(1e-9)
         );
     }
     Ok(())

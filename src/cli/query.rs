@@ -36,6 +36,7 @@ const NOTE_MIN_ITEMS: usize = 1000;
 const READ_BUFFER: usize = 256 * 1024;
 
 pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
+    super::args::check_visit(a.visit, a.candidates_from)?;
     let parts = Parts::open(&a.index)?;
     let index = parts.first();
     super::announce_program(index, a.quiet_metric);
@@ -394,11 +395,23 @@ fn stdin_is_file() -> bool {
 
 /// Every line of a queries file (UTF-8 checked, the line named on error).
 pub(super) fn read_query_file(path: &Path) -> anyhow::Result<Vec<String>> {
+    let name = path.display().to_string();
+    read_query_lines(path)?
+        .into_iter()
+        .enumerate()
+        .map(|(i, l)| l.map_err(|(_, e)| at_query_line(e, &name, i + 1).into()))
+        .collect()
+}
+
+/// Every line of a queries file, in order: its text, or for a line that is not valid UTF-8
+/// its text with the invalid bytes replaced and the error (for `--errors-inline`).
+pub(super) fn read_query_lines(
+    path: &Path,
+) -> anyhow::Result<Vec<Result<String, (String, Error)>>> {
     let mut lines = QueryLines::open(path, None)?;
     let mut all = Vec::new();
-    while let Some((line, bytes, _)) = lines.next_raw()? {
-        let text = decode(bytes).map_err(|(_, e)| at_query_line(e, &lines.name, line))?;
-        all.push(text);
+    while let Some((_, bytes, _)) = lines.next_raw()? {
+        all.push(decode(bytes));
     }
     if all.is_empty() {
         return Err(Error::Usage(format!("{}: no queries in the file", path.display())).into());

@@ -2,8 +2,9 @@
 //! optionally in another.
 //!
 //! CSV is read as RFC 4180 defines it: a field is quoted whole (`"…"`, a quote inside
-//! doubled), quoted fields may hold delimiters and line breaks, no backslash escapes; CR,
-//! LF and CRLF end records. TSV is read as the IANA `text/tab-separated-values`
+//! doubled), quoted fields may hold delimiters and line breaks, no backslash escapes; LF
+//! and CRLF end records (a CR with no LF after it outside a quoted field is refused, as
+//! every reader refuses it: [`super::lone_cr_error`]). TSV is read as the IANA `text/tab-separated-values`
 //! registration defines it: no quoting at all (a quote is a character), fields hold no tabs
 //! or line breaks. A quote still open at the end of a CSV input is refused with the line it
 //! opened on; quoted fields that hold line breaks, quotes inside unquoted fields, rows
@@ -41,6 +42,13 @@ struct QuoteScan<R> {
     at: At,
     /// The current 1-based line.
     line: u64,
+    /// Bytes read so far.
+    byte: u64,
+    /// Whether the last byte was a carriage return outside a quoted field.
+    after_cr: bool,
+    /// The first carriage return outside a quoted field with no line feed after it: its
+    /// line and 1-based byte (see [`super::lone_cr_error`]).
+    lone_cr: Option<(u64, u64)>,
     /// The line the open quoted field started on.
     open_line: u64,
     /// Whether the input ended with a line break (so that its lines are counted right).
@@ -64,6 +72,9 @@ impl<R: Read> QuoteScan<R> {
             bom: 0,
             at: At::FieldStart,
             line: 1,
+            byte: 0,
+            after_cr: false,
+            lone_cr: None,
             open_line: 0,
             ends_with_newline: true,
             multi_line: 0,
@@ -91,6 +102,11 @@ impl<R: Read> QuoteScan<R> {
     }
 
     fn step(&mut self, c: u8) {
+        self.byte += 1;
+        if self.after_cr && c != b'\n' {
+            self.lone_cr.get_or_insert((self.line, self.byte - 1));
+        }
+        self.after_cr = c == b'\r' && self.at != At::Quoted;
         if self.bom < super::BOM.len() {
             if self.line == 1 && self.at == At::FieldStart && super::BOM[self.bom] == c {
                 self.bom += 1;
@@ -242,7 +258,18 @@ pub(super) fn read_csv<R: Read>(
             _ => b.record_error(line, message),
         }
     };
-    let headers = rdr.headers().map_err(|e| csv_error(b, None, e))?.clone();
+    let headers = match rdr.headers() {
+        Ok(h) => h.clone(),
+        Err(e) => {
+            if let Some((line, byte)) = rdr.get_ref().lone_cr {
+                return Err(super::lone_cr_error(b.name, line, byte));
+            }
+            return Err(csv_error(b, None, e));
+        }
+    };
+    if let Some((line, byte)) = rdr.get_ref().lone_cr {
+        return Err(super::lone_cr_error(b.name, line, byte));
+    }
     // Strip a BOM from the first header name.
     let headers: ::csv::StringRecord = headers
         .iter()
@@ -304,7 +331,17 @@ pub(super) fn read_csv<R: Read>(
         match rdr.read_record(&mut rec) {
             Ok(true) => {}
             Ok(false) => break,
-            Err(e) => return Err(csv_error(b, Some(&headers), e)),
+            Err(e) => {
+                if let Some((line, byte)) = rdr.get_ref().lone_cr {
+                    return Err(super::lone_cr_error(b.name, line, byte));
+                }
+                return Err(csv_error(b, Some(&headers), e));
+            }
+        }
+        // The scan has read past this record: a lone CR before it would make its line
+        // wrong.
+        if let Some((line, byte)) = rdr.get_ref().lone_cr {
+            return Err(super::lone_cr_error(b.name, line, byte));
         }
         records += 1;
         let line = rec.position().map_or(0, |p| p.line());

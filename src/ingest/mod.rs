@@ -58,9 +58,35 @@ pub use vectors::parse_vector;
 /// The UTF-8 byte-order mark, dropped at the start of an input.
 const BOM: &[u8] = b"\xEF\xBB\xBF";
 
+/// The error for a carriage return with no line feed after it, at 1-based `byte` of the
+/// file, on `line` (lines counted by line feeds, right up to the first lone CR). Lines that
+/// end with a lone CR (old Mac line ends) are refused rather than read, so that every line
+/// number a reader reports is the line an editor shows.
+pub(crate) fn lone_cr_error(source_name: &str, line: u64, byte: u64) -> IngestError {
+    IngestError::Record {
+        source_name: source_name.to_string(),
+        line,
+        message: format!(
+            "a carriage return (\\r) with no line feed after it, at byte {byte} of the file: \
+             lines that end with a lone CR (old Mac line ends) are not read; end the lines \
+             with \\n or \\r\\n (for instance `tr '\\r' '\\n' < OLD > NEW`)"
+        ),
+    }
+}
+
+/// The first carriage return in `text` with no line feed after it (a CR ending the text
+/// counts as a line end): its 1-based line, counted by line feeds, and 1-based byte.
+pub(crate) fn first_lone_cr(text: &[u8]) -> Option<(u64, u64)> {
+    let at = (0..text.len())
+        .find(|&i| text[i] == b'\r' && i + 1 < text.len() && text[i + 1] != b'\n')?;
+    let line = text[..at].iter().filter(|&&c| c == b'\n').count() as u64 + 1;
+    Some((line, at as u64 + 1))
+}
+
 /// Calls `f(line number, bytes, BOM length)` for every line of `reader` (1-based), without
 /// its line ending (`\n` or `\r\n`) and, on the first line, without a UTF-8 byte-order
-/// mark (whose length is passed so that byte positions can be those of the file).
+/// mark (whose length is passed so that byte positions can be those of the file). A
+/// carriage return with no line feed after it is refused ([`lone_cr_error`]).
 fn for_each_line<R: Read>(
     reader: R,
     source_name: &str,
@@ -70,6 +96,8 @@ fn for_each_line<R: Read>(
     let mut r = BufReader::with_capacity(1 << 16, reader);
     let mut buf = Vec::with_capacity(256);
     let mut line = 0u64;
+    // The file's byte where the current line starts (0-based).
+    let mut start = 0u64;
     loop {
         buf.clear();
         let got = r
@@ -88,6 +116,10 @@ fn for_each_line<R: Read>(
         if buf.last() == Some(&b'\r') {
             buf.pop();
         }
+        if let Some(at) = buf.iter().position(|&c| c == b'\r') {
+            return Err(lone_cr_error(source_name, line, start + at as u64 + 1));
+        }
+        start += got as u64;
         let bom = if line == 1 && buf.starts_with(BOM) {
             BOM.len()
         } else {

@@ -192,6 +192,9 @@ fn read_delimited(
     header: bool,
     name: &str,
 ) -> Result<Vectors, IngestError> {
+    if let Some((line, byte)) = super::first_lone_cr(bytes) {
+        return Err(super::lone_cr_error(name, line, byte));
+    }
     let bytes = bytes.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(bytes);
     let text = std::str::from_utf8(bytes).map_err(|e| {
         let line = bytes[..e.valid_up_to()]

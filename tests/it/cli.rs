@@ -258,7 +258,7 @@ fn candidates_from_cells_and_visit_are_accepted() {
         &["--candidates-from", "cells"][..],
         &["--candidates-from", "cells", "--visit", "3"],
         &["--visit", "0"],
-        &["--candidates-from", "scan", "--visit", "5"],
+        &["--candidates-from", "scan"],
     ] {
         let out = d
             .cmd()
@@ -328,6 +328,201 @@ fn bad_usage_exits_2() {
         .assert()
         .code(2)
         .stderr(predicates::str::contains("-k must be at least 1"));
+}
+
+/// Options that tune the approximate k-NN search are refused, naming both options, where
+/// the chosen mode would ignore them; a combination that counts still runs.
+#[test]
+fn options_a_mode_would_ignore_are_refused() {
+    use predicates::prelude::PredicateBooleanExt;
+    let d = Dir::new();
+    let input = d.write("names.txt", NAMES.as_bytes());
+    let idx = d.build(&input, "idx.wmk", &["--dim", "2"]);
+    let queries = d.write("q.txt", b"Orvane Qauy\n");
+    let q = queries.to_str().unwrap();
+    let refused: &[(&[&str], &str, &str)] = &[
+        (
+            &[
+                "query",
+                "--visit",
+                "5",
+                "--candidates-from",
+                "scan",
+                "--queries",
+                q,
+            ],
+            "--visit",
+            "scan",
+        ),
+        (
+            &[
+                "query",
+                "--visit",
+                "5",
+                "--candidates-from",
+                "tree",
+                "--queries",
+                q,
+            ],
+            "--visit",
+            "tree",
+        ),
+        (
+            &[
+                "eval",
+                "--queries",
+                q,
+                "--visit",
+                "5",
+                "--candidates-from",
+                "scan",
+            ],
+            "--visit",
+            "scan",
+        ),
+        (
+            &["eval", "--distortion", "--candidates", "5"],
+            "--candidates",
+            "--queries",
+        ),
+        (
+            &["eval", "--distortion", "--space", "l1"],
+            "--space",
+            "--queries",
+        ),
+        (
+            &["eval", "--distortion", "--candidates-from", "scan"],
+            "--candidates-from",
+            "--queries",
+        ),
+        (
+            &["eval", "--distortion", "--visit", "5"],
+            "--visit",
+            "--queries",
+        ),
+        (
+            &["eval", "--distortion", "--widen", "1"],
+            "--widen",
+            "--queries",
+        ),
+        (
+            &["eval", "--distortion", "--recall", "0.9"],
+            "--recall",
+            "--queries",
+        ),
+        (
+            &["pairs", "--within", "2", "--candidates", "5"],
+            "--candidates",
+            "--within",
+        ),
+        (
+            &["pairs", "--within-fraction", "0.2", "--candidates", "5"],
+            "--candidates",
+            "--within-fraction",
+        ),
+        (
+            &["pairs", "--within", "2", "--candidates-from", "scan"],
+            "--candidates-from",
+            "--within",
+        ),
+        (
+            &["pairs", "--within", "2", "--refine-rounds", "2"],
+            "--refine-rounds",
+            "--within",
+        ),
+        (
+            &["pairs", "-k", "2", "--exact", "--refine-rounds", "2"],
+            "--refine-rounds",
+            "--exact",
+        ),
+        (
+            &["pairs", "-k", "2", "--queries", q, "--refine-rounds", "2"],
+            "--refine-rounds",
+            "--queries",
+        ),
+        (
+            &["pairs", "-k", "2", "--no-variant-table"],
+            "--no-variant-table",
+            "-k",
+        ),
+        (
+            &[
+                "pairs",
+                "--within",
+                "2",
+                "--queries",
+                q,
+                "--no-variant-table",
+            ],
+            "--no-variant-table",
+            "--queries",
+        ),
+        (
+            &["query", "--within", "2", "--candidates", "500"],
+            "--candidates",
+            "--within",
+        ),
+        (&["query", "--exact", "--widen", "1"], "--widen", "--exact"),
+    ];
+    for (args, ignored, mode) in refused {
+        let (command, rest) = args.split_first().unwrap();
+        d.cmd()
+            .arg(command)
+            .arg(&idx)
+            .args(rest.iter())
+            .write_stdin("Orvane Qauy\n")
+            .assert()
+            .code(2)
+            .stderr(predicates::str::contains(*ignored).and(predicates::str::contains(*mode)))
+            .stdout("");
+    }
+    // The same options where they count.
+    let counted: &[&[&str]] = &[
+        &[
+            "query",
+            "--visit",
+            "5",
+            "--candidates-from",
+            "cells",
+            "--queries",
+            q,
+        ],
+        &[
+            "eval",
+            "--queries",
+            q,
+            "-k",
+            "1",
+            "--candidates",
+            "5",
+            "--space",
+            "l1",
+            "--widen",
+            "1",
+        ],
+        &[
+            "pairs",
+            "-k",
+            "2",
+            "--candidates",
+            "5",
+            "--candidates-from",
+            "tree",
+            "--refine-rounds",
+            "2",
+        ],
+        &["pairs", "--within", "2", "--no-variant-table"],
+        &["pairs", "-k", "1", "--queries", q, "--candidates", "5"],
+    ];
+    for args in counted {
+        let (command, rest) = args.split_first().unwrap();
+        d.cmd()
+            .arg(command)
+            .arg(&idx)
+            .args(rest.iter())
+            .assert()
+            .success();
+    }
 }
 
 #[test]

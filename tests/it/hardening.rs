@@ -169,6 +169,105 @@ fn bad_input_mixed_line_endings_and_a_bom_do_not_reach_the_items() {
 }
 
 #[test]
+fn bad_input_lone_cr_line_ends_are_refused_naming_the_line_and_byte() {
+    let d = Dir::new();
+    // Each file has a line that ends with a lone CR. Its line and byte (1-based), counted
+    // by hand from the bytes before it: text 13 + 10, CSV and TSV 10 + 15 + 12, JSON Lines
+    // 21 + 18, vectors 8 + 6.
+    // (file, bytes, build options, line and byte of the lone CR)
+    type Case = (
+        &'static str,
+        &'static [u8],
+        &'static [&'static str],
+        u64,
+        u64,
+    );
+    let cases: [Case; 5] = [
+        (
+            "old.txt",
+            b"Skerry Light\nSalt Store\rNorth Mole\n",
+            &[],
+            2,
+            24,
+        ),
+        (
+            "old.csv",
+            b"name,code\nSkerry Light,1\nSalt Store,2\rNorth Mole,3\r",
+            &["--field", "name"],
+            3,
+            38,
+        ),
+        (
+            "old.tsv",
+            b"name\tcode\nSkerry Light\t1\nSalt Store\t2\rNorth Mole\t3\r",
+            &["--field", "name"],
+            3,
+            38,
+        ),
+        (
+            "old.jsonl",
+            b"{\"t\":\"Skerry Light\"}\n{\"t\":\"Salt Store\"}\r{\"t\":\"North Mole\"}\n",
+            &["--field", "t"],
+            2,
+            40,
+        ),
+        (
+            "old-vectors.csv",
+            b"0.5,1.5\n2,3.25\r4,5\n",
+            &["--metric", "l2"],
+            2,
+            15,
+        ),
+    ];
+    for (name, bytes, args, line, byte) in cases {
+        let input = d.write(name, bytes);
+        d.cmd()
+            .arg("build")
+            .arg(&input)
+            .args(args)
+            .args(["-o", "old.wmk", "--dim", "2"])
+            .assert()
+            .code(2)
+            .stderr(
+                predicates::str::contains(format!("{name}:{line}: a carriage return")).and(
+                    predicates::str::contains(format!("at byte {byte} of the file")),
+                ),
+            );
+        assert!(!d.path("old.wmk").exists(), "{name}: an index was written");
+        assert_eq!(std::fs::read(&input).unwrap(), bytes, "{name} was changed");
+    }
+    // CRLF line ends, a CR ending the file, and a CR inside a quoted CSV field are read.
+    let fine: [(&str, &[u8], &[&str]); 2] = [
+        (
+            "crlf.txt",
+            b"Skerry Light\r\nSalt Store\r\nNorth Mole\r",
+            &[],
+        ),
+        (
+            "quoted.csv",
+            b"name\n\"Skerry\rLight\"\r\nSalt Store\r\n",
+            &["--field", "name"],
+        ),
+    ];
+    for (name, bytes, args) in fine {
+        let input = d.write(name, bytes);
+        d.cmd()
+            .arg("build")
+            .arg(&input)
+            .args(args)
+            .args(["-o", "fine.wmk", "--dim", "2", "-q"])
+            .assert()
+            .success();
+    }
+    d.cmd()
+        .args(["query", "fine.wmk", "-k", "1"])
+        .write_stdin("Salt Store\n")
+        .assert()
+        .success()
+        .stdout(predicates::str::contains("\"distance\":0"));
+}
+
+#[test]
 fn bad_input_k_larger_than_n_returns_every_item() {
     let d = Dir::new();
     let path = d.write("few.txt", b"Ness\nNeap\nNook\n");

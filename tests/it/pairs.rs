@@ -896,6 +896,128 @@ fn pairs_from_a_queries_file_carry_the_line_and_groups_are_written() {
     assert_eq!(all.iter().map(|g| g.size).sum::<usize>(), 9);
 }
 
+/// One output line of `pairs --queries --errors-inline`: a pair or a refused query.
+#[derive(Debug, Deserialize)]
+#[serde(untagged)]
+enum LookupReply {
+    Pair {
+        line: usize,
+        query: String,
+        item: String,
+        distance: f64,
+    },
+    Refused {
+        line: usize,
+        query: String,
+        error: String,
+    },
+}
+
+#[test]
+fn pairs_from_a_queries_file_report_bad_lines_inline_with_errors_inline() {
+    let d = Dir::new();
+    let codes = "ACGTACGT\nACGTACGA\nTTGTACGT\nGGGGCCCC\n";
+    let input = d.write("codes.txt", codes.as_bytes());
+    d.build(
+        &input,
+        "c.wmk",
+        &["--metric", "hamming", "--dim", "2", "-q"],
+    );
+    // Line 2 is too short for Hamming distance, line 3 is not UTF-8.
+    d.write("q.txt", b"ACGTACGG\nACGT\n\xffCGTACGT\nGGGGCCCA\n");
+    // Without the option the first bad line stops the command before any pair.
+    d.cmd()
+        .args(["pairs", "c.wmk", "--queries", "q.txt", "--within", "1"])
+        .assert()
+        .code(2)
+        .stdout("")
+        .stderr(predicate::str::contains(
+            "q.txt:3: the query is not valid UTF-8",
+        ));
+    for mode in [
+        &["--within", "1"][..],
+        &["-k", "1"],
+        &["-k", "1", "--exact"],
+    ] {
+        let out = d
+            .cmd()
+            .args(["pairs", "c.wmk", "--queries", "q.txt", "--errors-inline"])
+            .args(mode)
+            .assert()
+            .success()
+            .get_output()
+            .stdout
+            .clone();
+        let replies: Vec<LookupReply> = json_lines(&out);
+        let mut refused = Vec::new();
+        let mut answered = BTreeMap::<usize, Vec<(String, f64)>>::new();
+        for r in replies {
+            match r {
+                LookupReply::Pair {
+                    line,
+                    query,
+                    item,
+                    distance,
+                } => {
+                    // The distance is Hamming's, checked with strsim.
+                    assert_eq!(distance, strsim::hamming(&query, &item).unwrap() as f64);
+                    answered.entry(line).or_default().push((item, distance));
+                }
+                LookupReply::Refused { line, query, error } => refused.push((line, query, error)),
+            }
+        }
+        assert_eq!(refused.len(), 2, "{mode:?}: {refused:?}");
+        assert_eq!((refused[0].0, refused[0].1.as_str()), (2, "ACGT"));
+        assert!(
+            refused[0].2.contains("the query has 4 characters"),
+            "{}",
+            refused[0].2
+        );
+        assert_eq!(
+            (refused[1].0, refused[1].1.as_str()),
+            (3, "\u{fffd}CGTACGT")
+        );
+        assert!(
+            refused[1].2.contains("not valid UTF-8 (byte 1)"),
+            "{}",
+            refused[1].2
+        );
+        // The good lines before and after the bad ones are answered: ACGTACGG is one
+        // substitution from both ACGTACGT and ACGTACGA, GGGGCCCA one from GGGGCCCC.
+        assert_eq!(
+            answered.keys().copied().collect::<Vec<_>>(),
+            [1, 4],
+            "{mode:?}"
+        );
+        assert!(answered[&1].iter().all(|(_, dist)| *dist == 1.0));
+        assert_eq!(answered[&4], [("GGGGCCCC".to_string(), 1.0)]);
+    }
+    // TSV: `line, query, error, message`, the word `error` where a pair has its id.
+    let out = d
+        .cmd()
+        .args(["pairs", "c.wmk", "--queries", "q.txt", "--within", "1"])
+        .args(["--errors-inline", "--format", "tsv", "--summary"])
+        .assert()
+        .success()
+        .stderr(predicate::str::contains("2 refused"))
+        .get_output()
+        .stdout
+        .clone();
+    let text = String::from_utf8(out).unwrap();
+    let rows: Vec<Vec<&str>> = text.lines().map(|l| l.split('\t').collect()).collect();
+    assert_eq!(rows.len(), 5, "{text}");
+    assert_eq!(rows[2][..3], ["2", "ACGT", "error"]);
+    assert_eq!(rows[2].len(), 4);
+    assert_eq!(rows[3][..3], ["3", "\u{fffd}CGTACGT", "error"]);
+    assert_eq!(rows[4], ["4", "GGGGCCCA", "3", "GGGGCCCC", "1"]);
+    // Only look-ups have lines to report.
+    d.cmd()
+        .args(["pairs", "c.wmk", "--within", "1", "--errors-inline"])
+        .assert()
+        .code(2)
+        .stderr(predicate::str::contains("--queries"));
+}
+
 #[test]
 fn bad_input_pairs_and_groups_refuse_bad_radii_and_missing_modes() {
     let d = Dir::new();
