@@ -258,18 +258,15 @@ pub(super) fn read_csv<R: Read>(
             _ => b.record_error(line, message),
         }
     };
-    let headers = match rdr.headers() {
-        Ok(h) => h.clone(),
-        Err(e) => {
-            if let Some((line, byte)) = rdr.get_ref().lone_cr {
-                return Err(super::lone_cr_error(b.name, line, byte));
-            }
-            return Err(csv_error(b, None, e));
-        }
+    // A lone CR the scan met before a header or record makes its line, and any error's,
+    // wrong: it is refused first.
+    let lone_cr = |scan: &QuoteScan<R>| match scan.lone_cr {
+        Some((line, byte)) => Err(super::lone_cr_error(b.name, line, byte)),
+        None => Ok(()),
     };
-    if let Some((line, byte)) = rdr.get_ref().lone_cr {
-        return Err(super::lone_cr_error(b.name, line, byte));
-    }
+    let headers = rdr.headers().cloned();
+    lone_cr(rdr.get_ref())?;
+    let headers = headers.map_err(|e| csv_error(b, None, e))?;
     // Strip a BOM from the first header name.
     let headers: ::csv::StringRecord = headers
         .iter()
@@ -328,20 +325,12 @@ pub(super) fn read_csv<R: Read>(
     let mut extra = 0usize;
     let mut first_extra: Option<(u64, usize)> = None;
     loop {
-        match rdr.read_record(&mut rec) {
+        let got = rdr.read_record(&mut rec);
+        lone_cr(rdr.get_ref())?;
+        match got {
             Ok(true) => {}
             Ok(false) => break,
-            Err(e) => {
-                if let Some((line, byte)) = rdr.get_ref().lone_cr {
-                    return Err(super::lone_cr_error(b.name, line, byte));
-                }
-                return Err(csv_error(b, Some(&headers), e));
-            }
-        }
-        // The scan has read past this record: a lone CR before it would make its line
-        // wrong.
-        if let Some((line, byte)) = rdr.get_ref().lone_cr {
-            return Err(super::lone_cr_error(b.name, line, byte));
+            Err(e) => return Err(csv_error(b, Some(&headers), e)),
         }
         records += 1;
         let line = rec.position().map_or(0, |p| p.line());
