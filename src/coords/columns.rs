@@ -62,7 +62,7 @@ pub const BOX_BLOCKS: usize = 4;
 /// Number of char-count columns ([`CharBins`]): two groups.
 pub const BINS: usize = 16;
 
-/// The chars of a set of strings folded into [`BINS`] bins, for the count bound of the
+/// The chars of a set of strings folded into `N` bins ([`BINS`] unless told), for the count bound of the
 /// Levenshtein distance: with `A` and `B` the numbers of chars of two strings in each bin,
 /// the distance is at least `max(Σ (A − B)⁺, Σ (B − A)⁺)`, because one edit (insertion,
 /// deletion or substitution) lowers each of the two sums by at most one. Any folding of
@@ -83,14 +83,21 @@ pub const BINS: usize = 16;
 /// assert_eq!(CharBins::gap(&a, &a), 0);
 /// ```
 #[derive(Clone, Debug)]
-pub struct CharBins {
+pub struct CharBins<const N: usize = BINS> {
     ascii: [u8; 128],
     other: u8,
 }
 
 impl CharBins {
-    /// Bins fitted to the char frequencies of `strings`.
+    /// [`BINS`] bins fitted to the char frequencies of `strings`.
     pub fn fit<'s>(strings: impl Iterator<Item = &'s [u8]>) -> CharBins {
+        CharBins::fitted(strings)
+    }
+}
+
+impl<const N: usize> CharBins<N> {
+    /// `N` bins fitted to the char frequencies of `strings`.
+    pub fn fitted<'s>(strings: impl Iterator<Item = &'s [u8]>) -> CharBins<N> {
         // Symbols 0..128: ASCII bytes; 128: every other char.
         let mut freq = [0u64; 129];
         for s in strings {
@@ -103,10 +110,10 @@ impl CharBins {
         }
         let mut symbols: Vec<usize> = (0..129).collect();
         symbols.sort_by_key(|&c| (std::cmp::Reverse(freq[c]), c));
-        let mut load = [0u64; BINS];
+        let mut load = [0u64; N];
         let mut bin_of = [0u8; 129];
         for c in symbols {
-            let lightest = (0..BINS).min_by_key(|&b| (load[b], b)).unwrap_or(0);
+            let lightest = (0..N).min_by_key(|&b| (load[b], b)).unwrap_or(0);
             load[lightest] += freq[c];
             bin_of[c] = lightest as u8;
         }
@@ -120,8 +127,8 @@ impl CharBins {
 
     /// The number of chars of `s` (UTF-8, each invalid sequence one char) in each bin,
     /// saturated at 255.
-    pub fn counts(&self, s: &[u8]) -> [u8; BINS] {
-        let mut c = [0u8; BINS];
+    pub fn counts(&self, s: &[u8]) -> [u8; N] {
+        let mut c = [0u8; N];
         let mut ascii = 0;
         for &b in s {
             if b.is_ascii() {
@@ -141,9 +148,9 @@ impl CharBins {
     }
 
     /// The [`CharBins::counts`] of a prepared query's text.
-    pub fn query_counts(&self, q: &LevenshteinQuery) -> [u8; BINS] {
+    pub fn query_counts(&self, q: &LevenshteinQuery) -> [u8; N] {
         let (ascii, other) = q.char_tally();
-        let mut wide = [0u32; BINS];
+        let mut wide = [0u32; N];
         for (b, &n) in ascii.iter().enumerate() {
             wide[usize::from(self.ascii[b])] += n;
         }
@@ -152,7 +159,7 @@ impl CharBins {
     }
 
     /// The count bound of two strings' [`CharBins::counts`].
-    pub fn gap(a: &[u8; BINS], b: &[u8; BINS]) -> u32 {
+    pub fn gap(a: &[u8; N], b: &[u8; N]) -> u32 {
         let (mut up, mut down) = (0u32, 0u32);
         for (&x, &y) in a.iter().zip(b) {
             up += u32::from(x.saturating_sub(y));

@@ -167,8 +167,8 @@ fn exact_and_range_on_a_word_list_sample() {
     }
 }
 
-/// A batch of at least `LANES_MIN_QUERIES` exact queries goes through the brute force with
-/// the queries in vector lanes: the answers (ties included) must equal strsim's brute force
+/// A batch of 256 exact queries (answered by the char-count bound, items read by length):
+/// the answers (ties included) must equal strsim's brute force
 /// (a reference crate) and the one-query exact path, on every 13th word of Debian's
 /// `wamerican` list; the empty query and one over 64 chars take the exact path.
 #[test]
@@ -178,7 +178,7 @@ fn a_large_exact_batch_answers_as_the_brute_force() {
     let dir = tempfile::tempdir().unwrap();
     let idx = build(&corpus(&items), 32, &dir);
     let s = Searcher::new(&idx);
-    let mut queries = waymark::eval::typo_queries(&items, waymark::search::LANES_MIN_QUERIES, 9);
+    let mut queries = waymark::eval::typo_queries(&items, 256, 9);
     queries.push(String::new());
     queries.push("pneumonoultramicroscopicsilicovolcanoconiosis-and-more-than-sixty-four".into());
     queries.push("café naïve".into());
@@ -200,7 +200,7 @@ fn a_large_exact_batch_answers_as_the_brute_force() {
 }
 
 /// A large exact batch reads the items by length, nearest lengths first, and leaves out the
-/// lengths no answer can come from: the answers must still equal strsim's brute force (a
+/// lengths no answer can come from, and the items whose char counts rule them out: the answers must still equal strsim's brute force (a
 /// reference crate), ties included, with items and queries of two-byte and three-byte chars
 /// whose byte lengths differ from their lengths in chars; and the batch must measure fewer
 /// items than a full scan.
@@ -221,7 +221,7 @@ fn a_large_exact_batch_skips_far_lengths_and_answers_as_the_brute_force() {
     let dir = tempfile::tempdir().unwrap();
     let idx = build(&corpus(&items), 32, &dir);
     let s = Searcher::new(&idx);
-    let mut queries = waymark::eval::typo_queries(&items, waymark::search::LANES_MIN_QUERIES, 21);
+    let mut queries = waymark::eval::typo_queries(&items, 256, 21);
     queries.extend(["中", "a", "abababab", "résumé", "中中中中中中中中中"].map(String::from));
     let k = 5;
     let many = s.answer_many(&queries, &waymark::search::Request::Exact { k });
