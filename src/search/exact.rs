@@ -173,8 +173,12 @@ impl Searcher<'_> {
         radius: Option<f64>,
     ) -> Result<Found> {
         let bound = self.require_bound()?;
-        if let Some(mut found) = self.tally_answers(&[query.to_owned()], k, radius) {
-            return found.pop().expect("one answer per query");
+        if let Some(found) = self
+            .tally_answers(&[query.to_owned()], k, radius)
+            .pop()
+            .flatten()
+        {
+            return found;
         }
         let pq = self.prepare_embedded(query, None)?;
         let mut runs = [self.start_exact(&pq, bound, k, radius)];

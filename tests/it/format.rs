@@ -44,8 +44,7 @@ fn data(name: &str) -> std::path::PathBuf {
 /// What the version 1 binary answered for `kind` (see [`ASKED`]); for exact and range
 /// answers without their certificates ([`answered`]).
 fn recorded(kind: &str) -> String {
-    let text =
-        std::fs::read_to_string(data(&format!("v1-answers-{kind}.jsonl"))).expect("fixture");
+    let text = std::fs::read_to_string(data(&format!("v1-answers-{kind}.jsonl"))).expect("fixture");
     answered(kind, &text)
 }
 
@@ -59,7 +58,10 @@ fn answered(kind: &str, text: &str) -> String {
     text.lines()
         .map(|line| {
             let mut v: serde_json::Value = serde_json::from_str(line).expect("a JSON line");
-            assert!(v["exact"].is_object(), "an exact answer has its certificate: {line}");
+            assert!(
+                v["exact"].is_object(),
+                "an exact answer has its certificate: {line}"
+            );
             v.as_object_mut().expect("an object").remove("exact");
             format!("{v}\n")
         })
@@ -107,7 +109,11 @@ fn a_version_1_file_made_by_the_previous_writer_opens_and_answers_as_it_did() {
         ]
     );
     for (kind, args) in ASKED {
-        assert_eq!(answered(kind, &answers(&d, &v1, args)), recorded(kind), "{kind}");
+        assert_eq!(
+            answered(kind, &answers(&d, &v1, args)),
+            recorded(kind),
+            "{kind}"
+        );
     }
     d.cmd()
         .args(["inspect", "--verify", "v1.wmk"])
@@ -167,7 +173,11 @@ fn a_version_2_file_holds_each_row_once_and_answers_as_the_version_1_file() {
     // Scan and cells pick the same candidates as the previous writer's file (ties at the
     // cut by item), exact and range answers are exact: every answer is the recorded one.
     for (kind, args) in ASKED.into_iter().filter(|(k, _)| *k != "tree") {
-        assert_eq!(answered(kind, &answers(&d, &v2, args)), recorded(kind), "{kind}");
+        assert_eq!(
+            answered(kind, &answers(&d, &v2, args)),
+            recorded(kind),
+            "{kind}"
+        );
     }
     // The tree now finds the scan's candidates.
     assert_eq!(answers(&d, &v2, ASKED[2].1), recorded("scan"));
