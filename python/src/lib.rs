@@ -1080,6 +1080,12 @@ fn request(
         return Ok(Request::Exact { k });
     }
     let mut p = SearchParams::from_index(index, k);
+    if let (Some(_), Some(from @ ("scan" | "tree"))) = (visit, source_name) {
+        return Err(bad(format!(
+            "visit sets how many rows of the nearest cells are compared; candidates_from={from:?} \
+             compares no cells and would ignore it: leave out visit, or use candidates_from=\"cells\""
+        )));
+    }
     if let Some(r) = recall {
         p = SearchParams::for_recall(index, k, r).map_err(py_err)?;
     }

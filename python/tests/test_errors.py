@@ -157,6 +157,12 @@ def test_bad_query_options(tmp_path):
         index.query("Keth", 3, recall=0.9, candidates=10)
     with pytest.raises(waymark.BadInputError, match="do not take"):
         index.query("Keth", 3, exact=True, candidates=10)
+    # As on the command line: a visit budget only counts with cells.
+    for source in ("scan", "tree"):
+        with pytest.raises(waymark.BadInputError, match=f'candidates_from="{source}" compares no cells'):
+            index.query("Keth", 3, candidates_from=source, visit=8)
+        with pytest.raises(waymark.BadInputError, match="would ignore it"):
+            index.query_many(["Keth"], 3, candidates_from=source, visit=8)
     with pytest.raises(waymark.BadInputError, match="do not combine"):
         index.query("Keth", within=1, within_fraction=0.2)
     with pytest.raises(waymark.BadInputError, match="do not take"):

@@ -312,7 +312,9 @@ class Index:
         ``waymark query --recall`` (the curve weighed by the query's length; in
         ``query_many``, by the lengths of all the queries): a mean threshold recall@10 over
         queries like the build's edited items, not a promise for each query; ``candidates``, ``space``, ``candidates_from``,
-        ``visit`` and ``widen`` tune the approximate search. ``exact=True``: the exact k nearest (what a
+        ``visit`` and ``widen`` tune the approximate search (``visit`` only with cells:
+        with ``candidates_from="scan"`` or ``"tree"`` it raises ``BadInputError``, as the
+        command line refuses it). ``exact=True``: the exact k nearest (what a
         brute force returns). ``within=R``: every item at distance at most R, exactly, or
         only the ``k`` nearest of them when ``k`` is given. ``within_fraction=F``: every item
         within F × the longer one's length in chars, exactly (text metrics), as ``within``
