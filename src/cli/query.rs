@@ -37,6 +37,14 @@ const READ_BUFFER: usize = 256 * 1024;
 
 pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
     super::args::check_visit(a.visit, a.candidates_from)?;
+    if a.stats && matches!(a.format, super::args::OutFormat::Tsv) {
+        return Err(crate::error::Error::Usage(
+            "--stats adds cost figures to JSON output; --format tsv has no place for them and \
+             would ignore it: leave out --stats, or use --format json"
+                .into(),
+        )
+        .into());
+    }
     let parts = Parts::open(&a.index)?;
     let index = parts.first();
     super::announce_program(index, a.quiet_metric);

@@ -463,6 +463,11 @@ fn options_a_mode_would_ignore_are_refused() {
             "--within",
         ),
         (&["query", "--exact", "--widen", "1"], "--widen", "--exact"),
+        (
+            &["query", "--stats", "--format", "tsv", "--queries", q],
+            "--stats",
+            "tsv",
+        ),
     ];
     for (args, ignored, mode) in refused {
         let (command, rest) = args.split_first().unwrap();
