@@ -11,6 +11,7 @@
 //! Settings through the environment (defaults in brackets):
 //! - `WAYMARK_BIG_WORDS` word list [/usr/share/dict/american-english-insane]
 //! - `WAYMARK_BIG_QUERIES` number of typo queries [1000]
+//! - `WAYMARK_BIG_SEED` seed of the typo queries, for an independent query set [20261202]
 //! - `WAYMARK_BIG_CANDIDATES` extra candidate counts for the approximate path [2000]
 //! - `WAYMARK_BIG_VISIT` rows compared per candidate with cells, beside the default, for
 //!   every candidate count [8,32]
@@ -92,9 +93,10 @@ fn main() {
     let corpus = read_corpus(&words, &IngestOptions::default()).expect("word list reads");
     let n = corpus.items.len();
     let raw_bytes = std::fs::metadata(&words).map(|m| m.len()).unwrap_or(0);
-    let queries = typo_queries(&corpus.items, nq, 20261202);
+    let seed: u64 = env_list("WAYMARK_BIG_SEED", "20261202")[0];
+    let queries = typo_queries(&corpus.items, nq, seed);
     println!(
-        "word list {}: {n} items, {raw_bytes} bytes; {nq} typo queries (1-3 edits); k = {k}; {} threads",
+        "word list {}: {n} items, {raw_bytes} bytes; {nq} typo queries (1-3 edits, seed {seed}); k = {k}; {} threads",
         words.display(),
         rayon::current_num_threads()
     );
