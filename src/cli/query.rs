@@ -94,6 +94,24 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
         (None, None, true) => Request::Exact { k: params.k },
         (None, None, false) => Request::Approximate(params),
     };
+    if a.visit.is_some()
+        && matches!(request, Request::Approximate(_))
+        && params.source == crate::search::CandidateSource::Scan
+    {
+        let advice = if index.has_cells() {
+            "add --candidates-from cells to search its cells"
+        } else {
+            "it has no cells"
+        };
+        eprintln!(
+            "waymark: note: {}: --visit counts only with cells, and this index of {} items \
+             (fewer than {}) is searched by a scan of every row, which --visit does not change; \
+             {advice}",
+            a.index.display(),
+            index.len(),
+            crate::search::CELLS_MIN_ITEMS
+        );
+    }
     let fraction = a.within_fraction.map(Radius::Fraction);
     if let Some(f) = fraction {
         f.check(index)?;

@@ -330,6 +330,50 @@ fn bad_usage_exits_2() {
         .stderr(predicates::str::contains("-k must be at least 1"));
 }
 
+/// `--visit` on an index small enough to be searched by a scan of every row runs, and
+/// says once that it changes nothing there; without `--visit` nothing is said.
+#[test]
+fn visit_on_a_scanned_index_is_noted() {
+    let d = Dir::new();
+    let input = d.write("names.txt", NAMES.as_bytes());
+    let idx = d.build(&input, "idx.wmk", &["--dim", "2"]);
+    let queries = d.write("q.txt", b"Orvane Qauy\nKeth Lnding\n");
+    let q = queries.to_str().unwrap();
+    let out = d
+        .cmd()
+        .args([
+            "query",
+            idx.to_str().unwrap(),
+            "-k",
+            "2",
+            "--visit",
+            "5",
+            "--queries",
+            q,
+        ])
+        .assert()
+        .success();
+    let err = String::from_utf8_lossy(&out.get_output().stderr).into_owned();
+    assert_eq!(
+        err.matches("--visit counts only with cells").count(),
+        1,
+        "{err}"
+    );
+    assert_eq!(
+        String::from_utf8_lossy(&out.get_output().stdout)
+            .lines()
+            .count(),
+        2
+    );
+    d.cmd()
+        .args(["query", idx.to_str().unwrap(), "-k", "2", "--queries", q])
+        .assert()
+        .success()
+        .stderr(predicates::prelude::PredicateBooleanExt::not(
+            predicates::str::contains("--visit"),
+        ));
+}
+
 /// Options that tune the approximate k-NN search are refused, naming both options, where
 /// the chosen mode would ignore them; a combination that counts still runs.
 #[test]
