@@ -347,16 +347,8 @@ impl Run {
         self.q.dist_batch(&texts[..n], &mut out[..n]);
         self.computed += n;
         for (&p, &d) in part.iter().zip(&out[..n]) {
-            if d > self.cap() {
-                continue;
-            }
-            let found = Neighbor {
-                index: tally.items[p as usize],
-                distance: f64::from(d),
-            };
-            match self.k {
-                Some(k) => keep_best(index, &mut self.best, k, found),
-                None => self.best.push(found),
+            if d <= self.cap() {
+                self.keep(index, tally.items[p as usize], d);
             }
         }
     }
@@ -371,14 +363,20 @@ impl Run {
             self.q.dist_within(key, cap)
         };
         if let Some(d) = d {
-            let found = Neighbor {
-                index: item,
-                distance: f64::from(d),
-            };
-            match self.k {
-                Some(k) => keep_best(index, &mut self.best, k, found),
-                None => self.best.push(found),
-            }
+            self.keep(index, item, d);
+        }
+    }
+
+    /// Keeps item `item` at distance `d` (within the cap): among the `k` best, or with all
+    /// within the radius.
+    fn keep(&mut self, index: &crate::index::Index, item: u32, d: u32) {
+        let found = Neighbor {
+            index: item,
+            distance: f64::from(d),
+        };
+        match self.k {
+            Some(k) => keep_best(index, &mut self.best, k, found),
+            None => self.best.push(found),
         }
     }
 }
