@@ -9,6 +9,7 @@ import os
 import shutil
 import subprocess
 import sys
+import time
 
 import pytest
 
@@ -241,6 +242,58 @@ def test_a_failed_first_attempt_leaves_a_correct_index(spark, tmp_path, names, w
     assert not os.path.exists(tmp_path / "retried.wmk.shards")
     got = spark_answers(query(spark, path, queries_df, "name", k=5, exact=True))
     assert got == one_index_answers(waymark.open(whole), lookups, k=5, exact=True)
+
+
+@needs_shards
+def test_a_failed_build_leaves_nothing_behind(spark, tmp_path):
+    # 300 invented names, one of them (item 250, in the last of 3 shards) with a NUL byte; the
+    # seed's sample of 20 does not draw it, so the seed is built and the last shard's task
+    # refuses it, after the other two tasks have written their parts.
+    names = register(300)
+    names[250] = names[250][:3] + "\0" + names[250][3:]
+    df = spark.createDataFrame([(t,) for t in names], "name string")
+    folder = tmp_path / "register"
+    folder.mkdir()
+    (folder / "names.txt").write_text("kept\n")
+    log = tmp_path / "written.log"
+
+    def note(shard, path):
+        with open(log, "a") as f:
+            f.write(path + "\n")
+
+    with pytest.raises(waymark.BadInputError, match=r"^build: shard 2: item 250: the item contains a NUL byte$"):
+        build(spark, df, "name", folder / "names.wmk", shards=3, sample=20, on_written=note)
+    written = log.read_text().split()
+    assert len(written) == 2 and all(p.startswith(str(folder / "names.wmk.shards") + os.sep) for p in written)
+    assert os.listdir(folder) == ["names.txt"] and (folder / "names.txt").read_text() == "kept\n"
+
+    # An error in a task (on_written, on every attempt of shard 0) while the other task is
+    # still at work: it writes into the staging folder a second after shard 0 has failed
+    # for good, as a part written late would. Spark's error, once that task has stopped,
+    # and nothing left (without the wait for it, the late file stays).
+    staging = str(folder / "names.wmk.shards")
+
+    def fail(shard, path):
+        if shard == 0:
+            raise RuntimeError("a part that cannot be kept")
+        time.sleep(1)
+        os.makedirs(staging, exist_ok=True)
+        with open(os.path.join(staging, "late.wmk"), "w") as f:
+            f.write("late\n")
+
+    good = spark.createDataFrame([(t,) for t in register(300)], "name string")
+    with pytest.raises(Exception, match="a part that cannot be kept"):
+        build(spark, good, "name", folder / "names.wmk", shards=2, sample=20, on_written=fail)
+    time.sleep(2)
+    assert os.listdir(folder) == ["names.txt"]
+
+    # A staging folder that was there before: only what the build added to it is removed.
+    (folder / "names.wmk.shards").mkdir()
+    (folder / "names.wmk.shards" / "notes.txt").write_text("kept\n")
+    with pytest.raises(waymark.BadInputError, match=r"^build: shard 2: item 250: "):
+        build(spark, df, "name", folder / "names.wmk", shards=3, sample=20)
+    assert sorted(os.listdir(folder)) == ["names.txt", "names.wmk.shards"]
+    assert os.listdir(folder / "names.wmk.shards") == ["notes.txt"]
 
 
 def test_build_refusals(spark, tmp_path):

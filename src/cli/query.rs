@@ -134,6 +134,9 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
     let (mut answered, mut distances, mut exact_hits, mut refused) = (0usize, 0, 0, 0);
     let mut end = false;
     let mut noted = false;
+    // An input that cannot be read on (a line ending in a lone carriage return, a failed
+    // read): the lines before it are answered first, as before a query that is refused.
+    let mut stopped: Option<anyhow::Error> = None;
     while !end {
         // Lines of this block: the good ones' texts go to the searcher together.
         let mut entries: Vec<Entry> = Vec::new();
@@ -142,7 +145,14 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
             if lines.may_wait && !entries.is_empty() && !lines.line_waiting() {
                 break;
             }
-            let Some((line, bytes, name)) = lines.next_raw()? else {
+            let next = match lines.next_raw() {
+                Ok(next) => next,
+                Err(e) => {
+                    stopped = Some(e);
+                    None
+                }
+            };
+            let Some((line, bytes, name)) = next else {
                 end = true;
                 break;
             };
@@ -215,6 +225,9 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
             }
         }
         out.flush().context("writing the answers")?;
+        if let Some(e) = stopped {
+            return Err(e);
+        }
     }
     if a.summary {
         let secs = t0.elapsed().as_secs_f64();
@@ -294,6 +307,8 @@ pub(super) fn at_query_line(e: Error, name: &str, line: usize) -> Error {
 struct QueryLines {
     reader: BufReader<Box<dyn Read>>,
     line: usize,
+    /// The byte of the input where the next line starts (0-based), for errors.
+    start: u64,
     name: String,
     /// A read may wait on a writer (a pipe or a terminal), so a block is answered before it.
     may_wait: bool,
@@ -332,6 +347,7 @@ impl QueryLines {
                 Box::new(std::fs::File::open(path).map_err(io)?),
             ),
             line: 0,
+            start: 0,
             name,
             may_wait: !meta.is_file(),
             records,
@@ -349,6 +365,7 @@ impl QueryLines {
         Ok(QueryLines {
             reader: BufReader::with_capacity(READ_BUFFER, Box::new(std::io::stdin())),
             line: 0,
+            start: 0,
             name,
             may_wait: !stdin_is_file(),
             records,
@@ -361,8 +378,10 @@ impl QueryLines {
     }
 
     /// The next line's number and bytes, without its line ending and, on the first line,
-    /// without a UTF-8 byte-order mark; `None` at the end. For a FASTA/FASTQ file: the next
-    /// record's header line, sequence and name.
+    /// without a UTF-8 byte-order mark; `None` at the end. A line that ends with a lone
+    /// carriage return is refused, as every input reader refuses it
+    /// ([`crate::ingest::end_line`]). For a FASTA/FASTQ file: the next record's header
+    /// line, sequence and name.
     #[allow(clippy::type_complexity)]
     fn next_raw(&mut self) -> anyhow::Result<Option<(usize, Vec<u8>, Option<String>)>> {
         if let Some(records) = &mut self.records {
@@ -379,12 +398,8 @@ impl QueryLines {
             return Ok(None);
         }
         self.line += 1;
-        if buf.last() == Some(&b'\n') {
-            buf.pop();
-        }
-        if buf.last() == Some(&b'\r') {
-            buf.pop();
-        }
+        crate::ingest::end_line(&mut buf, &self.name, self.line as u64, self.start)?;
+        self.start += got as u64;
         if self.line == 1 && buf.starts_with(BOM) {
             buf.drain(..BOM.len());
         }

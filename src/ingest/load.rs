@@ -265,7 +265,9 @@ fn load_vectors(path: &Path, norm: Norm, header: bool) -> Result<LoadedInput> {
 }
 
 /// The text of a side file or edge list, read within the memory budget as every other
-/// input (an endless device stops with an error); invalid UTF-8 is refused with its line.
+/// input (an endless device stops with an error); a line that ends with a lone carriage
+/// return ([`super::lone_cr_error`]: `str::lines` splits only at `\n`, so the lines it
+/// ended were read as one) and invalid UTF-8 are refused with their line.
 fn read_text(path: &Path) -> Result<String> {
     use std::io::Read;
     let name = path.display().to_string();
@@ -277,6 +279,9 @@ fn read_text(path: &Path) -> Result<String> {
     super::bounded(std::fs::File::open(path).map_err(io)?, &name)?
         .read_to_end(&mut bytes)
         .map_err(io)?;
+    if let Some((line, byte)) = super::first_lone_cr(&bytes) {
+        return Err(super::lone_cr_error(&name, line, byte).into());
+    }
     String::from_utf8(bytes).map_err(|e| {
         let at = e.utf8_error().valid_up_to();
         let line = e.as_bytes()[..at].iter().filter(|&&b| b == b'\n').count() as u64 + 1;

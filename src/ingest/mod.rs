@@ -83,6 +83,28 @@ pub(crate) fn first_lone_cr(text: &[u8]) -> Option<(u64, u64)> {
     Some((line, at as u64 + 1))
 }
 
+/// Takes the line ending (`\n` or `\r\n`) off `buf`, one line as `read_until(b'\n', …)`
+/// read it, and refuses a carriage return left in it ([`lone_cr_error`]): `line` is the
+/// line's 1-based number, `start` the 0-based byte of the file where it starts. Shared by
+/// [`for_each_line`] and the command line's query reader, which reads line by line itself.
+pub(crate) fn end_line(
+    buf: &mut Vec<u8>,
+    source_name: &str,
+    line: u64,
+    start: u64,
+) -> Result<(), IngestError> {
+    if buf.last() == Some(&b'\n') {
+        buf.pop();
+    }
+    if buf.last() == Some(&b'\r') {
+        buf.pop();
+    }
+    match buf.iter().position(|&c| c == b'\r') {
+        Some(at) => Err(lone_cr_error(source_name, line, start + at as u64 + 1)),
+        None => Ok(()),
+    }
+}
+
 /// Calls `f(line number, bytes, BOM length)` for every line of `reader` (1-based), without
 /// its line ending (`\n` or `\r\n`) and, on the first line, without a UTF-8 byte-order
 /// mark (whose length is passed so that byte positions can be those of the file). A
@@ -110,15 +132,7 @@ fn for_each_line<R: Read>(
             return Ok(());
         }
         line += 1;
-        if buf.last() == Some(&b'\n') {
-            buf.pop();
-        }
-        if buf.last() == Some(&b'\r') {
-            buf.pop();
-        }
-        if let Some(at) = buf.iter().position(|&c| c == b'\r') {
-            return Err(lone_cr_error(source_name, line, start + at as u64 + 1));
-        }
+        end_line(&mut buf, source_name, line, start)?;
         start += got as u64;
         let bom = if line == 1 && buf.starts_with(BOM) {
             BOM.len()

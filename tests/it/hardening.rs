@@ -267,6 +267,163 @@ fn bad_input_lone_cr_line_ends_are_refused_naming_the_line_and_byte() {
         .stdout(predicates::str::contains("\"distance\":0"));
 }
 
+/// The end of a refusal of a lone CR: the file and line, the byte, and the advice.
+fn lone_cr_refusal(name: &str, line: u64, byte: u64) -> impl Predicate<str> {
+    contains(format!(
+        "{name}:{line}: a carriage return (\\r) with no line feed after it"
+    ))
+    .and(contains(format!("at byte {byte} of the file")))
+    .and(contains("end the lines with \\n or \\r\\n"))
+}
+
+#[test]
+fn bad_input_a_lone_cr_in_an_edge_list_is_refused_naming_the_line_and_byte() {
+    let d = Dir::new();
+    // Line 2 ends with a lone CR: byte 31 (the comment) + 14 + 1 = 46. Read as before, the
+    // two legs made one line of six fields.
+    let bytes: &[u8] =
+        b"# Vessmark ferry legs, minutes\nOrvane Keth 25\rKeth Skarholm 40\nOrvane Skarholm 70\n";
+    let legs = d.write("legs.txt", bytes);
+    d.cmd()
+        .arg("build")
+        .arg(&legs)
+        .args(["--metric", "graph", "--dim", "2", "-o", "legs.wmk"])
+        .assert()
+        .code(2)
+        .stderr(lone_cr_refusal("legs.txt", 2, 46));
+    assert_eq!(d.others(&["legs.txt"]), Vec::<String>::new());
+    assert_eq!(std::fs::read(&legs).unwrap(), bytes);
+
+    // `add` reads the edge list the same way: the index is left as it was.
+    let crlf = d.write("crlf.txt", b"Orvane Keth 25\r\nKeth Skarholm 40\r\n");
+    let idx = d.build(
+        &crlf,
+        "legs.wmk",
+        &["--metric", "graph", "--dim", "2", "-q"],
+    );
+    let before = std::fs::read(&idx).unwrap();
+    d.cmd()
+        .arg("add")
+        .arg(&idx)
+        .arg(&legs)
+        .args(["--metric", "graph"])
+        .assert()
+        .code(2)
+        .stderr(lone_cr_refusal("legs.txt", 2, 46));
+    assert_eq!(std::fs::read(&idx).unwrap(), before);
+    assert_eq!(
+        d.others(&["legs.txt", "crlf.txt", "legs.wmk"]),
+        Vec::<String>::new()
+    );
+    // CRLF line ends are read: Orvane–Keth–Skarholm is 25 + 40.
+    d.cmd()
+        .args(["query", "legs.wmk", "-k", "3", "--exact", "--format", "tsv"])
+        .write_stdin("Orvane\n")
+        .assert()
+        .success()
+        .stdout(contains("Orvane\t3\tSkarholm\tSkarholm\t65\t"));
+}
+
+#[test]
+fn bad_input_a_lone_cr_in_a_cost_file_is_refused_naming_the_line_and_byte() {
+    let d = Dir::new();
+    let barcodes = d.write(
+        "barcodes.txt",
+        b"TTAGGCGCATCC\nTTCGCCTTCAAC\nTGGGCCGGCTGT\n",
+    );
+    // Line 2 ends with a lone CR: byte 13 + 11 + 1 = 25. Read as before, the two rules
+    // made one line of eight fields.
+    let bytes: &[u8] = b"indel * 1.5\r\nsub A G 0.5\rsub C T 0.5\n";
+    let costs = d.write("dna.costs", bytes);
+    d.cmd()
+        .arg("build")
+        .arg(&barcodes)
+        .args(["--metric", "weighted", "--costs"])
+        .arg(&costs)
+        .args(["--dim", "2", "-o", "w.wmk"])
+        .assert()
+        .code(2)
+        .stderr(lone_cr_refusal("dna.costs", 2, 25));
+    assert_eq!(
+        d.others(&["barcodes.txt", "dna.costs"]),
+        Vec::<String>::new()
+    );
+    assert_eq!(std::fs::read(&costs).unwrap(), bytes);
+    // With CRLF line ends the same rules are read: A→G costs 0.5.
+    d.write(
+        "dna.costs",
+        b"indel * 1.5\r\nsub A G 0.5\r\nsub C T 0.5\r\n",
+    );
+    d.build(
+        &barcodes,
+        "w.wmk",
+        &[
+            "--metric",
+            "weighted",
+            "--costs",
+            "dna.costs",
+            "--dim",
+            "2",
+            "-q",
+        ],
+    );
+    d.cmd()
+        .args(["query", "w.wmk", "-k", "1", "--exact", "--format", "tsv"])
+        .write_stdin("TTGGGCGCATCC\n")
+        .assert()
+        .success()
+        .stdout(predicates::str::starts_with(
+            "TTGGGCGCATCC\t1\t0\tTTAGGCGCATCC\t0.5\t",
+        ));
+}
+
+#[test]
+fn bad_input_a_lone_cr_in_queries_is_refused_naming_the_line_and_byte() {
+    let d = Dir::new();
+    let names = d.write("names.txt", b"Skerry Light\nSalt Store\nNorth Mole\n");
+    d.build(&names, "n.wmk", &["--dim", "2", "-q"]);
+    // Line 2 ends with a lone CR: byte 12 + 9 + 1 = 22. Read as before, "Salt Stor\rNorth
+    // Mol" was one query.
+    let bytes: &[u8] = b"Skerry Lite\nSalt Stor\rNorth Mol\nKeth\n";
+    let queries = d.write("lookups.txt", bytes);
+    // A queries file and standard input: the line before is answered, then the refusal.
+    let from_file = d
+        .cmd()
+        .args(["query", "n.wmk", "-k", "1", "--format", "tsv", "--queries"])
+        .arg(&queries)
+        .assert();
+    let from_stdin = d
+        .cmd()
+        .args(["query", "n.wmk", "-k", "1", "--format", "tsv"])
+        .write_stdin(bytes)
+        .assert();
+    for (assert, name) in [(from_file, "lookups.txt"), (from_stdin, "<stdin>")] {
+        assert
+            .code(2)
+            .stdout("Skerry Lite\t1\t0\tSkerry Light\t3\n")
+            .stderr(lone_cr_refusal(name, 2, 22));
+    }
+    // --errors-inline does not take it for one bad query: the lines are not the file's.
+    d.cmd()
+        .args(["query", "n.wmk", "-k", "1", "--errors-inline", "--queries"])
+        .arg(&queries)
+        .assert()
+        .code(2)
+        .stderr(lone_cr_refusal("lookups.txt", 2, 22));
+    // eval reads the file whole first: refused before any answer, no ground-truth cache.
+    d.cmd()
+        .args(["eval", "n.wmk", "-k", "1", "--queries"])
+        .arg(&queries)
+        .assert()
+        .code(2)
+        .stderr(lone_cr_refusal("lookups.txt", 2, 22));
+    assert_eq!(
+        d.others(&["names.txt", "n.wmk", "lookups.txt"]),
+        Vec::<String>::new()
+    );
+    assert_eq!(std::fs::read(&queries).unwrap(), bytes);
+}
+
 #[test]
 fn bad_input_k_larger_than_n_returns_every_item() {
     let d = Dir::new();
