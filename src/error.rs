@@ -145,6 +145,8 @@ pub enum Param {
     Recall,
     /// The radius of a build's deletion-variant table ([`crate::index::BuildOptions::small_radius`]).
     SmallRadius,
+    /// Where candidates come from ([`crate::search::SearchParams::source`]).
+    Source,
 }
 
 impl Param {
@@ -162,6 +164,7 @@ impl Param {
             Param::Sample => "sample",
             Param::Recall => "recall",
             Param::SmallRadius => "small radius",
+            Param::Source => "candidate source",
         }
     }
 }

@@ -465,9 +465,10 @@ fn source(name: &str) -> PyResult<CandidateSource> {
         "cells" => CandidateSource::Cells,
         "scan" => CandidateSource::Scan,
         "tree" => CandidateSource::Tree,
+        "counts" => CandidateSource::Counts,
         other => {
             return Err(bad(format!(
-                "candidates_from `{other}` is not one of cells, scan, tree"
+                "candidates_from `{other}` is not one of cells, scan, tree, counts"
             )))
         }
     })
@@ -1080,7 +1081,7 @@ fn request(
         return Ok(Request::Exact { k });
     }
     let mut p = SearchParams::from_index(index, k);
-    if let (Some(_), Some(from @ ("scan" | "tree"))) = (visit, source_name) {
+    if let (Some(_), Some(from @ ("scan" | "tree" | "counts"))) = (visit, source_name) {
         return Err(bad(format!(
             "visit sets how many rows of the nearest cells are compared; candidates_from={from:?} \
              compares no cells and would ignore it: leave out visit, or use candidates_from=\"cells\""
@@ -1100,6 +1101,11 @@ fn request(
     }
     if let Some(s) = space_name {
         p.space = space(s)?;
+    }
+    // Candidates, a visit budget and a space are the embedding's: asking for one searches
+    // it rather than the char counts.
+    if candidates.is_some() || visit.is_some() || space_name.is_some() {
+        p = p.on_embedding(index);
     }
     if let Some(s) = source_name {
         p.source = source(s)?;

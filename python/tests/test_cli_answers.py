@@ -77,11 +77,15 @@ def test_a_list_of_items_with_ids_gives_the_command_lines_answers(cli_register, 
 
 
 def test_the_readme_example_answer(register):
-    # README, "Worked example": the misspelt lane is one edit from TE-00382.
-    assert register.query("Deirnkvérejør Lane", k=2) == [
+    # README, "Worked example": the misspelt lane is one edit from TE-00382, and the next
+    # nearest is the landing five edits away (the default char counts find it; an exact
+    # query agrees).
+    want = [
         ("TE-00382", "Deirnkvérsjør Lane", 1.0),
-        ("VE-16562", "Dyrnkvineir Lane", 6.0),
+        ("OR-27149", "Deirnkvérsjør Landing", 5.0),
     ]
+    assert register.query("Deirnkvérejør Lane", k=2) == want
+    assert register.query("Deirnkvérejør Lane", k=2, exact=True) == want
 
 
 def test_inspect_is_the_command_lines_json(cli_register, register):

@@ -301,7 +301,7 @@ class Index:
         recall: float | None = None,
         candidates: int | None = None,
         space: Literal["l1", "l2", "linf"] | None = None,
-        candidates_from: Literal["cells", "scan", "tree"] | None = None,
+        candidates_from: Literal["cells", "scan", "tree", "counts"] | None = None,
         visit: int | None = None,
         widen: int | None = None,
     ) -> Answer:
@@ -313,8 +313,11 @@ class Index:
         ``query_many``, by the lengths of all the queries): a mean threshold recall@10 over
         queries like the build's edited items, not a promise for each query; ``candidates``, ``space``, ``candidates_from``,
         ``visit`` and ``widen`` tune the approximate search (``visit`` only with cells:
-        with ``candidates_from="scan"`` or ``"tree"`` it raises ``BadInputError``, as the
-        command line refuses it). ``exact=True``: the exact k nearest (what a
+        with ``candidates_from="scan"``, ``"tree"`` or ``"counts"`` it raises
+        ``BadInputError``, as the command line refuses it). On a plain Levenshtein index
+        the default source is ``"counts"``: the items in increasing char-count bound,
+        measured until the answers settle, which are then a brute force's up to the order
+        of ties; ``candidates``, ``visit`` or ``space`` search the embedding instead. ``exact=True``: the exact k nearest (what a
         brute force returns). ``within=R``: every item at distance at most R, exactly, or
         only the ``k`` nearest of them when ``k`` is given. ``within_fraction=F``: every item
         within F × the longer one's length in chars, exactly (text metrics), as ``within``
@@ -333,7 +336,7 @@ class Index:
         recall: float | None = None,
         candidates: int | None = None,
         space: Literal["l1", "l2", "linf"] | None = None,
-        candidates_from: Literal["cells", "scan", "tree"] | None = None,
+        candidates_from: Literal["cells", "scan", "tree", "counts"] | None = None,
         visit: int | None = None,
         widen: int | None = None,
     ) -> tuple[npt.NDArray[np.int64], npt.NDArray[np.float64]]:
@@ -404,7 +407,7 @@ class Index:
         candidates: Sequence[int] | None = None,
         recall: Sequence[float] | None = None,
         space: Literal["l1", "l2", "linf"] | None = None,
-        candidates_from: Literal["cells", "scan", "tree"] | None = None,
+        candidates_from: Literal["cells", "scan", "tree", "counts"] | None = None,
         visit: int | None = None,
     ) -> dict[str, Any]:
         """Recall against brute force, as ``waymark eval --queries``: the exact k nearest of

@@ -136,6 +136,9 @@ pub(super) enum SourceArg {
     Scan,
     /// The kd-tree's exact nearest-n search on the coordinates.
     Tree,
+    /// Items in increasing char-count bound, measured until the answers settle (plain
+    /// Levenshtein only, and its default).
+    Counts,
 }
 
 impl From<SourceArg> for CandidateSource {
@@ -144,6 +147,7 @@ impl From<SourceArg> for CandidateSource {
             SourceArg::Cells => CandidateSource::Cells,
             SourceArg::Scan => CandidateSource::Scan,
             SourceArg::Tree => CandidateSource::Tree,
+            SourceArg::Counts => CandidateSource::Counts,
         }
     }
 }
@@ -797,7 +801,7 @@ pub(super) struct CheckMetricArgs {
     pub json: bool,
 }
 
-/// Refuses `--visit` with `--candidates-from scan` or `tree`: only cells have rows to visit,
+/// Refuses `--visit` with `--candidates-from scan`, `tree` or `counts`: only cells have rows to visit,
 /// so those sources would ignore it.
 pub(super) fn check_visit(
     visit: Option<usize>,
@@ -806,6 +810,7 @@ pub(super) fn check_visit(
     let source = match (visit, from) {
         (Some(_), Some(SourceArg::Scan)) => "scan",
         (Some(_), Some(SourceArg::Tree)) => "tree",
+        (Some(_), Some(SourceArg::Counts)) => "counts",
         _ => return Ok(()),
     };
     Err(crate::error::Error::Usage(format!(
@@ -830,6 +835,7 @@ pub(super) fn flag(p: crate::error::Param) -> &'static str {
         Param::Sample => "--landmark-sample",
         Param::Recall => "--recall",
         Param::SmallRadius => "--small-radius",
+        Param::Source => "--candidates-from",
     }
 }
 

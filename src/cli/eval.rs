@@ -66,7 +66,7 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
     .map(|&c| {
         let mut params = SearchParams {
             space,
-            ..SearchParams::from_index(index, a.k).with_candidates(c)
+            ..SearchParams::embedded(index, a.k).with_candidates(c)
         };
         if let Some(v) = a.visit {
             params.visit = v;
@@ -216,6 +216,9 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
                         format!("from cells ({v} rows compared per query)")
                     }
                     (Some(CandidateSource::Tree), _) => "from the kd-tree".into(),
+                    (Some(CandidateSource::Counts), _) => {
+                        "by char counts (where they pay; candidates then unused)".into()
+                    }
                     _ => "from a scan of every row".into(),
                 }
             )?;

@@ -43,7 +43,8 @@ pub(super) fn pairs(a: PairsArgs) -> anyhow::Result<()> {
     let params = a.k.filter(|_| !a.exact).map(|k| {
         let mut p = SearchParams::from_index(index, k);
         if let Some(c) = a.candidates {
-            p = p.with_candidates(c);
+            // Candidates are the embedding's: asking for them searches it.
+            p = p.with_candidates(c).on_embedding(index);
         }
         p.source = a.candidates_from.map_or(p.source, Into::into);
         p

@@ -79,6 +79,11 @@ pub(super) fn query(a: QueryArgs) -> anyhow::Result<()> {
         if let Some(s) = a.space {
             params.space = s.into();
         }
+        // Candidates, a visit budget and a space are the embedding's: asking for one
+        // searches it rather than the char counts.
+        if a.candidates.is_some() || a.visit.is_some() || a.space.is_some() {
+            params = params.on_embedding(index);
+        }
         params.source = a.candidates_from.map_or(params.source, Into::into);
         Ok(params)
     };

@@ -113,7 +113,7 @@ fn ladder(
     score: impl Fn(usize, &Found) -> f64 + Sync,
 ) -> Result<Ladder> {
     let n = index.len();
-    let base = SearchParams::from_index(index, k);
+    let base = SearchParams::embedded(index, k);
     let mut points = Vec::new();
     let mut each = Vec::new();
     let mut complete = vec![false; queries];

@@ -299,7 +299,7 @@ pub fn run_sweep(
                 for &c in &opts.candidates {
                     let params = SearchParams {
                         space,
-                        ..SearchParams::from_index(&index, opts.k).with_candidates(c)
+                        ..SearchParams::embedded(&index, opts.k).with_candidates(c)
                     };
                     let r = measure_recall(&index, queries, tr, &params)?;
                     rows.push(SweepRow {

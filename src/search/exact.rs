@@ -174,7 +174,7 @@ impl Searcher<'_> {
     ) -> Result<Found> {
         let bound = self.require_bound()?;
         if let Some(found) = self
-            .tally_answers(&[query.to_owned()], k, radius)
+            .tally_answers(&[query.to_owned()], k, radius, false)
             .pop()
             .flatten()
         {

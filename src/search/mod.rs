@@ -173,6 +173,13 @@ impl<'a> Searcher<'a> {
     /// Finds approximate k nearest neighbours of `query`.
     pub fn search(&self, query: &str, p: &SearchParams, scratch: &mut Scratch) -> Result<Found> {
         self.check(&Request::Approximate(*p))?;
+        if p.source == CandidateSource::Counts {
+            let mut found = self.tally_answers(&[query.to_owned()], Some(p.k), None, true);
+            if let Some(found) = found.pop().flatten() {
+                return found;
+            }
+            return self.search(query, &self.fallback(p), scratch);
+        }
         let mut exact = [0f32; 64];
         let want_exact = p.source == CandidateSource::Tree;
         let pq = self.prepare_embedded(query, want_exact.then_some(&mut exact))?;
@@ -182,7 +189,8 @@ impl<'a> Searcher<'a> {
                 // The scores of every row stay in the scratch: a wider round only selects.
                 CandidateSource::Scan if scored => s.select(c, &me.index.rows()),
                 CandidateSource::Scan => me.scan_candidates(&pq.small, c, p.space, s),
-                CandidateSource::Cells => {
+                // The counts answered above, or handed over to the embedding's source.
+                CandidateSource::Cells | CandidateSource::Counts => {
                     me.cells_candidates(&pq.small, c, visit, p.space, s, scored)?
                 }
                 CandidateSource::Tree => me.tree_candidates(&pq.small, &exact, c, p.space, s)?,
@@ -224,6 +232,16 @@ impl<'a> Searcher<'a> {
                 }
                 if p.candidates == 0 {
                     return Err(Error::parameter(Param::Candidates, "must be at least 1"));
+                }
+                if p.source == CandidateSource::Counts && !tally::applies(self.index) {
+                    return Err(Error::parameter(
+                        Param::Source,
+                        format!(
+                            "the char counts apply to plain Levenshtein indexes only, and this \
+                             one's metric is {}: take the cells, the scan or the tree",
+                            self.index.meta().metric.name()
+                        ),
+                    ));
                 }
                 Some(p.k)
             }
@@ -274,6 +292,13 @@ impl<'a> Searcher<'a> {
     /// With the scan source, queries are taken in blocks whose coordinates are scored
     /// together in one pass over the stored rows; answers are those of [`Searcher::search`].
     pub fn search_many(&self, queries: &[String], p: &SearchParams) -> Vec<Result<Found>> {
+        if p.source == CandidateSource::Counts && self.check(&Request::Approximate(*p)).is_ok() {
+            let answers = self.tally_answers(queries, Some(p.k), None, true);
+            return self.fill_in(answers, |left| {
+                let texts: Vec<String> = left.iter().map(|&j| queries[j].clone()).collect();
+                self.search_many(&texts, &self.fallback(p))
+            });
+        }
         // Cells touch a small part of the rows: each query goes on its own.
         if p.source != CandidateSource::Scan || self.check(&Request::Approximate(*p)).is_err() {
             return queries
@@ -329,7 +354,7 @@ impl<'a> Searcher<'a> {
         // while it pays; else a large batch of exact k-NN queries goes to the brute force
         // with the queries in vector lanes, and the others in blocks of queries sharing
         // passes over the column blocks.
-        let mut tallied = self.tally_answers(todo, k, radius);
+        let mut tallied = self.tally_answers(todo, k, radius, false);
         let left: Vec<usize> = (0..todo.len()).filter(|&j| tallied[j].is_none()).collect();
         if !left.is_empty() {
             let texts: Vec<String> = left.iter().map(|&j| todo[j].clone()).collect();
@@ -475,6 +500,17 @@ impl<'a> Searcher<'a> {
                 .collect();
         }
         let (k, radius) = match *req {
+            Request::Approximate(p) if p.source == CandidateSource::Counts => {
+                let texts: Vec<String> = items
+                    .iter()
+                    .map(|&i| String::from_utf8_lossy(self.index.item(i as usize)).into_owned())
+                    .collect();
+                let answers = self.tally_answers(&texts, Some(p.k), None, true);
+                return self.fill_in(answers, |left| {
+                    let rest: Vec<u32> = left.iter().map(|&j| items[j]).collect();
+                    self.answer_stored(&rest, &Request::Approximate(self.fallback(&p)))
+                });
+            }
             Request::Approximate(p) if p.source == CandidateSource::Tree => {
                 return items
                     .par_iter()
@@ -535,6 +571,33 @@ impl<'a> Searcher<'a> {
                     Ok(())
                 })
             })
+            .collect()
+    }
+
+    /// `p` with the embedding's own source: where a query's char counts do not pay
+    /// ([`CandidateSource::Counts`]).
+    fn fallback(&self, p: &SearchParams) -> SearchParams {
+        p.on_embedding(self.index)
+    }
+
+    /// The answers of `answers`, those missing (`None`) answered by `rest` (given their
+    /// places, it returns their answers in that order).
+    fn fill_in(
+        &self,
+        mut answers: Vec<Option<Result<Found>>>,
+        rest: impl FnOnce(&[usize]) -> Vec<Result<Found>>,
+    ) -> Vec<Result<Found>> {
+        let left: Vec<usize> = (0..answers.len())
+            .filter(|&j| answers[j].is_none())
+            .collect();
+        if !left.is_empty() {
+            for (j, found) in left.iter().zip(rest(&left)) {
+                answers[*j] = Some(found);
+            }
+        }
+        answers
+            .into_iter()
+            .map(|a| a.expect("every query answered"))
             .collect()
     }
 

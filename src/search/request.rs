@@ -30,6 +30,27 @@ pub enum CandidateSource {
     Cells,
     /// kiddo's `nearest_n` on the kd-tree.
     Tree,
+    /// Plain Levenshtein only, and its default: the items in increasing char-count bound
+    /// (the chars of each item counted in 32 bins, a lower bound of the distance; see
+    /// `Searcher::search_exact`), each measured, until the `k`-th distance held settles
+    /// the answers. They are those of a brute force up to the order of ties: threshold
+    /// recall 1. `candidates` and `visit` are not used, except where the counts rule out
+    /// few items (strings over few letters, as DNA: judged on a searcher's first 32
+    /// queries); queries then go on to the embedding's own source
+    /// ([`SearchParams::embedded`]) with them.
+    Counts,
+}
+
+impl CandidateSource {
+    /// The name used by the command line and Python (`--candidates-from`).
+    pub fn name(self) -> &'static str {
+        match self {
+            CandidateSource::Scan => "scan",
+            CandidateSource::Cells => "cells",
+            CandidateSource::Tree => "tree",
+            CandidateSource::Counts => "counts",
+        }
+    }
 }
 
 /// Parameters of a query.
@@ -61,11 +82,26 @@ pub struct SearchParams {
 pub const WIDEN_TAIL: f64 = 0.25;
 
 impl SearchParams {
-    /// The index's stored defaults with `k` neighbours: its candidates and space, cells as
-    /// the source when the index has them and at least [`CELLS_MIN_ITEMS`] items (else the
-    /// scan), and
-    /// [`VISIT_PER_CANDIDATE`] rows compared per candidate.
+    /// The index's stored defaults with `k` neighbours: as [`SearchParams::embedded`], but
+    /// with the char counts as the source ([`CandidateSource::Counts`]) when the index's
+    /// metric is plain Levenshtein.
     pub fn from_index(index: &Index, k: usize) -> SearchParams {
+        let p = Self::embedded(index, k);
+        if super::tally::applies(index) {
+            SearchParams {
+                source: CandidateSource::Counts,
+                ..p
+            }
+        } else {
+            p
+        }
+    }
+
+    /// The index's stored defaults for a search of its embedding, with `k` neighbours: its
+    /// candidates and space, cells as the source when the index has them and at least
+    /// [`CELLS_MIN_ITEMS`] items (else the scan), and [`VISIT_PER_CANDIDATE`] rows
+    /// compared per candidate. What recall against candidates and dimension measures.
+    pub fn embedded(index: &Index, k: usize) -> SearchParams {
         let candidates = index.meta().candidates as usize;
         SearchParams {
             k,
@@ -173,7 +209,8 @@ impl SearchParams {
         cal.check()
             .map_err(|m| Error::corrupt(index.path(), format!("metadata: {m}")))?;
         let choice = cal.choose(recall, index.len());
-        let p = SearchParams::from_index(index, k);
+        // A recall is asked of the embedding (the char counts would give 1).
+        let p = SearchParams::embedded(index, k);
         let visit = match p.source {
             CandidateSource::Cells => choice.visit,
             _ => choice.candidates.saturating_mul(VISIT_PER_CANDIDATE),
@@ -186,6 +223,20 @@ impl SearchParams {
             },
             choice,
         ))
+    }
+
+    /// These parameters with the embedding's own source ([`SearchParams::embedded`]) in
+    /// place of the char counts ([`CandidateSource::Counts`]); another source is kept.
+    /// What asking for candidates, a visit budget or a space means on the command line.
+    pub fn on_embedding(self, index: &Index) -> SearchParams {
+        if self.source == CandidateSource::Counts {
+            SearchParams {
+                source: Self::embedded(index, self.k).source,
+                ..self
+            }
+        } else {
+            self
+        }
     }
 
     /// These parameters with `candidates` and the matching default `visit`.

@@ -280,6 +280,10 @@ struct Run {
     /// This round's items (positions in the tally) by bound: bucket `b` holds bound
     /// `from + b`, the last one every larger bound.
     buckets: Vec<Vec<u32>>,
+    /// Whether an item that can only tie with the `k`-th answer held may be left out (the
+    /// answers are then those of a brute force up to the order of ties): such items need
+    /// not be collected at all.
+    any_tie: bool,
 }
 
 impl Run {
@@ -296,6 +300,17 @@ impl Run {
         }
     }
 
+    /// The largest bound an item must have been measured with for the answers to be
+    /// settled: the cap, or one below it when ties may be left out and `k` are held.
+    fn settled(&self) -> u32 {
+        let cap = self.cap();
+        if self.any_tie && self.full() {
+            cap.saturating_sub(1)
+        } else {
+            cap
+        }
+    }
+
     /// The smallest bound this round collects.
     fn from(&self) -> u32 {
         self.done.map_or(0, |d| d.saturating_add(1))
@@ -305,7 +320,7 @@ impl Run {
     /// most the cap has been measured, or every item at all (`most`: a bound no item
     /// exceeds).
     fn next_round(&mut self, most: u32) {
-        let cap = self.cap();
+        let cap = self.settled();
         if let Some(done) = self.done {
             if done >= cap || done >= most {
                 self.finished = true;
@@ -314,6 +329,7 @@ impl Run {
             }
         }
         self.hi = match self.done {
+            None if self.any_tie => (FIRST_ROUND - 1).min(cap),
             None => FIRST_ROUND.min(cap),
             // The k-th distance held bounds the final one: collect up to it.
             Some(_) if self.full() => cap,
@@ -381,14 +397,14 @@ impl Run {
     }
 }
 
-impl Searcher<'_> {
-    /// Whether the tally answers this index's exact queries: plain Levenshtein.
-    fn tally_applies(&self) -> bool {
-        let meta = self.index.meta();
-        meta.metric == crate::metric::MetricKind::Levenshtein
-            && matches!(meta.metric_spec, crate::metric::MetricSpec::Levenshtein)
-    }
+/// Whether the tally can answer queries on `index`: its metric is plain Levenshtein.
+pub(super) fn applies(index: &crate::index::Index) -> bool {
+    let meta = index.meta();
+    meta.metric == crate::metric::MetricKind::Levenshtein
+        && matches!(meta.metric_spec, crate::metric::MetricSpec::Levenshtein)
+}
 
+impl Searcher<'_> {
     /// Exact answers of `queries` (the `k` nearest, all when `None`, among items within
     /// `radius`, any when `None`) by the char-count bound ([`Tally`]), in input order, for
     /// the queries it takes; `None` for the others, which the caller answers otherwise. It
@@ -403,9 +419,10 @@ impl Searcher<'_> {
         queries: &[String],
         k: Option<usize>,
         radius: Option<f64>,
+        any_tie: bool,
     ) -> Vec<Option<Result<Found>>> {
         let mut answers: Vec<Option<Result<Found>>> = queries.iter().map(|_| None).collect();
-        if !self.tally_applies() || queries.is_empty() {
+        if !applies(self.index) || queries.is_empty() {
             return answers;
         }
         let seen = self.tally_seen.0.load(Relaxed);
@@ -413,10 +430,10 @@ impl Searcher<'_> {
         let mut at = 0;
         if trial > 0 {
             at = trial.min(queries.len());
-            self.tally_run(&queries[..at], k, radius, &mut answers[..at]);
+            self.tally_run(&queries[..at], k, radius, any_tie, &mut answers[..at]);
         }
         if at < queries.len() && self.tally_pays() {
-            self.tally_run(&queries[at..], k, radius, &mut answers[at..]);
+            self.tally_run(&queries[at..], k, radius, any_tie, &mut answers[at..]);
         }
         answers
     }
@@ -437,6 +454,7 @@ impl Searcher<'_> {
         queries: &[String],
         k: Option<usize>,
         radius: Option<f64>,
+        any_tie: bool,
         answers: &mut [Option<Result<Found>>],
     ) {
         let n = self.index.len();
@@ -468,6 +486,7 @@ impl Searcher<'_> {
                             hi: 0,
                             finished: false,
                             buckets: vec![Vec::new(); BUCKETS],
+                            any_tie,
                         },
                     ));
                 }
@@ -490,7 +509,8 @@ impl Searcher<'_> {
                 neighbors: run.best,
                 distances: run.computed,
                 pruned: 0,
-                certificate: Some(Certificate {
+                // Left-out ties make the answers approximate: no certificate.
+                certificate: (!any_tie).then_some(Certificate {
                     examined: n,
                     computed: run.computed,
                     bound: None,
@@ -564,8 +584,15 @@ impl Searcher<'_> {
                             continue;
                         }
                         let item = tally.items[p];
-                        // At the k-th distance an item can only tie, and it enters only if
-                        // it sorts before the k-th answer held.
+                        // At the k-th distance an item can only tie: left out when ties
+                        // may be, else it enters only if it sorts before the k-th answer
+                        // held.
+                        if b == cap && run.full() && run.any_tie {
+                            if slot + 1 < BUCKETS {
+                                break 'visit;
+                            }
+                            continue;
+                        }
                         if b == cap
                             && run.full()
                             && !run.k.is_some_and(|k| {

@@ -142,7 +142,7 @@ fn csv_text_ids_are_strings_and_tsv_output_has_one_line_per_neighbour() {
         .cmd()
         .arg("query")
         .arg(&idx)
-        .args(["-k", "1", "--stats"])
+        .args(["-k", "1", "--stats", "--candidates-from", "scan"])
         .write_stdin("Orvane Quay\n")
         .assert()
         .success()
@@ -151,6 +151,7 @@ fn csv_text_ids_are_strings_and_tsv_output_has_one_line_per_neighbour() {
         .clone();
     let a = answers(&json);
     assert_eq!(a[0].neighbors[0].id, serde_json::json!("KV-001"));
+    // The embedding's landmarks and at least one candidate.
     assert!(a[0].distances.unwrap() >= 2);
 }
 
@@ -1068,4 +1069,44 @@ fn a_folder_as_queries_file_is_a_usage_error() {
             .code(2)
             .stderr(predicates::str::contains("qdir: is a folder"));
     }
+}
+
+/// The char counts answer plain Levenshtein only: asked for on a Jaccard index they are
+/// refused with what and why, before any answer; on a Levenshtein index they are the
+/// default, and asking for them gives the same answers.
+#[test]
+fn char_counts_are_refused_where_they_do_not_apply() {
+    let d = Dir::new();
+    let input = d.write("names.txt", NAMES.as_bytes());
+    let jac = d.build(&input, "jac.wmk", &["--dim", "2", "--metric", "jaccard"]);
+    let queries = d.write("q.txt", b"Orvane Qauy\nKeth Lnding\n");
+    let q = queries.to_str().unwrap();
+    d.cmd()
+        .args([
+            "query",
+            jac.to_str().unwrap(),
+            "--candidates-from",
+            "counts",
+            "--queries",
+            q,
+        ])
+        .assert()
+        .code(2)
+        .stdout("")
+        .stderr(predicates::str::contains("--candidates-from"))
+        .stderr(predicates::str::contains("plain Levenshtein"))
+        .stderr(predicates::str::contains("jaccard"));
+    let lev = d.build(&input, "lev.wmk", &["--dim", "2"]);
+    let run = |extra: &[&str]| {
+        let out = d
+            .cmd()
+            .args(["query", lev.to_str().unwrap(), "-k", "3", "--queries", q])
+            .args(extra)
+            .assert()
+            .success();
+        String::from_utf8_lossy(&out.get_output().stdout).into_owned()
+    };
+    let default = run(&[]);
+    assert_eq!(default.lines().count(), 2, "{default}");
+    assert_eq!(default, run(&["--candidates-from", "counts"]));
 }

@@ -451,3 +451,132 @@ fn box_skipping_keeps_exact_and_range_answers_on_a_large_sample() {
         );
     }
 }
+
+/// The distances of `got`, each checked against strsim's (a reference crate), sorted.
+fn checked_distances(idx: &Index, q: &str, got: &Found) -> Vec<usize> {
+    let mut seen = std::collections::HashSet::new();
+    let mut d: Vec<usize> = got
+        .neighbors
+        .iter()
+        .map(|n| {
+            assert!(seen.insert(n.index), "query {q:?}: item {} twice", n.index);
+            let item = String::from_utf8_lossy(idx.item(n.index as usize)).into_owned();
+            let true_d = strsim::levenshtein(q, &item);
+            assert_eq!(n.distance, true_d as f64, "query {q:?}, item {item:?}");
+            true_d
+        })
+        .collect();
+    d.sort_unstable();
+    d
+}
+
+/// On a plain Levenshtein index the default approximate query takes its candidates from
+/// the char counts and measures them until the answers settle: its answers must be those
+/// of strsim's brute force (a reference crate) up to the order of ties (the same sorted
+/// distances: threshold recall 1), one query at a time, in a batch and for stored items
+/// asked as queries, on every 13th word of Debian's wamerican list with accented and CJK
+/// variants.
+#[test]
+fn the_default_approximate_query_answers_as_the_brute_force_up_to_ties() {
+    let all = read_corpus(word_list_path(), &IngestOptions::default()).unwrap();
+    let mut items: Vec<String> = Vec::new();
+    for (j, w) in all.items.iter().step_by(13).enumerate() {
+        items.push(w.clone());
+        if j % 4 == 0 {
+            items.push(w.replace('a', "á").replace('i', "中"));
+        }
+    }
+    let dir = tempfile::tempdir().unwrap();
+    let idx = build(&corpus(&items), 32, &dir);
+    let s = Searcher::new(&idx);
+    let k = 10;
+    let p = waymark::search::SearchParams::from_index(&idx, k);
+    assert_eq!(p.source, waymark::search::CandidateSource::Counts);
+    let mut queries = waymark::eval::typo_queries(&items, 200, 17);
+    queries.extend(["", "x", "中中", "ábácus", "qqqqqqqqqqqqqqqqqqqq"].map(String::from));
+    let req = waymark::search::Request::Approximate(p);
+    let many = s.answer_many(&queries, &req);
+    let mut scratch = Default::default();
+    for (q, got) in queries.iter().zip(many) {
+        let got = got.unwrap();
+        let mut want: Vec<usize> = within_by_strsim(&idx, q, usize::MAX)
+            .iter()
+            .map(|n| n.distance as usize)
+            .collect();
+        want.truncate(k);
+        assert_eq!(checked_distances(&idx, q, &got), want, "query {q:?}");
+        assert!(
+            got.certificate.is_none(),
+            "an approximate answer has no certificate"
+        );
+        let one = s.search(q, &p, &mut scratch).unwrap();
+        assert_eq!(checked_distances(&idx, q, &one), want, "query {q:?}");
+    }
+    let stored: Vec<u32> = (0..idx.len() as u32).step_by(97).collect();
+    for (&i, got) in stored.iter().zip(s.answer_stored(&stored, &req)) {
+        let q = String::from_utf8_lossy(idx.item(i as usize)).into_owned();
+        let mut want: Vec<usize> = within_by_strsim(&idx, &q, usize::MAX)
+            .iter()
+            .map(|n| n.distance as usize)
+            .collect();
+        want.truncate(k);
+        assert_eq!(checked_distances(&idx, &q, &got.unwrap()), want, "item {i}");
+    }
+}
+
+/// Over four letters the char counts rule out few items: after the searcher's first 32
+/// queries (answered by the counts, as a brute force up to ties: strsim, a reference
+/// crate) the default approximate query hands on to the embedding's own source, and its
+/// answers are then exactly those of that source, on 2,000 invented barcodes.
+#[test]
+fn over_four_letters_the_default_approximate_query_hands_on_to_the_embedding() {
+    let mut x = 0x2545_F491_4F6C_DD1Du64;
+    let mut next = move || {
+        x ^= x << 13;
+        x ^= x >> 7;
+        x ^= x << 17;
+        x
+    };
+    let letters = [b'A', b'C', b'G', b'T'];
+    let items: Vec<String> = (0..2000)
+        .map(|_| {
+            (0..12)
+                .map(|_| letters[(next() % 4) as usize] as char)
+                .collect()
+        })
+        .collect();
+    let queries: Vec<String> = (0..120)
+        .map(|i| {
+            let mut q: Vec<u8> = items[(i * 11) % items.len()].clone().into_bytes();
+            q[(next() % 12) as usize] = letters[(next() % 4) as usize];
+            String::from_utf8(q).unwrap()
+        })
+        .collect();
+    let dir = tempfile::tempdir().unwrap();
+    let idx = build(&corpus(&items), 16, &dir);
+    let s = Searcher::new(&idx);
+    let k = 10;
+    let p = waymark::search::SearchParams::from_index(&idx, k);
+    assert_eq!(p.source, waymark::search::CandidateSource::Counts);
+    let embedded = waymark::search::SearchParams::embedded(&idx, k);
+    assert_ne!(embedded.source, waymark::search::CandidateSource::Counts);
+    let got = s.answer_many(&queries, &waymark::search::Request::Approximate(p));
+    let mut scratch = Default::default();
+    for (j, (q, got)) in queries.iter().zip(got).enumerate() {
+        let got = got.unwrap();
+        if j < 32 {
+            let mut want: Vec<usize> = within_by_strsim(&idx, q, usize::MAX)
+                .iter()
+                .map(|n| n.distance as usize)
+                .collect();
+            want.truncate(k);
+            assert_eq!(checked_distances(&idx, q, &got), want, "query {q:?}");
+        } else {
+            assert_eq!(
+                got,
+                s.search(q, &embedded, &mut scratch).unwrap(),
+                "query {q:?}"
+            );
+        }
+    }
+}

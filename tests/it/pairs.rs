@@ -436,7 +436,7 @@ fn approximate_nearest_pairs_reach_their_measured_recall() {
             &[],
         );
         let exact = brute_nearest(&index, 10);
-        let params = SearchParams::from_index(&index, 10);
+        let params = SearchParams::embedded(&index, 10);
         let (pairs, lists) = nearest(&index, 10, Some(params));
         let r = recall(&lists, &exact);
         eprintln!("{name}: approximate 10-NN recall {r:.4}");

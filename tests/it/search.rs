@@ -162,7 +162,7 @@ fn recall_on_the_debian_word_list_stays_above_the_floor() {
     let idx = Index::open(&path).unwrap();
     let queries = typo_queries(&c.items, 300, 77);
     let s = Searcher::new(&idx);
-    let p = SearchParams::from_index(&idx, 10);
+    let p = SearchParams::embedded(&idx, 10);
     let found = s.search_many(&queries, &p);
     // Blocks of queries share passes over the coordinates: the same answers as one by one.
     let mut scratch = Default::default();
@@ -240,7 +240,7 @@ fn fewer_distinct_items_than_landmarks_gives_a_smaller_embedding() {
     let f = s
         .search(
             "a",
-            &SearchParams::from_index(&idx, 10),
+            &SearchParams::embedded(&idx, 10),
             &mut Default::default(),
         )
         .unwrap();
@@ -316,12 +316,12 @@ fn cells_answer_like_the_scan_and_count_their_work_on_3000_names() {
     let s = Searcher::new(&idx);
     // Below CELLS_MIN_ITEMS the default source is the scan; the cells are asked for.
     assert_eq!(
-        SearchParams::from_index(&idx, 10).source,
+        SearchParams::embedded(&idx, 10).source,
         CandidateSource::Scan
     );
     let defaults = SearchParams {
         source: CandidateSource::Cells,
-        ..SearchParams::from_index(&idx, 10)
+        ..SearchParams::embedded(&idx, 10)
     };
     let mut queries = typo_queries(&items, 30, 5);
     queries.extend(["", "kalthor", "lanmi quay", "zzzz"].map(String::from));
@@ -452,11 +452,11 @@ fn a_version_1_index_without_cells_falls_back_to_the_scan() {
     idx.verify().unwrap();
     assert!(!idx.has_cells());
     assert!(idx.cells().unwrap().is_none());
-    let p = SearchParams::from_index(&idx, 5);
+    let p = SearchParams::embedded(&idx, 5);
     assert_eq!(p.source, CandidateSource::Scan);
     let scan_of_full = SearchParams {
         source: CandidateSource::Scan,
-        ..SearchParams::from_index(&full, 5)
+        ..SearchParams::embedded(&full, 5)
     };
     let (a, b) = (Searcher::new(&idx), Searcher::new(&full));
     let mut scratch = Default::default();
@@ -495,7 +495,7 @@ fn widening_never_loses_an_answer_and_widens_only_queries_that_reach_deep() {
         &BuildOptions::default(),
     );
     assert_eq!(
-        SearchParams::from_index(&idx, 10).widen,
+        SearchParams::embedded(&idx, 10).widen,
         0,
         "a new index stores no widening unless asked"
     );
@@ -503,7 +503,7 @@ fn widening_never_loses_an_answer_and_widens_only_queries_that_reach_deep() {
     let s = Searcher::new(&idx);
     let base = SearchParams {
         widen: 0,
-        ..SearchParams::from_index(&idx, 10).with_candidates(60)
+        ..SearchParams::embedded(&idx, 10).with_candidates(60)
     };
     let wide = SearchParams { widen: 3, ..base };
     let (mut widened, mut r0, mut r1) = (0, 0.0, 0.0);
