@@ -490,13 +490,13 @@ fn main() {
 
     println!();
     println!(
-        "{:<36} {:>10} {:>12} {:>10} {:>10} {:>10}",
+        "{:<48} {:>10} {:>12} {:>10} {:>10} {:>10}",
         "mode", "q/s", "dist/query", "recall@10", "vs ref.", "vs full"
     );
     for r in &rows {
         let vs_ref = ref_qps.map_or("-".to_string(), |q| format!("{:.1}x", r.qps / q));
         println!(
-            "{:<36} {:>10.1} {:>12.1} {:>10.4} {:>10} {:>9.2}x",
+            "{:<48} {:>10.1} {:>12.1} {:>10.4} {:>10} {:>9.2}x",
             r.name,
             r.qps,
             r.dists,

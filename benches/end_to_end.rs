@@ -264,13 +264,13 @@ fn main() {
     }
     println!();
     println!(
-        "{:<36} {:>10} {:>12} {:>10} {:>10} {:>11}",
+        "{:<40} {:>10} {:>12} {:>10} {:>10} {:>11}",
         "configuration", "q/s", "dist/query", "recall@k", "vs ref.", "vs full"
     );
     for r in &rows {
         let vs_ref = ref_qps.map_or("-".to_string(), |q| format!("{:.1}x", r.qps / q));
         println!(
-            "{:<36} {:>10.1} {:>12.1} {:>10.4} {:>10} {:>10.2}x",
+            "{:<40} {:>10.1} {:>12.1} {:>10.4} {:>10} {:>10.2}x",
             r.name,
             r.qps,
             r.dists,

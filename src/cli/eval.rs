@@ -198,28 +198,36 @@ pub(super) fn eval(a: EvalArgs) -> anyhow::Result<()> {
         } else {
             writeln!(
                 out,
-                "{}: {} items, {} coordinates by {}; {} queries, k = {}, candidates ranked in {} {}",
+                "{}: {} items, {} coordinates by {}; {} queries, k = {}, candidates {}",
                 a.index.display(),
                 items,
                 index.meta().dim,
                 index.meta().embedding.name(),
                 queries.len(),
                 a.k,
-                space.name(),
                 match (rows.first().map(|r| r.source), a.visit) {
                     (Some(CandidateSource::Cells), None) => format!(
-                        "from cells ({} rows compared per candidate)",
+                        "ranked in {} from cells ({} rows compared per candidate)",
+                        space.name(),
                         crate::search::VISIT_PER_CANDIDATE
                     ),
-                    (Some(CandidateSource::Cells), Some(0)) => "from cells (every row)".into(),
+                    (Some(CandidateSource::Cells), Some(0)) => {
+                        format!("ranked in {} from cells (every row)", space.name())
+                    }
                     (Some(CandidateSource::Cells), Some(v)) => {
-                        format!("from cells ({v} rows compared per query)")
+                        format!(
+                            "ranked in {} from cells ({v} rows compared per query)",
+                            space.name()
+                        )
                     }
-                    (Some(CandidateSource::Tree), _) => "from the kd-tree".into(),
+                    (Some(CandidateSource::Tree), _) => {
+                        format!("ranked in {} from the kd-tree", space.name())
+                    }
                     (Some(CandidateSource::Counts), _) => {
-                        "by char counts (where they pay; candidates then unused)".into()
+                        "by char counts (where they pay; the candidate count serves where they do not)"
+                            .into()
                     }
-                    _ => "from a scan of every row".into(),
+                    _ => format!("ranked in {} from a scan of every row", space.name()),
                 }
             )?;
             writeln!(out, "{truth_note}")?;
