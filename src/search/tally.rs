@@ -85,26 +85,58 @@ impl Tally {
     /// The counts of every key of `keys` (`n` of them), bins fitted to their chars.
     pub(crate) fn new(keys: &StrTable<'_>, n: usize) -> Tally {
         let bins = CharBins::<BINS>::fitted((0..n).map(|i| keys.get(i)));
-        let mut keyed: Vec<(u32, [u8; BINS], u32)> = (0..n)
+        // Each item's counts and length, then the item numbers by length, within a length by
+        // counts (a block then holds alike items, whose box is tight), then by number; the
+        // counts are put in that order in place, so that no second copy of them is held.
+        let mut counts: Vec<[u8; BINS]> = (0..n)
+            .into_par_iter()
+            .map(|i| bins.counts(keys.get(i)))
+            .collect();
+        let lens: Vec<u32> = (0..n)
+            .into_par_iter()
+            .map(|i| u32::try_from(LevenshteinQuery::item_len(keys.get(i))).unwrap_or(u32::MAX))
+            .collect();
+        // Sorted with a 64-bit prefix of the key beside each number, so that most
+        // comparisons read no row: the length (up to 2^16 − 1), then the first twelve
+        // counts in four bits each, up to the first count of 15 or more (which stands as 15,
+        // with zeros after it: two prefixes that differ then order their keys alike).
+        const LONG: u64 = 0xFFFF;
+        let full = |a: u32, b: u32| {
+            let (a, b) = (a as usize, b as usize);
+            (lens[a], &counts[a], a).cmp(&(lens[b], &counts[b], b))
+        };
+        let mut keyed: Vec<(u64, u32)> = (0..n)
             .into_par_iter()
             .map(|i| {
-                let key = keys.get(i);
-                let len = u32::try_from(LevenshteinQuery::item_len(key)).unwrap_or(u32::MAX);
-                (len, bins.counts(key), i as u32)
+                let mut key = u64::from(lens[i]).min(LONG) << 48;
+                for (j, &c) in counts[i][..12].iter().enumerate() {
+                    key |= u64::from(c.min(15)) << (44 - 4 * j);
+                    if c >= 15 {
+                        break;
+                    }
+                }
+                (key, i as u32)
             })
             .collect();
-        // By counts within a length: a block then holds alike items, whose box is tight.
-        keyed.par_sort_unstable();
-        let longest = keyed.last().map_or(0, |&(len, _, _)| len as usize);
+        keyed.par_sort_unstable_by(|&(ka, a), &(kb, b)| {
+            if ka >> 48 == LONG && kb >> 48 == LONG {
+                full(a, b)
+            } else {
+                ka.cmp(&kb).then_with(|| full(a, b))
+            }
+        });
+        let items: Vec<u32> = keyed.iter().map(|&(_, i)| i).collect();
+        drop(keyed);
+        permute(&mut counts, &items);
+        let longest = lens.iter().copied().max().unwrap_or(0) as usize;
         let mut starts = vec![0usize; longest + 2];
-        for &(len, _, _) in &keyed {
+        for &len in &lens {
             starts[len as usize + 1] += 1;
         }
+        drop(lens);
         for j in 1..starts.len() {
             starts[j] += starts[j - 1];
         }
-        let counts: Vec<[u8; BINS]> = keyed.iter().map(|&(_, c, _)| c).collect();
-        let items: Vec<u32> = keyed.iter().map(|&(_, _, i)| i).collect();
         let mut boxes = Vec::new();
         let mut first_box = Vec::with_capacity(longest + 2);
         for len in 0..=longest {
@@ -172,6 +204,29 @@ impl Tally {
         let gap = len.abs_diff(run.len) as u32;
         let exact = len <= UNSATURATED && run.len <= UNSATURATED;
         bound_of(sad(&self.counts[p], &run.counts), gap, exact)
+    }
+}
+
+/// Puts `rows` in the order `order` (a permutation of their places): the row at place
+/// `order[p]` moves to place `p`, one cycle of the permutation at a time, in place.
+fn permute<T: Copy>(rows: &mut [T], order: &[u32]) {
+    let mut placed = vec![false; rows.len()];
+    for start in 0..rows.len() {
+        if placed[start] {
+            continue;
+        }
+        let first = rows[start];
+        let mut at = start;
+        loop {
+            placed[at] = true;
+            let from = order[at] as usize;
+            if from == start {
+                rows[at] = first;
+                break;
+            }
+            rows[at] = rows[from];
+            at = from;
+        }
     }
 }
 
@@ -791,6 +846,21 @@ mod tests {
                 prop_assert_eq!(a[j], s);
                 prop_assert_eq!(want >> j & 1 == 1, s >= lo && s - lo <= width);
             }
+        }
+
+        /// Putting rows in an order in place gives what gathering them into a new vector
+        /// gives, for any permutation.
+        #[test]
+        fn rows_put_in_order_in_place_are_the_gathered_ones(
+            order in Just((0u32..200).collect::<Vec<u32>>()).prop_shuffle(),
+            len in 0usize..200,
+        ) {
+            let order: Vec<u32> = order.into_iter().filter(|&i| (i as usize) < len).collect();
+            let rows: Vec<u64> = (0..len as u64).map(|i| i * 7 + 3).collect();
+            let want: Vec<u64> = order.iter().map(|&i| rows[i as usize]).collect();
+            let mut got = rows.clone();
+            permute(&mut got, &order);
+            prop_assert_eq!(got, want);
         }
 
         /// The count bound never exceeds the Levenshtein distance of strsim (a reference
