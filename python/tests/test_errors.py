@@ -158,11 +158,18 @@ def test_bad_query_options(tmp_path):
     with pytest.raises(waymark.BadInputError, match="do not take"):
         index.query("Keth", 3, exact=True, candidates=10)
     # As on the command line: a visit budget only counts with cells.
-    for source in ("scan", "tree"):
+    for source in ("scan", "tree", "counts"):
         with pytest.raises(waymark.BadInputError, match=f'candidates_from="{source}" compares no cells'):
             index.query("Keth", 3, candidates_from=source, visit=8)
         with pytest.raises(waymark.BadInputError, match="would ignore it"):
             index.query_many(["Keth"], 3, candidates_from=source, visit=8)
+    # The char counts answer plain Levenshtein only; on it they are the default.
+    assert index.query("Keth", 3, candidates_from="counts") == index.query("Keth", 3)
+    tokens = waymark.build(NAMES, tmp_path / "t.wmk", metric="jaccard")
+    with pytest.raises(waymark.BadInputError, match="applies to plain Levenshtein indexes only"):
+        tokens.query("Keth", 3, candidates_from="counts")
+    with pytest.raises(waymark.BadInputError, match="not one of cells, scan, tree, counts"):
+        index.query("Keth", 3, candidates_from="grid")
     with pytest.raises(waymark.BadInputError, match="do not combine"):
         index.query("Keth", within=1, within_fraction=0.2)
     with pytest.raises(waymark.BadInputError, match="do not take"):

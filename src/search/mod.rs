@@ -237,8 +237,8 @@ impl<'a> Searcher<'a> {
                     return Err(Error::parameter(
                         Param::Source,
                         format!(
-                            "the char counts apply to plain Levenshtein indexes only, and this \
-                             one's metric is {}: take the cells, the scan or the tree",
+                            "counts (the char counts) applies to plain Levenshtein indexes \
+                             only, and this one's metric is {}: use cells, scan or tree",
                             self.index.meta().metric.name()
                         ),
                     ));
