@@ -179,25 +179,33 @@ fn main() {
             recall: 1.0,
         },
     ]);
+    // A row of approximate answers: `searcher` answers every query with `p`, timed.
+    let approximate = |name: String, searcher: &Searcher, p: &SearchParams| {
+        let t = Instant::now();
+        let found = searcher.search_many(&queries, p);
+        let secs = t.elapsed().as_secs_f64();
+        let (mut rec, mut dist) = (0.0, 0usize);
+        for (f, td) in found.iter().zip(&truth_d) {
+            let f = f.as_ref().expect("query");
+            dist += f.distances;
+            let got: Vec<(u32, f64)> = f.neighbors.iter().map(|n| (n.index, n.distance)).collect();
+            rec += threshold_recall(td, &got, k);
+        }
+        Row {
+            name,
+            qps: nq as f64 / secs,
+            dists: dist as f64 / nq as f64,
+            recall: rec / nq as f64,
+        }
+    };
     // Today's default approximate query: candidates from the char counts (the searcher
     // made them on its first query above).
     let counts = SearchParams::from_index(&index, k);
-    let t = Instant::now();
-    let found = searcher.search_many(&queries, &counts);
-    let secs = t.elapsed().as_secs_f64();
-    let (mut rec, mut dist) = (0.0, 0usize);
-    for (f, td) in found.iter().zip(&truth_d) {
-        let f = f.as_ref().expect("query");
-        dist += f.distances;
-        let got: Vec<(u32, f64)> = f.neighbors.iter().map(|n| (n.index, n.distance)).collect();
-        rec += threshold_recall(td, &got, k);
-    }
-    rows.push(Row {
-        name: format!("default (candidates from {})", counts.source.name()),
-        qps: nq as f64 / secs,
-        dists: dist as f64 / nq as f64,
-        recall: rec / nq as f64,
-    });
+    rows.push(approximate(
+        format!("default (candidates from {})", counts.source.name()),
+        &searcher,
+        &counts,
+    ));
     for &d in &dims {
         let path = dir.path().join(format!("d{d}.wmk"));
         let t = Instant::now();
@@ -240,24 +248,11 @@ fn main() {
                         visit: c * waymark::search::VISIT_PER_CANDIDATE,
                         widen: 0,
                     };
-                    let t = Instant::now();
-                    let found = s.search_many(&queries, &p);
-                    let secs = t.elapsed().as_secs_f64();
-                    let mut rec = 0.0;
-                    let mut dist = 0usize;
-                    for (f, td) in found.iter().zip(&truth_d) {
-                        let f = f.as_ref().expect("query");
-                        dist += f.distances;
-                        let got: Vec<(u32, f64)> =
-                            f.neighbors.iter().map(|n| (n.index, n.distance)).collect();
-                        rec += threshold_recall(td, &got, k);
-                    }
-                    rows.push(Row {
-                        name: format!("d={d:<2} {:<4} {:<4} C={c}", sp, src.name()),
-                        qps: nq as f64 / secs,
-                        dists: dist as f64 / nq as f64,
-                        recall: rec / nq as f64,
-                    });
+                    rows.push(approximate(
+                        format!("d={d:<2} {:<4} {:<4} C={c}", sp, src.name()),
+                        &s,
+                        &p,
+                    ));
                 }
             }
         }

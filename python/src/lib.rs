@@ -461,17 +461,23 @@ fn landmark_rule(name: &str) -> PyResult<LandmarkRule> {
 }
 
 fn source(name: &str) -> PyResult<CandidateSource> {
-    Ok(match name {
-        "cells" => CandidateSource::Cells,
-        "scan" => CandidateSource::Scan,
-        "tree" => CandidateSource::Tree,
-        "counts" => CandidateSource::Counts,
-        other => {
-            return Err(bad(format!(
-                "candidates_from `{other}` is not one of cells, scan, tree, counts"
-            )))
-        }
-    })
+    // The command line's names (`CandidateSource::name`).
+    const SOURCES: [CandidateSource; 4] = [
+        CandidateSource::Cells,
+        CandidateSource::Scan,
+        CandidateSource::Tree,
+        CandidateSource::Counts,
+    ];
+    SOURCES
+        .into_iter()
+        .find(|s| s.name() == name)
+        .ok_or_else(|| {
+            let names: Vec<&str> = SOURCES.iter().map(|s| s.name()).collect();
+            bad(format!(
+                "candidates_from `{name}` is not one of {}",
+                names.join(", ")
+            ))
+        })
 }
 
 fn input_format(name: &str) -> PyResult<InputFormat> {

@@ -294,7 +294,7 @@ impl<'a> Searcher<'a> {
     pub fn search_many(&self, queries: &[String], p: &SearchParams) -> Vec<Result<Found>> {
         if p.source == CandidateSource::Counts && self.check(&Request::Approximate(*p)).is_ok() {
             let answers = self.tally_answers(queries, Some(p.k), None, true);
-            return self.fill_in(answers, |left| {
+            return Self::fill_in(answers, |left| {
                 let texts: Vec<String> = left.iter().map(|&j| queries[j].clone()).collect();
                 self.search_many(&texts, &self.fallback(p))
             });
@@ -506,7 +506,7 @@ impl<'a> Searcher<'a> {
                     .map(|&i| String::from_utf8_lossy(self.index.item(i as usize)).into_owned())
                     .collect();
                 let answers = self.tally_answers(&texts, Some(p.k), None, true);
-                return self.fill_in(answers, |left| {
+                return Self::fill_in(answers, |left| {
                     let rest: Vec<u32> = left.iter().map(|&j| items[j]).collect();
                     self.answer_stored(&rest, &Request::Approximate(self.fallback(&p)))
                 });
@@ -583,7 +583,6 @@ impl<'a> Searcher<'a> {
     /// The answers of `answers`, those missing (`None`) answered by `rest` (given their
     /// places, it returns their answers in that order).
     fn fill_in(
-        &self,
         mut answers: Vec<Option<Result<Found>>>,
         rest: impl FnOnce(&[usize]) -> Vec<Result<Found>>,
     ) -> Vec<Result<Found>> {

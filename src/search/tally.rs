@@ -467,8 +467,9 @@ impl Searcher<'_> {
     /// [`TRIAL`] queries of this searcher are its trial, and after them it takes queries
     /// only while the mean number of items they measured is at most `n /`
     /// [`PAYS_DIVISOR`] (where the counts rule out few items, as for reads over four
-    /// letters, the column blocks or the many-query lanes are faster). The request has been
-    /// checked.
+    /// letters, the column blocks or the many-query lanes are faster). With `any_tie` the
+    /// answers are exact up to the order of ties (items that could only tie with the `k`-th
+    /// answer are left out) and carry no certificate. The request has been checked.
     pub(super) fn tally_answers(
         &self,
         queries: &[String],
