@@ -20,6 +20,7 @@
 //! - `WAYMARK_BIG_PROFILE` `approx` (the default: char counts), `embedded` (the
 //!   embedding's default), `exact` or `range`: run only that mode, three times,
 //!   without brute forces or checks (for a profiler) [unset]
+//! - `WAYMARK_BIG_TIMES` how many times that one mode runs [3]
 //! - `WAYMARK_BIG_SMALL` radii of deletion-variant tables (`build --small-radius`): for
 //!   each, a second index is built with the table, and range R = 1, R = 2 and exact
 //!   queries run on it, checked against brute force [2; empty: none]
@@ -139,7 +140,11 @@ fn main() {
             "embedded" => Request::Approximate(SearchParams::embedded(&index, k)),
             _ => Request::Approximate(SearchParams::from_index(&index, k)),
         };
-        for _ in 0..3 {
+        let times: usize = std::env::var("WAYMARK_BIG_TIMES")
+            .ok()
+            .and_then(|v| v.parse().ok())
+            .unwrap_or(3);
+        for _ in 0..times {
             let t = Instant::now();
             let found = searcher.answer_many(&queries, &req);
             let secs = t.elapsed().as_secs_f64();

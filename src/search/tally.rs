@@ -8,15 +8,21 @@
 //! sum of absolute differences of 16 bytes, which x86-64 computes in one instruction
 //! (`psadbw`, part of SSE2, which every x86-64 CPU has).
 //!
-//! The items are held by length in chars, each with its 16 counts (16 bytes an item: 10.6
-//! MB at 663,473 words, made on the first query). Queries go in groups of alike lengths;
-//! each group reads the items of its own lengths first, then of lengths one further away,
-//! and so on, in chunks whose counts stay in cache while every query of the group is
-//! compared with them. An item is measured (the bounded kernel,
-//! [`LevenshteinQuery::dist_within`]) only when its bound is within the query's cap: the
-//! radius, or the `k`-th distance held. Until a query holds `k` answers, a chunk's items
-//! are measured in increasing bound, so that its cap falls early. A query stops reading at
-//! the length gap above its cap, and a group when every query of it has stopped.
+//! The items are held by length in chars, each with its counts in 32 bins (32 bytes an
+//! item: 21.2 MB at 663,473 words, made on the first query). Queries go in groups of alike
+//! lengths, in rounds: a round collects the items whose bound lies in its range, and each
+//! group reads the items of its middle query's length first, then of lengths one further
+//! away, and so on, in chunks whose counts stay in cache while every query of the group is
+//! compared with them (a block of 32 items whose box is beyond the range is skipped
+//! whole). An item is measured (the lane kernel, [`LevenshteinQuery::dist_batch`], or the
+//! bounded one) only when its bound is within the query's cap: the radius, or the `k`-th
+//! distance held. Collected items are measured in increasing bound, so that the cap falls
+//! early, and the rounds go on until every item whose bound is within the cap has been.
+//!
+//! Where ties may be left out (the approximate default), the rounds after the first take
+//! one bound `b` at a time and fill: every item of a smaller bound has been measured, so
+//! any `k` answers within `b` are a brute force's up to the order of ties, and the round
+//! measures as it reads and stops at the first `k`.
 //!
 //! An item not measured had a bound above a cap that is at least the final `k`-th distance
 //! (or the radius), so its distance is larger and it cannot enter an answer, tie or not:
@@ -332,6 +338,11 @@ struct Run {
     /// This round collects bounds in `(done, hi]`.
     hi: u32,
     finished: bool,
+    /// This round measures its items as it collects them and stops reading once `k`
+    /// answers are held within its bound ([`Run::fill`]).
+    filling: bool,
+    /// This filling round stopped reading early.
+    stopped: bool,
     /// This round's items (positions in the tally) by bound: bucket `b` holds bound
     /// `from + b`, the last one every larger bound.
     buckets: Vec<Vec<u32>>,
@@ -383,15 +394,43 @@ impl Run {
                 return;
             }
         }
+        // Leaving ties out, the rounds after the first take one bound at a time and fill:
+        // once every item of a bound below `b` has been measured, any items at distance `b`
+        // complete the answers, wherever they lie, so the round stops reading as soon as
+        // it holds `k` within `b`.
+        self.filling = self.any_tie && self.done.is_some() && self.k.is_some();
+        self.stopped = false;
         self.hi = match self.done {
             None if self.any_tie => (FIRST_ROUND - 1).min(cap),
             None => FIRST_ROUND.min(cap),
+            Some(done) if self.filling => done.saturating_add(1).min(cap),
             // The k-th distance held bounds the final one: collect up to it.
             Some(_) if self.full() => cap,
             Some(done) => done.saturating_mul(2).saturating_add(1).min(cap),
         };
         for b in &mut self.buckets {
             b.clear();
+        }
+    }
+
+    /// In a filling round, measures the items collected so far (all of the round's bound)
+    /// and stops the round once `k` answers are held within it.
+    fn fill(&mut self, index: &crate::index::Index, tally: &Tally, keys: &StrTable<'_>) {
+        let items = std::mem::take(&mut self.buckets[0]);
+        if self.lanes() {
+            for part in items.chunks(LANES) {
+                self.measure_lanes(index, tally, keys, part);
+            }
+        } else {
+            for &p in &items {
+                let p = p as usize;
+                self.measure(index, tally.items[p], tally.key(p, keys));
+            }
+        }
+        self.buckets[0] = items;
+        self.buckets[0].clear();
+        if self.full() && self.cap() <= self.hi {
+            self.stopped = true;
         }
     }
 
@@ -541,6 +580,8 @@ impl Searcher<'_> {
                             done: None,
                             hi: 0,
                             finished: false,
+                            filling: false,
+                            stopped: false,
                             buckets: vec![Vec::new(); BUCKETS],
                             any_tie,
                         },
@@ -596,19 +637,35 @@ impl Searcher<'_> {
                 }
             }
             let Some((first, last)) = lens else { return };
-            for len in first..=last.min(longest) {
+            // Lengths nearest the group's middle query first: a filling round finds its
+            // answers there soonest.
+            let middle = runs[runs.len() / 2].1.len;
+            let mut order: Vec<usize> = (first..=last.min(longest)).collect();
+            order.sort_by_key(|&len| (len.abs_diff(middle), len));
+            for len in order {
                 let span = tally.of(len);
                 let blocks = tally.first_box[len]..tally.first_box[len + 1];
                 let mut at = blocks.start;
                 while at < blocks.end {
                     let chunk = at..(at + CHUNK_BLOCKS).min(blocks.end);
                     at = chunk.end;
-                    for (_, run) in runs.iter_mut().filter(|(_, r)| !r.finished) {
+                    for (_, run) in runs.iter_mut().filter(|(_, r)| !r.finished && !r.stopped) {
                         collect(tally, run, len, span.start, blocks.start, chunk.clone());
+                        if run.filling {
+                            run.fill(self.index, tally, &self.keys);
+                        }
                     }
                 }
             }
             for (_, run) in runs.iter_mut().filter(|(_, r)| !r.finished) {
+                if run.filling {
+                    // A round that read every item has measured all of its bound; one that
+                    // stopped holds k within it, which ends the query.
+                    if !run.stopped {
+                        run.done = Some(run.hi);
+                    }
+                    continue;
+                }
                 let from = run.from();
                 let buckets = std::mem::take(&mut run.buckets);
                 'visit: for (slot, items) in buckets.iter().enumerate() {
