@@ -17,7 +17,10 @@
 //!
 //! Every family has two query sets: a calibration set and a held-out set (independent
 //! seeds; the british, register and barcode queries split in two at random). Printed per
-//! family, on the held-out set: the defaults' recall and q/s; for each asked recall (0.9,
+//! family, on the held-out set: recall and q/s of the default (char counts on a plain
+//! Levenshtein index, which hand on to the embedding where they rule out too few items), of
+//! the embedding's own default, and of the embedding's defaults before the recall work (L1,
+//! fewer candidates); for each asked recall (0.9,
 //! 0.95, 0.99) the candidates the build's curve (from the index's own items) chose and the
 //! recall reached; the same with the curve measured on the calibration set
 //! (`eval --calibrate`). Beside today's landmarks (farthest-first from a sample), the
@@ -238,27 +241,34 @@ fn main() {
             None
         };
         let scan_s = t.elapsed().as_secs_f64();
+        // The default (char counts on a plain Levenshtein index, else the embedding's), the
+        // embedding's own default, and the embedding's defaults before the recall work.
         let new = SearchParams::from_index(&index, K);
+        let emb = SearchParams::embedded(&index, K);
         let old = SearchParams {
             widen: 0,
             space: waymark::search::Space::L1,
-            ..new.with_candidates(old_candidates(n))
+            ..emb.with_candidates(old_candidates(n))
         };
-        // Today's and the new defaults, twice each, alternating (the machine is shared:
-        // the better of two runs of each stands for its speed).
+        // Each twice, alternating (the machine is shared: the better of two runs of each
+        // stands for its speed).
         let mut rows = Vec::new();
-        for p in [old, new, old, new] {
+        for p in [old, emb, new, old, emb, new] {
             rows.push(measure_recall(&index, &f.heldout, &held_truth, &p).expect("measure"));
         }
         let qps = |a: &waymark::eval::RecallRow, b: &waymark::eval::RecallRow| a.qps.max(b.qps);
-        let (old_row, new_row) = (&rows[0], &rows[1]);
-        let (old_qps, new_qps) = (qps(&rows[0], &rows[2]), qps(&rows[1], &rows[3]));
+        let (old_row, emb_row, new_row) = (&rows[0], &rows[1], &rows[2]);
+        let (old_qps, emb_qps, new_qps) = (
+            qps(&rows[0], &rows[3]),
+            qps(&rows[1], &rows[4]),
+            qps(&rows[2], &rows[5]),
+        );
         for (m, w, opt) in &tries {
             let (m, w) = (*m, *w);
             let c = (old_candidates(n) as f64 * m) as usize;
             let mut p = SearchParams {
                 widen: w,
-                ..new.with_candidates(c)
+                ..emb.with_candidates(c)
             };
             for o in opt.split('+') {
                 match o {
@@ -281,7 +291,13 @@ fn main() {
             n.to_string(),
             f.heldout.len().to_string(),
             format!("{}, {:.4}, {:.0}", old.candidates, old_row.recall, old_qps),
-            format!("{}, {:.4}, {:.0}", new.candidates, new_row.recall, new_qps),
+            format!("{}, {:.4}, {:.0}", emb.candidates, emb_row.recall, emb_qps),
+            format!(
+                "{}, {:.4}, {:.0}",
+                new.source.name(),
+                new_row.recall,
+                new_qps
+            ),
         ];
         if let Some(cal_truth) = &cal_truth {
             let from_queries =
@@ -314,13 +330,17 @@ fn main() {
             }
         }
         println!(
-            "{}: {} + {} queries, brute force {scan_s:.1} s; today {:.4} at {:.0} q/s ({:.0} distances per query), new {:.4} at {:.0} q/s ({:.0})",
+            "{}: {} + {} queries, brute force {scan_s:.1} s; embedding before {:.4} at {:.0} q/s ({:.0} distances per query), embedding now {:.4} at {:.0} q/s ({:.0}), default ({}) {:.4} at {:.0} q/s ({:.0})",
             f.name,
             f.calibration.len(),
             f.heldout.len(),
             old_row.recall,
             old_qps,
             old_row.distances_per_query,
+            emb_row.recall,
+            emb_qps,
+            emb_row.distances_per_query,
+            new.source.name(),
             new_row.recall,
             new_qps,
             new_row.distances_per_query,
@@ -328,8 +348,8 @@ fn main() {
         table.push(cells);
     }
     println!();
-    println!("| family | items | held-out queries | before: C (L1), recall@10, q/s | now: C (L2), recall@10, q/s | R = 0.9: C, recall (items curve / queries curve) | R = 0.95 | R = 0.99 |");
-    println!("|---|---:|---:|---:|---:|---:|---:|---:|");
+    println!("| family | items | held-out queries | embedding before: C (L1), recall@10, q/s | embedding now: C (L2), recall@10, q/s | default: source, recall@10, q/s | R = 0.9: C, recall (items curve / queries curve) | R = 0.95 | R = 0.99 |");
+    println!("|---|---:|---:|---:|---:|---:|---:|---:|---:|");
     for c in table {
         println!("| {} |", c.join(" | "));
     }
