@@ -240,6 +240,11 @@ impl SearchParams {
     }
 
     /// These parameters with `candidates` and the matching default `visit`.
+    ///
+    /// The count is the embedding's: with the char counts as the source (what
+    /// [`SearchParams::from_index`] gives on a plain Levenshtein index) it serves only the
+    /// queries the counts hand on to the embedding. To search the embedding with it, as
+    /// `waymark query --candidates` does, call [`SearchParams::on_embedding`] too.
     pub fn with_candidates(self, candidates: usize) -> SearchParams {
         SearchParams {
             candidates,
