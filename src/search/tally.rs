@@ -1,12 +1,12 @@
 //! Exact k-NN and range queries under plain Levenshtein by the char-count bound, with the
 //! items read by length ([`Tally`], [`Searcher::tally_answers`]).
 //!
-//! With `A` and `B` the numbers of chars of two strings in each of 16 bins
+//! With `A` and `B` the numbers of chars of two strings in each of 32 bins
 //! ([`CharBins`]), the distance is at least `max(Σ (A − B)⁺, Σ (B − A)⁺)` (one edit lowers
 //! each sum by at most one). The two sums add up to `Σ |A − B|` and differ by the
 //! difference of the lengths, so the bound is `(Σ |A − B| + |len a − len b|) / 2`: one
-//! sum of absolute differences of 16 bytes, which x86-64 computes in one instruction
-//! (`psadbw`, part of SSE2, which every x86-64 CPU has).
+//! sum of absolute differences of 32 bytes, which x86-64 computes in two instructions
+//! (`psadbw`, part of SSE2, which every x86-64 CPU has), or one with AVX2.
 //!
 //! The items are held by length in chars, each with its counts in 32 bins (32 bytes an
 //! item: 21.2 MB at 663,473 words, made on the first query). Queries go in groups of alike
