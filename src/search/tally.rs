@@ -9,9 +9,9 @@
 //! (`psadbw`, part of SSE2, which every x86-64 CPU has), or one with AVX2.
 //!
 //! The items are held by length in chars, each with its counts in 32 bins (32 bytes an
-//! item: 21.2 MB at 663,473 words, made on the first query). Queries go in groups of alike
-//! lengths, in rounds: a round collects the items whose bound lies in its range, and each
-//! group reads the items of its middle query's length first, then of lengths one further
+//! item: 21.2 MB at 663,473 words, made on the first query). Queries go in groups of one
+//! length, in rounds: a round collects the items whose bound lies in its range, and each
+//! group reads the items of its own length first, then of lengths one further
 //! away, and so on, in chunks whose counts stay in cache while every query of the group is
 //! compared with them (a block of 32 items whose box is beyond the range is skipped
 //! whole). An item is measured (the lane kernel, [`LevenshteinQuery::dist_batch`], or the
@@ -590,10 +590,26 @@ impl Searcher<'_> {
             }
         }
         runs.sort_by_key(|(i, r)| (r.len, *i));
-        // Groups small enough that every core has several.
+        // Groups small enough that every core has several, each of one length: a group
+        // reads the lengths nearest its own first, so that a query meets the items in the
+        // same order, and a filling round stops at the same answers, alone or in a batch.
         let threads = rayon::current_num_threads().max(1);
         let group = runs.len().div_ceil(4 * threads).clamp(1, GROUP);
-        runs.par_chunks_mut(group)
+        let mut groups: Vec<&mut [(usize, Run)]> = Vec::new();
+        let mut rest: &mut [(usize, Run)] = &mut runs;
+        while !rest.is_empty() {
+            let len = rest[0].1.len;
+            let end = rest
+                .iter()
+                .take(group)
+                .position(|(_, r)| r.len != len)
+                .unwrap_or(group.min(rest.len()));
+            let (head, tail) = std::mem::take(&mut rest).split_at_mut(end);
+            groups.push(head);
+            rest = tail;
+        }
+        groups
+            .into_par_iter()
             .for_each(|g| self.tally_group(tally, g));
         let measured: usize = runs.iter().map(|(_, r)| r.computed).sum();
         self.tally_seen.0.fetch_add(runs.len() as u64, Relaxed);
@@ -637,11 +653,11 @@ impl Searcher<'_> {
                 }
             }
             let Some((first, last)) = lens else { return };
-            // Lengths nearest the group's middle query first: a filling round finds its
-            // answers there soonest.
-            let middle = runs[runs.len() / 2].1.len;
+            // Lengths nearest the group's own first (its queries have one length): a
+            // filling round finds its answers there soonest.
+            let own = runs[0].1.len;
             let mut order: Vec<usize> = (first..=last.min(longest)).collect();
-            order.sort_by_key(|&len| (len.abs_diff(middle), len));
+            order.sort_by_key(|&len| (len.abs_diff(own), len));
             for len in order {
                 let span = tally.of(len);
                 let blocks = tally.first_box[len]..tally.first_box[len + 1];

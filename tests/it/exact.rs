@@ -511,6 +511,10 @@ fn the_default_approximate_query_answers_as_the_brute_force_up_to_ties() {
         );
         let one = s.search(q, &p, &mut scratch).unwrap();
         assert_eq!(checked_distances(&idx, q, &one), want, "query {q:?}");
+        // Alone or in a batch, a query gets the same items, ties included.
+        let ids =
+            |f: &waymark::search::Found| f.neighbors.iter().map(|n| n.index).collect::<Vec<_>>();
+        assert_eq!(ids(&one), ids(&got), "query {q:?}: alone and in a batch");
     }
     let stored: Vec<u32> = (0..idx.len() as u32).step_by(97).collect();
     for (&i, got) in stored.iter().zip(s.answer_stored(&stored, &req)) {
