@@ -339,10 +339,8 @@ struct Run {
     hi: u32,
     finished: bool,
     /// This round measures its items as it collects them and stops reading once `k`
-    /// answers are held within its bound ([`Run::fill`]).
+    /// answers are held within its bound ([`Run::fill`], [`Run::stopped`]).
     filling: bool,
-    /// This filling round stopped reading early.
-    stopped: bool,
     /// This round's items (positions in the tally) by bound: bucket `b` holds bound
     /// `from + b`, the last one every larger bound.
     buckets: Vec<Vec<u32>>,
@@ -399,7 +397,6 @@ impl Run {
         // complete the answers, wherever they lie, so the round stops reading as soon as
         // it holds `k` within `b`.
         self.filling = self.any_tie && self.done.is_some() && self.k.is_some();
-        self.stopped = false;
         self.hi = match self.done {
             None if self.any_tie => (FIRST_ROUND - 1).min(cap),
             None => FIRST_ROUND.min(cap),
@@ -416,7 +413,7 @@ impl Run {
     /// In a filling round, measures the items collected so far (all of the round's bound)
     /// and stops the round once `k` answers are held within it.
     fn fill(&mut self, index: &crate::index::Index, tally: &Tally, keys: &StrTable<'_>) {
-        let items = std::mem::take(&mut self.buckets[0]);
+        let mut items = std::mem::take(&mut self.buckets[0]);
         if self.lanes() {
             for part in items.chunks(LANES) {
                 self.measure_lanes(index, tally, keys, part);
@@ -427,11 +424,14 @@ impl Run {
                 self.measure(index, tally.items[p], tally.key(p, keys));
             }
         }
+        items.clear();
         self.buckets[0] = items;
-        self.buckets[0].clear();
-        if self.full() && self.cap() <= self.hi {
-            self.stopped = true;
-        }
+    }
+
+    /// Whether this filling round holds `k` answers within its bound, and so stops reading
+    /// (a round never starts so: the query would have finished).
+    fn stopped(&self) -> bool {
+        self.filling && self.full() && self.cap() <= self.hi
     }
 
     /// Whether the query fits the one-query lane kernel ([`LevenshteinQuery::dist_batch`]).
@@ -581,7 +581,6 @@ impl Searcher<'_> {
                             hi: 0,
                             finished: false,
                             filling: false,
-                            stopped: false,
                             buckets: vec![Vec::new(); BUCKETS],
                             any_tie,
                         },
@@ -595,19 +594,10 @@ impl Searcher<'_> {
         // same order, and a filling round stops at the same answers, alone or in a batch.
         let threads = rayon::current_num_threads().max(1);
         let group = runs.len().div_ceil(4 * threads).clamp(1, GROUP);
-        let mut groups: Vec<&mut [(usize, Run)]> = Vec::new();
-        let mut rest: &mut [(usize, Run)] = &mut runs;
-        while !rest.is_empty() {
-            let len = rest[0].1.len;
-            let end = rest
-                .iter()
-                .take(group)
-                .position(|(_, r)| r.len != len)
-                .unwrap_or(group.min(rest.len()));
-            let (head, tail) = std::mem::take(&mut rest).split_at_mut(end);
-            groups.push(head);
-            rest = tail;
-        }
+        let groups: Vec<&mut [(usize, Run)]> = runs
+            .chunk_by_mut(|a, b| a.1.len == b.1.len)
+            .flat_map(|same| same.chunks_mut(group))
+            .collect();
         groups
             .into_par_iter()
             .for_each(|g| self.tally_group(tally, g));
@@ -665,7 +655,7 @@ impl Searcher<'_> {
                 while at < blocks.end {
                     let chunk = at..(at + CHUNK_BLOCKS).min(blocks.end);
                     at = chunk.end;
-                    for (_, run) in runs.iter_mut().filter(|(_, r)| !r.finished && !r.stopped) {
+                    for (_, run) in runs.iter_mut().filter(|(_, r)| !r.finished && !r.stopped()) {
                         collect(tally, run, len, span.start, blocks.start, chunk.clone());
                         if run.filling {
                             run.fill(self.index, tally, &self.keys);
@@ -677,7 +667,7 @@ impl Searcher<'_> {
                 if run.filling {
                     // A round that read every item has measured all of its bound; one that
                     // stopped holds k within it, which ends the query.
-                    if !run.stopped {
+                    if !run.stopped() {
                         run.done = Some(run.hi);
                     }
                     continue;
