@@ -630,7 +630,10 @@ pub struct PartDrift {
 }
 
 /// The exclusive right to change an index, held until dropped: an advisory lock on
-/// `.NAME.waymark-lock` beside it (dropped by the system with a killed process).
+/// `.NAME.waymark-lock` beside it, let go on every return (an error partway included) and
+/// by the system with a killed process. The file itself is left in place on purpose: only
+/// the lock on it excludes, so a file left behind never blocks a writer, whereas removing
+/// it could let one writer lock the removed file while another locks a new one.
 pub struct WriterLock {
     _file: File,
 }

@@ -266,8 +266,11 @@ fn load_vectors(path: &Path, norm: Norm, header: bool) -> Result<LoadedInput> {
 
 /// The text of a side file or edge list, read within the memory budget as every other
 /// input (an endless device stops with an error); a line that ends with a lone carriage
-/// return ([`super::lone_cr_error`]: `str::lines` splits only at `\n`, so the lines it
-/// ended were read as one) and invalid UTF-8 are refused with their line.
+/// return is refused as in every input, as an input error ([`super::lone_cr_error`]: the
+/// Python package raises it as bad input, where a metric's error is a failed metric), and
+/// the rest is the library's reading of a side file ([`crate::metric::side_file_text`],
+/// which `Graph::from_path` and `CostTable::from_path` use, and which refuses the same CR
+/// with the same message: invalid UTF-8 is refused with its line).
 fn read_text(path: &Path) -> Result<String> {
     use std::io::Read;
     let name = path.display().to_string();
@@ -282,15 +285,7 @@ fn read_text(path: &Path) -> Result<String> {
     if let Some((line, byte)) = super::first_lone_cr(&bytes) {
         return Err(super::lone_cr_error(&name, line, byte).into());
     }
-    String::from_utf8(bytes).map_err(|e| {
-        let at = e.utf8_error().valid_up_to();
-        let line = e.as_bytes()[..at].iter().filter(|&&b| b == b'\n').count() as u64 + 1;
-        Error::from(crate::metric::MetricError::Line {
-            source_name: name.clone(),
-            line,
-            message: "invalid UTF-8".into(),
-        })
-    })
+    Ok(crate::metric::side_file_text(bytes, &name)?)
 }
 
 /// Reads an edge list; its nodes are the items (and their ids).

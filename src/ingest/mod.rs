@@ -55,32 +55,22 @@ pub use load::{load_input, text_metric_spec, LoadedInput, MetricOptions, DEFAULT
 pub use queries::{read_queries, QueryLayout, QueryRecord};
 pub use vectors::parse_vector;
 
+pub(crate) use crate::metric::first_lone_cr;
+
 /// The UTF-8 byte-order mark, dropped at the start of an input.
 const BOM: &[u8] = b"\xEF\xBB\xBF";
 
 /// The error for a carriage return with no line feed after it, at 1-based `byte` of the
-/// file, on `line` (lines counted by line feeds, right up to the first lone CR). Lines that
-/// end with a lone CR (old Mac line ends) are refused rather than read, so that every line
-/// number a reader reports is the line an editor shows.
+/// file, on `line` (lines counted by line feeds, right up to the first lone CR; see
+/// [`first_lone_cr`]). Lines that end with a lone CR (old Mac line ends) are refused rather
+/// than read, so that every line number a reader reports is the line an editor shows. The
+/// message is the one the metrics' side-file readers give ([`crate::metric::lone_cr_message`]).
 pub(crate) fn lone_cr_error(source_name: &str, line: u64, byte: u64) -> IngestError {
     IngestError::Record {
         source_name: source_name.to_string(),
         line,
-        message: format!(
-            "a carriage return (\\r) with no line feed after it, at byte {byte} of the file: \
-             lines that end with a lone CR (old Mac line ends) are not read; end the lines \
-             with \\n or \\r\\n (for instance `tr '\\r' '\\n' < OLD > NEW`)"
-        ),
+        message: crate::metric::lone_cr_message(byte),
     }
-}
-
-/// The first carriage return in `text` with no line feed after it (a CR ending the text
-/// counts as a line end): its 1-based line, counted by line feeds, and 1-based byte.
-pub(crate) fn first_lone_cr(text: &[u8]) -> Option<(u64, u64)> {
-    let at = (0..text.len())
-        .find(|&i| text[i] == b'\r' && i + 1 < text.len() && text[i + 1] != b'\n')?;
-    let line = text[..at].iter().filter(|&&c| c == b'\n').count() as u64 + 1;
-    Some((line, at as u64 + 1))
 }
 
 /// Takes the line ending (`\n` or `\r\n`) off `buf`, one line as `read_until(b'\n', …)`

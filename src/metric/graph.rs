@@ -99,23 +99,16 @@ impl Ord for Entry {
 }
 
 impl Graph {
-    /// Reads an edge list.
+    /// Reads an edge list. A line that ends with a carriage return and no line feed (old
+    /// Mac line ends) and invalid UTF-8 are refused, naming the file and line (and the
+    /// CR's byte); CRLF line ends are read.
     pub fn from_path(path: &Path) -> Result<Graph, MetricError> {
         let name = path.display().to_string();
-        let text = std::fs::read(path).map_err(|error| MetricError::Io {
+        let bytes = std::fs::read(path).map_err(|error| MetricError::Io {
             source_name: name.clone(),
             error,
         })?;
-        let text = String::from_utf8(text).map_err(|e| {
-            let at = e.utf8_error().valid_up_to();
-            let line = e.as_bytes()[..at].iter().filter(|&&b| b == b'\n').count() as u64 + 1;
-            MetricError::Line {
-                source_name: name.clone(),
-                line,
-                message: "invalid UTF-8".into(),
-            }
-        })?;
-        Graph::parse(&text, &name)
+        Graph::parse(&super::side_file_text(bytes, &name)?, &name)
     }
 
     /// Parses the text of an edge list; `source_name` is used in errors.

@@ -44,6 +44,7 @@ pub use check::{check_axioms, Axiom, AxiomReport, Violation, TOLERANCE};
 pub use custom::{CustomMetric, CustomQuery};
 pub use damerau::{Damerau, DamerauQuery};
 pub use error::MetricError;
+pub(crate) use error::{first_lone_cr, lone_cr_message, side_file_text};
 pub use external::{ExternalMetric, ExternalQuery, MAX_BATCH, PROTOCOL, PROTOCOL_VERSION};
 pub use graph::{Disconnected, Graph, GraphMetric, GraphQuery};
 pub use hamming::{check_equal_lengths, Hamming, HammingQuery};

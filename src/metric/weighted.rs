@@ -167,14 +167,16 @@ impl Default for CostTable {
 }
 
 impl CostTable {
-    /// Reads a cost file.
+    /// Reads a cost file. A line that ends with a carriage return and no line feed (old
+    /// Mac line ends) and invalid UTF-8 are refused, naming the file and line (and the
+    /// CR's byte); CRLF line ends are read.
     pub fn from_path(path: &Path) -> Result<CostTable, MetricError> {
         let name = path.display().to_string();
-        let text = std::fs::read_to_string(path).map_err(|error| MetricError::Io {
+        let bytes = std::fs::read(path).map_err(|error| MetricError::Io {
             source_name: name.clone(),
             error,
         })?;
-        CostTable::parse(&text, &name)
+        CostTable::parse(&super::side_file_text(bytes, &name)?, &name)
     }
 
     /// Parses the text of a cost file; `source_name` is used in errors.

@@ -667,6 +667,247 @@ fn two_writers_at_once_leave_one_whole_index() {
     parts.verify().unwrap();
 }
 
+/// The writers' lock file of the index at `idx` (`.NAME.waymark-lock` beside it).
+fn lock_file(idx: &Path) -> std::path::PathBuf {
+    let name = idx.file_name().unwrap().to_str().unwrap();
+    idx.with_file_name(format!(".{name}.waymark-lock"))
+}
+
+/// Whether some process holds the writers' lock of `idx` now (`None`: no lock file). The
+/// test takes the lock itself to find out, and lets it go at once.
+fn lock_held(idx: &Path) -> Option<bool> {
+    let file = std::fs::OpenOptions::new()
+        .write(true)
+        .open(lock_file(idx))
+        .ok()?;
+    match file.try_lock() {
+        Ok(()) => {
+            file.unlock().unwrap();
+            Some(false)
+        }
+        Err(std::fs::TryLockError::WouldBlock) => Some(true),
+        Err(std::fs::TryLockError::Error(e)) => panic!("the lock file: {e}"),
+    }
+}
+
+/// Every file under `dir`, by its path from `dir`.
+fn files_under(dir: &Path) -> Vec<String> {
+    let mut out = Vec::new();
+    let mut todo = vec![dir.to_path_buf()];
+    while let Some(at) = todo.pop() {
+        for e in std::fs::read_dir(&at).unwrap().flatten() {
+            if e.file_type().unwrap().is_dir() {
+                todo.push(e.path());
+            } else {
+                let rel = e.path().strip_prefix(dir).unwrap().to_owned();
+                out.push(rel.to_string_lossy().into_owned());
+            }
+        }
+    }
+    out.sort();
+    out
+}
+
+#[test]
+fn an_add_that_fails_partway_leaves_the_index_as_it_was_and_its_lock_free() {
+    if std::process::Command::new("python3")
+        .arg("--version")
+        .output()
+        .is_err()
+    {
+        eprintln!("skipped: no python3");
+        return;
+    }
+    let d = Dir::new();
+    // The metric is a program (the Levenshtein server of the examples) started through a
+    // shell script, which is swapped below for one that starts the server to die on its
+    // first request: an `add` then fails while it embeds its items, under the writers'
+    // lock, with part 0 already linked into the parts folder and the new part begun.
+    let server = repo_file("examples/metric_server.py");
+    let script = |misbehave: &str| format!("exec python3 '{}' {misbehave}\n", server.display());
+    let program = d.write("metric.sh", script("").as_bytes());
+    let external = [
+        "--metric",
+        "external",
+        "--",
+        "sh",
+        program.to_str().unwrap(),
+    ];
+    let base = d.write("base.txt", words(0, 300).join("\n").as_bytes());
+    let idx = d.build(
+        &base,
+        "x.wmk",
+        &[&["-q", "--dim", "8"][..], &external].concat(),
+    );
+    let before = std::fs::read(&idx).unwrap();
+    let queries = typo_queries(6);
+    let answers = |d: &Dir| run_query(d, &idx, &queries, &["--exact", "-k", "3", "--quiet-metric"]);
+    let old = answers(&d);
+    let add = |input: &Path| {
+        let mut c = d.cmd();
+        c.arg("add").arg(&idx).arg(input).args(external);
+        c
+    };
+    // What every failed add must leave: the index file as it was (bytes, checksums,
+    // answers), no partial file anywhere, and a lock file, if any, that no one holds.
+    let unchanged = |what: &str| {
+        assert_eq!(std::fs::read(&idx).unwrap(), before, "{what}: the index");
+        d.cmd()
+            .args(["inspect", "--verify"])
+            .arg(&idx)
+            .assert()
+            .success();
+        assert_eq!(answers(&d), old, "{what}: the answers");
+        let files = files_under(d.path("").as_path());
+        assert!(
+            !files.iter().any(|f| f.ends_with(".waymark-partial")),
+            "{what}: {files:?}"
+        );
+        assert_ne!(lock_held(&idx), Some(true), "{what}: the lock is held");
+    };
+
+    // A bad line of the input (line 3 is not UTF-8): refused before anything is written.
+    let mut bad = words(2, 50).join("\n").into_bytes();
+    let third = bad
+        .iter()
+        .enumerate()
+        .filter(|(_, &c)| c == b'\n')
+        .nth(1)
+        .unwrap()
+        .0;
+    bad.splice(third + 1..third + 1, *b"\xffbad");
+    let bad = d.write("bad.txt", &bad);
+    add(&bad).assert().code(2).stderr(contains("bad.txt:3"));
+    unchanged("a bad line");
+
+    // The program dies while the new items are embedded.
+    std::fs::write(&program, script("--misbehave exit")).unwrap();
+    let more = d.write("more.txt", words(2, 50).join("\n").as_bytes());
+    add(&more)
+        .assert()
+        .code(2)
+        .stderr(contains("exiting on purpose"));
+    std::fs::write(&program, script("")).unwrap();
+    unchanged("a metric program that died");
+    // The lock file stays (it is an advisory lock on a file that is never removed: see
+    // DEVELOPERS.md), free.
+    assert_eq!(lock_held(&idx), Some(false));
+
+    // The next add succeeds: the old items and the new, and the folder holds exactly the
+    // parts the list names (what the failed add had linked is removed).
+    add(&more).assert().success();
+    let parts = Parts::open(&idx).unwrap();
+    assert_eq!(parts.live(), 350);
+    parts.verify().unwrap();
+    let listed: Vec<String> = list_body(&idx)["parts"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|p| p["file"].as_str().unwrap().to_string())
+        .collect();
+    let mut listed = listed;
+    listed.sort();
+    assert_eq!(files_under(&parts_folder(&idx)), listed);
+    assert_eq!(lock_held(&idx), Some(false));
+}
+
+#[test]
+fn a_held_lock_keeps_a_writer_out_and_a_killed_writers_lock_file_blocks_no_one() {
+    let d = Dir::new();
+    let base = d.write("base.txt", words(0, 2000).join("\n").as_bytes());
+    let idx = d.build(&base, "x.wmk", &["-q", "--dim", "16"]);
+    let more = d.write("more.txt", words(1, 100).join("\n").as_bytes());
+    let before = std::fs::read(&idx).unwrap();
+    let bin = waymark_path();
+    let spawn = |input: &Path| {
+        std::process::Command::new(&bin)
+            .arg("add")
+            .arg(&idx)
+            .arg(input)
+            .stdout(Stdio::null())
+            .stderr(Stdio::piped())
+            .spawn()
+            .unwrap()
+    };
+
+    // While another process holds the lock (here the test), a writer waits, then is
+    // refused with the clear message, and changes nothing.
+    let held = std::fs::OpenOptions::new()
+        .create(true)
+        .truncate(false)
+        .write(true)
+        .open(lock_file(&idx))
+        .unwrap();
+    held.lock().unwrap();
+    let t0 = std::time::Instant::now();
+    d.cmd()
+        .arg("add")
+        .arg(&idx)
+        .arg(&more)
+        .assert()
+        .code(2)
+        .stderr(contains("another waymark is changing this index"));
+    assert!(t0.elapsed() >= waymark::index::parts::WRITER_WAIT);
+    assert_eq!(std::fs::read(&idx).unwrap(), before);
+    // A writer that starts while the lock is held goes on once it is let go.
+    let mut waiting = spawn(&more);
+    std::thread::sleep(Duration::from_millis(1500));
+    assert!(waiting.try_wait().unwrap().is_none(), "it did not wait");
+    assert_eq!(std::fs::read(&idx).unwrap(), before);
+    held.unlock().unwrap();
+    let out = waiting.wait_with_output().unwrap();
+    assert!(out.status.success(), "{out:?}");
+    assert_eq!(Parts::open(&idx).unwrap().live(), 2100);
+    drop(held);
+
+    // A writer killed while it holds the lock (while it writes its new part, whose partial
+    // file is then in the parts folder) leaves the lock file, but the system let its lock
+    // go with it: the next writer goes ahead at once.
+    let big = d.write("big.txt", words(2, 12000).join("\n").as_bytes());
+    let writing = || {
+        std::fs::read_dir(parts_folder(&idx)).is_ok_and(|es| {
+            es.flatten().any(|e| {
+                e.file_name()
+                    .to_string_lossy()
+                    .ends_with(".waymark-partial")
+            })
+        })
+    };
+    let mut held_when_killed = None;
+    for _ in 0..5 {
+        let mut child = spawn(&big);
+        let seen = loop {
+            if writing() {
+                break true;
+            }
+            if child.try_wait().unwrap().is_some() {
+                break false;
+            }
+            std::thread::sleep(Duration::from_millis(2));
+        };
+        let held = lock_held(&idx);
+        let _ = child.kill(); // SIGKILL
+        if seen && !child.wait().unwrap().success() {
+            held_when_killed = Some(held);
+            break;
+        }
+    }
+    let Some(held_when_killed) = held_when_killed else {
+        panic!("no writer was killed while it wrote its part");
+    };
+    assert!(lock_file(&idx).exists());
+    let n = Parts::open(&idx).unwrap().live();
+    let t0 = std::time::Instant::now();
+    d.cmd().arg("add").arg(&idx).arg(&more).assert().success();
+    assert!(t0.elapsed() < waymark::index::parts::WRITER_WAIT);
+    let parts = Parts::open(&idx).unwrap();
+    assert_eq!(parts.live(), n + 100);
+    parts.verify().unwrap();
+    // The killed writer held the lock (so this shows its lock went with it).
+    assert_eq!(held_when_killed, Some(true));
+    assert_eq!(lock_held(&idx), Some(false));
+}
+
 #[test]
 fn add_remove_and_compact_killed_at_any_moment_leave_the_old_or_the_new_state_whole() {
     let d = Dir::new();

@@ -377,6 +377,94 @@ fn bad_input_a_lone_cr_in_a_cost_file_is_refused_naming_the_line_and_byte() {
         ));
 }
 
+/// A side file's error from the library: the message, and its line.
+fn line_error(e: &waymark::metric::MetricError) -> (String, u64) {
+    match e {
+        waymark::metric::MetricError::Line { line, .. } => (e.to_string(), *line),
+        other => panic!("not an error of a line: {other:?}"),
+    }
+}
+
+#[test]
+fn bad_input_a_lone_cr_in_an_edge_list_is_refused_by_graph_from_path() {
+    use waymark::metric::Graph;
+    let d = Dir::new();
+    // The edge list of the command-line test: line 2 ends with a lone CR at byte 46.
+    let bytes: &[u8] =
+        b"# Vessmark ferry legs, minutes\nOrvane Keth 25\rKeth Skarholm 40\nOrvane Skarholm 70\n";
+    let legs = d.write("legs.txt", bytes);
+    let e = Graph::from_path(&legs).unwrap_err();
+    let (message, line) = line_error(&e);
+    assert_eq!(line, 2);
+    assert!(
+        lone_cr_refusal(&legs.display().to_string(), 2, 46).eval(&message),
+        "{message}"
+    );
+    assert_eq!(std::fs::read(&legs).unwrap(), bytes);
+    // A lone CR on the first line, at its first byte: line 1, byte 1.
+    let first = d.write("first.txt", b"\rOrvane Keth 25\n");
+    let (message, _) = line_error(&Graph::from_path(&first).unwrap_err());
+    assert!(
+        lone_cr_refusal("first.txt", 1, 1).eval(&message),
+        "{message}"
+    );
+
+    // CRLF line ends are read: three nodes, Keth–Skarholm weighs 40 (not `40\r`).
+    let crlf = d.write(
+        "crlf.txt",
+        b"Orvane Keth 25\r\nKeth Skarholm 40\r\nOrvane Skarholm 70\r\n",
+    );
+    let g = Graph::from_path(&crlf).unwrap();
+    assert_eq!(g.len(), 3);
+    let node = |n: &[u8]| g.node(n).expect("a node");
+    assert_eq!(g.weight(node(b"Keth"), node(b"Skarholm")), Some(40.0));
+    // Orvane–Keth–Skarholm is 25 + 40, shorter than the direct 70.
+    assert_eq!(
+        g.distances_from(node(b"Orvane"))[node(b"Skarholm") as usize],
+        65.0
+    );
+}
+
+#[test]
+fn bad_input_a_lone_cr_in_a_cost_file_is_refused_by_cost_table_from_path() {
+    use waymark::metric::{CostTable, Metric, PreparedQuery, WeightedEdit};
+    let d = Dir::new();
+    // The cost file of the command-line test: line 2 ends with a lone CR at byte 25.
+    let bytes: &[u8] = b"indel * 1.5\r\nsub A G 0.5\rsub C T 0.5\n";
+    let costs = d.write("dna.costs", bytes);
+    for e in [
+        CostTable::from_path(&costs).unwrap_err(),
+        WeightedEdit::from_path(&costs).unwrap_err(),
+    ] {
+        let (message, line) = line_error(&e);
+        assert_eq!(line, 2);
+        assert!(
+            lone_cr_refusal(&costs.display().to_string(), 2, 25).eval(&message),
+            "{message}"
+        );
+    }
+    assert_eq!(std::fs::read(&costs).unwrap(), bytes);
+    // Invalid UTF-8 is refused with its line, as the command line refuses it.
+    let latin1 = d.write("latin1.costs", b"indel * 1\nsub \xe9 e 0.5\n");
+    let (message, line) = line_error(&CostTable::from_path(&latin1).unwrap_err());
+    assert_eq!(line, 2);
+    assert!(
+        message.contains("latin1.costs:2: invalid UTF-8"),
+        "{message}"
+    );
+
+    // With CRLF line ends the same rules are read: A→G costs 0.5, C→T 0.5, an insertion 1.5.
+    let crlf = d.write(
+        "crlf.costs",
+        b"indel * 1.5\r\nsub A G 0.5\r\nsub C T 0.5\r\n",
+    );
+    let m = WeightedEdit::new(CostTable::from_path(&crlf).unwrap());
+    let q = m.prepare(b"TTAGGCGCATCC");
+    assert_eq!(q.distance(b"TTGGGCGCATCC"), 0.5);
+    assert_eq!(q.distance(b"TTAGGCGTATCC"), 0.5);
+    assert_eq!(q.distance(b"TTAGGCGCATCCA"), 1.5);
+}
+
 #[test]
 fn bad_input_a_lone_cr_in_queries_is_refused_naming_the_line_and_byte() {
     let d = Dir::new();
