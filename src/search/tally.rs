@@ -3,18 +3,18 @@
 //!
 //! With `A` and `B` the numbers of chars of two strings in each of 32 bins
 //! ([`CharBins`]), the distance is at least `max(Σ (A − B)⁺, Σ (B − A)⁺)` (one edit lowers
-//! each sum by at most one). The two sums add up to `Σ |A − B|` and differ by the
-//! difference of the lengths, so the bound is `(Σ |A − B| + |len a − len b|) / 2`: one
-//! sum of absolute differences of 32 bytes, which x86-64 computes in two instructions
-//! (`psadbw`, part of SSE2, which every x86-64 CPU has), or one with AVX2.
+//! each sum by at most one). Each sum is a length less the chars the two have in common,
+//! `C = Σ min(A, B)`, so the bound is the longer length less `C`; and `C` only adds over
+//! the bins the query has chars in (seven or eight for an English word).
 //!
-//! The items are held by length in chars, each with its counts in 32 bins (32 bytes an
-//! item: 21.2 MB at 663,473 words, made on the first query). Queries go in groups of one
-//! length, in rounds: a round collects the items whose bound lies in its range, and each
-//! group reads the items of its own length first, then of lengths one further
-//! away, and so on, in chunks whose counts stay in cache while every query of the group is
-//! compared with them (a block of 32 items whose box is beyond the range is skipped
-//! whole). An item is measured (the lane kernel, [`LevenshteinQuery::dist_batch`], or the
+//! The items are held by length in chars, their counts in blocks of 64 items bin by bin
+//! (64 bytes a bin, 32 bytes an item: 21.2 MB at 663,473 words, made on the first query),
+//! so that one vector register holds a bin's counts of a block: a query's `C` with 64 items
+//! is a `min` and an add of bytes per bin of the query (AVX-512 BW; two of each with AVX2).
+//! Queries go in groups of one length, in rounds: a round collects the items whose bound
+//! lies in its range, and each group reads the items of its own length first, then of
+//! lengths one further away, and so on, in chunks whose counts stay in cache while every
+//! query of the group is compared with them. An item is measured (the lane kernel, [`LevenshteinQuery::dist_batch`], or the
 //! bounded one) only when its bound is within the query's cap: the radius, or the `k`-th
 //! distance held. Collected items are measured in increasing bound, so that the cap falls
 //! early, and the rounds go on until every item whose bound is within the cap has been.
@@ -39,15 +39,19 @@ use rayon::prelude::*;
 use super::order::{self, keep_best, Neighbor};
 use super::{Certificate, Found, Searcher};
 use crate::coords::columns::CharBins;
+use crate::cpu::Level;
 use crate::error::Result;
 use crate::index::StrTable;
 use crate::metric::LevenshteinQuery;
 
-/// Blocks of items compared with every query of a group at a time: 64 blocks of 32 items
-/// are 32 KiB of counts, which stay in the core's L1 or L2 cache meanwhile.
-const CHUNK_BLOCKS: usize = 64;
-/// Items per block, whose box (per bin, the smallest and the largest count) bounds them all.
-const BLOCK: usize = 32;
+/// Blocks of items compared with every query of a group at a time: 32 blocks of 64 items
+/// are 64 KiB of counts, of which a query reads only its own chars' bins, and which stay in
+/// the core's L2 cache meanwhile.
+const CHUNK_BLOCKS: usize = 32;
+/// Items per block: one 64-byte register holds one bin's counts of a block.
+const LANE: usize = 64;
+/// The counts of a block's items bin by bin: `cols[j][l]` is item `l`'s count in bin `j`.
+type Columns = [[u8; LANE]; BINS];
 /// Most queries per group.
 const GROUP: usize = 32;
 /// Items measured at once by the one-query lane kernel.
@@ -73,15 +77,13 @@ pub(crate) struct Tally {
     bins: CharBins<BINS>,
     /// Item numbers by length, then by counts.
     items: Vec<u32>,
-    /// The counts of `items[p]` at `counts[p]`.
-    counts: Vec<[u8; BINS]>,
     /// `starts[len]..starts[len + 1]`: the positions of the items of `len` chars.
     starts: Vec<usize>,
-    /// The boxes of the blocks of each length: block `b` of length `len` is
-    /// `boxes[first_box[len] + b]`, over positions `starts[len] + BLOCK·b ..`, as (smallest,
-    /// largest) count per bin.
-    boxes: Vec<([u8; BINS], [u8; BINS])>,
-    first_box: Vec<usize>,
+    /// The counts of the items of each length in blocks of [`LANE`]: block `b` of length
+    /// `len` is `blocks[first_block[len] + b]`, positions `starts[len] + LANE·b ..` (the
+    /// last block of a length is padded with zeros).
+    blocks: Vec<Columns>,
+    first_block: Vec<usize>,
     /// The keys in position order (`text[offsets[p]..offsets[p + 1]]`), when the text is
     /// at most [`COPY_LIMIT`] bytes.
     text: Option<(Vec<u8>, Vec<u32>)>,
@@ -92,9 +94,9 @@ impl Tally {
     pub(crate) fn new(keys: &StrTable<'_>, n: usize) -> Tally {
         let bins = CharBins::<BINS>::fitted((0..n).map(|i| keys.get(i)));
         // Each item's counts and length, then the item numbers by length, within a length by
-        // counts (a block then holds alike items, whose box is tight), then by number; the
-        // counts are put in that order in place, so that no second copy of them is held.
-        let mut counts: Vec<[u8; BINS]> = (0..n)
+        // counts (alike items then lie side by side, their keys in nearby memory), then by
+        // number.
+        let counts: Vec<[u8; BINS]> = (0..n)
             .into_par_iter()
             .map(|i| bins.counts(keys.get(i)))
             .collect();
@@ -133,7 +135,6 @@ impl Tally {
         });
         let items: Vec<u32> = keyed.iter().map(|&(_, i)| i).collect();
         drop(keyed);
-        permute(&mut counts, &items);
         let longest = lens.iter().copied().max().unwrap_or(0) as usize;
         let mut starts = vec![0usize; longest + 2];
         for &len in &lens {
@@ -143,22 +144,33 @@ impl Tally {
         for j in 1..starts.len() {
             starts[j] += starts[j - 1];
         }
-        let mut boxes = Vec::new();
-        let mut first_box = Vec::with_capacity(longest + 2);
+        // The counts are made again block by block from the keys, so that two copies of
+        // them are never held at once.
+        drop(counts);
+        let mut spans = Vec::new();
+        let mut first_block = Vec::with_capacity(longest + 2);
         for len in 0..=longest {
-            first_box.push(boxes.len());
-            for block in counts[starts[len]..starts[len + 1]].chunks(BLOCK) {
-                let (mut lo, mut hi) = ([u8::MAX; BINS], [0u8; BINS]);
-                for c in block {
-                    for j in 0..BINS {
-                        lo[j] = lo[j].min(c[j]);
-                        hi[j] = hi[j].max(c[j]);
-                    }
-                }
-                boxes.push((lo, hi));
+            first_block.push(spans.len());
+            let mut p = starts[len];
+            while p < starts[len + 1] {
+                spans.push(p..(p + LANE).min(starts[len + 1]));
+                p += LANE;
             }
         }
-        first_box.push(boxes.len());
+        first_block.push(spans.len());
+        let blocks: Vec<Columns> = spans
+            .into_par_iter()
+            .map(|span| {
+                let mut cols = [[0u8; LANE]; BINS];
+                for (l, p) in span.enumerate() {
+                    let c = bins.counts(keys.get(items[p] as usize));
+                    for j in 0..BINS {
+                        cols[j][l] = c[j];
+                    }
+                }
+                cols
+            })
+            .collect();
         let size: usize = (0..n).map(|i| keys.get(i).len()).sum();
         let text = (size <= COPY_LIMIT).then(|| {
             let mut text = Vec::with_capacity(size);
@@ -174,10 +186,9 @@ impl Tally {
         Tally {
             bins,
             items,
-            counts,
             starts,
-            boxes,
-            first_box,
+            blocks,
+            first_block,
             text,
         }
     }
@@ -207,99 +218,20 @@ impl Tally {
     fn bound(&self, p: usize, run: &Run) -> u32 {
         // The item's length: the last length whose items start at or before `p`.
         let len = self.starts.partition_point(|&s| s <= p) - 1;
+        let at = p - self.starts[len];
+        let cols = &self.blocks[self.first_block[len] + at / LANE];
         let gap = len.abs_diff(run.len) as u32;
         let exact = len <= UNSATURATED && run.len <= UNSATURATED;
-        bound_of(sad(&self.counts[p], &run.counts), gap, exact)
+        bound_of(lane_sad(cols, at % LANE, &run.counts), gap, exact)
     }
 }
 
-/// Puts `rows` in the order `order` (a permutation of their places): the row at place
-/// `order[p]` moves to place `p`, one cycle of the permutation at a time, in place.
-fn permute<T: Copy>(rows: &mut [T], order: &[u32]) {
-    let mut placed = vec![false; rows.len()];
-    for start in 0..rows.len() {
-        if placed[start] {
-            continue;
-        }
-        let first = rows[start];
-        let mut at = start;
-        loop {
-            placed[at] = true;
-            let from = order[at] as usize;
-            if from == start {
-                rows[at] = first;
-                break;
-            }
-            rows[at] = rows[from];
-            at = from;
-        }
-    }
-}
-
-/// The sum of absolute differences of two count rows.
-#[inline]
-fn sad(a: &[u8; BINS], b: &[u8; BINS]) -> u32 {
-    #[cfg(target_arch = "x86_64")]
-    {
-        use std::arch::x86_64::{
-            __m128i, _mm_add_epi64, _mm_cvtsi128_si32, _mm_loadu_si128, _mm_sad_epu8,
-            _mm_unpackhi_epi64,
-        };
-        // SAFETY: SSE2 is part of x86-64; every load reads 16 bytes of a 32-byte array.
-        unsafe {
-            let (a, b) = (a.as_ptr().cast::<__m128i>(), b.as_ptr().cast::<__m128i>());
-            let s0 = _mm_sad_epu8(_mm_loadu_si128(a), _mm_loadu_si128(b));
-            let s1 = _mm_sad_epu8(_mm_loadu_si128(a.add(1)), _mm_loadu_si128(b.add(1)));
-            let s = _mm_add_epi64(s0, s1);
-            _mm_cvtsi128_si32(_mm_add_epi64(s, _mm_unpackhi_epi64(s, s))) as u32
-        }
-    }
-    #[cfg(not(target_arch = "x86_64"))]
-    {
-        a.iter()
-            .zip(b)
-            .map(|(&x, &y)| u32::from(x.abs_diff(y)))
-            .sum()
-    }
-}
-
-/// The sum over bins of how far the query's count `q` lies outside a box `(lo, hi)`: at
-/// most the [`sad`] of `q` and any counts within the box.
-#[inline]
-fn box_sad(b: &([u8; BINS], [u8; BINS]), q: &[u8; BINS]) -> u32 {
-    #[cfg(target_arch = "x86_64")]
-    {
-        use std::arch::x86_64::{
-            __m128i, _mm_add_epi64, _mm_cvtsi128_si32, _mm_loadu_si128, _mm_or_si128, _mm_sad_epu8,
-            _mm_setzero_si128, _mm_subs_epu8, _mm_unpackhi_epi64,
-        };
-        // SAFETY: SSE2 is part of x86-64; every load reads 16 bytes of a 32-byte array.
-        unsafe {
-            let (lo, hi) = (
-                b.0.as_ptr().cast::<__m128i>(),
-                b.1.as_ptr().cast::<__m128i>(),
-            );
-            let x = q.as_ptr().cast::<__m128i>();
-            let mut s = _mm_setzero_si128();
-            for h in 0..2 {
-                let (l, u, v) = (
-                    _mm_loadu_si128(lo.add(h)),
-                    _mm_loadu_si128(hi.add(h)),
-                    _mm_loadu_si128(x.add(h)),
-                );
-                // Per bin at most one of the two is above zero.
-                let out = _mm_or_si128(_mm_subs_epu8(l, v), _mm_subs_epu8(v, u));
-                s = _mm_add_epi64(s, _mm_sad_epu8(out, _mm_setzero_si128()));
-            }
-            _mm_cvtsi128_si32(_mm_add_epi64(s, _mm_unpackhi_epi64(s, s))) as u32
-        }
-    }
-    #[cfg(not(target_arch = "x86_64"))]
-    {
-        (0..BINS)
-            .map(|j| u32::from(b.0[j].saturating_sub(q[j]) + q[j].saturating_sub(b.1[j])))
-            .sum()
-    }
+/// The sum of absolute differences of the counts of lane `l` of a block and `q`.
+fn lane_sad(cols: &Columns, l: usize, q: &[u8; BINS]) -> u32 {
+    cols.iter()
+        .zip(q)
+        .map(|(c, &y)| u32::from(c[l].abs_diff(y)))
+        .sum()
 }
 
 /// The count bound from a sum of absolute differences `sad` and a length gap `gap`: the
@@ -327,6 +259,8 @@ const FIRST_ROUND: u32 = 3;
 struct Run {
     q: LevenshteinQuery,
     counts: [u8; BINS],
+    /// The query's bins with a count above zero, and those counts.
+    nz: Vec<(u8, u8)>,
     len: usize,
     k: Option<usize>,
     /// The largest distance an answer may have: the radius (`u32::MAX`: none).
@@ -567,10 +501,15 @@ impl Searcher<'_> {
                 Err(e) => answers[i] = Some(Err(e)),
                 Ok(key) => {
                     let q = LevenshteinQuery::new(&key);
+                    let counts = tally.bins.query_counts(&q);
                     runs.push((
                         i,
                         Run {
-                            counts: tally.bins.query_counts(&q),
+                            nz: (0..BINS)
+                                .filter(|&j| counts[j] > 0)
+                                .map(|j| (j as u8, counts[j]))
+                                .collect(),
+                            counts,
                             len: q.len(),
                             q,
                             k,
@@ -624,8 +563,8 @@ impl Searcher<'_> {
 
     /// Answers a group of queries (sorted by length) in rounds: each round reads the items
     /// of the lengths its unfinished queries need once, a chunk of blocks at a time,
-    /// collecting for each query the items whose bound lies in its round's range (a block
-    /// whose box is beyond the range is skipped whole), then measures them.
+    /// collecting for each query the items whose bound lies in its round's range, then
+    /// measures them.
     fn tally_group(&self, tally: &Tally, runs: &mut [(usize, Run)]) {
         let longest = tally.longest();
         loop {
@@ -650,7 +589,7 @@ impl Searcher<'_> {
             order.sort_by_key(|&len| (len.abs_diff(own), len));
             for len in order {
                 let span = tally.of(len);
-                let blocks = tally.first_box[len]..tally.first_box[len + 1];
+                let blocks = tally.first_block[len]..tally.first_block[len + 1];
                 let mut at = blocks.start;
                 while at < blocks.end {
                     let chunk = at..(at + CHUNK_BLOCKS).min(blocks.end);
@@ -737,8 +676,8 @@ impl Searcher<'_> {
     }
 }
 
-/// Collects into `run`'s buckets the items of the blocks `chunk` (numbers in `tally.boxes`)
-/// of length `len`, whose blocks start at box `first` and position `start`, whose bound
+/// Collects into `run`'s buckets the items of the blocks `chunk` (numbers in `tally.blocks`)
+/// of length `len`, whose blocks start at block `first` and position `start`, whose bound
 /// lies in the run's round range `[from, hi]`.
 fn collect(
     tally: &Tally,
@@ -753,136 +692,199 @@ fn collect(
     if gap > hi as usize {
         return;
     }
-    let gap = gap as u32;
-    let exact = len <= UNSATURATED && run.len <= UNSATURATED;
     let end = tally.of(len).end;
-    // With exact counts, the bound is in [from, hi] when the sum of differences is in
-    // [2·from − gap, 2·hi + 1 − gap]: one unsigned comparison.
-    let lo_sad = (2 * u64::from(from)).saturating_sub(u64::from(gap));
-    let hi_sad = 2 * u64::from(hi) + 1 - u64::from(gap);
-    let lo_sad = lo_sad.min(u64::from(u32::MAX)) as u32;
-    let width = hi_sad.min(u64::from(u32::MAX)) as u32 - lo_sad.min(hi_sad as u32);
-    for b in chunk {
-        let bx = &tally.boxes[b];
-        if bound_of(box_sad(bx, &run.counts), gap, exact) > hi {
-            continue;
+    if len <= UNSATURATED && run.len <= UNSATURATED {
+        // With exact counts the bound is the longer length less the chars the two have in
+        // common, `Σ min(A, B)`, which only the query's own bins add to: it lies in
+        // `[from, hi]` when the common chars lie in `[longer − hi, longer − from]`.
+        let longer = len.max(run.len) as u32;
+        if from > longer {
+            return;
         }
-        let p0 = start + (b - first) * BLOCK;
-        let p1 = (p0 + BLOCK).min(end);
-        if exact {
-            let mut sads = [0u32; BLOCK];
-            let mut mask =
-                within_block(&tally.counts[p0..p1], &run.counts, lo_sad, width, &mut sads);
-            while mask != 0 {
-                let j = mask.trailing_zeros() as usize;
-                mask &= mask - 1;
-                let slot = (((sads[j] + gap) / 2 - from) as usize).min(BUCKETS - 1);
-                run.buckets[slot].push((p0 + j) as u32);
-            }
-        } else {
-            for (p, c) in (p0..p1).zip(&tally.counts[p0..p1]) {
-                let bound = bound_of(sad(c, &run.counts), gap, false);
+        let (lo, up) = (longer.saturating_sub(hi) as u8, (longer - from) as u8);
+        // Only the last block of a length may be part full.
+        let n = (end - start - (chunk.end - 1 - first) * LANE).min(LANE);
+        let last = if n == LANE { u64::MAX } else { (1u64 << n) - 1 };
+        let buckets = &mut run.buckets;
+        in_common_blocks(
+            Level::active(),
+            &tally.blocks[chunk.clone()],
+            &run.nz,
+            (lo, up),
+            last,
+            &mut |b, mut mask, common| {
+                let p0 = start + (chunk.start + b - first) * LANE;
+                while mask != 0 {
+                    let j = mask.trailing_zeros() as usize;
+                    mask &= mask - 1;
+                    let slot = ((longer - u32::from(common[j]) - from) as usize).min(BUCKETS - 1);
+                    buckets[slot].push((p0 + j) as u32);
+                }
+            },
+        );
+    } else {
+        let gap = gap as u32;
+        for b in chunk {
+            let p0 = start + (b - first) * LANE;
+            for l in 0..(end - p0).min(LANE) {
+                let bound = bound_of(lane_sad(&tally.blocks[b], l, &run.counts), gap, false);
                 if bound >= from && bound <= hi {
                     let slot = ((bound - from) as usize).min(BUCKETS - 1);
-                    run.buckets[slot].push(p as u32);
+                    run.buckets[slot].push((p0 + l) as u32);
                 }
             }
         }
     }
 }
 
-/// The [`sad`] of every row of a block (at most [`BLOCK`] rows) against `q` into `sads`,
-/// and the mask of the rows whose sum lies in `[lo, lo + width]` (bit `j`: row `j`).
-fn within_block(
-    rows: &[[u8; BINS]],
-    q: &[u8; BINS],
-    lo: u32,
-    width: u32,
-    sads: &mut [u32; BLOCK],
-) -> u32 {
-    #[cfg(target_arch = "x86_64")]
-    if crate::cpu::has_avx2() {
-        // SAFETY: the CPU has AVX2; the rows are at most BLOCK.
-        return unsafe { within_block_avx2(rows, q, lo, width, sads) };
-    }
-    within_block_portable(rows, q, lo, width, sads)
-}
+/// What a block's items share with a query: the block's number in the slice, the mask of
+/// its items within the range, and every item's chars in common.
+type Hit<'h> = &'h mut dyn FnMut(usize, u64, &[u8; LANE]);
 
-/// [`within_block`] one row at a time.
-fn within_block_portable(
-    rows: &[[u8; BINS]],
-    q: &[u8; BINS],
-    lo: u32,
-    width: u32,
-    sads: &mut [u32; BLOCK],
-) -> u32 {
-    let mut mask = 0u32;
-    for (j, (r, s)) in rows.iter().zip(sads.iter_mut()).enumerate() {
-        *s = sad(r, q);
-        if s.wrapping_sub(lo) <= width {
-            mask |= 1 << j;
+/// For each block of `blocks`, the chars each item has in common with a query,
+/// `Σ min(A, B)` over the query's bins `nz` (bin, count), and the mask of the items whose
+/// sum lies in `range` (bit `l`: item `l`; in the last block only the items of `last`):
+/// `hit` gets every block with one at least. Sums of unsaturated counts are at most 255.
+/// At dispatch level `level`, lowered to what the CPU runs.
+fn in_common_blocks(
+    level: Level,
+    blocks: &[Columns],
+    nz: &[(u8, u8)],
+    range: (u8, u8),
+    last: u64,
+    hit: Hit<'_>,
+) {
+    #[cfg(target_arch = "x86_64")]
+    {
+        let level = level.clamped();
+        if level >= Level::Avx512 {
+            // SAFETY: the CPU has AVX-512 F and BW (the level is clamped to the CPU's).
+            return unsafe { in_common_avx512(blocks, nz, range, last, hit) };
+        }
+        if level >= Level::Avx2 {
+            // SAFETY: the CPU has AVX2.
+            return unsafe { in_common_avx2(blocks, nz, range, last, hit) };
         }
     }
-    mask
+    let _ = level;
+    in_common_portable(blocks, nz, range, last, hit)
 }
 
-/// [`within_block`] with AVX2: eight rows at a time, each row one register whose
-/// `vpsadbw` against the query leaves four partial sums, which shuffles and horizontal
-/// adds turn into the eight rows' sums side by side. Hand-written: no crate offers a
-/// thresholded sum-of-differences over rows of 32 bytes.
+/// The mask of valid items of block `b` of `n`: all but in the last.
+#[inline(always)]
+fn valid(b: usize, n: usize, last: u64) -> u64 {
+    if b + 1 == n {
+        last
+    } else {
+        u64::MAX
+    }
+}
+
+/// [`in_common_blocks`] in plain Rust.
+fn in_common_portable(
+    blocks: &[Columns],
+    nz: &[(u8, u8)],
+    (lo, up): (u8, u8),
+    last: u64,
+    hit: Hit<'_>,
+) {
+    for (b, cols) in blocks.iter().enumerate() {
+        let mut common = [0u8; LANE];
+        for &(j, a) in nz {
+            for (s, &c) in common.iter_mut().zip(&cols[usize::from(j)]) {
+                *s = s.wrapping_add(c.min(a));
+            }
+        }
+        let mut mask = 0u64;
+        for (l, &s) in common.iter().enumerate() {
+            mask |= u64::from(s >= lo && s <= up) << l;
+        }
+        mask &= valid(b, blocks.len(), last);
+        if mask != 0 {
+            hit(b, mask, &common);
+        }
+    }
+}
+
+/// [`in_common_blocks`] with AVX2: two registers of 32 items, a `vpminub` and a `vpaddb`
+/// per bin. Hand-written, as the crate's other kernels: no crate offers it.
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2")]
-unsafe fn within_block_avx2(
-    rows: &[[u8; BINS]],
-    q: &[u8; BINS],
-    lo: u32,
-    width: u32,
-    sads: &mut [u32; BLOCK],
-) -> u32 {
+unsafe fn in_common_avx2(
+    blocks: &[Columns],
+    nz: &[(u8, u8)],
+    (lo, up): (u8, u8),
+    last: u64,
+    hit: Hit<'_>,
+) {
     use std::arch::x86_64::{
-        __m256i, _mm256_add_epi32, _mm256_castsi256_ps, _mm256_cmpeq_epi32, _mm256_hadd_epi32,
-        _mm256_loadu_si256, _mm256_min_epu32, _mm256_movemask_ps, _mm256_or_si256,
-        _mm256_permute2x128_si256, _mm256_sad_epu8, _mm256_set1_epi32, _mm256_shuffle_epi32,
-        _mm256_slli_epi64, _mm256_storeu_si256, _mm256_sub_epi32,
+        __m256i, _mm256_add_epi8, _mm256_and_si256, _mm256_cmpeq_epi8, _mm256_loadu_si256,
+        _mm256_max_epu8, _mm256_min_epu8, _mm256_movemask_epi8, _mm256_set1_epi8,
+        _mm256_setzero_si256, _mm256_storeu_si256,
     };
-    let n = rows.len().min(BLOCK);
-    let qv = _mm256_loadu_si256(q.as_ptr().cast::<__m256i>());
-    let lo_v = _mm256_set1_epi32(lo as i32);
-    let width_v = _mm256_set1_epi32(width as i32);
-    let row =
-        |i: usize| _mm256_sad_epu8(_mm256_loadu_si256(rows[i].as_ptr().cast::<__m256i>()), qv);
-    // Four rows' partial sums (each below 2^16, in the low bits of a 64-bit lane) as
-    // [a0+a1, b0+b1, c0+c1, d0+d1 | a2+a3, b2+b3, c2+c3, d2+d3].
-    let four = |i: usize| {
-        let ab = _mm256_or_si256(row(i), _mm256_slli_epi64(row(i + 1), 32));
-        let cd = _mm256_or_si256(row(i + 2), _mm256_slli_epi64(row(i + 3), 32));
-        _mm256_hadd_epi32(
-            _mm256_shuffle_epi32(ab, 0xD8),
-            _mm256_shuffle_epi32(cd, 0xD8),
-        )
-    };
-    let mut mask = 0u32;
-    let mut i = 0;
-    while i + 8 <= n {
-        let (x, y) = (four(i), four(i + 4));
-        let s = _mm256_add_epi32(
-            _mm256_permute2x128_si256(x, y, 0x20),
-            _mm256_permute2x128_si256(x, y, 0x31),
+    let (lo, up) = (_mm256_set1_epi8(lo as i8), _mm256_set1_epi8(up as i8));
+    // Within [lo, up] (unsigned): the larger with lo and the smaller with up leave it as is.
+    let within = |v: __m256i| {
+        let ok = _mm256_and_si256(
+            _mm256_cmpeq_epi8(_mm256_max_epu8(v, lo), v),
+            _mm256_cmpeq_epi8(_mm256_min_epu8(v, up), v),
         );
-        _mm256_storeu_si256(sads[i..].as_mut_ptr().cast::<__m256i>(), s);
-        let d = _mm256_sub_epi32(s, lo_v);
-        let ok = _mm256_cmpeq_epi32(_mm256_min_epu32(d, width_v), d);
-        mask |= (_mm256_movemask_ps(_mm256_castsi256_ps(ok)) as u32) << i;
-        i += 8;
-    }
-    for j in i..n {
-        let s = sad(&rows[j], q);
-        sads[j] = s;
-        if s.wrapping_sub(lo) <= width {
-            mask |= 1 << j;
+        u64::from(_mm256_movemask_epi8(ok) as u32)
+    };
+    let mut common = [0u8; LANE];
+    for (b, cols) in blocks.iter().enumerate() {
+        let (mut x, mut y) = (_mm256_setzero_si256(), _mm256_setzero_si256());
+        for &(j, a) in nz {
+            let col = cols[usize::from(j)].as_ptr().cast::<__m256i>();
+            let a = _mm256_set1_epi8(a as i8);
+            x = _mm256_add_epi8(x, _mm256_min_epu8(_mm256_loadu_si256(col), a));
+            y = _mm256_add_epi8(y, _mm256_min_epu8(_mm256_loadu_si256(col.add(1)), a));
+        }
+        let mask = (within(x) | within(y) << 32) & valid(b, blocks.len(), last);
+        if mask != 0 {
+            let out = common.as_mut_ptr().cast::<__m256i>();
+            _mm256_storeu_si256(out, x);
+            _mm256_storeu_si256(out.add(1), y);
+            hit(b, mask, &common);
         }
     }
-    mask
+}
+
+/// [`in_common_blocks`] with AVX-512 BW: one register of 64 items, compared into a mask
+/// directly.
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx512f,avx512bw")]
+unsafe fn in_common_avx512(
+    blocks: &[Columns],
+    nz: &[(u8, u8)],
+    (lo, up): (u8, u8),
+    last: u64,
+    hit: Hit<'_>,
+) {
+    use std::arch::x86_64::{
+        __m512i, _mm512_add_epi8, _mm512_cmpge_epu8_mask, _mm512_cmple_epu8_mask,
+        _mm512_loadu_si512, _mm512_min_epu8, _mm512_set1_epi8, _mm512_setzero_si512,
+        _mm512_storeu_si512,
+    };
+    let (lo, up) = (_mm512_set1_epi8(lo as i8), _mm512_set1_epi8(up as i8));
+    let mut common = [0u8; LANE];
+    for (b, cols) in blocks.iter().enumerate() {
+        let mut x = _mm512_setzero_si512();
+        for &(j, a) in nz {
+            let col = cols[usize::from(j)].as_ptr().cast::<__m512i>();
+            x = _mm512_add_epi8(
+                x,
+                _mm512_min_epu8(_mm512_loadu_si512(col), _mm512_set1_epi8(a as i8)),
+            );
+        }
+        let mask = _mm512_cmpge_epu8_mask(x, lo)
+            & _mm512_cmple_epu8_mask(x, up)
+            & valid(b, blocks.len(), last);
+        if mask != 0 {
+            _mm512_storeu_si512(common.as_mut_ptr().cast::<__m512i>(), x);
+            hit(b, mask, &common);
+        }
+    }
 }
 
 #[cfg(test)]
@@ -892,44 +894,67 @@ mod tests {
     use super::*;
 
     proptest! {
-        /// The AVX2 block (where the CPU has it) equals the row-by-row form, for blocks of
-        /// every length up to 32 and counts up to 255.
+        /// Every dispatch level the CPU runs gives the portable form's common chars and
+        /// masks, for up to three blocks of any small counts and a part-full last block, and
+        /// the portable form sums `min` bin by bin.
         #[test]
-        fn the_avx2_block_equals_the_portable_one(
-            rows in proptest::collection::vec(proptest::array::uniform32(any::<u8>()), 0..=BLOCK),
-            q in proptest::array::uniform32(any::<u8>()),
-            lo in 0u32..3000,
-            width in 0u32..3000,
+        fn every_level_counts_the_same_common_chars(
+            cols in proptest::collection::vec(proptest::array::uniform32(0u8..=8), 1..=3 * LANE),
+            q in proptest::array::uniform32(0u8..=9),
+            lo in 0u8..=255,
+            up in 0u8..=255,
         ) {
-            let (mut a, mut b) = ([0u32; BLOCK], [0u32; BLOCK]);
-            let want = within_block_portable(&rows, &q, lo, width, &mut a);
-            prop_assert_eq!(within_block(&rows, &q, lo, width, &mut b), want);
-            prop_assert_eq!(&a[..rows.len()], &b[..rows.len()]);
-            for (j, r) in rows.iter().enumerate() {
-                let s: u32 = r.iter().zip(&q).map(|(&x, &y)| u32::from(x.abs_diff(y))).sum();
-                prop_assert_eq!(a[j], s);
-                prop_assert_eq!(want >> j & 1 == 1, s >= lo && s - lo <= width);
+            let mut blocks = vec![[[0u8; LANE]; BINS]; cols.len().div_ceil(LANE)];
+            for (i, row) in cols.iter().enumerate() {
+                for j in 0..BINS {
+                    blocks[i / LANE][j][i % LANE] = row[j];
+                }
+            }
+            let n = cols.len() - (blocks.len() - 1) * LANE;
+            let last = if n == LANE { u64::MAX } else { (1u64 << n) - 1 };
+            let nz: Vec<(u8, u8)> =
+                (0..BINS).filter(|&j| q[j] > 0).map(|j| (j as u8, q[j])).collect();
+            let run = |level: Level| {
+                let mut seen = Vec::new();
+                in_common_blocks(level, &blocks, &nz, (lo, up), last, &mut |b, mask, c| {
+                    seen.push((b, mask, *c));
+                });
+                seen
+            };
+            let want = run(Level::Portable);
+            let mut at = 0;
+            for (i, row) in cols.iter().enumerate() {
+                let s: u32 = (0..BINS).map(|j| u32::from(row[j].min(q[j]))).sum();
+                if s >= u32::from(lo) && s <= u32::from(up) {
+                    // Item i is reported, with its sum, in its block's hit.
+                    while want[at].0 < i / LANE {
+                        at += 1;
+                    }
+                    prop_assert_eq!(want[at].0, i / LANE);
+                    prop_assert!(want[at].1 >> (i % LANE) & 1 == 1);
+                    prop_assert_eq!(u32::from(want[at].2[i % LANE]), s);
+                } else {
+                    prop_assert!(want.iter().all(|h| h.0 != i / LANE || h.1 >> (i % LANE) & 1 == 0));
+                }
+            }
+            for level in Level::ALL.into_iter().filter(|l| l.available()) {
+                let got = run(level);
+                prop_assert_eq!(got.len(), want.len(), "{:?}", level);
+                for (g, w) in got.iter().zip(&want) {
+                    prop_assert_eq!((g.0, g.1), (w.0, w.1), "{:?}", level);
+                    // The sums of the items reported agree.
+                    for l in 0..LANE {
+                        if w.1 >> l & 1 == 1 {
+                            prop_assert_eq!(g.2[l], w.2[l], "{:?}", level);
+                        }
+                    }
+                }
             }
         }
 
-        /// Putting rows in an order in place gives what gathering them into a new vector
-        /// gives, for any permutation.
-        #[test]
-        fn rows_put_in_order_in_place_are_the_gathered_ones(
-            order in Just((0u32..200).collect::<Vec<u32>>()).prop_shuffle(),
-            len in 0usize..200,
-        ) {
-            let order: Vec<u32> = order.into_iter().filter(|&i| (i as usize) < len).collect();
-            let rows: Vec<u64> = (0..len as u64).map(|i| i * 7 + 3).collect();
-            let want: Vec<u64> = order.iter().map(|&i| rows[i as usize]).collect();
-            let mut got = rows.clone();
-            permute(&mut got, &order);
-            prop_assert_eq!(got, want);
-        }
-
         /// The count bound never exceeds the Levenshtein distance of strsim (a reference
-        /// crate), with bins fitted to other strings and chars outside ASCII; a box's sum
-        /// never exceeds that of the counts inside it.
+        /// crate), with bins fitted to other strings and chars outside ASCII, and it is the
+        /// longer length less the chars in common.
         #[test]
         fn the_count_bound_is_a_lower_bound(
             a in "[a-eé中]{0,12}",
@@ -940,17 +965,17 @@ mod tests {
             let (ca, cb) = (bins.counts(a.as_bytes()), bins.counts(b.as_bytes()));
             let (la, lb) = (a.chars().count(), b.chars().count());
             let gap = la.abs_diff(lb) as u32;
-            let bound = bound_of(sad(&ca, &cb), gap, true);
-            prop_assert!(bound as usize <= strsim::levenshtein(&a, &b), "{a:?} {b:?}");
-            prop_assert!(bound_of(sad(&ca, &cb), gap, false) <= bound);
-            let mut lo = ca;
-            let mut hi = ca;
+            let mut block = [[0u8; LANE]; BINS];
             for j in 0..BINS {
-                lo[j] = lo[j].min(cb[j]);
-                hi[j] = hi[j].max(cb[j]);
+                block[j][5] = ca[j];
             }
-            let q = bins.counts(b"abc");
-            prop_assert!(box_sad(&(lo, hi), &q) <= sad(&ca, &q).min(sad(&cb, &q)));
+            let sad = lane_sad(&block, 5, &cb);
+            let bound = bound_of(sad, gap, true);
+            prop_assert!(bound as usize <= strsim::levenshtein(&a, &b), "{a:?} {b:?}");
+            prop_assert!(bound_of(sad, gap, false) <= bound);
+            // The closed form is the longer length less the chars in common.
+            let common: u32 = (0..BINS).map(|j| u32::from(ca[j].min(cb[j]))).sum();
+            prop_assert_eq!(bound, la.max(lb) as u32 - common);
         }
     }
 }
