@@ -614,10 +614,15 @@ impl Searcher<'_> {
                     at = chunk.end;
                     for (_, run) in runs.iter_mut().filter(|(_, r)| !r.finished && !r.stopped()) {
                         collect(tally, run, len, span.start, blocks.start, chunk.clone());
-                        if run.filling {
+                        // A filling round measures its items once they fill the lanes.
+                        if run.filling && run.buckets[0].len() >= LANES {
                             run.fill(self.index, tally, &self.keys);
                         }
                     }
+                }
+                // ... and the rest at the end of each length, before it reads the next.
+                for (_, run) in runs.iter_mut().filter(|(_, r)| r.filling && !r.finished) {
+                    run.fill(self.index, tally, &self.keys);
                 }
             }
             for (_, run) in runs.iter_mut().filter(|(_, r)| !r.finished) {
