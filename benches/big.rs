@@ -8,6 +8,10 @@
 //! waymark's brute force on every query; without it the bench says so and gives ratios
 //! against waymark's own full scan only.
 //!
+//! Each of waymark's timed batches runs until its runs last half a second in all, and the
+//! mean is reported (`benches/common/timing.rs`): one batch of 1,000 fast queries lasts a
+//! few milliseconds.
+//!
 //! Settings through the environment (defaults in brackets):
 //! - `WAYMARK_BIG_WORDS` word list [/usr/share/dict/american-english-insane]
 //! - `WAYMARK_BIG_QUERIES` number of typo queries [1000]
@@ -38,6 +42,8 @@ use waymark::search::{Found, Neighbor, Request, SearchParams, Searcher};
 
 #[path = "common/reference.rs"]
 mod reference;
+#[path = "common/timing.rs"]
+mod timing;
 
 fn env_list<T: std::str::FromStr>(name: &str, default: &str) -> Vec<T> {
     std::env::var(name)
@@ -240,14 +246,16 @@ fn main() {
         },
     ]);
 
+    // Each mode's batch runs until the runs last half a second in all; the mean counts.
     let run_on = |searcher: &Searcher, req: &Request| -> (f64, Vec<Found>) {
-        let t = Instant::now();
-        let found: Vec<Found> = searcher
-            .answer_many(&queries, req)
-            .into_iter()
-            .map(|f| f.expect("query"))
-            .collect();
-        (nq as f64 / t.elapsed().as_secs_f64(), found)
+        let (secs, found, _) = timing::mean_secs(|| {
+            searcher
+                .answer_many(&queries, req)
+                .into_iter()
+                .map(|f| f.expect("query"))
+                .collect::<Vec<Found>>()
+        });
+        (nq as f64 / secs, found)
     };
     let summarise = |name: String, qps: f64, found: &[Found]| {
         let mut rec = 0.0;
