@@ -410,6 +410,10 @@ impl Run {
             *t = tally.key(p as usize, keys);
         }
         let n = part.len().min(LANES);
+        // The keys lie apart: their first lines are asked for at once, not one by one.
+        for t in &texts[..n] {
+            crate::cpu::prefetch(t.as_ptr());
+        }
         self.q.dist_batch(&texts[..n], &mut out[..n]);
         self.computed += n;
         for (&p, &d) in part.iter().zip(&out[..n]) {
