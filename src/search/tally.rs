@@ -21,9 +21,10 @@
 //! lies in its range, and each group reads the items of its own length first, then of
 //! lengths one further away, and so on, in chunks whose masks stay in cache while every
 //! query of the group is compared with them. An item is measured (the lane kernel,
-//! [`LevenshteinQuery::dist_batch`], or the bounded one) only when its bound is within the query's cap: the radius, or the `k`-th
-//! distance held. Collected items are measured in increasing bound, so that the cap falls
-//! early, and the rounds go on until every item whose bound is within the cap has been.
+//! [`LevenshteinQuery::dist_batch`], or the bounded one) only when its bound is within the
+//! query's cap: the radius, or the `k`-th distance held. Collected items are measured in
+//! increasing bound, so that the cap falls early, and the rounds go on until every item
+//! whose bound is within the cap has been.
 //!
 //! Where ties may be left out (the approximate default), the rounds after the first take
 //! one bound `b` at a time and fill: every item of a smaller bound has been measured, so
@@ -75,8 +76,8 @@ const TRIAL: u64 = 32;
 /// items on average: at 663,473 words typo queries measured 0.5%, where the many-query
 /// lanes measure 78% (reads by length) about 40 times faster per item.
 const PAYS_DIVISOR: u64 = 16;
-/// Bins of the char counts: 32 bytes an item. At 663,473 words, 1,000 typo queries, 32
-/// bins left half as many items to measure as 16.
+/// Bins of the char counts, each held as [`LEVELS`] marks. At 663,473 words, 1,000 typo
+/// queries, 32 bins left half as many items to measure as 16.
 const BINS: usize = 32;
 /// Largest text copied into the tally's own order (the keys of one length side by side, so
 /// that the items measured are read from nearby memory); a larger one is read in place.
@@ -1017,7 +1018,8 @@ mod tests {
                 in_reach_blocks(level, &blocks, &pairs, (lo, up), &last, &mut |b, mask, tiers| {
                     for l in 0..LANE {
                         if mask[l / 64] >> (l % 64) & 1 == 1 {
-                            let m: u32 = tiers.iter().map(|t| (t[l / 64] >> (l % 64) & 1) as u32).sum();
+                            let m: u32 =
+                                tiers.iter().map(|t| (t[l / 64] >> (l % 64) & 1) as u32).sum();
                             seen.push((b * LANE + l, m));
                         }
                     }
