@@ -69,7 +69,11 @@ fn py_err(e: Error) -> PyErr {
         Error::CorruptIndex { .. } | Error::IndexRefused { .. } => {
             CorruptIndexError::new_err(message)
         }
-        Error::Metric(_) => MetricFailedError::new_err(message),
+        // A distance of the user's own that failed; a side file or the metric's options
+        // that are wrong are bad input, as on the command line (exit code 2).
+        Error::Metric(MetricError::Custom { .. } | MetricError::Program { .. }) => {
+            MetricFailedError::new_err(message)
+        }
         _ => BadInputError::new_err(message),
     }
 }

@@ -77,6 +77,19 @@ def test_bad_option_values_name_the_option(tmp_path):
     assert not (tmp_path / "m.wmk").exists()
 
 
+def test_a_malformed_side_file_is_bad_input_with_its_line(tmp_path):
+    costs = tmp_path / "costs.txt"
+    costs.write_text("indel * 1.5\nsub A G cheap\n")
+    with pytest.raises(waymark.BadInputError, match=r"costs\.txt:2:"):
+        waymark.build(NAMES, tmp_path / "w.wmk", metric="weighted", costs=costs)
+    edges = tmp_path / "legs.txt"
+    edges.write_text("Vessa-Holbre Vessa-Kvikvi 10\nVessa-Tuha Vessa-Holbre\n")
+    with pytest.raises(waymark.BadInputError, match=r"legs\.txt:2:"):
+        waymark.build_file(edges, tmp_path / "g.wmk", metric="graph", dim=4)
+    assert not (tmp_path / "w.wmk").exists()
+    assert not (tmp_path / "g.wmk").exists()
+
+
 def test_an_empty_query_and_a_query_longer_than_every_item(tmp_path):
     index = waymark.build(NAMES, tmp_path / "q.wmk")
     # The empty string's distance to an item is the item's length.
