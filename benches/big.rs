@@ -45,6 +45,11 @@ mod reference;
 #[path = "common/timing.rs"]
 mod timing;
 
+/// One number from the environment, or `default` when it is unset, empty or not a number.
+fn env_one<T: std::str::FromStr>(name: &str, default: T) -> T {
+    env_list(name, "").into_iter().next().unwrap_or(default)
+}
+
 fn env_list<T: std::str::FromStr>(name: &str, default: &str) -> Vec<T> {
     std::env::var(name)
         .unwrap_or_else(|_| default.to_string())
@@ -94,16 +99,16 @@ fn main() {
         );
         return;
     }
-    let nq: usize = env_list("WAYMARK_BIG_QUERIES", "1000")[0];
+    let nq: usize = env_one("WAYMARK_BIG_QUERIES", 1000);
     let extra_c: Vec<usize> = env_list("WAYMARK_BIG_CANDIDATES", "2000");
     let visits: Vec<usize> = env_list("WAYMARK_BIG_VISIT", "8,32");
     let scan_c: Vec<usize> = env_list("WAYMARK_BIG_SCAN", "2000,4000");
-    let dim: usize = env_list("WAYMARK_BIG_DIM", &waymark::search::DEFAULT_DIM.to_string())[0];
+    let dim: usize = env_one("WAYMARK_BIG_DIM", waymark::search::DEFAULT_DIM);
     let k = 10;
     let corpus = read_corpus(&words, &IngestOptions::default()).expect("word list reads");
     let n = corpus.items.len();
     let raw_bytes = std::fs::metadata(&words).map(|m| m.len()).unwrap_or(0);
-    let seed: u64 = env_list("WAYMARK_BIG_SEED", "20261202")[0];
+    let seed: u64 = env_one("WAYMARK_BIG_SEED", 20261202);
     let queries = typo_queries(&corpus.items, nq, seed);
     println!(
         "word list {}: {n} items, {raw_bytes} bytes; {nq} typo queries (1-3 edits, seed {seed}); k = {k}; {} threads",
