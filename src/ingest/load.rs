@@ -265,12 +265,10 @@ fn load_vectors(path: &Path, norm: Norm, header: bool) -> Result<LoadedInput> {
 }
 
 /// The text of a side file or edge list, read within the memory budget as every other
-/// input (an endless device stops with an error); a line that ends with a lone carriage
-/// return is refused as in every input, as an input error ([`super::lone_cr_error`]: the
-/// Python package raises it as bad input, where a metric's error is a failed metric), and
-/// the rest is the library's reading of a side file ([`crate::metric::side_file_text`],
-/// which `Graph::from_path` and `CostTable::from_path` use, and which refuses the same CR
-/// with the same message: invalid UTF-8 is refused with its line).
+/// input (an endless device stops with an error), then checked as the library's readers
+/// check it ([`crate::metric::side_file_text`], which `Graph::from_path` and
+/// `CostTable::from_path` use): a line that ends with a lone carriage return and invalid
+/// UTF-8 are refused with their line.
 fn read_text(path: &Path) -> Result<String> {
     use std::io::Read;
     let name = path.display().to_string();
@@ -282,9 +280,6 @@ fn read_text(path: &Path) -> Result<String> {
     super::bounded(std::fs::File::open(path).map_err(io)?, &name)?
         .read_to_end(&mut bytes)
         .map_err(io)?;
-    if let Some((line, byte)) = super::first_lone_cr(&bytes) {
-        return Err(super::lone_cr_error(&name, line, byte).into());
-    }
     Ok(crate::metric::side_file_text(bytes, &name)?)
 }
 
